@@ -1,0 +1,1 @@
+//! equiscan: SO(3)-equivariant local descriptors for 3D scans.
