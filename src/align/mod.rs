@@ -1,0 +1,36 @@
+//! Registration with no initial guess: the rigid transform that carries one scan onto another.
+//!
+//! Conventions: a transform is a [`Rigid`] `p ↦ R p + t` mapping SOURCE coordinates into
+//! TARGET's frame. Internally both clouds are handled in their own f32 local frames (about their
+//! own f64 origins); [`Alignment::transform`] is re-expressed in the files' own coordinates in
+//! f64. Distances (voxel size, radii, RMSE) are in file units, usually metres. Angles in the
+//! results are in degrees.
+//!
+//! Pipeline ([`align_pair`]), one module per job:
+//! 1. [`prep`]: voxel-grid keypoints (voxel size from the measured spacing unless given), PCA
+//!    normals, a k-d tree;
+//! 2. features at the keypoints: the baseline FPFH ([`fpfh`]) or rotation-invariant harmonic
+//!    descriptors with their equivariant coefficients ([`equivariant`]);
+//! 3. [`matching`]: nearest neighbours in feature space, mutual check and ratio test;
+//! 4. [`consensus`]: pose hypotheses (3-point RANSAC for the baseline; one per correspondence
+//!    from the equivariant coefficients), scored by the correspondences they explain;
+//! 5. refinement of the best few on their inliers (weighted Umeyama), then point-to-plane
+//!    [`icp`] with a robust loss; the best refined pose wins;
+//! 6. [`quality`]: RMSE, overlap, consensus, ambiguity, a confidence figure and a verdict.
+//!
+//! [`multi`] registers more than two scans through a maximum spanning tree of pair confidences.
+//! Nothing here prints; every stage is deterministic for any number of threads.
+
+pub mod consensus;
+pub mod fpfh;
+pub mod icp;
+pub mod matching;
+pub mod pipeline;
+pub mod prep;
+pub mod quality;
+pub mod rigid;
+
+pub use icp::RobustLoss;
+pub use pipeline::{AlignParams, Alignment, Method, StageTime, align_pair};
+pub use quality::{Figures, Reason, Verdict};
+pub use rigid::{Rigid, horn, rotation_error_deg, umeyama};

@@ -1,0 +1,279 @@
+//! The pair pipeline: keypoints → features → correspondences → hypotheses → refinement → verdict.
+
+use std::time::Instant;
+
+use serde::{Deserialize, Serialize};
+
+use super::consensus::{self, Hypothesis, Pairs};
+use super::fpfh::{FPFH_LEN, fpfh};
+use super::icp::{IcpParams, RobustLoss, fit_quality, icp_point_to_plane};
+use super::matching::{MatchParams, match_features};
+use super::prep::{auto_voxel, prepare, spacing_of};
+use super::quality::{self, Figures, Verdict};
+use super::rigid::Rigid;
+use crate::cloud::Cloud;
+use crate::error::{Error, Result};
+
+/// How correspondences are described and turned into pose hypotheses.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Method {
+    /// Baseline: FPFH features and 3-point RANSAC.
+    Fpfh,
+}
+
+impl Method {
+    /// The method's name as used in reports and on the command line.
+    pub fn name(&self) -> &'static str {
+        match self {
+            Method::Fpfh => "fpfh",
+        }
+    }
+}
+
+/// Registration settings. Lengths in file units.
+#[derive(Debug, Clone, Copy)]
+pub struct AlignParams {
+    /// Feature and hypothesis method.
+    pub method: Method,
+    /// Voxel size for keypoints; `None` chooses it from the clouds' size and spacing.
+    pub voxel: Option<f64>,
+    /// Support radius of the features; `None` uses [`RADIUS_PER_VOXEL`] voxel sizes.
+    pub radius: Option<f64>,
+    /// Inlier threshold in voxel sizes.
+    pub inlier_voxels: f64,
+    /// RANSAC iterations (baseline method).
+    pub ransac_iterations: usize,
+    /// Best distinct hypotheses refined by ICP.
+    pub refine_best: usize,
+    /// Robust loss of the ICP stage.
+    pub loss: RobustLoss,
+    /// Seed of every random choice (the run is deterministic for a given seed).
+    pub seed: u64,
+}
+
+/// Default support radius of the features, in voxel sizes.
+pub const RADIUS_PER_VOXEL: f64 = 5.0;
+
+impl Default for AlignParams {
+    fn default() -> Self {
+        AlignParams {
+            method: Method::Fpfh,
+            voxel: None,
+            radius: None,
+            inlier_voxels: 2.5,
+            ransac_iterations: 20_000,
+            refine_best: 5,
+            loss: RobustLoss::Tukey,
+            seed: 1,
+        }
+    }
+}
+
+/// Wall time of one stage.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct StageTime {
+    /// Stage name.
+    pub stage: String,
+    /// Seconds.
+    pub seconds: f64,
+}
+
+/// The result of aligning SOURCE onto TARGET.
+#[derive(Debug, Clone)]
+pub struct Alignment {
+    /// Maps SOURCE file coordinates into TARGET file coordinates.
+    pub transform: Rigid,
+    /// The same transform between the clouds' local frames.
+    pub local: Rigid,
+    /// Quality figures.
+    pub figures: Figures,
+    /// The plain outcome.
+    pub verdict: Verdict,
+    /// Voxel size used.
+    pub voxel: f64,
+    /// Feature support radius used.
+    pub radius: f64,
+    /// Inlier threshold used.
+    pub inlier_threshold: f64,
+    /// Keypoints in SOURCE and TARGET.
+    pub keypoints: [usize; 2],
+    /// ICP iterations of the winning pose.
+    pub icp_iterations: usize,
+    /// Time per stage, in pipeline order.
+    pub timings: Vec<StageTime>,
+}
+
+struct Clock {
+    last: Instant,
+    stages: Vec<StageTime>,
+}
+
+impl Clock {
+    fn new() -> Self {
+        Clock {
+            last: Instant::now(),
+            stages: Vec::new(),
+        }
+    }
+    fn lap(&mut self, stage: &str) {
+        let now = Instant::now();
+        self.stages.push(StageTime {
+            stage: stage.to_string(),
+            seconds: (now - self.last).as_secs_f64(),
+        });
+        self.last = now;
+    }
+}
+
+/// Features at the keypoints of both clouds, as rows of equal length.
+struct FeatureRows {
+    dim: usize,
+    source: Vec<f32>,
+    target: Vec<f32>,
+}
+
+/// Aligns `source` onto `target` with no initial guess.
+pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Result<Alignment> {
+    let mut clock = Clock::new();
+    let voxel = match params.voxel {
+        Some(v) if v > 0.0 && v.is_finite() => v,
+        Some(v) => {
+            return Err(Error::invalid(
+                format!("voxel size {v} is not a positive number"),
+                "give a voxel size in file units, e.g. 0.05",
+            ));
+        }
+        None => {
+            let (ss, st) = rayon::join(
+                || spacing_of("source", &source.positions),
+                || spacing_of("target", &target.positions),
+            );
+            auto_voxel(source.len(), ss?).max(auto_voxel(target.len(), st?))
+        }
+    };
+    let radius = params.radius.unwrap_or(RADIUS_PER_VOXEL * voxel);
+    if !(radius > voxel) {
+        return Err(Error::invalid(
+            format!("support radius {radius} is not larger than the voxel size {voxel}"),
+            "give a support radius of several voxel sizes",
+        ));
+    }
+    let tau = params.inlier_voxels * voxel;
+    let (ps, pt) = rayon::join(
+        || prepare("source", &source.positions, voxel),
+        || prepare("target", &target.positions, voxel),
+    );
+    let (ps, pt) = (ps?, pt?);
+    clock.lap("keypoints and normals");
+
+    let rows = match params.method {
+        Method::Fpfh => {
+            let (a, b) = rayon::join(
+                || fpfh(&ps.points, &ps.normals, &ps.index, radius as f32),
+                || fpfh(&pt.points, &pt.normals, &pt.index, radius as f32),
+            );
+            FeatureRows {
+                dim: FPFH_LEN,
+                source: a,
+                target: b,
+            }
+        }
+    };
+    clock.lap("features");
+
+    let corr = match_features(
+        &rows.source,
+        &rows.target,
+        rows.dim,
+        &MatchParams {
+            max_ratio: 0.9,
+            mutual: true,
+            min_keep: 300,
+            max_keep: 3000,
+        },
+    );
+    let pairs = Pairs::new(&ps.points, &pt.points, &corr);
+    clock.lap("matching");
+
+    let hyps: Vec<Hypothesis> = match params.method {
+        Method::Fpfh => consensus::ransac(&pairs, tau, params.ransac_iterations, params.seed),
+    };
+    let best = consensus::best_distinct(hyps, params.refine_best, 10.0, 5.0 * tau);
+    clock.lap("hypotheses");
+
+    let refined: Vec<Hypothesis> = best
+        .iter()
+        .map(|h| consensus::refine_on_inliers(&pairs, &h.transform, tau, 4))
+        .collect();
+    let icp = IcpParams {
+        max_distance: 2.0 * tau,
+        min_scale: 0.05 * voxel,
+        loss: params.loss,
+        max_iterations: 60,
+        tolerance: 1e-7,
+    };
+    let polished: Vec<(Rigid, f64, usize)> = refined
+        .iter()
+        .map(|h| {
+            let out = icp_point_to_plane(
+                &ps.points,
+                &pt.points,
+                &pt.normals,
+                &pt.index,
+                &h.transform,
+                &icp,
+            );
+            let (_, n) = fit_quality(&ps.points, &pt.index, &out.transform, tau);
+            (
+                out.transform,
+                n as f64 / ps.points.len() as f64,
+                out.iterations,
+            )
+        })
+        .collect();
+    clock.lap("refinement");
+
+    let (local, overlap, icp_iterations) = polished
+        .iter()
+        .copied()
+        .enumerate()
+        .max_by(|a, b| a.1.1.total_cmp(&b.1.1).then(b.0.cmp(&a.0)))
+        .map(|(_, x)| x)
+        .unwrap_or((Rigid::identity(), 0.0, 0));
+    let rival = polished
+        .iter()
+        .filter(|p| !consensus::same_pose(&p.0, &local, 10.0, 5.0 * tau))
+        .map(|p| p.1)
+        .fold(0.0f64, f64::max);
+    let margin = if overlap > 0.0 {
+        (1.0 - rival / overlap).max(0.0)
+    } else {
+        0.0
+    };
+    let (rmse, _) = fit_quality(&ps.points, &pt.index, &local, tau);
+    let inliers = pairs.support(&local, tau);
+    let mut figures = Figures {
+        rmse,
+        overlap,
+        correspondences: corr.len(),
+        inliers,
+        margin,
+        confidence: 0.0,
+    };
+    figures.confidence = quality::confidence(inliers, overlap, margin);
+    let verdict = quality::verdict(&figures);
+    clock.lap("verdict");
+    Ok(Alignment {
+        transform: local.between_origins(source.origin, target.origin),
+        local,
+        figures,
+        verdict,
+        voxel,
+        radius,
+        inlier_threshold: tau,
+        keypoints: [ps.points.len(), pt.points.len()],
+        icp_iterations,
+        timings: clock.stages,
+    })
+}

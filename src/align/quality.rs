@@ -1,0 +1,127 @@
+//! Quality figures of an alignment, the confidence figure and the verdict.
+//!
+//! - *consensus*: correspondences explained by the final transform (within the inlier threshold);
+//! - *overlap*: fraction of source keypoints with a target keypoint within the inlier threshold;
+//! - *margin*: `1 − s₂/s₁`, where `s₁` is the overlap of the winning pose and `s₂` the best
+//!   overlap of a clearly different pose (another rotation by more than 10° or a shift by more
+//!   than 5 inlier thresholds); near 0 for symmetric shapes.
+//!
+//! confidence = `(1 − e^(−consensus/10)) · min(1, overlap/0.25) · min(1, margin/0.25)`, in [0, 1].
+//! The verdict is confident when consensus ≥ [`MIN_CONSENSUS`], overlap ≥ [`MIN_OVERLAP`] and
+//! margin ≥ [`MIN_MARGIN`]; otherwise it names the first condition that failed.
+
+use serde::{Deserialize, Serialize};
+
+/// Fewest correspondences the final pose must explain.
+pub const MIN_CONSENSUS: usize = 10;
+/// Smallest overlap fraction accepted.
+pub const MIN_OVERLAP: f64 = 0.08;
+/// Smallest margin over a clearly different pose.
+pub const MIN_MARGIN: f64 = 0.1;
+
+/// Why no confident alignment was found.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Reason {
+    /// Too few keypoints matched distinctively, or too few of the matches agree on one pose.
+    TooFewDistinctivePoints,
+    /// The best pose leaves too little of the source on the target.
+    TooLittleOverlap,
+    /// A clearly different pose fits almost as well (symmetric or repetitive shape).
+    AmbiguousSymmetricShape,
+}
+
+impl Reason {
+    /// A sentence for people.
+    pub fn explain(&self) -> &'static str {
+        match self {
+            Reason::TooFewDistinctivePoints => {
+                "too few distinctive points agree on one pose; give scans with more overlap or a larger support radius"
+            }
+            Reason::TooLittleOverlap => {
+                "too little overlap between the scans after the best pose; check that they show the same place"
+            }
+            Reason::AmbiguousSymmetricShape => {
+                "the shape is symmetric or repetitive: a clearly different pose fits almost as well"
+            }
+        }
+    }
+}
+
+/// The plain outcome.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case", tag = "outcome", content = "reason")]
+pub enum Verdict {
+    /// The transform is supported by the figures.
+    Confident,
+    /// No confident alignment; why.
+    NotFound(Reason),
+}
+
+/// Figures behind the verdict.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct Figures {
+    /// RMSE of source-keypoint to nearest-target-keypoint distances within the inlier threshold.
+    pub rmse: f64,
+    /// Fraction of source keypoints within the inlier threshold of the target.
+    pub overlap: f64,
+    /// Correspondences found in feature space.
+    pub correspondences: usize,
+    /// Correspondences explained by the final transform.
+    pub inliers: usize,
+    /// `1 − (best overlap of a clearly different pose) / overlap`.
+    pub margin: f64,
+    /// Confidence figure in [0, 1].
+    pub confidence: f64,
+}
+
+/// Confidence from consensus, overlap and margin (formula in the module docs).
+pub fn confidence(inliers: usize, overlap: f64, margin: f64) -> f64 {
+    let s = 1.0 - (-(inliers as f64) / 10.0).exp();
+    s * (overlap / 0.25).clamp(0.0, 1.0) * (margin / 0.25).clamp(0.0, 1.0)
+}
+
+/// The verdict for a set of figures.
+pub fn verdict(f: &Figures) -> Verdict {
+    if f.inliers < MIN_CONSENSUS {
+        Verdict::NotFound(Reason::TooFewDistinctivePoints)
+    } else if !(f.overlap >= MIN_OVERLAP) {
+        Verdict::NotFound(Reason::TooLittleOverlap)
+    } else if !(f.margin >= MIN_MARGIN) {
+        Verdict::NotFound(Reason::AmbiguousSymmetricShape)
+    } else {
+        Verdict::Confident
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn verdict_names_the_first_failed_condition() {
+        let mut f = Figures {
+            rmse: 0.01,
+            overlap: 0.5,
+            correspondences: 200,
+            inliers: 40,
+            margin: 0.6,
+            confidence: 0.0,
+        };
+        assert_eq!(verdict(&f), Verdict::Confident);
+        f.margin = 0.05;
+        assert_eq!(
+            verdict(&f),
+            Verdict::NotFound(Reason::AmbiguousSymmetricShape)
+        );
+        f.overlap = 0.01;
+        assert_eq!(verdict(&f), Verdict::NotFound(Reason::TooLittleOverlap));
+        f.inliers = 3;
+        assert_eq!(
+            verdict(&f),
+            Verdict::NotFound(Reason::TooFewDistinctivePoints)
+        );
+        assert!(confidence(40, 0.5, 0.6) > 0.98);
+        assert!(confidence(40, 0.5, 0.0) == 0.0);
+    }
+}
