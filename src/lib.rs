@@ -8,6 +8,7 @@
 
 pub mod cloud;
 pub mod error;
+pub mod io;
 
 pub use cloud::Cloud;
 pub use error::{Error, Result};
