@@ -1090,7 +1090,9 @@ pub fn write_ply(path: &Path, cloud: &Cloud, columns: &[Column<'_>]) -> Result<(
         let mut rec = Vec::with_capacity(64 + 4 * columns.len());
         for i in 0..cloud.len() {
             rec.clear();
-            for g in cloud.global(i) {
+            for (o, l) in cloud.origin.iter().zip(cloud.positions[i]) {
+                // With a zero origin the f32 value itself is written (keeps -0.0).
+                let g = if *o == 0.0 { l as f64 } else { o + l as f64 };
                 rec.extend_from_slice(&g.to_le_bytes());
             }
             if let Some(n) = &cloud.normals {
