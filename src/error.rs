@@ -55,7 +55,7 @@ impl Error {
                 "copy or export the file again",
             ),
             _ => (
-                format!("{}", lowercase_first(&err.to_string())),
+                lowercase_first(&err.to_string()),
                 "check the path, the disk and the permissions",
             ),
         };
