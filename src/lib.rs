@@ -7,6 +7,7 @@
 #![deny(missing_docs)]
 
 pub mod cloud;
+pub mod descriptor;
 pub mod error;
 pub mod io;
 pub mod so3;
