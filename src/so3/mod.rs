@@ -12,6 +12,9 @@
 //! [`rotation`] (parametrisations, random rotations, grids), [`search`] (best rotation between
 //! two expansions), [`rng`] (seeded generator), [`float`] (the scalar trait).
 
+pub mod coupling;
 pub mod float;
 pub mod rng;
+pub mod rotation;
 pub mod sh;
+pub mod wigner;

@@ -1,0 +1,460 @@
+//! [`Engine`]: computes coefficients and invariants for many centres in parallel.
+
+use rayon::prelude::*;
+
+use crate::cloud::Cloud;
+use crate::error::{Error, Result};
+use crate::so3::sh::{num_coeffs, real_sh_f32};
+use crate::spatial::{KdIndex, voxel_downsample};
+
+use super::flags;
+use super::invariants::InvariantPlan;
+use super::radial::{cutoff, gaussian_shells};
+use super::recipe::Recipe;
+
+/// Centres handled per parallel task (and per progress update).
+const CHUNK: usize = 256;
+
+/// The tree is queried a hair beyond the largest radius, so that every point whose distance,
+/// computed here as `dx² + dy² + dz²` in f32, is within the radius is found whatever rounding
+/// the tree's own distance takes; the radius test itself is made on our distance.
+const QUERY_SLACK: f32 = 1.0 + 1e-5;
+
+/// Which points of a cloud to compute descriptors at.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Centres {
+    /// Every point of the cloud.
+    All,
+    /// One point per occupied voxel of this edge length (file units), the point nearest to the
+    /// mean of the voxel's points ([`crate::spatial::voxel_downsample`]); ascending indices.
+    Voxel(f32),
+    /// The points at these indices, in this order.
+    Indices(Vec<usize>),
+}
+
+/// Descriptors of a set of centres: invariants, counts, flags and (optionally) coefficients.
+///
+/// Row `i` belongs to centre `i`. All matrices are row-major `f32`.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Features {
+    /// The recipe the descriptors were computed with.
+    pub recipe: Recipe,
+    /// Centre positions in the cloud's local frame (file units, about the cloud's origin).
+    pub positions: Vec<[f32; 3]>,
+    /// Centre point indices into the cloud, when the centres are cloud points.
+    pub indices: Option<Vec<usize>>,
+    /// Invariant column names ([`Recipe::column_names`]).
+    pub columns: Vec<String>,
+    /// Invariants, `len() × columns.len()`, row-major.
+    pub values: Vec<f32>,
+    /// Neighbours used per centre and scale (`0 < |q − p| ≤ r`, after the cap), `len() × scales`.
+    pub counts: Vec<u32>,
+    /// [`flags`] bits per centre and scale, `len() × scales`.
+    pub flags: Vec<u8>,
+    /// Equivariant coefficients when the recipe keeps them: `len() × scales × N × (L+1)²`, layout
+    /// `[centre][scale][n][l² + l + m]`.
+    pub coefficients: Option<Vec<f32>>,
+}
+
+impl Features {
+    /// Number of centres (rows).
+    pub fn len(&self) -> usize {
+        self.positions.len()
+    }
+
+    /// True when there is no centre.
+    pub fn is_empty(&self) -> bool {
+        self.positions.is_empty()
+    }
+
+    /// The invariants of centre `i`.
+    pub fn row(&self, i: usize) -> &[f32] {
+        let c = self.columns.len();
+        &self.values[i * c..(i + 1) * c]
+    }
+
+    /// Neighbour count of centre `i` at scale `s`.
+    pub fn count(&self, i: usize, s: usize) -> u32 {
+        self.counts[i * self.recipe.scales() + s]
+    }
+
+    /// Flags of centre `i` at scale `s`.
+    pub fn flag(&self, i: usize, s: usize) -> u8 {
+        self.flags[i * self.recipe.scales() + s]
+    }
+
+    /// The coefficients of centre `i` at scale `s`, layout `[n][l² + l + m]`; `None` when the
+    /// recipe does not keep them.
+    pub fn coefficients_of(&self, i: usize, s: usize) -> Option<&[f32]> {
+        let k = self.recipe.coefficients_per_scale();
+        let at = (i * self.recipe.scales() + s) * k;
+        self.coefficients.as_ref().map(|c| &c[at..at + k])
+    }
+}
+
+/// The descriptor engine: a validated [`Recipe`] with its precomputed constants, shared by all
+/// worker threads. Build once, then compute any number of times.
+///
+/// Conventions (see the crate's design, "the descriptor, exactly", version 1): neighbours of a
+/// centre `p` are the points with `0 < |q − p| ≤ r`, distances computed in f32 on local
+/// positions; `W = 1 + Σ f_c(ρ) + (points coinciding with p, other than the centre)`, where a
+/// centre position that coincides with one or more cloud points is taken to be one of them (so
+/// a cloud point used as centre and the same position given as [`Engine::compute_at`] agree);
+/// `c_nlm = Σ g_n f_c Y_lm / W`. Sums run over the neighbours in ascending point index, so the
+/// result does not depend on the tree's visiting order or on the number of threads.
+#[derive(Debug)]
+pub struct Engine {
+    recipe: Recipe,
+    columns: Vec<String>,
+    plan: InvariantPlan,
+}
+
+/// Scratch space of one worker, reused for every centre of its tasks.
+struct Scratch {
+    ids: Vec<u32>,
+    /// Offset `q − p` and squared distance of each gathered neighbour, ascending index.
+    nb: Vec<([f32; 3], f32)>,
+    /// Selected neighbours (positions in `nb`) when a cap applies.
+    sel: Vec<u32>,
+    g: Vec<f32>,
+    y: Vec<f32>,
+    acc: Vec<f32>,
+}
+
+impl Engine {
+    /// Builds the engine (coupling table, column layout) for a recipe.
+    pub fn new(recipe: Recipe) -> Engine {
+        let plan = InvariantPlan::new(recipe.shells(), recipe.degree(), recipe.invariants());
+        Engine {
+            columns: recipe.column_names(),
+            recipe,
+            plan,
+        }
+    }
+
+    /// The recipe.
+    pub fn recipe(&self) -> &Recipe {
+        &self.recipe
+    }
+
+    /// Invariant column names.
+    pub fn columns(&self) -> &[String] {
+        &self.columns
+    }
+
+    /// Descriptors of a cloud at the given centres; builds the k-d tree itself.
+    pub fn compute(&self, cloud: &Cloud, centres: &Centres) -> Result<Features> {
+        cloud.validate()?;
+        let index = KdIndex::new(&cloud.positions)?;
+        self.compute_with_index(&cloud.positions, &index, centres, None)
+    }
+
+    /// Descriptors at centres that are points of `points`, with a prebuilt `index` over the same
+    /// `points`. `progress`, when given, is called with the number of centres finished after each
+    /// chunk of work (from worker threads).
+    pub fn compute_with_index(
+        &self,
+        points: &[[f32; 3]],
+        index: &KdIndex,
+        centres: &Centres,
+        progress: Option<&(dyn Fn(usize) + Sync)>,
+    ) -> Result<Features> {
+        check_index(points, index)?;
+        let indices: Vec<usize> = match centres {
+            Centres::All => (0..points.len()).collect(),
+            Centres::Voxel(v) => {
+                if !(v.is_finite() && *v > 0.0) {
+                    return Err(Error::invalid(
+                        format!("voxel size {v} is not a finite number greater than 0"),
+                        "give a voxel size such as 0.05 (file units)",
+                    ));
+                }
+                voxel_downsample(points, *v)
+            }
+            Centres::Indices(ix) => {
+                if let Some(&bad) = ix.iter().find(|&&i| i >= points.len()) {
+                    return Err(Error::invalid(
+                        format!(
+                            "centre index {bad} is beyond the cloud's {} points",
+                            points.len()
+                        ),
+                        "give indices from 0 to the number of points minus 1",
+                    ));
+                }
+                ix.clone()
+            }
+        };
+        let positions: Vec<[f32; 3]> = indices.iter().map(|&i| points[i]).collect();
+        let mut f = self.run(points, index, positions, progress);
+        f.indices = Some(indices);
+        Ok(f)
+    }
+
+    /// Descriptors at arbitrary centre positions (local frame of `points`), with `index` built
+    /// over `points`. Centres need not be points of the cloud. This is the entry point for
+    /// registration: keep the coefficients in the recipe to get the equivariant part.
+    ///
+    /// # Panics
+    /// If `index` was not built over `points` (different lengths).
+    pub fn compute_at(
+        &self,
+        points: &[[f32; 3]],
+        index: &KdIndex,
+        centres: &[[f32; 3]],
+    ) -> Features {
+        check_index(points, index).expect("compute_at: the index must be built over the points");
+        self.run(points, index, centres.to_vec(), None)
+    }
+
+    fn scratch(&self) -> Scratch {
+        let nk = num_coeffs(self.recipe.degree());
+        Scratch {
+            ids: Vec::with_capacity(256),
+            nb: Vec::with_capacity(256),
+            sel: Vec::new(),
+            g: vec![0.0; self.recipe.shells()],
+            y: vec![0.0; nk],
+            acc: vec![0.0; self.recipe.shells() * nk],
+        }
+    }
+
+    fn run(
+        &self,
+        points: &[[f32; 3]],
+        index: &KdIndex,
+        positions: Vec<[f32; 3]>,
+        progress: Option<&(dyn Fn(usize) + Sync)>,
+    ) -> Features {
+        let rows = positions.len();
+        let ns = self.recipe.scales();
+        let nc = self.columns.len();
+        let kc = self.recipe.coefficients_per_scale();
+        let keep = self.recipe.keep_coefficients();
+        let mut values = vec![0.0f32; rows * nc];
+        let mut counts = vec![0u32; rows * ns];
+        let mut flag_bits = vec![0u8; rows * ns];
+        let mut coeffs = if keep {
+            vec![0.0f32; rows * ns * kc]
+        } else {
+            Vec::new()
+        };
+        {
+            // Split every output into per-chunk slices, then hand the chunks to the pool.
+            let mut v_it = values.chunks_mut(CHUNK * nc.max(1));
+            let mut c_it = counts.chunks_mut(CHUNK * ns);
+            let mut f_it = flag_bits.chunks_mut(CHUNK * ns);
+            let mut k_it = coeffs.chunks_mut(CHUNK * ns * kc);
+            let mut tasks = Vec::with_capacity(rows.div_ceil(CHUNK));
+            for p in positions.chunks(CHUNK) {
+                let v = if nc > 0 {
+                    v_it.next().unwrap_or_default()
+                } else {
+                    &mut [][..]
+                };
+                let c = c_it.next().expect("one count chunk per centre chunk");
+                let f = f_it.next().expect("one flag chunk per centre chunk");
+                let k = if keep { k_it.next() } else { None };
+                tasks.push((p, v, c, f, k));
+            }
+            tasks.into_par_iter().for_each_init(
+                || self.scratch(),
+                |s, (p, v, c, f, mut k)| {
+                    for (i, centre) in p.iter().enumerate() {
+                        let kc_row = k
+                            .as_deref_mut()
+                            .map(|k| &mut k[i * ns * kc..(i + 1) * ns * kc]);
+                        self.centre(
+                            points,
+                            index,
+                            *centre,
+                            s,
+                            &mut v[i * nc..(i + 1) * nc],
+                            &mut c[i * ns..(i + 1) * ns],
+                            &mut f[i * ns..(i + 1) * ns],
+                            kc_row,
+                        );
+                    }
+                    if let Some(cb) = progress {
+                        cb(p.len());
+                    }
+                },
+            );
+        }
+        Features {
+            recipe: self.recipe.clone(),
+            positions,
+            indices: None,
+            columns: self.columns.clone(),
+            values,
+            counts,
+            flags: flag_bits,
+            coefficients: keep.then_some(coeffs),
+        }
+    }
+
+    /// One centre, all scales.
+    #[allow(clippy::too_many_arguments)]
+    fn centre(
+        &self,
+        points: &[[f32; 3]],
+        index: &KdIndex,
+        p: [f32; 3],
+        s: &mut Scratch,
+        values: &mut [f32],
+        counts: &mut [u32],
+        flag_out: &mut [u8],
+        mut coeffs: Option<&mut [f32]>,
+    ) {
+        let radii = self.recipe.radii();
+        let r_max = radii.iter().copied().fold(0.0f32, f32::max);
+        s.ids.clear();
+        let ids = &mut s.ids;
+        index.for_each_within(p, r_max * QUERY_SLACK, |i, _| ids.push(i as u32));
+        s.ids.sort_unstable();
+        s.nb.clear();
+        for &i in &s.ids {
+            let q = points[i as usize];
+            let d = [q[0] - p[0], q[1] - p[1], q[2] - p[2]];
+            let d2 = d[0] * d[0] + d[1] * d[1] + d[2] * d[2];
+            s.nb.push((d, d2));
+        }
+        let per_scale = self.recipe.invariants_per_scale();
+        let kc = self.recipe.coefficients_per_scale();
+        for (si, &r) in radii.iter().enumerate() {
+            let (count, fl) = self.accumulate(s, r);
+            counts[si] = count;
+            flag_out[si] = fl;
+            self.plan
+                .compute(&s.acc, &mut values[si * per_scale..(si + 1) * per_scale]);
+            if let Some(k) = coeffs.as_deref_mut() {
+                k[si * kc..(si + 1) * kc].copy_from_slice(&s.acc);
+            }
+        }
+    }
+
+    /// Fills `s.acc` with the normalised coefficients `c[n][l² + l + m]` of radius `r` from the
+    /// gathered neighbours `s.nb`; returns the neighbour count and the flags.
+    fn accumulate(&self, s: &mut Scratch, r: f32) -> (u32, u8) {
+        let r2 = r * r;
+        let n_sh = self.recipe.shells();
+        let l_max = self.recipe.degree();
+        let nk = num_coeffs(l_max);
+        let mut fl = 0u8;
+        let mut zeros = 0u32;
+        s.sel.clear();
+        for (j, &(_, d2)) in s.nb.iter().enumerate() {
+            if d2 > r2 {
+                continue;
+            }
+            if d2 == 0.0 {
+                zeros += 1;
+            } else {
+                s.sel.push(j as u32);
+            }
+        }
+        if let Some(cap) = self.recipe.max_neighbours()
+            && s.sel.len() > cap
+        {
+            // K nearest, ties by point index (positions in `nb` follow the index order).
+            let nb = &s.nb;
+            let key = |&j: &u32| (nb[j as usize].1, j);
+            s.sel.select_nth_unstable_by(cap - 1, |a, b| {
+                let (da, ja) = key(a);
+                let (db, jb) = key(b);
+                da.total_cmp(&db).then(ja.cmp(&jb))
+            });
+            s.sel.truncate(cap);
+            s.sel.sort_unstable();
+            fl |= flags::CAPPED;
+        }
+        let coincident = zeros.saturating_sub(1);
+        if coincident > 0 {
+            fl |= flags::COINCIDENT;
+        }
+        s.acc.fill(0.0);
+        let mut wsum = 0.0f32;
+        // Unweighted first and second moments of the offsets, for the shape flags.
+        let mut m1 = [0.0f32; 3];
+        let mut m2 = [0.0f32; 6];
+        let inv_r = 1.0 / r;
+        let scale_t = n_sh as f32;
+        for &j in &s.sel {
+            let (d, d2) = s.nb[j as usize];
+            let dist = d2.sqrt();
+            let rho = (dist * inv_r).min(1.0);
+            let fc = cutoff(rho);
+            gaussian_shells(rho * scale_t, &mut s.g);
+            let inv = 1.0 / dist;
+            real_sh_f32(l_max, [d[0] * inv, d[1] * inv, d[2] * inv], &mut s.y);
+            for (row, &g) in s.acc.chunks_exact_mut(nk).zip(&s.g) {
+                let w = g * fc;
+                for (a, &y) in row.iter_mut().zip(&s.y) {
+                    *a += w * y;
+                }
+            }
+            wsum += fc;
+            for k in 0..3 {
+                m1[k] += d[k];
+            }
+            m2[0] += d[0] * d[0];
+            m2[1] += d[0] * d[1];
+            m2[2] += d[0] * d[2];
+            m2[3] += d[1] * d[1];
+            m2[4] += d[1] * d[2];
+            m2[5] += d[2] * d[2];
+        }
+        let count = s.sel.len() as u32;
+        let w = 1.0 + wsum + coincident as f32;
+        for a in s.acc.iter_mut() {
+            *a /= w;
+        }
+        fl |= shape_flags(count, m1, m2);
+        (count, fl)
+    }
+}
+
+/// Flags from the neighbour count and the offsets' moments (see [`flags`]).
+fn shape_flags(count: u32, m1: [f32; 3], m2: [f32; 6]) -> u8 {
+    let mut fl = 0;
+    if count == 0 {
+        return flags::NO_NEIGHBOUR | flags::FEW_NEIGHBOURS;
+    }
+    if count < 3 {
+        fl |= flags::FEW_NEIGHBOURS;
+    }
+    let n = count as f64;
+    let mean = m1.map(|v| v as f64 / n);
+    let c = |k: usize, a: usize, b: usize| m2[k] as f64 / n - mean[a] * mean[b];
+    let (xx, xy, xz, yy, yz, zz) = (
+        c(0, 0, 0),
+        c(1, 0, 1),
+        c(2, 0, 2),
+        c(3, 1, 1),
+        c(4, 1, 2),
+        c(5, 2, 2),
+    );
+    let t = (xx + yy + zz).max(0.0);
+    // Sum of the principal 2×2 minors (λ1λ2 + λ1λ3 + λ2λ3) and the determinant (λ1λ2λ3).
+    let minors = xx * yy - xy * xy + xx * zz - xz * xz + yy * zz - yz * yz;
+    let det = xx * (yy * zz - yz * yz) - xy * (xy * zz - yz * xz) + xz * (xy * yz - yy * xz);
+    if minors <= flags::SHAPE_TOLERANCE * t * t {
+        fl |= flags::LINEAR | flags::PLANAR;
+    } else if det <= flags::SHAPE_TOLERANCE * t * t * t {
+        fl |= flags::PLANAR;
+    }
+    fl
+}
+
+fn check_index(points: &[[f32; 3]], index: &KdIndex) -> Result<()> {
+    if index.len() != points.len() {
+        return Err(Error::invalid(
+            format!(
+                "the k-d index holds {} points but the cloud has {}",
+                index.len(),
+                points.len()
+            ),
+            "build the index over the same points",
+        ));
+    }
+    Ok(())
+}
