@@ -16,7 +16,9 @@ use serde_json::Value;
 use std::f64::consts::PI;
 
 fn fixture(name: &str) -> Value {
-    let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/data/so3").join(name);
+    let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("tests/data/so3")
+        .join(name);
     let text = std::fs::read_to_string(&path).expect("fixture file");
     serde_json::from_str(&text).expect("fixture JSON")
 }
@@ -44,14 +46,34 @@ fn sh_match_scipy_sph_harm_y() {
     let mut y64 = vec![0.0; nc];
     let mut y32 = vec![0.0f32; nc];
     for (d, row) in dirs.iter().enumerate() {
-        let u: Vec<f64> = row["u"].as_array().unwrap().iter().map(|v| v.as_f64().unwrap()).collect();
-        let want: Vec<f64> = row["y"].as_array().unwrap().iter().map(|v| v.as_f64().unwrap()).collect();
+        let u: Vec<f64> = row["u"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|v| v.as_f64().unwrap())
+            .collect();
+        let want: Vec<f64> = row["y"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|v| v.as_f64().unwrap())
+            .collect();
         assert_eq!(want.len(), nc);
         real_sh_f64(l_max, [u[0], u[1], u[2]], &mut y64);
         real_sh_f32(l_max, [u[0] as f32, u[1] as f32, u[2] as f32], &mut y32);
         for k in 0..nc {
-            assert!((y64[k] - want[k]).abs() < 1e-12, "direction {d}, k={k}: {} vs scipy {}", y64[k], want[k]);
-            assert!((y32[k] as f64 - want[k]).abs() < 1e-5, "f32 direction {d}, k={k}: {} vs scipy {}", y32[k], want[k]);
+            assert!(
+                (y64[k] - want[k]).abs() < 1e-12,
+                "direction {d}, k={k}: {} vs scipy {}",
+                y64[k],
+                want[k]
+            );
+            assert!(
+                (y32[k] as f64 - want[k]).abs() < 1e-5,
+                "f32 direction {d}, k={k}: {} vs scipy {}",
+                y32[k],
+                want[k]
+            );
         }
     }
 }
@@ -85,7 +107,11 @@ fn sh_closed_forms_degrees_0_to_3() {
             (3, 3, 0.5900436 * x * (x * x - 3.0 * yy * yy)),
         ];
         for (l, m, v) in table {
-            assert!((y[index(l, m)] - v).abs() < 3e-7, "Y_{l},{m}: {} vs table {v}", y[index(l, m)]);
+            assert!(
+                (y[index(l, m)] - v).abs() < 3e-7,
+                "Y_{l},{m}: {} vs table {v}",
+                y[index(l, m)]
+            );
         }
     }
 }
@@ -123,7 +149,7 @@ fn sh_orthonormal_by_exact_quadrature() {
     let gl = gauss_legendre(14);
     // the rule itself: ∫ z^k dz = 2/(k+1) for even k ≤ 26 (elementary)
     for k in (0..=26).step_by(2) {
-        let s: f64 = gl.iter().map(|(x, w)| w * x.powi(k as i32)).sum();
+        let s: f64 = gl.iter().map(|(x, w)| w * x.powi(k)).sum();
         assert!((s - 2.0 / (k as f64 + 1.0)).abs() < 1e-13, "k={k}");
     }
     let l_max = 12;
@@ -147,7 +173,11 @@ fn sh_orthonormal_by_exact_quadrature() {
     for a in 0..nc {
         for b in 0..nc {
             let want = if a == b { 1.0 } else { 0.0 };
-            assert!((gram[a * nc + b] - want).abs() < 1e-12, "({a},{b}): {}", gram[a * nc + b]);
+            assert!(
+                (gram[a * nc + b] - want).abs() < 1e-12,
+                "({a},{b}): {}",
+                gram[a * nc + b]
+            );
         }
     }
 }
@@ -192,7 +222,10 @@ fn cg_match_pdg_table() {
     ];
     for ((j1, m1, j2, m2, j, m), want) in cases {
         let v = complex_cg(j1, m1, j2, m2, j, m);
-        assert!((v - want).abs() < 1e-14, "<{j1} {m1}; {j2} {m2} | {j} {m}> = {v}, PDG {want}");
+        assert!(
+            (v - want).abs() < 1e-14,
+            "<{j1} {m1}; {j2} {m2} | {j} {m}> = {v}, PDG {want}"
+        );
     }
 }
 
@@ -205,8 +238,20 @@ fn cg_match_sympy() {
     let items = fx["items"].as_array().unwrap();
     assert!(items.len() > 800);
     for it in items {
-        let v: Vec<f64> = it.as_array().unwrap().iter().map(|x| x.as_f64().unwrap()).collect();
-        let got = complex_cg(v[0] as usize, v[1] as i64, v[2] as usize, v[3] as i64, v[4] as usize, v[5] as i64);
+        let v: Vec<f64> = it
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|x| x.as_f64().unwrap())
+            .collect();
+        let got = complex_cg(
+            v[0] as usize,
+            v[1] as i64,
+            v[2] as usize,
+            v[3] as i64,
+            v[4] as usize,
+            v[5] as i64,
+        );
         assert!((got - v[6]).abs() < 1e-12, "{v:?}: {got}");
     }
 }
@@ -224,11 +269,15 @@ fn real_cg_orthogonality() {
                             let mut s = 0.0;
                             for m1 in -(l1 as i64)..=l1 as i64 {
                                 for m2 in -(l2 as i64)..=l2 as i64 {
-                                    s += real_cg(l1, m1, l2, m2, l, m) * real_cg(l1, m1, l2, m2, lp, mp);
+                                    s += real_cg(l1, m1, l2, m2, l, m)
+                                        * real_cg(l1, m1, l2, m2, lp, mp);
                                 }
                             }
                             let want = if l == lp && m == mp { 1.0 } else { 0.0 };
-                            assert!((s - want).abs() < 1e-12, "({l1},{l2}) {l},{m} / {lp},{mp}: {s}");
+                            assert!(
+                                (s - want).abs() < 1e-12,
+                                "({l1},{l2}) {l},{m} / {lp},{mp}: {s}"
+                            );
                         }
                     }
                 }
@@ -253,7 +302,12 @@ fn tensor_product_of_vectors_is_dot_and_cross() {
         tensor_product(&t, &a, &b, 1, &mut o1);
         let dotv = p[0] * q[0] + p[1] * q[1] + p[2] * q[2];
         let c = Vector3::from(p).cross(&Vector3::from(q));
-        assert!((o0[0] + dotv / 3f64.sqrt()).abs() < 1e-14, "{} vs {}", o0[0], dotv);
+        assert!(
+            (o0[0] + dotv / 3f64.sqrt()).abs() < 1e-14,
+            "{} vs {}",
+            o0[0],
+            dotv
+        );
         let cy = to_yzx([c.x, c.y, c.z]);
         for i in 0..3 {
             assert!((o1[i].abs() - cy[i].abs() / 2f64.sqrt()).abs() < 1e-14);
@@ -279,7 +333,9 @@ fn tensor_product_commutes_with_rotation() {
                     let rot = |x: &[f64], l: usize| -> Vec<f64> {
                         let n = 2 * l + 1;
                         let blk = d.block(l);
-                        (0..n).map(|i| (0..n).map(|j| blk[i * n + j] * x[j]).sum()).collect()
+                        (0..n)
+                            .map(|i| (0..n).map(|j| blk[i * n + j] * x[j]).sum())
+                            .collect()
                     };
                     let mut p = vec![0.0; 2 * l + 1];
                     let mut q = vec![0.0; 2 * l + 1];
@@ -288,10 +344,16 @@ fn tensor_product_commutes_with_rotation() {
                     let q = rot(&q, l);
                     let scale = 1.0 + q.iter().map(|v| v.abs()).sum::<f64>();
                     for i in 0..p.len() {
-                        assert!((p[i] - q[i]).abs() < 1e-12 * scale, "seed {seed} path ({l1},{l2},{l})");
+                        assert!(
+                            (p[i] - q[i]).abs() < 1e-12 * scale,
+                            "seed {seed} path ({l1},{l2},{l})"
+                        );
                     }
                     let e: f64 = p.iter().map(|v| v * v).sum();
-                    assert!(e > 0.0 || (l1 + l2 + l) % 2 == 1 && l1 == l2, "path ({l1},{l2},{l}) vanished");
+                    assert!(
+                        e > 0.0 || (l1 + l2 + l) % 2 == 1 && l1 == l2,
+                        "path ({l1},{l2},{l}) vanished"
+                    );
                 }
             }
         }
@@ -325,7 +387,10 @@ fn small_d_matches_pdg() {
         ];
         for (l, mp, m, want) in cases {
             let v = small_d(l, mp, m, b);
-            assert!((v - want).abs() < 1e-14, "d^{l}_{mp}{m}({b}) = {v}, PDG {want}");
+            assert!(
+                (v - want).abs() < 1e-14,
+                "d^{l}_{mp}{m}({b}) = {v}, PDG {want}"
+            );
             // symmetry d_{m'm} = (−1)^{m−m'} d_{mm'} (PDG)
             let sym = if (m - mp) % 2 == 0 { 1.0 } else { -1.0 };
             assert!((small_d(l, m, mp, b) - sym * v).abs() < 1e-14);
@@ -371,7 +436,11 @@ fn real_d_about_y_relates_to_small_d() {
                         }
                     }
                     assert!(im.abs() < 1e-13);
-                    assert!((d.get(l, a, b) - re).abs() < 1e-13, "β={beta} l={l} ({a},{b}): {} vs {re}", d.get(l, a, b));
+                    assert!(
+                        (d.get(l, a, b) - re).abs() < 1e-13,
+                        "β={beta} l={l} ({a},{b}): {} vs {re}",
+                        d.get(l, a, b)
+                    );
                 }
             }
         }
@@ -385,7 +454,11 @@ fn wigner_d_properties() {
     let l_max = 12;
     for _ in 0..10 {
         let (r1, r2) = (random_rotation(&mut rng), random_rotation(&mut rng));
-        let (d1, d2, d12) = (WignerD::new(&r1, l_max), WignerD::new(&r2, l_max), WignerD::new(&(r1 * r2), l_max));
+        let (d1, d2, d12) = (
+            WignerD::new(&r1, l_max),
+            WignerD::new(&r2, l_max),
+            WignerD::new(&(r1 * r2), l_max),
+        );
         let dt = WignerD::new(&r1.transpose(), l_max);
         for l in 0..=l_max {
             let n = 2 * l + 1;
@@ -394,10 +467,19 @@ fn wigner_d_properties() {
                 for j in 0..n {
                     let ortho: f64 = (0..n).map(|k| a[i * n + k] * a[j * n + k]).sum();
                     let want = if i == j { 1.0 } else { 0.0 };
-                    assert!((ortho - want).abs() < 1e-12, "seed {seed}: D^{l} not orthogonal");
+                    assert!(
+                        (ortho - want).abs() < 1e-12,
+                        "seed {seed}: D^{l} not orthogonal"
+                    );
                     let prod: f64 = (0..n).map(|k| a[i * n + k] * b[k * n + j]).sum();
-                    assert!((prod - c[i * n + j]).abs() < 1e-12, "seed {seed}: D(R1R2) != D(R1)D(R2) at l={l}");
-                    assert!((t[i * n + j] - a[j * n + i]).abs() < 1e-12, "seed {seed}: D(Rᵀ) != D(R)ᵀ");
+                    assert!(
+                        (prod - c[i * n + j]).abs() < 1e-12,
+                        "seed {seed}: D(R1R2) != D(R1)D(R2) at l={l}"
+                    );
+                    assert!(
+                        (t[i * n + j] - a[j * n + i]).abs() < 1e-12,
+                        "seed {seed}: D(Rᵀ) != D(R)ᵀ"
+                    );
                 }
             }
         }
@@ -431,8 +513,18 @@ fn harmonics_rotate_by_wigner_d() {
         real_sh_f32(l_max, ru.map(|v| v as f32), &mut yr32);
         d.apply_f32(&y32, &mut dy32);
         for k in 0..nc {
-            assert!((yr[k] - dy[k]).abs() < 1e-12, "seed {seed}, k={k}: {} vs {}", yr[k], dy[k]);
-            assert!((yr32[k] - dy32[k]).abs() < 1e-5, "f32 seed {seed}, k={k}: {} vs {}", yr32[k], dy32[k]);
+            assert!(
+                (yr[k] - dy[k]).abs() < 1e-12,
+                "seed {seed}, k={k}: {} vs {}",
+                yr[k],
+                dy[k]
+            );
+            assert!(
+                (yr32[k] - dy32[k]).abs() < 1e-5,
+                "f32 seed {seed}, k={k}: {} vs {}",
+                yr32[k],
+                dy32[k]
+            );
         }
     }
 }
@@ -501,7 +593,11 @@ fn search_recovers_random_rotations() {
         let res = searcher.search(&a, &b).unwrap();
         let err = geodesic_angle(&res.best.rotation, &r).to_degrees();
         assert!(err <= 0.5, "seed {}: rotation error {err}°", 1000 + seed);
-        assert!(!res.ambiguous, "seed {}: irregular pattern flagged ambiguous", 1000 + seed);
+        assert!(
+            !res.ambiguous,
+            "seed {}: irregular pattern flagged ambiguous",
+            1000 + seed
+        );
     }
 }
 
@@ -533,12 +629,17 @@ fn search_flags_fourfold_symmetry() {
     let second = res.second.as_ref().unwrap();
     // the best is one of R·R_z(k·90°); the second another of them
     let dist_to_family = |m: &Matrix3<f64>| {
-        (0..4).map(|k| geodesic_angle(m, &(r * rot_z(k as f64 * PI / 2.0))).to_degrees()).fold(f64::MAX, f64::min)
+        (0..4)
+            .map(|k| geodesic_angle(m, &(r * rot_z(k as f64 * PI / 2.0))).to_degrees())
+            .fold(f64::MAX, f64::min)
     };
     assert!(dist_to_family(&res.best.rotation) < 0.5);
     assert!(dist_to_family(&second.rotation) < 0.5);
     let ang = res.second_angle_deg.unwrap();
-    assert!((ang - 90.0).abs() < 1.0 || (ang - 180.0).abs() < 1.0, "second maximum at {ang}°");
+    assert!(
+        (ang - 90.0).abs() < 1.0 || (ang - 180.0).abs() < 1.0,
+        "second maximum at {ang}°"
+    );
 }
 
 /// Rotation error against relative Gaussian noise on the target coefficients (prints a table;
@@ -586,7 +687,13 @@ fn search_options_and_small_perturbation() {
     // a rotation close to identity is found exactly at a finer grid too
     let l_max = 3;
     let nc = num_coeffs(l_max);
-    let searcher = RotationSearcher::with_options(l_max, SearchOptions { grid_level: 2, ..SearchOptions::default() });
+    let searcher = RotationSearcher::with_options(
+        l_max,
+        SearchOptions {
+            grid_level: 2,
+            ..SearchOptions::default()
+        },
+    );
     let mut rng = SplitMix64::new(9);
     let a: Vec<f64> = (0..2 * nc).map(|_| rng.normal()).collect();
     let r = rotation_vector_to_matrix([0.01, -0.02, 0.005]);

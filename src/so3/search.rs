@@ -272,7 +272,7 @@ impl RotationSearcher {
     /// `[n][l² + l + m]`).
     pub fn search(&self, a: &[f64], b: &[f64]) -> Result<SearchResult, SearchError> {
         let nc = num_coeffs(self.l_max);
-        if a.len() != b.len() || a.is_empty() || a.len() % nc != 0 {
+        if a.len() != b.len() || a.is_empty() || !a.len().is_multiple_of(nc) {
             return Err(SearchError::Shape {
                 len_a: a.len(),
                 len_b: b.len(),
@@ -527,13 +527,9 @@ mod tests {
             let dp = WignerD::new(&rotation_vector_to_matrix(w), l_max);
             w[k] = -h;
             let dm = WignerD::new(&rotation_vector_to_matrix(w), l_max);
-            for i in 0..block_entries(l_max) {
+            for (i, gi) in g[k].iter().enumerate() {
                 let fd = (dp.blocks()[i] - dm.blocks()[i]) / (2.0 * h);
-                assert!(
-                    (fd - g[k][i]).abs() < 1e-8,
-                    "axis {k} entry {i}: {fd} vs {}",
-                    g[k][i]
-                );
+                assert!((fd - gi).abs() < 1e-8, "axis {k} entry {i}: {fd} vs {gi}");
             }
         }
     }
