@@ -58,18 +58,21 @@ fn rate(t: &[Trial]) -> f64 {
 }
 
 fn median(mut v: Vec<f64>) -> f64 {
+    if v.is_empty() {
+        return f64::NAN;
+    }
     v.sort_by(f64::total_cmp);
     v[v.len() / 2]
 }
 
-#[test]
-fn bunny_virtual_scans_register_fpfh_quick() {
+fn quick(method: Method) -> f64 {
     let mesh = bunny();
-    let seps = [40.0, 60.0];
-    let t = run(&mesh, Method::Fpfh, &seps, 100);
+    let seps = [40.0, 60.0, 80.0];
+    let t = run(&mesh, method, &seps, 100);
     for (i, x) in t.iter().enumerate() {
         eprintln!(
-            "fpfh seed {} sep {}°: ok {} rot {:.3}° trans {:.4} overlap {:.2} {:.2}s",
+            "{} seed {} sep {}°: ok {} rot {:.3}° trans {:.4} overlap {:.2} {:.2}s",
+            method.name(),
             100 + i,
             seps[i],
             x.ok,
@@ -79,13 +82,27 @@ fn bunny_virtual_scans_register_fpfh_quick() {
             x.seconds
         );
     }
-    assert!(rate(&t) >= 0.5, "fpfh success {:.2}", rate(&t));
+    rate(&t)
+}
+
+#[test]
+fn bunny_virtual_scans_register_fpfh_quick() {
+    let r = quick(Method::Fpfh);
+    assert!(r >= 0.6, "fpfh success {r:.2}");
+}
+
+#[test]
+fn bunny_virtual_scans_register_equivariant_quick() {
+    let r = quick(Method::Equivariant);
+    assert!(r >= 0.99, "equivariant success {r:.2}");
 }
 
 fn table(mesh: &Mesh, methods: &[Method]) {
     // 50 trials: separations spread evenly over 30–90°.
     let seps: Vec<f64> = (0..50).map(|i| 30.0 + 60.0 * i as f64 / 49.0).collect();
-    println!("| method | trials | success | confident | median rot err (°) | median trans err (% diag) | median time (s) |");
+    println!(
+        "| method | trials | success | confident | median rot err (°) | median trans err (% diag) | median time (s) |"
+    );
     println!("|---|---|---|---|---|---|---|");
     for &m in methods {
         let t = run(mesh, m, &seps, 1000);
@@ -96,15 +113,23 @@ fn table(mesh: &Mesh, methods: &[Method]) {
             t.len(),
             100.0 * rate(&t),
             100.0 * t.iter().filter(|x| x.confident).count() as f64 / t.len() as f64,
-            median(ok.iter().map(|x| x.rot).collect::<Vec<_>>().into_iter().chain([f64::NAN]).collect()),
-            100.0 * median(ok.iter().map(|x| x.trans).collect::<Vec<_>>().into_iter().chain([f64::NAN]).collect()),
+            median(ok.iter().map(|x| x.rot).collect()),
+            100.0 * median(ok.iter().map(|x| x.trans).collect()),
             median(t.iter().map(|x| x.seconds).collect()),
         );
     }
 }
 
 fn sweep(mesh: &Mesh, methods: &[Method]) {
-    println!("| separation (°) | measured overlap | {} |", methods.iter().map(|m| m.name()).collect::<Vec<_>>().join(" success | ") + " success");
+    println!(
+        "| separation (°) | measured overlap | {} |",
+        methods
+            .iter()
+            .map(|m| m.name())
+            .collect::<Vec<_>>()
+            .join(" success | ")
+            + " success"
+    );
     println!("|---|---|{}", "---|".repeat(methods.len()));
     for sep in [20.0, 40.0, 60.0, 80.0, 100.0, 120.0, 140.0] {
         let seps = vec![sep; 10];
@@ -115,7 +140,11 @@ fn sweep(mesh: &Mesh, methods: &[Method]) {
             overlap = t.iter().map(|x| x.overlap).sum::<f64>() / t.len() as f64;
             cells.push(format!("{:.0} %", 100.0 * rate(&t)));
         }
-        println!("| {sep:.0} | {:.0} % | {} |", 100.0 * overlap, cells.join(" | "));
+        println!(
+            "| {sep:.0} | {:.0} % | {} |",
+            100.0 * overlap,
+            cells.join(" | ")
+        );
     }
 }
 
@@ -123,12 +152,12 @@ fn sweep(mesh: &Mesh, methods: &[Method]) {
 #[ignore = "full benchmark: 50 trials per method; run with --release --ignored --nocapture"]
 fn bunny_benchmark_table() {
     let mesh = bunny();
-    table(&mesh, &[Method::Fpfh]);
+    table(&mesh, &[Method::Equivariant, Method::Fpfh]);
 }
 
 #[test]
 #[ignore = "overlap sweep: 10 trials per separation and method; run with --release --ignored --nocapture"]
 fn bunny_overlap_sweep() {
     let mesh = bunny();
-    sweep(&mesh, &[Method::Fpfh]);
+    sweep(&mesh, &[Method::Equivariant, Method::Fpfh]);
 }

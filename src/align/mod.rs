@@ -22,6 +22,7 @@
 //! Nothing here prints; every stage is deterministic for any number of threads.
 
 pub mod consensus;
+pub mod equivariant;
 pub mod fpfh;
 pub mod icp;
 pub mod matching;

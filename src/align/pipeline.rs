@@ -2,11 +2,13 @@
 
 use std::time::Instant;
 
+use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
 use super::consensus::{self, Hypothesis, Pairs};
+use super::equivariant::{self, EquivariantRecipe};
 use super::fpfh::{FPFH_LEN, fpfh};
-use super::icp::{IcpParams, RobustLoss, fit_quality, icp_point_to_plane};
+use super::icp::{IcpParams, RobustLoss, fit_quality, icp_point_to_plane, plane_fit};
 use super::matching::{MatchParams, match_features};
 use super::prep::{auto_voxel, prepare, spacing_of};
 use super::quality::{self, Figures, Verdict};
@@ -18,6 +20,9 @@ use crate::error::{Error, Result};
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "lowercase")]
 pub enum Method {
+    /// Harmonic descriptors: invariants to match, equivariant coefficients for one pose per
+    /// correspondence.
+    Equivariant,
     /// Baseline: FPFH features and 3-point RANSAC.
     Fpfh,
 }
@@ -26,7 +31,17 @@ impl Method {
     /// The method's name as used in reports and on the command line.
     pub fn name(&self) -> &'static str {
         match self {
+            Method::Equivariant => "equivariant",
             Method::Fpfh => "fpfh",
+        }
+    }
+
+    /// Default feature support radius in voxel sizes: 10 for the harmonic descriptors (their
+    /// rotation estimate needs a wide neighbourhood), 5 for FPFH (its usual setting).
+    pub fn radius_in_voxels(&self) -> f64 {
+        match self {
+            Method::Equivariant => 10.0,
+            Method::Fpfh => 5.0,
         }
     }
 }
@@ -38,7 +53,7 @@ pub struct AlignParams {
     pub method: Method,
     /// Voxel size for keypoints; `None` chooses it from the clouds' size and spacing.
     pub voxel: Option<f64>,
-    /// Support radius of the features; `None` uses [`RADIUS_PER_VOXEL`] voxel sizes.
+    /// Support radius of the features; `None` uses [`Method::radius_in_voxels`] voxel sizes.
     pub radius: Option<f64>,
     /// Inlier threshold in voxel sizes.
     pub inlier_voxels: f64,
@@ -52,18 +67,22 @@ pub struct AlignParams {
     pub seed: u64,
 }
 
-/// Default support radius of the features, in voxel sizes.
-pub const RADIUS_PER_VOXEL: f64 = 5.0;
+/// Distinct hypotheses re-ranked by overlap.
+const SHORTLIST: usize = 40;
+/// Tolerance of the tight overlap (distance to the target's tangent plane), in voxel sizes.
+const PLANE_TOLERANCE_VOXELS: f64 = 0.25;
+/// Source keypoints used to re-rank hypotheses by overlap.
+const OVERLAP_SAMPLE: usize = 400;
 
 impl Default for AlignParams {
     fn default() -> Self {
         AlignParams {
-            method: Method::Fpfh,
+            method: Method::Equivariant,
             voxel: None,
             radius: None,
             inlier_voxels: 2.5,
             ransac_iterations: 20_000,
-            refine_best: 5,
+            refine_best: 4,
             loss: RobustLoss::Tukey,
             seed: 1,
         }
@@ -152,7 +171,9 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
             auto_voxel(source.len(), ss?).max(auto_voxel(target.len(), st?))
         }
     };
-    let radius = params.radius.unwrap_or(RADIUS_PER_VOXEL * voxel);
+    let radius = params
+        .radius
+        .unwrap_or(params.method.radius_in_voxels() * voxel);
     if !(radius > voxel) {
         return Err(Error::invalid(
             format!("support radius {radius} is not larger than the voxel size {voxel}"),
@@ -167,7 +188,27 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
     let (ps, pt) = (ps?, pt?);
     clock.lap("keypoints and normals");
 
+    let mut equi = None;
     let rows = match params.method {
+        Method::Equivariant => {
+            let recipe = EquivariantRecipe {
+                radii: vec![radius as f32, (0.5 * radius) as f32],
+                degree: 4,
+                shells: 6,
+            };
+            let (a, b) = rayon::join(
+                || equivariant::describe(&ps.points, &ps.index, &recipe),
+                || equivariant::describe(&pt.points, &pt.index, &recipe),
+            );
+            let (a, b) = (a?, b?);
+            let rows = FeatureRows {
+                dim: a.dim,
+                source: a.rows.clone(),
+                target: b.rows.clone(),
+            };
+            equi = Some((a, b, recipe.degree));
+            rows
+        }
         Method::Fpfh => {
             let (a, b) = rayon::join(
                 || fpfh(&ps.points, &ps.normals, &ps.index, radius as f32),
@@ -198,33 +239,60 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
 
     let hyps: Vec<Hypothesis> = match params.method {
         Method::Fpfh => consensus::ransac(&pairs, tau, params.ransac_iterations, params.seed),
+        Method::Equivariant => {
+            let (a, b, degree) = equi.as_ref().expect("equivariant features were computed");
+            let searcher = equivariant::searcher(*degree);
+            let poses = equivariant::hypotheses(&corr, &ps.points, &pt.points, a, b, &searcher);
+            consensus::score(&pairs, &poses, tau)
+        }
     };
-    let best = consensus::best_distinct(hyps, params.refine_best, 10.0, 5.0 * tau);
+    // Re-rank the strongest distinct hypotheses by the overlap they give on a subsample of the
+    // source keypoints: correspondences can be few, the geometry is always there.
+    let shortlist = consensus::best_distinct(hyps, SHORTLIST, 10.0, 5.0 * tau);
+    let stride = ps.points.len().div_ceil(OVERLAP_SAMPLE).max(1);
+    let sample: Vec<[f32; 3]> = ps.points.iter().step_by(stride).copied().collect();
+    let mut ranked: Vec<(usize, Hypothesis)> = shortlist
+        .par_iter()
+        .map(|h| (fit_quality(&sample, &pt.index, &h.transform, tau).1, *h))
+        .collect();
+    ranked.sort_by(|x, y| y.0.cmp(&x.0).then(y.1.support.cmp(&x.1.support)));
     clock.lap("hypotheses");
 
-    let refined: Vec<Hypothesis> = best
-        .iter()
-        .map(|h| consensus::refine_on_inliers(&pairs, &h.transform, tau, 4))
-        .collect();
     let icp = IcpParams {
         max_distance: 2.0 * tau,
         min_scale: 0.05 * voxel,
         loss: params.loss,
-        max_iterations: 60,
-        tolerance: 1e-7,
+        max_iterations: 40,
+        tolerance: 1e-6,
     };
-    let polished: Vec<(Rigid, f64, usize)> = refined
+    // Least squares on the inliers first (cheap); poses that then coincide are polished once.
+    let mut starts: Vec<Rigid> = Vec::new();
+    for (_, h) in ranked.iter().take(SHORTLIST) {
+        if starts.len() >= params.refine_best {
+            break;
+        }
+        let h = consensus::refine_on_inliers(&pairs, &h.transform, tau, 4);
+        if starts
+            .iter()
+            .all(|s| !consensus::same_pose(s, &h.transform, 2.0, tau))
+        {
+            starts.push(h.transform);
+        }
+    }
+    let polished: Vec<(Rigid, f64, usize)> = starts
         .iter()
-        .map(|h| {
-            let out = icp_point_to_plane(
+        .map(|start| {
+            let out =
+                icp_point_to_plane(&ps.points, &pt.points, &pt.normals, &pt.index, start, &icp);
+            let (n, _) = plane_fit(
                 &ps.points,
                 &pt.points,
                 &pt.normals,
                 &pt.index,
-                &h.transform,
-                &icp,
+                &out.transform,
+                tau,
+                PLANE_TOLERANCE_VOXELS * voxel,
             );
-            let (_, n) = fit_quality(&ps.points, &pt.index, &out.transform, tau);
             (
                 out.transform,
                 n as f64 / ps.points.len() as f64,
@@ -234,7 +302,7 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
         .collect();
     clock.lap("refinement");
 
-    let (local, overlap, icp_iterations) = polished
+    let (coarse, tight, _) = polished
         .iter()
         .copied()
         .enumerate()
@@ -243,15 +311,48 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
         .unwrap_or((Rigid::identity(), 0.0, 0));
     let rival = polished
         .iter()
-        .filter(|p| !consensus::same_pose(&p.0, &local, 10.0, 5.0 * tau))
+        .filter(|p| !consensus::same_pose(&p.0, &coarse, 10.0, 5.0 * tau))
         .map(|p| p.1)
         .fold(0.0f64, f64::max);
-    let margin = if overlap > 0.0 {
-        (1.0 - rival / overlap).max(0.0)
+    let margin = if tight > 0.0 {
+        (1.0 - rival / tight).max(0.0)
     } else {
         0.0
     };
-    let (rmse, _) = fit_quality(&ps.points, &pt.index, &local, tau);
+
+    // Final ICP on denser points (half the voxel size), from the winning pose.
+    let fine_voxel = 0.5 * voxel;
+    let (fs, ft) = rayon::join(
+        || prepare("source", &source.positions, fine_voxel),
+        || prepare("target", &target.positions, fine_voxel),
+    );
+    let (fs, ft) = (fs?, ft?);
+    let fine = icp_point_to_plane(
+        &fs.points,
+        &ft.points,
+        &ft.normals,
+        &ft.index,
+        &coarse,
+        &IcpParams {
+            max_distance: tau,
+            min_scale: 0.02 * voxel,
+            ..icp
+        },
+    );
+    let local = fine.transform;
+    let icp_iterations = fine.iterations;
+    clock.lap("fine ICP");
+
+    let overlap = fit_quality(&ps.points, &pt.index, &local, tau).1 as f64 / ps.points.len() as f64;
+    let (_, rmse) = plane_fit(
+        &fs.points,
+        &ft.points,
+        &ft.normals,
+        &ft.index,
+        &local,
+        tau,
+        PLANE_TOLERANCE_VOXELS * voxel,
+    );
     let inliers = pairs.support(&local, tau);
     let mut figures = Figures {
         rmse,

@@ -2,9 +2,10 @@
 //!
 //! - *consensus*: correspondences explained by the final transform (within the inlier threshold);
 //! - *overlap*: fraction of source keypoints with a target keypoint within the inlier threshold;
-//! - *margin*: `1 − s₂/s₁`, where `s₁` is the overlap of the winning pose and `s₂` the best
-//!   overlap of a clearly different pose (another rotation by more than 10° or a shift by more
-//!   than 5 inlier thresholds); near 0 for symmetric shapes.
+//! - *margin*: `1 − s₂/s₁`, where `s₁` is the tight overlap of the winning pose (source keypoints
+//!   within the inlier threshold of a target keypoint *and* within a quarter voxel of its tangent
+//!   plane) and `s₂` the best tight overlap of a clearly different refined pose (another rotation
+//!   by more than 10° or a shift by more than 5 inlier thresholds); near 0 for symmetric shapes.
 //!
 //! confidence = `(1 − e^(−consensus/10)) · min(1, overlap/0.25) · min(1, margin/0.25)`, in [0, 1].
 //! The verdict is confident when consensus ≥ [`MIN_CONSENSUS`], overlap ≥ [`MIN_OVERLAP`] and
@@ -61,7 +62,8 @@ pub enum Verdict {
 /// Figures behind the verdict.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 pub struct Figures {
-    /// RMSE of source-keypoint to nearest-target-keypoint distances within the inlier threshold.
+    /// RMSE of the point-to-plane distances (source points at half the voxel size to the target's
+    /// tangent planes) of the pairs within the inlier threshold.
     pub rmse: f64,
     /// Fraction of source keypoints within the inlier threshold of the target.
     pub overlap: f64,
@@ -69,7 +71,7 @@ pub struct Figures {
     pub correspondences: usize,
     /// Correspondences explained by the final transform.
     pub inliers: usize,
-    /// `1 − (best overlap of a clearly different pose) / overlap`.
+    /// `1 − s₂/s₁` of the tight overlaps of the best pose and of a clearly different one.
     pub margin: f64,
     /// Confidence figure in [0, 1].
     pub confidence: f64,

@@ -107,7 +107,9 @@ pub fn random_rotation(rng: &mut SplitMix64) -> Matrix3<f64> {
         a * (tau * u2).cos(),
         b * (tau * u3).sin(),
     );
-    *UnitQuaternion::from_quaternion(q).to_rotation_matrix().matrix()
+    *UnitQuaternion::from_quaternion(q)
+        .to_rotation_matrix()
+        .matrix()
 }
 
 fn unit(rng: &mut SplitMix64) -> Vector3<f64> {
@@ -139,7 +141,11 @@ pub fn virtual_scan(
     let pix = 2.0 * half / GRID as f64;
     let proj = |p: &Vector3<f64>| {
         let q = p - c;
-        ((q.dot(&e1) + half) / pix, (q.dot(&e2) + half) / pix, q.dot(&view))
+        (
+            (q.dot(&e1) + half) / pix,
+            (q.dot(&e2) + half) / pix,
+            q.dot(&view),
+        )
     };
     let front: Vec<usize> = (0..mesh.faces.len())
         .filter(|&f| {
@@ -235,7 +241,10 @@ pub fn problem(
     let d = mesh.diagonal();
     let v1 = unit(&mut rng);
     let axis = v1.cross(&unit(&mut rng)).normalize();
-    let v2 = Rotation3::from_axis_angle(&nalgebra::Unit::new_normalize(axis), separation_deg.to_radians()) * v1;
+    let v2 = Rotation3::from_axis_angle(
+        &nalgebra::Unit::new_normalize(axis),
+        separation_deg.to_radians(),
+    ) * v1;
     let noise = noise_frac * d;
     let t_pts = virtual_scan(mesh, v1, points, noise, rng.next_u64());
     let s_pts = virtual_scan(mesh, v2, points, noise, rng.next_u64());

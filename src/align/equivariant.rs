@@ -1,0 +1,199 @@
+//! The equivariant method: harmonic descriptors at the keypoints, matched on their invariants,
+//! and one pose hypothesis per correspondence from their equivariant coefficients.
+//!
+//! Each keypoint gets the descriptor of [`crate::descriptor`] (real spherical harmonics up to
+//! degree `L` times `N` radial shells) at one or more support radii. Matching uses the power
+//! spectrum, which does not change under rotation; a signed square root turns its products of
+//! coefficients back into amplitudes, so that small and large shells weigh alike.
+//!
+//! For a correspondence (source keypoint `p`, target keypoint `q`) the coefficients satisfy
+//! `c(q) ≈ D(R) c(p)` for the true rotation `R` (Wigner-D, shell by shell), so the rotation that
+//! best carries one expansion onto the other ([`crate::so3::search`]) is a pose hypothesis by
+//! itself, with translation `t = q − R p`. When the search reports a second maximum nearly as
+//! good (a locally symmetric neighbourhood), both become hypotheses. Consensus over all
+//! correspondences then picks the pose.
+
+use rayon::prelude::*;
+
+use super::matching::Correspondence;
+use super::rigid::Rigid;
+use crate::descriptor::{Centres, Engine, Invariants, Recipe};
+use crate::error::Result;
+use crate::so3::search::{RotationSearcher, SearchOptions};
+use crate::spatial::KdIndex;
+
+/// Settings of the equivariant descriptors.
+#[derive(Debug, Clone, PartialEq)]
+pub struct EquivariantRecipe {
+    /// Support radii (file units), largest first.
+    pub radii: Vec<f32>,
+    /// Maximum degree `L`.
+    pub degree: usize,
+    /// Radial shells `N`.
+    pub shells: usize,
+}
+
+/// Invariant rows and coefficient blocks at the keypoints of one cloud.
+pub struct EquivariantFeatures {
+    /// Invariant values per row.
+    pub dim: usize,
+    /// Matching rows (signed square root of the power spectrum), `len × dim`.
+    pub rows: Vec<f32>,
+    /// Values per coefficient block: scales × shells × (L+1)².
+    pub block: usize,
+    /// Coefficient blocks, `len × block`, layout `[scale][n][l² + l + m]` (scales act as extra
+    /// shells for the rotation search).
+    pub coefficients: Vec<f64>,
+}
+
+/// Descriptors at every point of `points` (the keypoints), neighbours from the same points.
+pub fn describe(
+    points: &[[f32; 3]],
+    index: &KdIndex,
+    recipe: &EquivariantRecipe,
+) -> Result<EquivariantFeatures> {
+    let r = Recipe::builder()
+        .radii(recipe.radii.iter().copied())
+        .degree(recipe.degree)
+        .shells(recipe.shells)
+        .invariants(Invariants {
+            norms: false,
+            power_spectrum: true,
+            bispectrum: false,
+        })
+        .keep_coefficients(true)
+        .build()?;
+    let engine = Engine::new(r);
+    let f = engine.compute_with_index(points, index, &Centres::All, None)?;
+    let dim = f.columns.len();
+    let rows = f
+        .values
+        .iter()
+        .map(|&v| v.signum() * v.abs().sqrt())
+        .collect();
+    let coeffs = f.coefficients.unwrap_or_default();
+    let block = coeffs.len() / points.len().max(1);
+    Ok(EquivariantFeatures {
+        dim,
+        rows,
+        block,
+        coefficients: coeffs.iter().map(|&v| v as f64).collect(),
+    })
+}
+
+/// A rotation searcher for the recipe's degree (coarse grid level 1, a few candidates).
+pub fn searcher(degree: usize) -> RotationSearcher {
+    RotationSearcher::with_options(
+        degree,
+        SearchOptions {
+            grid_level: 1,
+            candidates: 4,
+            separation_deg: 20.0,
+            ambiguity_margin: 0.1,
+            max_iterations: 15,
+        },
+    )
+}
+
+/// One pose per correspondence (two when the neighbourhood's rotation is ambiguous), in
+/// correspondence order. Correspondences whose blocks have no rotation-dependent energy give
+/// none.
+pub fn hypotheses(
+    corr: &[Correspondence],
+    source_points: &[[f32; 3]],
+    target_points: &[[f32; 3]],
+    source: &EquivariantFeatures,
+    target: &EquivariantFeatures,
+    searcher: &RotationSearcher,
+) -> Vec<Rigid> {
+    let b = source.block;
+    let per: Vec<Vec<Rigid>> = corr
+        .par_iter()
+        .map(|c| {
+            let (i, j) = (c.source as usize, c.target as usize);
+            let a = &source.coefficients[i * b..(i + 1) * b];
+            let t = &target.coefficients[j * b..(j + 1) * b];
+            let Ok(res) = searcher.search(a, t) else {
+                return Vec::new();
+            };
+            if !(res.best.normalized_rotational_score > 0.0) {
+                return Vec::new();
+            }
+            let p = v(source_points[i]);
+            let q = v(target_points[j]);
+            let mut out = vec![Rigid::new(res.best.rotation, q - res.best.rotation * p)];
+            if res.ambiguous
+                && let Some(s) = res.second
+            {
+                out.push(Rigid::new(s.rotation, q - s.rotation * p));
+            }
+            out
+        })
+        .collect();
+    per.into_iter().flatten().collect()
+}
+
+fn v(p: [f32; 3]) -> nalgebra::Vector3<f64> {
+    nalgebra::Vector3::new(p[0] as f64, p[1] as f64, p[2] as f64)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::so3::rng::SplitMix64;
+    use crate::so3::rotation::random_rotation;
+
+    /// A bumpy surface patch, its copy turned by a random rotation: the descriptors of matching
+    /// centres give back that rotation (printed seed).
+    #[test]
+    fn one_correspondence_gives_the_rotation() {
+        let seed = 42;
+        let mut rng = SplitMix64::new(seed);
+        let mut pts = Vec::new();
+        for i in 0..41 {
+            for j in 0..41 {
+                let (x, y) = (i as f32 * 0.05 - 1.0, j as f32 * 0.05 - 1.0);
+                let z = 0.3 * (2.0 * x).sin() * (1.5 * y + 0.3).cos() + 0.2 * x * y;
+                pts.push([x, y, z]);
+            }
+        }
+        let r = random_rotation(&mut rng);
+        let moved: Vec<[f32; 3]> = pts
+            .iter()
+            .map(|p| {
+                let q = r * v(*p);
+                [q.x as f32, q.y as f32, q.z as f32]
+            })
+            .collect();
+        let recipe = EquivariantRecipe {
+            radii: vec![0.4],
+            degree: 4,
+            shells: 4,
+        };
+        let ia = KdIndex::new(&pts).unwrap();
+        let ib = KdIndex::new(&moved).unwrap();
+        let fa = describe(&pts, &ia, &recipe).unwrap();
+        let fb = describe(&moved, &ib, &recipe).unwrap();
+        // Invariant rows agree up to f32 rounding.
+        let k = 20 * 41 + 20;
+        for d in 0..fa.dim {
+            let (x, y) = (fa.rows[k * fa.dim + d], fb.rows[k * fb.dim + d]);
+            assert!(
+                (x - y).abs() < 1e-3 * (1.0 + x.abs()),
+                "seed {seed} column {d}"
+            );
+        }
+        let corr = [Correspondence {
+            source: k as u32,
+            target: k as u32,
+            ratio: 0.5,
+            mutual: true,
+        }];
+        let h = hypotheses(&corr, &pts, &moved, &fa, &fb, &searcher(4));
+        assert!(!h.is_empty());
+        let err = super::super::rigid::rotation_error_deg(&h[0].rotation, &r);
+        assert!(err < 0.5, "seed {seed}: rotation error {err}°");
+        let p = h[0].apply(&v(pts[0]));
+        assert!((p - v(moved[0])).norm() < 0.02, "seed {seed}");
+    }
+}
