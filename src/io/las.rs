@@ -75,6 +75,8 @@ const BASE_LEN: [u16; 11] = [20, 28, 26, 34, 57, 63, 30, 36, 38, 59, 67];
 struct RawHeader {
     compressed: bool,
     format: u8,
+    /// Version as stored at bytes 24–25 (the `las` crate may report a later one).
+    version: (u8, u8),
 }
 
 /// Checks the public header block against the file size before the `las` crate sees it, so
@@ -168,7 +170,11 @@ fn check_header(path: &Path, file: &mut std::fs::File, len: u64) -> Result<RawHe
     }
     file.seek(SeekFrom::Start(0))
         .map_err(|e| Error::io(path, &e))?;
-    Ok(RawHeader { compressed, format })
+    Ok(RawHeader {
+        compressed,
+        format,
+        version: (major, minor),
+    })
 }
 
 /// Names in an Extra Bytes VLR.
@@ -232,7 +238,7 @@ pub(crate) fn read_las(path: &Path) -> Result<(Cloud, FileInfo)> {
     let mut info = FileInfo::new(
         path,
         if raw.compressed { "LAZ" } else { "LAS" },
-        format!("{}.{}", header.version().major, header.version().minor),
+        format!("{}.{}", raw.version.0, raw.version.1),
     );
     info.point_count = n;
     info.point_format = Some(raw.format);
