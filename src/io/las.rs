@@ -557,8 +557,17 @@ pub fn write_las_with(
             writer.write_points(&pd).map_err(|e| las_err(path, e))?;
             start = end;
         }
-        let mut inner = writer.into_inner().map_err(|e| las_err(path, e))?;
-        inner.flush().map_err(|e| Error::io(path, &e))?;
+        let inner = writer.into_inner().map_err(|e| las_err(path, e))?;
+        let mut file = inner.into_inner().map_err(|e| Error::io(path, e.error()))?;
+        if fmt_no >= 6 {
+            // LAS 1.4 R15, Table 3: the legacy point count (byte 107, u32) and legacy counts
+            // by return (bytes 111–130, 5 × u32) must be zero for point formats 6–10; the las
+            // crate fills them in, so clear them here.
+            file.seek(SeekFrom::Start(107))
+                .and_then(|_| file.write_all(&[0u8; 24]))
+                .and_then(|_| file.seek(SeekFrom::End(0)).map(|_| ()))
+                .map_err(|e| Error::io(path, &e))?;
+        }
         Ok(())
     })
 }
