@@ -522,9 +522,7 @@ pub fn write_las_with(
     columns: &[Column<'_>],
     options: &LasOptions,
 ) -> Result<()> {
-    cloud
-        .validate()
-        .map_err(|e| Error::file(path, e.to_string(), "nothing was written"))?;
+    cloud.validate().map_err(|e| super::about(path, e))?;
     check_columns(path, cloud.len(), columns, &[])?;
     if let Some(c) = columns.iter().find(|c| c.name.len() > 32) {
         return Err(Error::file(

@@ -1034,9 +1034,7 @@ pub fn read_ply_mesh(path: &Path) -> Result<(Cloud, Vec<[u32; 3]>)> {
 /// one float property per column. The origin is recorded in a header comment (see the module
 /// docs). Column names must be plain (letters, digits, `_`) and must not repeat a name above.
 pub fn write_ply(path: &Path, cloud: &Cloud, columns: &[Column<'_>]) -> Result<()> {
-    cloud
-        .validate()
-        .map_err(|e| Error::file(path, e.to_string(), "nothing was written"))?;
+    cloud.validate().map_err(|e| super::about(path, e))?;
     let taken = [
         "x",
         "y",
