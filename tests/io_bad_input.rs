@@ -294,3 +294,22 @@ fn writers_refuse_bad_input_and_leave_no_file() {
     // Nothing else, not even temporary files, is left in the folder.
     assert_eq!(std::fs::read_dir(d.0.path()).unwrap().count(), 0);
 }
+
+#[test]
+fn non_finite_float_coordinates_in_binary_little_endian() {
+    let d = Dir::new();
+    let mut bin = b"ply\nformat binary_little_endian 1.0\nelement vertex 3\nproperty float x\nproperty float y\nproperty float z\nproperty uchar red\nproperty uchar green\nproperty uchar blue\nend_header\n".to_vec();
+    for (i, v) in [[0.0f32, 0.0, 0.0], [1.0, 1.0, 1.0], [2.0, 2.0, f32::NAN]]
+        .iter()
+        .enumerate()
+    {
+        for x in v {
+            bin.extend_from_slice(&x.to_le_bytes());
+        }
+        bin.extend_from_slice(&[i as u8; 3]);
+    }
+    check(
+        &d.file("nanf.ply", &bin),
+        "vertex 2 has a non-finite coordinate (z = NaN)",
+    );
+}
