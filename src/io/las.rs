@@ -194,6 +194,16 @@ fn check_header(path: &Path, file: &mut std::fs::File, len: u64) -> Result<RawHe
 /// decompressor would otherwise be asked for points that do not exist).
 fn check_laz_chunks(path: &Path, header: &las::Header, offset_to_points: u64) -> Result<()> {
     let vlr = header.laz_vlr().map_err(|e| las_err(path, e))?;
+    let record_len = header.point_format().len() as u64;
+    if vlr.items_size() != record_len {
+        return Err(bad(
+            path,
+            format!(
+                "the LAZ compression record describes {}-byte points but the header {record_len}-byte ones",
+                vlr.items_size()
+            ),
+        ));
+    }
     let mut f =
         std::io::BufReader::new(std::fs::File::open(path).map_err(|e| Error::io(path, &e))?);
     f.seek(SeekFrom::Start(offset_to_points))
