@@ -246,3 +246,11 @@ pub(crate) fn check_columns(
     }
     Ok(())
 }
+
+/// Puts `path` in front of an in-memory error, keeping its fix.
+pub(crate) fn about(path: &Path, e: Error) -> Error {
+    match e {
+        Error::Invalid { what, fix } => Error::file(path, what, fix),
+        other => other,
+    }
+}
