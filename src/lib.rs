@@ -8,6 +8,7 @@
 
 pub mod cloud;
 pub mod error;
+pub mod report;
 pub mod spatial;
 
 pub use cloud::Cloud;
