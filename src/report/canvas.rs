@@ -90,7 +90,8 @@ impl Viewport {
         let mut span = [hi[0] - lo[0], hi[1] - lo[1]];
         let largest = span[0].max(span[1]);
         for s in &mut span {
-            if !(*s > 0.0) {
+            // Zero, negative (an empty box) or NaN.
+            if s.is_nan() || *s <= 0.0 {
                 *s = if largest > 0.0 { largest } else { 1.0 };
             }
         }
@@ -121,6 +122,17 @@ pub enum Splat {
     Square(u32),
     /// A filled disc of this diameter in pixels; diameters 1 and 2 are squares, 3 is a plus.
     Disc(u32),
+}
+
+/// How a layer shares pixels with other layers at the same depth; see [`Canvas::splat_shared`].
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Share {
+    /// This layer's number, `0..layers`.
+    pub layer: u32,
+    /// How many layers take turns.
+    pub layers: u32,
+    /// Depths closer than this count as equal (file units).
+    pub tolerance: f32,
 }
 
 /// An RGB8 raster with a depth buffer.
@@ -233,6 +245,23 @@ impl Canvas {
     /// Draws a point centred on the pixel that contains `(x, y)`, keeping each covered pixel
     /// only where `depth` is nearer (smaller) than what is there. Non-finite input is skipped.
     pub fn splat(&mut self, x: f64, y: f64, depth: f32, shape: Splat, colour: Rgb) {
+        self.splat_shared(x, y, depth, shape, colour, None);
+    }
+
+    /// Like [`Canvas::splat`], but points of several layers that lie at the same depth (within
+    /// `share.tolerance`) share the pixels in a 2 × 2-pixel checkerboard instead of the first
+    /// layer hiding the others: where depths tie, pixel `(x, y)` goes to layer
+    /// `(x / 2 + y / 2) % share.layers`. Layers that coincide exactly therefore show as a fine
+    /// mix of their colours.
+    pub fn splat_shared(
+        &mut self,
+        x: f64,
+        y: f64,
+        depth: f32,
+        shape: Splat,
+        colour: Rgb,
+        share: Option<Share>,
+    ) {
         if !(x.is_finite() && y.is_finite()) || depth.is_nan() {
             return;
         }
@@ -253,10 +282,26 @@ impl Canvas {
                         continue;
                     }
                 }
-                if let Some(k) = self.index(cx + i, cy + j)
-                    && depth < self.depth[k]
-                {
-                    self.depth[k] = depth;
+                let (px, py) = (cx + i, cy + j);
+                let Some(k) = self.index(px, py) else {
+                    continue;
+                };
+                let stored = self.depth[k];
+                let wins = match share {
+                    None => depth < stored,
+                    Some(s) => {
+                        if stored.is_infinite() || depth < stored - s.tolerance {
+                            true
+                        } else if depth <= stored + s.tolerance {
+                            let owner = (px / 2 + py / 2) as u64 % s.layers.max(1) as u64;
+                            owner == s.layer as u64
+                        } else {
+                            false
+                        }
+                    }
+                };
+                if wins {
+                    self.depth[k] = depth.min(stored);
                     self.pixels[k] = colour;
                 }
             }
@@ -459,6 +504,45 @@ mod tests {
         c.clear(WHITE);
         c.splat(1.0, 1.0, 5.0, Splat::Square(1), BLUE);
         assert_eq!(c.pixel(1, 1), Some(BLUE));
+    }
+
+    #[test]
+    fn coincident_layers_share_pixels_in_a_checkerboard() {
+        let mut c = Canvas::new(8, 8, WHITE);
+        for (layer, colour, depth) in [(0, RED, 1.0), (1, BLUE, 1.0 + 1e-7)] {
+            let share = Share {
+                layer,
+                layers: 2,
+                tolerance: 1e-4,
+            };
+            for y in 0..8 {
+                for x in 0..8 {
+                    c.splat_shared(
+                        x as f64,
+                        y as f64,
+                        depth,
+                        Splat::Square(1),
+                        colour,
+                        Some(share),
+                    );
+                }
+            }
+        }
+        assert_eq!(count(&c, RED), 32);
+        assert_eq!(count(&c, BLUE), 32);
+        assert_eq!(c.pixel(0, 0), Some(RED));
+        assert_eq!(c.pixel(2, 0), Some(BLUE));
+        // A clearly nearer point still wins every pixel.
+        let share = Share {
+            layer: 1,
+            layers: 2,
+            tolerance: 1e-4,
+        };
+        c.splat_shared(0.0, 0.0, 0.5, Splat::Square(1), BLUE, Some(share));
+        assert_eq!(c.pixel(0, 0), Some(BLUE));
+        // A farther one never does.
+        c.splat_shared(2.0, 0.0, 3.0, Splat::Square(1), RED, Some(share));
+        assert_eq!(c.pixel(2, 0), Some(BLUE));
     }
 
     #[test]

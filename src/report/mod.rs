@@ -15,7 +15,7 @@ pub mod colour;
 pub mod font;
 pub mod views;
 
-pub use canvas::{Canvas, Rgb, Splat, ViewAxis, Viewport};
+pub use canvas::{Canvas, Rgb, Share, Splat, ViewAxis, Viewport};
 pub use colour::{ColourMap, LAYER_PALETTE};
 pub use views::{
     FigureText, Layer, ScalarField, Transform, draw_alignment_views, draw_cloud_views, nice_length,

@@ -13,7 +13,7 @@
 
 use std::path::Path;
 
-use super::canvas::{Canvas, Rgb, Splat, ViewAxis, Viewport};
+use super::canvas::{Canvas, Rgb, Share, Splat, ViewAxis, Viewport};
 use super::colour::{ColourMap, darken};
 use crate::cloud::Cloud;
 use crate::error::{Error, Result};
@@ -175,9 +175,9 @@ impl Bounds {
                 continue;
             }
             let b = b.get_or_insert(Bounds { lo: *p, hi: *p });
-            for k in 0..3 {
-                b.lo[k] = b.lo[k].min(p[k]);
-                b.hi[k] = b.hi[k].max(p[k]);
+            for (k, &v) in p.iter().enumerate() {
+                b.lo[k] = b.lo[k].min(v);
+                b.hi[k] = b.hi[k].max(v);
             }
         }
         b
@@ -263,7 +263,10 @@ fn draw_panel(
     canvas.text(x + PAD, y + 10, label, 2, INK);
 
     let (lo, hi) = extent;
-    let vp = Viewport::fit(panel.plot_rect(), [lo[0], lo[1]], [hi[0], hi[1]]);
+    // Inset by a splat's width so that points on the extremes stay inside the plot rectangle.
+    let [px, py, pw, ph] = panel.plot_rect();
+    let inner = [px + 3.0, py + 3.0, pw - 6.0, ph - 6.0];
+    let vp = Viewport::fit(inner, [lo[0], lo[1]], [hi[0], hi[1]]);
 
     // Scale bar: about a quarter of the plot width, rounded down to 1-2-5.
     let base_y = y + h - 14;
@@ -299,26 +302,34 @@ fn draw_panel(
     vp
 }
 
-/// Splats points in one view, shading by depth within `depth_range` when asked.
+/// How points are drawn in one panel.
+struct PointStyle {
+    /// Depth range for shading (farther = darker); `None` keeps colours exact.
+    shade: Option<[f64; 2]>,
+    /// Pixel sharing with other layers at equal depth.
+    share: Option<Share>,
+    splat: Splat,
+}
+
+/// Splats points in one view.
 fn draw_points(
     canvas: &mut Canvas,
     vp: &Viewport,
     view: ViewAxis,
     points: &[[f64; 3]],
     colour: impl Fn(usize) -> Rgb,
-    shade_range: Option<[f64; 2]>,
-    splat: Splat,
+    style: &PointStyle,
 ) {
     for (i, p) in points.iter().enumerate() {
         let [r, u, d] = view.project(*p);
         let [px, py] = vp.to_pixel(r, u);
         let mut c = colour(i);
-        if let Some([dlo, dhi]) = shade_range
+        if let Some([dlo, dhi]) = style.shade
             && dhi > dlo
         {
             c = darken(c, DEPTH_SHADE * ((d - dlo) / (dhi - dlo)) as f32);
         }
-        canvas.splat(px, py, d as f32, splat, c);
+        canvas.splat_shared(px, py, d as f32, style.splat, c, style.share);
     }
 }
 
@@ -422,7 +433,7 @@ pub fn draw_alignment_views(layers: &[Layer<'_>], text: &FigureText) -> Result<C
     let bounds = before
         .iter()
         .chain(after.iter())
-        .map(|pts| Bounds::of(pts))
+        .map(|pts| Bounds::of(pts.iter()))
         .fold(None, Bounds::union)
         .unwrap_or(Bounds {
             lo: [0.0; 3],
@@ -442,18 +453,19 @@ pub fn draw_alignment_views(layers: &[Layer<'_>], text: &FigureText) -> Result<C
             let label = format!("{row_name}: {} view, {r}-{u}", view.name());
             let panel = &panels[row * 3 + col];
             let vp = draw_panel(&mut canvas, panel, &label, view, extent, &text.unit);
-            let shade = Some([extent.0[2], extent.1[2]]);
-            for (layer, pts) in layers.iter().zip(points.iter()) {
+            let (dlo, dhi) = (extent.0[2], extent.1[2]);
+            for (k, (layer, pts)) in layers.iter().zip(points.iter()).enumerate() {
+                let style = PointStyle {
+                    shade: Some([dlo, dhi]),
+                    share: Some(Share {
+                        layer: k as u32,
+                        layers: layers.len() as u32,
+                        tolerance: ((dhi - dlo) * 1e-5).max(1e-6) as f32,
+                    }),
+                    splat: Splat::Square(2),
+                };
                 let colour = layer.colour;
-                draw_points(
-                    &mut canvas,
-                    &vp,
-                    view,
-                    pts,
-                    |_| colour,
-                    shade,
-                    Splat::Square(2),
-                );
+                draw_points(&mut canvas, &vp, view, pts, |_| colour, &style);
             }
         }
     }
@@ -550,28 +562,21 @@ pub fn draw_cloud_views(
             (Some(field), Some([lo, hi])) => {
                 let span = if hi > lo { hi - lo } else { 1.0 };
                 let colour = |i: usize| field.map.colour((field.values[i * step] - lo) / span);
-                draw_points(
-                    &mut canvas,
-                    &vp,
-                    view,
-                    &points,
-                    colour,
-                    None,
-                    Splat::Square(2),
-                );
+                let style = PointStyle {
+                    shade: None,
+                    share: None,
+                    splat: Splat::Square(2),
+                };
+                draw_points(&mut canvas, &vp, view, &points, colour, &style);
             }
             _ => {
-                let shade = Some([extent.0[2], extent.1[2]]);
+                let style = PointStyle {
+                    shade: Some([extent.0[2], extent.1[2]]),
+                    share: None,
+                    splat: Splat::Square(2),
+                };
                 let c = layer.colour;
-                draw_points(
-                    &mut canvas,
-                    &vp,
-                    view,
-                    &points,
-                    |_| c,
-                    shade,
-                    Splat::Square(2),
-                );
+                draw_points(&mut canvas, &vp, view, &points, |_| c, &style);
             }
         }
     }
@@ -594,7 +599,6 @@ pub fn draw_cloud_views(
                 canvas.fill_rect(x + i, legend_y, 1, 20, field.map.colour(t));
             }
             canvas.stroke_rect(x, legend_y, bar_w as u32, 20, 1, INK);
-            canvas.fill_rect(x + bar_w / 2, legend_y + 20, 1, 5, INK);
             x += bar_w + 10;
             x += canvas.text(x, legend_y + 2, &value_label(hi, span), 2, INK) as i64 + 40;
             let mut note = count;
@@ -622,4 +626,233 @@ pub fn render_cloud_views(
     path: &Path,
 ) -> Result<()> {
     draw_cloud_views(cloud, colour_by, text)?.save_png(path)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn nice_lengths_follow_one_two_five() {
+        let cases = [
+            (7.3, 5.0),
+            (0.031, 0.02),
+            (1.0, 1.0),
+            (199.0, 100.0),
+            (250.0, 200.0),
+            (9.99, 5.0),
+            (2.0, 2.0),
+            (5.0, 5.0),
+            (0.5, 0.5),
+            (0.001, 0.001),
+            (1e6, 1e6),
+            (0.0, 0.0),
+            (-3.0, 0.0),
+            (f64::NAN, 0.0),
+            (f64::INFINITY, 0.0),
+        ];
+        for (max, want) in cases {
+            let got = nice_length(max);
+            assert!(
+                (got - want).abs() <= 1e-12 * want.max(1.0),
+                "{max} -> {got}"
+            );
+            assert!(got <= max || got == 0.0);
+        }
+    }
+
+    #[test]
+    fn labels_carry_just_the_needed_decimals() {
+        assert_eq!(length_label(0.05, "m"), "0.05 m");
+        assert_eq!(length_label(0.1, "m"), "0.1 m");
+        assert_eq!(length_label(0.2, "mm"), "0.2 mm");
+        assert_eq!(length_label(20.0, ""), "20 units");
+        assert_eq!(value_label(-1.0123, 3.0), "-1.01");
+        assert_eq!(value_label(0.00421, 0.01), "0.0042");
+        assert_eq!(count_label(999), "999 points");
+        assert_eq!(count_label(42_500), "42 k points");
+        assert_eq!(count_label(2_345_678), "2.3 M points");
+    }
+
+    #[test]
+    fn large_layers_are_thinned_by_stride() {
+        assert_eq!(stride(0), 1);
+        assert_eq!(stride(MAX_POINTS_PER_LAYER), 1);
+        assert_eq!(stride(MAX_POINTS_PER_LAYER + 1), 2);
+        assert_eq!(stride(3 * MAX_POINTS_PER_LAYER), 3);
+        let pts = vec![[0.0f32; 3]; 2 * MAX_POINTS_PER_LAYER + 5];
+        let layer = Layer {
+            name: "big".into(),
+            colour: [0, 0, 0],
+            origin: [0.0; 3],
+            points: &pts,
+            after: None,
+        };
+        assert!(prepare(&layer, [0.0; 3], None).len() <= MAX_POINTS_PER_LAYER);
+    }
+
+    #[test]
+    fn percentile_range_ignores_nan_and_outliers() {
+        let mut values: Vec<f32> = (0..=100).map(|i| i as f32).collect();
+        values.push(f32::NAN);
+        values.push(1e9);
+        let field = ScalarField {
+            values: &values,
+            name: "v".into(),
+            range: None,
+            map: ColourMap::Sequential,
+        };
+        let [lo, hi] = value_range(&field);
+        assert_eq!(lo, 1.0);
+        assert_eq!(hi, 100.0);
+    }
+
+    /// Mean pixel position of the pixels in a rectangle that satisfy `pick`, and their count.
+    fn centroid(
+        c: &Canvas,
+        rect: [f64; 4],
+        pick: impl Fn(Rgb) -> bool,
+    ) -> Option<([f64; 2], usize)> {
+        let [x, y, w, h] = rect.map(|v| v as i64);
+        let (mut sx, mut sy, mut n) = (0.0, 0.0, 0usize);
+        for py in y..y + h {
+            for px in x..x + w {
+                if pick(c.pixel(px, py).unwrap()) {
+                    sx += px as f64;
+                    sy += py as f64;
+                    n += 1;
+                }
+            }
+        }
+        (n > 0).then(|| ([sx / n as f64, sy / n as f64], n))
+    }
+
+    #[test]
+    fn after_row_shows_the_moved_layer_on_top_of_the_fixed_one() {
+        // A 1 m cube of points far from zero (LAS-like coordinates), and a copy shifted by
+        // (5, 3, 2) m whose transform moves it back.
+        let mut cube = Vec::new();
+        for i in 0..10 {
+            for j in 0..10 {
+                for k in 0..10 {
+                    cube.push([i as f32 * 0.1, j as f32 * 0.1, k as f32 * 0.1]);
+                }
+            }
+        }
+        let fixed_origin = [638_864.6, 4_853_123.4, 120.0];
+        let moved_origin = [638_869.6, 4_853_126.4, 122.0];
+        let mut back = [[0.0; 4]; 4];
+        for (k, d) in [-5.0, -3.0, -2.0].into_iter().enumerate() {
+            back[k][k] = 1.0;
+            back[k][3] = d;
+        }
+        back[3][3] = 1.0;
+        let orange = [250, 120, 0];
+        let blue = [0, 90, 250];
+        let layers = [
+            Layer {
+                name: "moved".into(),
+                colour: orange,
+                origin: moved_origin,
+                points: &cube,
+                after: Some(back),
+            },
+            Layer {
+                name: "fixed".into(),
+                colour: blue,
+                origin: fixed_origin,
+                points: &cube,
+                after: None,
+            },
+        ];
+        let text = FigureText {
+            title: "test".into(),
+            lines: vec!["rotation 0.00\u{b0}".into()],
+            footer: "note".into(),
+            unit: "m".into(),
+        };
+        let canvas = draw_alignment_views(&layers, &text).unwrap();
+        assert_eq!([canvas.width(), canvas.height()], ALIGNMENT_SIZE);
+        let again = draw_alignment_views(&layers, &text).unwrap();
+        assert_eq!(canvas.encode_png().unwrap(), again.encode_png().unwrap());
+
+        let is_orange = |c: Rgb| c[0] > 60 && c[0] as i32 > c[2] as i32 + 40;
+        let is_blue = |c: Rgb| c[2] > 60 && c[2] as i32 > c[0] as i32 + 40;
+        let top = draw_header(&mut Canvas::new(1, 1, BACKGROUND), &text);
+        let bottom = ALIGNMENT_SIZE[1] as i64 - MARGIN - FOOTER_HEIGHT;
+        let panels = grid(ALIGNMENT_SIZE[0] as i64, top, bottom, 2);
+        for (i, panel) in panels.iter().enumerate() {
+            let rect = panel.plot_rect();
+            let (o, no) = centroid(&canvas, rect, is_orange).expect("orange points");
+            let (b, nb) = centroid(&canvas, rect, is_blue).expect("blue points");
+            let dist = ((o[0] - b[0]).powi(2) + (o[1] - b[1]).powi(2)).sqrt();
+            if i < 3 {
+                assert!(dist > 50.0, "before panel {i}: layers {dist} px apart");
+            } else {
+                // Same place; the layers share pixels, so each shows where it is nearer.
+                assert!(dist < 6.0, "after panel {i}: layers {dist} px apart");
+                assert!(no + nb > 100);
+            }
+        }
+        // In the top view, X grows to the right and Y upwards: the moved copy (+5 m X, +3 m Y)
+        // sits right of and above the fixed one.
+        let rect = panels[0].plot_rect();
+        let (o, _) = centroid(&canvas, rect, is_orange).unwrap();
+        let (b, _) = centroid(&canvas, rect, is_blue).unwrap();
+        assert!(o[0] > b[0] && o[1] < b[1], "{o:?} vs {b:?}");
+    }
+
+    #[test]
+    fn cloud_views_colour_by_value_and_check_lengths() {
+        let pts: Vec<[f32; 3]> = (0..400)
+            .map(|i| [(i % 20) as f32 * 0.1, (i / 20) as f32 * 0.1, 0.0])
+            .collect();
+        let cloud = Cloud::new([10.0, 20.0, 30.0], pts);
+        let values: Vec<f32> = cloud.positions.iter().map(|p| p[0]).collect();
+        let field = ScalarField {
+            values: &values,
+            name: "x".into(),
+            range: Some([0.0, 1.9]),
+            map: ColourMap::Sequential,
+        };
+        let text = FigureText::default();
+        let canvas = draw_cloud_views(&cloud, Some(&field), &text).unwrap();
+        assert_eq!([canvas.width(), canvas.height()], CLOUD_SIZE);
+        // Both ends of the map appear in the top view.
+        let top = draw_header(&mut Canvas::new(1, 1, BACKGROUND), &text);
+        let bottom = CLOUD_SIZE[1] as i64 - MARGIN - FOOTER_HEIGHT;
+        let rect = grid(CLOUD_SIZE[0] as i64, top, bottom, 1)[0].plot_rect();
+        for end in [0.0, 1.0] {
+            let want = ColourMap::Sequential.colour(end);
+            assert!(centroid(&canvas, rect, |c| c == want).is_some(), "{end}");
+        }
+        let short = ScalarField {
+            values: &values[..10],
+            ..field
+        };
+        let err = draw_cloud_views(&cloud, Some(&short), &text).unwrap_err();
+        assert!(
+            err.to_string().contains("10 values for 400 points"),
+            "{err}"
+        );
+    }
+
+    #[test]
+    fn empty_input_still_draws_and_bad_paths_fail_cleanly() {
+        let text = FigureText::default();
+        assert!(draw_alignment_views(&[], &text).is_ok());
+        assert!(draw_cloud_views(&Cloud::default(), None, &text).is_ok());
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("no").join("views.png");
+        let err = render_alignment_views(&[], &text, &path).unwrap_err();
+        assert!(err.to_string().contains("views.png"), "{err}");
+        let bad = Layer {
+            name: "bad".into(),
+            colour: [0; 3],
+            origin: [0.0; 3],
+            points: &[],
+            after: Some([[f64::NAN; 4]; 4]),
+        };
+        assert!(draw_alignment_views(&[bad], &text).is_err());
+    }
 }
