@@ -9,6 +9,35 @@
 //!
 //! Coordinates are file units; points are f32 offsets from an f64 origin, as in
 //! [`crate::Cloud`]. Output is deterministic: the same input gives the same PNG bytes.
+//!
+//! ```
+//! use equiscan::Cloud;
+//! use equiscan::report::{FigureText, LAYER_PALETTE, Layer, draw_alignment_views};
+//!
+//! let target = Cloud::new([0.0; 3], vec![[0.0, 0.0, 0.0], [1.0, 0.5, 0.2]]);
+//! let source = Cloud::new([5.0, 0.0, 0.0], target.positions.clone());
+//! // Row-major 4x4 transform taking the source onto the target: 5 units along -X.
+//! let back = [
+//!     [1.0, 0.0, 0.0, -5.0],
+//!     [0.0, 1.0, 0.0, 0.0],
+//!     [0.0, 0.0, 1.0, 0.0],
+//!     [0.0, 0.0, 0.0, 1.0],
+//! ];
+//! let layers = [
+//!     Layer::from_cloud("source", LAYER_PALETTE[0], &source).moved_after(back),
+//!     Layer::from_cloud("target", LAYER_PALETTE[1], &target),
+//! ];
+//! let text = FigureText {
+//!     title: "source onto target".into(),
+//!     lines: vec!["rotation 0.00\u{b0}".into(), "overlap 100 %".into()],
+//!     footer: "A made-up example.".into(),
+//!     unit: "m".into(),
+//! };
+//! let picture = draw_alignment_views(&layers, &text)?;
+//! assert_eq!((picture.width(), picture.height()), (1800, 1200));
+//! // `render_alignment_views(&layers, &text, path)` writes the same picture as a PNG file.
+//! # Ok::<(), equiscan::Error>(())
+//! ```
 
 pub mod canvas;
 pub mod colour;

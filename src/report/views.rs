@@ -333,34 +333,57 @@ fn draw_points(
     }
 }
 
-/// Draws the heading and figure lines; returns the y just below them.
+/// `text` cut to at most `max_width` pixels at `scale`, ending in `...` when cut.
+fn fit_text(text: &str, scale: u32, max_width: i64) -> String {
+    if Canvas::text_width(text, scale) as i64 <= max_width {
+        return text.to_string();
+    }
+    let advance = (Canvas::text_width("xx", scale) - Canvas::text_width("x", scale)) as i64;
+    let keep = (max_width / advance.max(1) - 3).max(0) as usize;
+    text.chars().take(keep).collect::<String>() + "..."
+}
+
+/// Most rows of figure lines under the heading; more lines go to further columns.
+const MAX_HEADER_ROWS: usize = 6;
+/// Most columns of figure lines.
+const MAX_HEADER_COLUMNS: usize = 3;
+
+/// Draws the heading and figure lines; returns the y just below them. Lines that do not fit
+/// are cut with `...`; beyond [`MAX_HEADER_ROWS`] × [`MAX_HEADER_COLUMNS`] lines the last
+/// shown line says how many were left out.
 fn draw_header(canvas: &mut Canvas, text: &FigureText) -> i64 {
-    let width = canvas.width() as i64;
+    let usable = canvas.width() as i64 - 2 * MARGIN;
     let mut y = MARGIN;
     if !text.title.is_empty() {
-        canvas.text(MARGIN, y, &text.title, 3, INK);
+        canvas.text(MARGIN, y, &fit_text(&text.title, 3, usable), 3, INK);
         y += Canvas::line_height(3) as i64 + 6;
     }
     if !text.lines.is_empty() {
-        let widest = text
-            .lines
+        let limit = MAX_HEADER_ROWS * MAX_HEADER_COLUMNS;
+        let mut lines = text.lines.clone();
+        if lines.len() > limit {
+            let left_out = lines.len() - (limit - 1);
+            lines.truncate(limit - 1);
+            lines.push(format!("({left_out} more lines not shown)"));
+        }
+        let widest = lines
             .iter()
             .map(|l| Canvas::text_width(l, 2) as i64)
             .max()
             .unwrap_or(0);
-        let column = widest + 56;
-        let columns = ((width - 2 * MARGIN) / column.max(1)).clamp(1, 3) as usize;
-        let rows = text.lines.len().div_ceil(columns);
+        let gutter = 56;
+        let fit = ((usable + gutter) / (widest + gutter).max(1)) as usize;
+        let columns = fit
+            .max(lines.len().div_ceil(MAX_HEADER_ROWS))
+            .clamp(1, MAX_HEADER_COLUMNS);
+        let rows = lines.len().div_ceil(columns);
+        let column = (usable + gutter) / columns as i64;
         let pitch = Canvas::line_height(2) as i64 + 2;
-        for (i, line) in text.lines.iter().enumerate() {
+        for (i, line) in lines.iter().enumerate() {
             let (c, r) = (i / rows, i % rows);
-            canvas.text(
-                MARGIN + c as i64 * column,
-                y + r as i64 * pitch,
-                line,
-                2,
-                INK,
-            );
+            let line = fit_text(line, 2, column - gutter);
+            let x = MARGIN + c as i64 * column.min(widest + gutter);
+            canvas.text(x, y + r as i64 * pitch, &line, 2, INK);
         }
         y += rows as i64 * pitch;
     }
@@ -372,7 +395,8 @@ const FOOTER_HEIGHT: i64 = 70;
 /// Draws the footer caution line along the bottom edge.
 fn draw_footer_line(canvas: &mut Canvas, footer: &str) {
     let y = canvas.height() as i64 - MARGIN - Canvas::text_height(2) as i64;
-    canvas.text(MARGIN, y, footer, 2, SOFT_INK);
+    let usable = canvas.width() as i64 - 2 * MARGIN;
+    canvas.text(MARGIN, y, &fit_text(footer, 2, usable), 2, SOFT_INK);
 }
 
 /// Draws legend entries (swatch and name) on one row at `y`; returns the x after the last.
@@ -672,6 +696,32 @@ mod tests {
         assert_eq!(count_label(999), "999 points");
         assert_eq!(count_label(42_500), "42 k points");
         assert_eq!(count_label(2_345_678), "2.3 M points");
+    }
+
+    #[test]
+    fn long_text_is_cut_to_fit() {
+        assert_eq!(fit_text("short", 2, 1000), "short");
+        let long = "a".repeat(300);
+        let cut = fit_text(&long, 2, 600);
+        assert!(cut.ends_with("..."));
+        assert!(Canvas::text_width(&cut, 2) <= 600);
+        assert!(Canvas::text_width(&cut, 2) > 560);
+    }
+
+    #[test]
+    fn header_grows_with_lines_but_is_capped() {
+        let canvas = || Canvas::new(ALIGNMENT_SIZE[0], ALIGNMENT_SIZE[1], BACKGROUND);
+        let with = |n: usize| FigureText {
+            title: "t".into(),
+            lines: (0..n).map(|i| format!("figure number {i}")).collect(),
+            ..FigureText::default()
+        };
+        let h0 = draw_header(&mut canvas(), &with(0));
+        let h3 = draw_header(&mut canvas(), &with(3));
+        let h100 = draw_header(&mut canvas(), &with(100));
+        assert!(h3 > h0);
+        let pitch = Canvas::line_height(2) as i64 + 2;
+        assert_eq!(h100 - h0, MAX_HEADER_ROWS as i64 * pitch);
     }
 
     #[test]
