@@ -151,5 +151,31 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     let path = folder.join("cloud.png");
     render_cloud_views(&target, Some(&field), &text, &path)?;
     println!("wrote {}", path.display());
+
+    // A made-up signed deviation (a gentle bulge around the cylinder), on a diverging map
+    // with a range symmetric about zero.
+    let deviation: Vec<f32> = target
+        .positions
+        .iter()
+        .map(|p| {
+            let d = ((p[0] - 2.5).powi(2) + (p[1] - 1.5).powi(2)).sqrt();
+            0.004 * (1.5 - d).clamp(-1.0, 1.0)
+        })
+        .collect();
+    let field = ScalarField {
+        values: &deviation,
+        name: "deviation (m)".into(),
+        range: Some([-0.004, 0.004]),
+        map: ColourMap::Diverging,
+    };
+    let text = FigureText {
+        title: "target.ply against its reference".into(),
+        lines: vec!["tolerance +/-0.004 m".into()],
+        footer: "Blue: below the reference; red: above.".into(),
+        unit: "m".into(),
+    };
+    let path = folder.join("deviation.png");
+    render_cloud_views(&target, Some(&field), &text, &path)?;
+    println!("wrote {}", path.display());
     Ok(())
 }

@@ -133,7 +133,17 @@ fn value_label(value: f32, span: f32) -> String {
     } else {
         3
     };
-    format!("{value:.decimals$}")
+    let text = format!("{value:.decimals$}");
+    let text = if text.contains('.') {
+        text.trim_end_matches('0').trim_end_matches('.')
+    } else {
+        &text
+    };
+    if text == "-0" {
+        "0".into()
+    } else {
+        text.into()
+    }
 }
 
 fn count_label(n: usize) -> String {
@@ -391,6 +401,10 @@ fn draw_header(canvas: &mut Canvas, text: &FigureText) -> i64 {
 }
 
 const FOOTER_HEIGHT: i64 = 70;
+/// Footer height of the single-cloud picture: taller with a colour bar and its tick labels.
+fn cloud_footer_height(colour_bar: bool) -> i64 {
+    if colour_bar { 100 } else { FOOTER_HEIGHT }
+}
 
 /// Draws the footer caution line along the bottom edge.
 fn draw_footer_line(canvas: &mut Canvas, footer: &str) {
@@ -574,8 +588,9 @@ pub fn draw_cloud_views(
     });
     let range = colour_by.map(value_range);
 
+    let footer = cloud_footer_height(colour_by.is_some());
     let top = draw_header(&mut canvas, text);
-    let bottom = height as i64 - MARGIN - FOOTER_HEIGHT;
+    let bottom = height as i64 - MARGIN - footer;
     let panels = grid(width as i64, top, bottom, 1);
     for (col, view) in ViewAxis::ALL.into_iter().enumerate() {
         let extent = bounds.in_view(view);
@@ -605,31 +620,18 @@ pub fn draw_cloud_views(
         }
     }
 
-    let legend_y = height as i64 - MARGIN - FOOTER_HEIGHT + 14;
+    let legend_y = height as i64 - MARGIN - footer + 14;
     let mut count = count_label(cloud.len());
     if step > 1 {
         count += &format!(", 1 in {step} drawn");
     }
     match (colour_by, range) {
         (Some(field), Some([lo, hi])) => {
-            let mut x = MARGIN;
-            x += canvas.text(x, legend_y + 2, &field.name, 2, INK) as i64 + 20;
-            let span = hi - lo;
-            let lo_text = value_label(lo, span);
-            x += canvas.text(x, legend_y + 2, &lo_text, 2, INK) as i64 + 10;
-            let bar_w = 480;
-            for i in 0..bar_w {
-                let t = i as f32 / (bar_w - 1) as f32;
-                canvas.fill_rect(x + i, legend_y, 1, 20, field.map.colour(t));
-            }
-            canvas.stroke_rect(x, legend_y, bar_w as u32, 20, 1, INK);
-            x += bar_w + 10;
-            x += canvas.text(x, legend_y + 2, &value_label(hi, span), 2, INK) as i64 + 40;
             let mut note = count;
             if field.values.iter().any(|v| v.is_nan()) {
                 note += ", grey = no value";
             }
-            canvas.text(x, legend_y + 2, &note, 2, SOFT_INK);
+            draw_colour_bar(&mut canvas, legend_y, field, [lo, hi], &note);
         }
         _ => {
             let x = draw_legend(&mut canvas, MARGIN, legend_y, &[(layer.colour, count)]);
@@ -638,6 +640,36 @@ pub fn draw_cloud_views(
     }
     draw_footer_line(&mut canvas, &text.footer);
     Ok(canvas)
+}
+
+/// Draws the value name, a colour bar with ticks and values at its ends and middle, and a
+/// note to its right, from `y` downwards.
+fn draw_colour_bar(
+    canvas: &mut Canvas,
+    y: i64,
+    field: &ScalarField<'_>,
+    [lo, hi]: [f32; 2],
+    note: &str,
+) {
+    const BAR_W: i64 = 480;
+    const BAR_H: i64 = 20;
+    let x0 = MARGIN + canvas.text(MARGIN, y + 2, &field.name, 2, INK) as i64 + 24;
+    for i in 0..BAR_W {
+        let t = i as f32 / (BAR_W - 1) as f32;
+        canvas.fill_rect(x0 + i, y, 1, BAR_H as u32, field.map.colour(t));
+    }
+    canvas.stroke_rect(x0, y, BAR_W as u32, BAR_H as u32, 1, INK);
+    let span = hi - lo;
+    for q in 0..=4 {
+        let tx = x0 + (BAR_W - 1) * q / 4;
+        canvas.fill_rect(tx, y + BAR_H, 1, 6, INK);
+        if q % 2 == 0 {
+            let label = value_label(lo + span * q as f32 / 4.0, span);
+            let w = Canvas::text_width(&label, 2) as i64;
+            canvas.text(tx - w / 2, y + BAR_H + 9, &label, 2, INK);
+        }
+    }
+    canvas.text(x0 + BAR_W + 60, y + 2, note, 2, SOFT_INK);
 }
 
 /// Writes a PNG of `cloud` in three orthographic views (top X-Y, front X-Z, side Y-Z), coloured
@@ -693,6 +725,10 @@ mod tests {
         assert_eq!(length_label(20.0, ""), "20 units");
         assert_eq!(value_label(-1.0123, 3.0), "-1.01");
         assert_eq!(value_label(0.00421, 0.01), "0.0042");
+        assert_eq!(value_label(-0.004, 0.008), "-0.004");
+        assert_eq!(value_label(-1e-9, 0.008), "0");
+        assert_eq!(value_label(1.5, 3.0), "1.5");
+        assert_eq!(value_label(1200.0, 800.0), "1200");
         assert_eq!(count_label(999), "999 points");
         assert_eq!(count_label(42_500), "42 k points");
         assert_eq!(count_label(2_345_678), "2.3 M points");
@@ -870,7 +906,7 @@ mod tests {
         assert_eq!([canvas.width(), canvas.height()], CLOUD_SIZE);
         // Both ends of the map appear in the top view.
         let top = draw_header(&mut Canvas::new(1, 1, BACKGROUND), &text);
-        let bottom = CLOUD_SIZE[1] as i64 - MARGIN - FOOTER_HEIGHT;
+        let bottom = CLOUD_SIZE[1] as i64 - MARGIN - cloud_footer_height(true);
         let rect = grid(CLOUD_SIZE[0] as i64, top, bottom, 1)[0].plot_rect();
         for end in [0.0, 1.0] {
             let want = ColourMap::Sequential.colour(end);
