@@ -735,6 +735,27 @@ mod tests {
     }
 
     #[test]
+    fn scale_bar_is_drawn_at_its_nice_length() {
+        let mut canvas = Canvas::new(600, 500, BACKGROUND);
+        let panel = PanelLayout {
+            x: 0,
+            y: 0,
+            w: 600,
+            h: 500,
+        };
+        // 37 units wide: a quarter is 9.25, so the bar is 5 units.
+        let extent = ([0.0, 0.0, 0.0], [37.0, 10.0, 1.0]);
+        let vp = draw_panel(&mut canvas, &panel, "x", ViewAxis::Top, extent, "m");
+        // The bar is the run of ink that starts at the panel padding.
+        let run = (PAD..600)
+            .take_while(|&x| canvas.pixel(x, 500 - 14 - 3) == Some(INK))
+            .count() as f64;
+        let want = 5.0 * vp.pixels_per_unit;
+        assert!((run - want).abs() <= 1.0, "bar {run} px, want {want}");
+        assert!(vp.pixels_per_unit > 10.0);
+    }
+
+    #[test]
     fn long_text_is_cut_to_fit() {
         assert_eq!(fit_text("short", 2, 1000), "short");
         let long = "a".repeat(300);
