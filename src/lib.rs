@@ -3,7 +3,8 @@
 //! Data flows one way: files are read by [`io`] into a [`cloud::Cloud`] (f64 origin, f32 local
 //! positions); [`spatial`] finds neighbourhoods; the [`descriptor`] engine expands each
 //! neighbourhood in real spherical harmonics times a radial basis (conventions in [`so3`]); the
-//! invariants feed feature files, registration ([`align`]) and part identification.
+//! invariants feed feature files, registration ([`align`]) and part identification; [`report`]
+//! draws pictures.
 #![deny(missing_docs)]
 
 pub mod align;
@@ -11,6 +12,7 @@ pub mod cloud;
 pub mod descriptor;
 pub mod error;
 pub mod io;
+pub mod report;
 pub mod so3;
 pub mod spatial;
 
