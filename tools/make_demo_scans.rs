@@ -107,7 +107,7 @@ fn round_mm(v: V3) -> [f64; 3] {
 fn depot_scans(out: &Path) -> AnyResult<report::DepotTruth> {
     let scene = depot::Scene::depot();
     let settings = tls::Settings {
-        step_deg: 0.125,
+        step_deg: 0.144,
         elevation_min_deg: -40.0,
         elevation_max_deg: 60.0,
         max_range: 60.0,
@@ -144,10 +144,7 @@ fn depot_scans(out: &Path) -> AnyResult<report::DepotTruth> {
 
     let to_file1 = s1_pose.then(&scene_to_project);
     let returns1 = tls::scan(&scene, &station1, &settings);
-    let pts1: Vec<output::LasPoint> = returns1
-        .iter()
-        .map(|r| las_point(r, &to_file1))
-        .collect();
+    let pts1: Vec<output::LasPoint> = returns1.iter().map(|r| las_point(r, &to_file1)).collect();
     let file1 = "depot_station1.laz";
     output::write_laz(&out.join(file1), &pts1, STATION1_OFFSET, 1)?;
     eprintln!("{file1}: {} points", pts1.len());
@@ -240,8 +237,11 @@ fn cloud_of(points: &[V3], normals: Option<&[V3]>) -> Cloud {
             .map(|p| [p.x as f32, p.y as f32, p.z as f32])
             .collect(),
     );
-    c.normals =
-        normals.map(|ns| ns.iter().map(|n| [n.x as f32, n.y as f32, n.z as f32]).collect());
+    c.normals = normals.map(|ns| {
+        ns.iter()
+            .map(|n| [n.x as f32, n.y as f32, n.z as f32])
+            .collect()
+    });
     c
 }
 
@@ -254,7 +254,7 @@ fn part_scans(out: &Path) -> AnyResult<(Vec<report::PartTruth>, report::DefectTr
         sigma: 0.03,
         min_cos: 0.12,
     };
-    let pixels_across = 250.0;
+    let pixels_across = 320.0;
     let mut truths = Vec::new();
     let mut defect = None;
     for (k, part) in parts::all().into_iter().enumerate() {
@@ -264,11 +264,22 @@ fn part_scans(out: &Path) -> AnyResult<(Vec<report::PartTruth>, report::DefectTr
         let samples = sensor::reference_samples(&body, REFERENCE_POINTS, seed);
         let (pts, normals): (Vec<V3>, Vec<V3>) = samples.into_iter().unzip();
         let ref_file = format!("parts/reference/{}.ply", part.name);
-        output::write_ply(&out.join(&ref_file), &cloud_of(&pts, Some(&normals)), PLY_COMMENT)?;
+        output::write_ply(
+            &out.join(&ref_file),
+            &cloud_of(&pts, Some(&normals)),
+            PLY_COMMENT,
+        )?;
 
         // Partial scan: random rotation, placed so that it fills about `pixels_across` pixels.
         let mut rng = Rng::new(seed ^ 0xA5A5);
-        let rot = rng.rotation();
+        // The flange is redrawn until a face looks at the camera within 50°, so that the
+        // defect of its defective copy is in view.
+        let rot = loop {
+            let r = rng.rotation();
+            if part.name != "flange" || r[(2, 2)].abs() >= 50f64.to_radians().cos() {
+                break r;
+            }
+        };
         let bb = body.aabb;
         let centre = (bb.lo + bb.hi) * 0.5;
         let radius = bb.diagonal() * 0.5;

@@ -66,7 +66,10 @@ fn ground_normal() -> V3 {
 /// A pose standing on the ground at `(x, y)`, turned by `heading_deg` (counter-clockwise from
 /// east), with `lift` metres added to the ground height.
 fn on_ground(x: f64, y: f64, heading_deg: f64, lift: f64) -> Pose {
-    Pose::about_z(heading_deg.to_radians(), V3::new(x, y, ground_z(x, y) + lift))
+    Pose::about_z(
+        heading_deg.to_radians(),
+        V3::new(x, y, ground_z(x, y) + lift),
+    )
 }
 
 fn ground(half: f64) -> Solid {
@@ -111,8 +114,8 @@ fn shed(x: f64, y: f64, heading: f64, len: f64, wid: f64, wall: f64, rise: f64) 
     );
     let eave = wid / 2.0 + 0.3;
     let over = 0.2;
-    let up = V3::new(0.0, eave, rise).normalize();
-    let down = V3::new(0.0, -eave, rise).normalize();
+    let up = V3::new(0.0, rise, eave).normalize();
+    let down = V3::new(0.0, -rise, eave).normalize();
     let ridge = V3::new(0.0, 0.0, wall + rise);
     let roof = Convex::from_planes(vec![
         (-V3::z(), -(wall - 0.03)),
@@ -128,7 +131,12 @@ fn shed(x: f64, y: f64, heading: f64, len: f64, wid: f64, wall: f64, rise: f64) 
 /// Container-like box, 6.06 × 2.44 × 2.59 m, bottom `lift` above the ground.
 fn container(x: f64, y: f64, heading: f64, lift: f64) -> Solid {
     let pose = on_ground(x, y, heading, lift);
-    Convex::between(V3::new(-3.03, -1.22, -0.05), V3::new(3.03, 1.22, 2.54), &pose).into()
+    Convex::between(
+        V3::new(-3.03, -1.22, -0.05),
+        V3::new(3.03, 1.22, 2.54),
+        &pose,
+    )
+    .into()
 }
 
 fn pole(x: f64, y: f64) -> [Solid; 2] {
@@ -208,7 +216,11 @@ impl Scene {
             let y = 18.0 + x * 0.05;
             add(container(x, y, 3.0, 0.0), refl, Class::Other);
             if i < 2 {
-                add(container(x + 0.1, y, 3.0, 2.59), 0.33 + 0.1 * i as f64, Class::Other);
+                add(
+                    container(x + 0.1, y, 3.0, 2.59),
+                    0.33 + 0.1 * i as f64,
+                    Class::Other,
+                );
             }
         }
         add(container(-3.0, 32.0, 62.0, 0.0), 0.45, Class::Other);

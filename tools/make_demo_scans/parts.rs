@@ -96,7 +96,13 @@ pub fn shaft() -> Part {
         z_cyl(0.0, 0.0, 1.0, 30.0, 10.0),
         z_cyl(0.0, 0.0, 30.0, 80.0, 15.0),
         z_cyl(0.0, 0.0, 80.0, 119.0, 12.5),
-        Frustum::new(V3::new(0.0, 0.0, 119.0), V3::new(0.0, 0.0, 120.0), 12.5, 11.5).into(),
+        Frustum::new(
+            V3::new(0.0, 0.0, 119.0),
+            V3::new(0.0, 0.0, 120.0),
+            12.5,
+            11.5,
+        )
+        .into(),
     ]);
     let keyway = between([-4.0, 11.0, 40.0], [4.0, 16.0, 72.0]);
     Part {
@@ -112,10 +118,18 @@ pub fn elbow() -> Part {
     let tube = |r: f64, extra: f64| -> Solid {
         Solid::Union(vec![
             TorusSegment::new(V3::zeros(), V3::x(), V3::y(), big_r, r, FRAC_PI_2).into(),
-            Frustum::cylinder(V3::new(big_r, 0.0, 0.0), V3::new(big_r, -40.0 - extra, 0.0), r)
-                .into(),
-            Frustum::cylinder(V3::new(0.0, big_r, 0.0), V3::new(-25.0 - extra, big_r, 0.0), r)
-                .into(),
+            Frustum::cylinder(
+                V3::new(big_r, 0.0, 0.0),
+                V3::new(big_r, -40.0 - extra, 0.0),
+                r,
+            )
+            .into(),
+            Frustum::cylinder(
+                V3::new(0.0, big_r, 0.0),
+                V3::new(-25.0 - extra, big_r, 0.0),
+                r,
+            )
+            .into(),
         ])
     };
     // The bore's straight parts start a little inside the bend so that the joints overlap.
@@ -147,14 +161,38 @@ pub fn nut() -> Part {
     let rc = 0.95 * s / 2.0;
     let grow = (h / 2.0) / (30f64.to_radians().tan());
     let chamfer = Solid::Union(vec![
-        Frustum::new(V3::new(0.0, 0.0, -0.01), V3::new(0.0, 0.0, h / 2.0), rc, rc + grow).into(),
-        Frustum::new(V3::new(0.0, 0.0, h + 0.01), V3::new(0.0, 0.0, h / 2.0), rc, rc + grow).into(),
+        Frustum::new(
+            V3::new(0.0, 0.0, -0.01),
+            V3::new(0.0, 0.0, h / 2.0),
+            rc,
+            rc + grow,
+        )
+        .into(),
+        Frustum::new(
+            V3::new(0.0, 0.0, h + 0.01),
+            V3::new(0.0, 0.0, h / 2.0),
+            rc,
+            rc + grow,
+        )
+        .into(),
     ]);
     let rb = 10.5;
     let bore = Solid::Union(vec![
         z_cyl(0.0, 0.0, -1.0, h + 1.0, rb),
-        Frustum::new(V3::new(0.0, 0.0, -1.0), V3::new(0.0, 0.0, 1.5), rb + 2.5, rb).into(),
-        Frustum::new(V3::new(0.0, 0.0, h + 1.0), V3::new(0.0, 0.0, h - 1.5), rb + 2.5, rb).into(),
+        Frustum::new(
+            V3::new(0.0, 0.0, -1.0),
+            V3::new(0.0, 0.0, 1.5),
+            rb + 2.5,
+            rb,
+        )
+        .into(),
+        Frustum::new(
+            V3::new(0.0, 0.0, h + 1.0),
+            V3::new(0.0, 0.0, h - 1.5),
+            rb + 2.5,
+            rb,
+        )
+        .into(),
     ]);
     Part {
         name: "nut",

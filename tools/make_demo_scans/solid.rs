@@ -525,7 +525,9 @@ impl TorusSegment {
         for s in [-1.0, 1.0] {
             for t in [-1.0, 1.0] {
                 for q in [-1.0, 1.0] {
-                    pts.push(self.centre + self.u * (s * rr) + self.v * (t * rr) + self.w * (q * self.r));
+                    pts.push(
+                        self.centre + self.u * (s * rr) + self.v * (t * rr) + self.w * (q * self.r),
+                    );
                 }
             }
         }
@@ -756,10 +758,9 @@ impl Solid {
             Solid::Prim(q) => Solid::Prim(q.transformed(pose)),
             Solid::Union(v) => Solid::Union(v.iter().map(|s| s.transformed(pose)).collect()),
             Solid::Inter(v) => Solid::Inter(v.iter().map(|s| s.transformed(pose)).collect()),
-            Solid::Diff(a, b) => Solid::Diff(
-                Box::new(a.transformed(pose)),
-                Box::new(b.transformed(pose)),
-            ),
+            Solid::Diff(a, b) => {
+                Solid::Diff(Box::new(a.transformed(pose)), Box::new(b.transformed(pose)))
+            }
         }
     }
 
@@ -832,7 +833,14 @@ impl Body {
 
     /// The first place beyond `t_min` and before `t_max` where the ray `o + t d` (`d` unit)
     /// enters the body.
-    pub fn hit(&self, o: &V3, d: &V3, t_min: f64, t_max: f64, scratch: &mut Vec<(f64, V3)>) -> Option<Hit> {
+    pub fn hit(
+        &self,
+        o: &V3,
+        d: &V3,
+        t_min: f64,
+        t_max: f64,
+        scratch: &mut Vec<(f64, V3)>,
+    ) -> Option<Hit> {
         scratch.clear();
         for p in &self.prims {
             p.crossings(o, d, scratch);
@@ -848,7 +856,8 @@ impl Body {
         scratch.sort_by(|a, b| a.0.total_cmp(&b.0));
         for &(t, n) in scratch.iter() {
             let p = o + d * t;
-            if self.solid.contains(&(p + d * self.eps)) && !self.solid.contains(&(p - d * self.eps)) {
+            if self.solid.contains(&(p + d * self.eps)) && !self.solid.contains(&(p - d * self.eps))
+            {
                 let normal = if n.dot(d) < 0.0 { n } else { -n };
                 return Some(Hit { t, normal });
             }
@@ -884,17 +893,28 @@ mod tests {
 
     #[test]
     fn box_with_hole_is_hit_on_the_face_and_in_the_hole() {
-        let plate = Convex::between(V3::new(-10.0, -10.0, 0.0), V3::new(10.0, 10.0, 2.0), &Pose::shift(V3::zeros()));
+        let plate = Convex::between(
+            V3::new(-10.0, -10.0, 0.0),
+            V3::new(10.0, 10.0, 2.0),
+            &Pose::shift(V3::zeros()),
+        );
         let hole = Frustum::cylinder(V3::new(0.0, 0.0, -1.0), V3::new(0.0, 0.0, 3.0), 3.0);
         let body = Body::new(Solid::minus(plate, hole));
         let mut s = Vec::new();
         let down = V3::new(0.0, 0.0, -1.0);
-        let h = body.hit(&V3::new(5.0, 0.0, 10.0), &down, 0.0, 100.0, &mut s).unwrap();
+        let h = body
+            .hit(&V3::new(5.0, 0.0, 10.0), &down, 0.0, 100.0, &mut s)
+            .unwrap();
         assert!((h.t - 8.0).abs() < 1e-9 && (h.normal - V3::z()).norm() < 1e-12);
-        assert!(body.hit(&V3::new(0.0, 0.0, 10.0), &down, 0.0, 100.0, &mut s).is_none());
+        assert!(
+            body.hit(&V3::new(0.0, 0.0, 10.0), &down, 0.0, 100.0, &mut s)
+                .is_none()
+        );
         // A slanted ray through the hole wall.
         let d = V3::new(1.0, 0.0, -1.0).normalize();
-        let h = body.hit(&V3::new(-2.0, 0.0, 2.5), &d, 0.0, 100.0, &mut s).unwrap();
+        let h = body
+            .hit(&V3::new(-2.0, 0.0, 2.5), &d, 0.0, 100.0, &mut s)
+            .unwrap();
         let p = V3::new(-2.0, 0.0, 2.5) + d * h.t;
         assert!((p.x - 3.0).abs() < 1e-9, "{p:?}");
         assert!((h.normal + V3::x()).norm() < 1e-9);
@@ -902,10 +922,25 @@ mod tests {
 
     #[test]
     fn torus_segment_crossings_lie_on_the_tube() {
-        let t = TorusSegment::new(V3::zeros(), V3::x(), V3::y(), 50.0, 10.0, std::f64::consts::FRAC_PI_2);
+        let t = TorusSegment::new(
+            V3::zeros(),
+            V3::x(),
+            V3::y(),
+            50.0,
+            10.0,
+            std::f64::consts::FRAC_PI_2,
+        );
         let body = Body::new(t.into());
         let mut s = Vec::new();
-        let h = body.hit(&V3::new(100.0, 100.0, 0.0), &V3::new(-1.0, -1.0, 0.0).normalize(), 0.0, 1e3, &mut s).unwrap();
+        let h = body
+            .hit(
+                &V3::new(100.0, 100.0, 0.0),
+                &V3::new(-1.0, -1.0, 0.0).normalize(),
+                0.0,
+                1e3,
+                &mut s,
+            )
+            .unwrap();
         let p = V3::new(100.0, 100.0, 0.0) + V3::new(-1.0, -1.0, 0.0).normalize() * h.t;
         assert!((p.norm() - 60.0).abs() < 1e-8, "{p:?}");
     }
@@ -919,7 +954,9 @@ mod tests {
         assert!((n as f64 - 2400.0).abs() < 60.0, "{n}");
         // Cylinder r = 1, h = 2: area 2π·2 + 2π = 6π.
         let cyl = Frustum::cylinder(V3::zeros(), V3::new(0.0, 0.0, 2.0), 1.0);
-        let n = Body::new(cyl.into()).surface_samples(0.05, &mut Rng::new(2)).len();
+        let n = Body::new(cyl.into())
+            .surface_samples(0.05, &mut Rng::new(2))
+            .len();
         let want = 6.0 * std::f64::consts::PI / 0.0025;
         assert!((n as f64 / want - 1.0).abs() < 0.03, "{n} vs {want}");
     }

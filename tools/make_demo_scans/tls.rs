@@ -89,7 +89,9 @@ pub fn scan(scene: &Scene, station: &Station, s: &Settings) -> Vec<Return> {
                 let mut rng = Rng::derive(station.seed, (c * rows + r) as u64);
                 let cos_inc = (-normal.dot(&d)).clamp(0.0, 1.0);
                 // Received signal: Lambertian, a slight fall-off with range, speckle.
-                let signal = obj.reflectivity * cos_inc * (1.0 - 0.35 * t / s.max_range)
+                let signal = obj.reflectivity
+                    * cos_inc
+                    * (1.0 - 0.35 * t / s.max_range)
                     * (1.0 + 0.04 * rng.normal())
                     + 0.004 * rng.normal();
                 if signal < 0.004 {
@@ -100,8 +102,7 @@ pub fn scan(scene: &Scene, station: &Station, s: &Settings) -> Vec<Return> {
                     position: local * range,
                     intensity: (signal.clamp(0.0, 1.0) * 65535.0).round() as u16,
                     class: obj.class.code(),
-                    time: station.start_time
-                        + s.line_period * (c as f64 + r as f64 / rows as f64),
+                    time: station.start_time + s.line_period * (c as f64 + r as f64 / rows as f64),
                     elevation_deg: el_deg as f32,
                 });
             }
