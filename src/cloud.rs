@@ -174,7 +174,10 @@ impl Cloud {
             ));
         }
         if !self.origin.iter().all(|v| v.is_finite()) {
-            return Err(Error::invalid("the origin is not finite", "use a finite origin"));
+            return Err(Error::invalid(
+                "the origin is not finite",
+                "use a finite origin",
+            ));
         }
         Ok(())
     }
@@ -187,7 +190,10 @@ mod tests {
     #[test]
     fn global_coordinates_keep_millimetres() {
         // A LAS-like easting/northing: f32 alone would round to about 6 cm here.
-        let pts = [[638_864.601, 4_853_123.457, 120.003], [638_874.612, 4_853_133.468, 121.0]];
+        let pts = [
+            [638_864.601, 4_853_123.457, 120.003],
+            [638_874.612, 4_853_133.468, 121.0],
+        ];
         let c = Cloud::from_global(&pts);
         for (i, p) in pts.iter().enumerate() {
             let g = c.global(i);

@@ -46,13 +46,16 @@ impl Error {
         use std::io::ErrorKind as K;
         let (what, fix) = match err.kind() {
             K::NotFound => ("no such file or folder".to_string(), "check the path"),
-            K::PermissionDenied => ("permission denied".to_string(), "check the file's permissions"),
+            K::PermissionDenied => (
+                "permission denied".to_string(),
+                "check the file's permissions",
+            ),
             K::UnexpectedEof => (
                 "the file ends early (truncated)".to_string(),
                 "copy or export the file again",
             ),
             _ => (
-                format!("{}", lowercase_first(&err.to_string())),
+                lowercase_first(&err.to_string()),
                 "check the path, the disk and the permissions",
             ),
         };

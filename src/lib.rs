@@ -8,6 +8,8 @@
 
 pub mod cloud;
 pub mod error;
+pub mod io;
+pub mod spatial;
 
 pub use cloud::Cloud;
 pub use error::{Error, Result};

@@ -1,0 +1,157 @@
+//! [`KdIndex`]: a read-only k-d tree over a cloud's local positions.
+
+use std::num::NonZeroUsize;
+
+use kiddo::{ImmutableKdTree, SquaredEuclidean};
+
+use crate::error::{Error, Result};
+
+/// A k-d tree over f32 local positions; items are indices into the slice it was built from.
+///
+/// Built once, then shared by every thread (queries take `&self`). Points must be finite:
+/// [`crate::Cloud::validate`] rejects NaN before a tree is built.
+pub struct KdIndex {
+    tree: ImmutableKdTree<f32, 3>,
+    len: usize,
+}
+
+impl KdIndex {
+    /// Builds the tree. Fails on an empty slice or more than `u32::MAX` points.
+    pub fn new(points: &[[f32; 3]]) -> Result<Self> {
+        if points.is_empty() {
+            return Err(Error::invalid(
+                "cannot index an empty cloud",
+                "give a cloud with at least one point",
+            ));
+        }
+        if points.len() > u32::MAX as usize {
+            return Err(Error::invalid(
+                format!("{} points are more than one index holds", points.len()),
+                "split the cloud into tiles",
+            ));
+        }
+        let tree = ImmutableKdTree::new_from_slice(points).map_err(|e| {
+            Error::invalid(
+                format!("the k-d tree could not be built: {e:?}"),
+                "check the cloud for non-finite coordinates",
+            )
+        })?;
+        Ok(KdIndex {
+            tree,
+            len: points.len(),
+        })
+    }
+
+    /// Number of indexed points.
+    pub fn len(&self) -> usize {
+        self.len
+    }
+
+    /// Always false: an index holds at least one point.
+    pub fn is_empty(&self) -> bool {
+        self.len == 0
+    }
+
+    /// Calls `visit(index, squared_distance)` for every point within `radius` of `centre`
+    /// (boundary included), in no particular order. Allocates nothing.
+    #[inline]
+    pub fn for_each_within(
+        &self,
+        centre: [f32; 3],
+        radius: f32,
+        mut visit: impl FnMut(usize, f32),
+    ) {
+        self.tree
+            .query(&centre)
+            .within::<SquaredEuclidean<f32>>(radius * radius)
+            .unsorted()
+            .visit(|hit| visit(hit.item as usize, hit.distance));
+    }
+
+    /// Clears `out` and fills it with `(index, squared_distance)` of the points within `radius`,
+    /// sorted by index so that downstream sums are independent of the tree's visiting order.
+    pub fn within_sorted(&self, centre: [f32; 3], radius: f32, out: &mut Vec<(u32, f32)>) {
+        out.clear();
+        self.for_each_within(centre, radius, |i, d2| out.push((i as u32, d2)));
+        out.sort_unstable_by_key(|&(i, _)| i);
+    }
+
+    /// The `k` nearest points as `(index, squared_distance)`, nearest first; ties by index.
+    pub fn nearest(&self, centre: [f32; 3], k: usize) -> Vec<(usize, f32)> {
+        let Some(k) = NonZeroUsize::new(k.min(self.len)) else {
+            return Vec::new();
+        };
+        let mut hits: Vec<(usize, f32)> = self
+            .tree
+            .query(&centre)
+            .nearest_n::<SquaredEuclidean<f32>>(k)
+            .execute()
+            .into_iter()
+            .map(|h| (h.item as usize, h.distance))
+            .collect();
+        hits.sort_by(|a, b| a.1.total_cmp(&b.1).then(a.0.cmp(&b.0)));
+        hits
+    }
+
+    /// The nearest point as `(index, squared_distance)`.
+    pub fn nearest_one(&self, centre: [f32; 3]) -> (usize, f32) {
+        let h = self
+            .tree
+            .query(&centre)
+            .nearest_one::<SquaredEuclidean<f32>>()
+            .execute();
+        (h.item as usize, h.distance)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Seeded pseudo-random points (SplitMix64), reproducible across platforms.
+    fn points(n: usize, seed: u64) -> Vec<[f32; 3]> {
+        let mut s = seed;
+        let mut next = move || {
+            s = s.wrapping_add(0x9E37_79B9_7F4A_7C15);
+            let mut z = s;
+            z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+            z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+            ((z ^ (z >> 31)) >> 40) as f32 / (1u64 << 24) as f32
+        };
+        (0..n).map(|_| [next(), next(), next()]).collect()
+    }
+
+    #[test]
+    fn radius_and_knn_match_brute_force() {
+        let seed = 7;
+        let pts = points(2000, seed);
+        let idx = KdIndex::new(&pts).unwrap();
+        let mut got = Vec::new();
+        for (q, c) in pts.iter().enumerate().step_by(97) {
+            let r = 0.1;
+            idx.within_sorted(*c, r, &mut got);
+            let want: Vec<u32> = pts
+                .iter()
+                .enumerate()
+                .filter(|(_, p)| d2(p, c) <= r * r)
+                .map(|(i, _)| i as u32)
+                .collect();
+            let got_ids: Vec<u32> = got.iter().map(|h| h.0).collect();
+            assert_eq!(got_ids, want, "seed {seed}, query {q}");
+            let knn = idx.nearest(*c, 5);
+            let mut all: Vec<(usize, f32)> =
+                pts.iter().enumerate().map(|(i, p)| (i, d2(p, c))).collect();
+            all.sort_by(|a, b| a.1.total_cmp(&b.1).then(a.0.cmp(&b.0)));
+            assert_eq!(knn[4].1, all[4].1, "seed {seed}, query {q}");
+        }
+    }
+
+    fn d2(a: &[f32; 3], b: &[f32; 3]) -> f32 {
+        (0..3).map(|k| (a[k] - b[k]) * (a[k] - b[k])).sum()
+    }
+
+    #[test]
+    fn empty_cloud_is_an_error() {
+        assert!(KdIndex::new(&[]).is_err());
+    }
+}

@@ -1,0 +1,17 @@
+//! Neighbourhoods: k-d tree queries, voxel downsampling, normals, point-spacing estimate.
+//!
+//! All coordinates are the cloud's f32 local positions (file units about the cloud's origin).
+//! Radii are plain distances here; the squared distances that the k-d tree works with stay
+//! inside [`KdIndex`]. Nothing here knows about harmonics.
+
+mod index;
+mod normals;
+mod spacing;
+mod voxel;
+
+pub use index::KdIndex;
+pub use normals::estimate_normals;
+pub use spacing::{
+    SUPPORT_RADIUS_PER_SPACING, estimate_spacing, estimate_spacing_with, suggested_support_radius,
+};
+pub use voxel::voxel_downsample;
