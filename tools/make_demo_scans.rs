@@ -245,8 +245,6 @@ fn cloud_of(points: &[V3], normals: Option<&[V3]>) -> Cloud {
     c
 }
 
-const PLY_COMMENT: &str = "synthetic demo data from the equiscan demo generator, millimetres";
-
 fn part_scans(out: &Path) -> AnyResult<(Vec<report::PartTruth>, report::DefectTruth)> {
     let sensor = sensor::Sensor {
         baseline: 150.0,
@@ -264,11 +262,7 @@ fn part_scans(out: &Path) -> AnyResult<(Vec<report::PartTruth>, report::DefectTr
         let samples = sensor::reference_samples(&body, REFERENCE_POINTS, seed);
         let (pts, normals): (Vec<V3>, Vec<V3>) = samples.into_iter().unzip();
         let ref_file = format!("parts/reference/{}.ply", part.name);
-        output::write_ply(
-            &out.join(&ref_file),
-            &cloud_of(&pts, Some(&normals)),
-            PLY_COMMENT,
-        )?;
+        equiscan::io::write_ply(&out.join(&ref_file), &cloud_of(&pts, Some(&normals)), &[])?;
 
         // Partial scan: random rotation, placed so that it fills about `pixels_across` pixels.
         let mut rng = Rng::new(seed ^ 0xA5A5);
@@ -294,7 +288,7 @@ fn part_scans(out: &Path) -> AnyResult<(Vec<report::PartTruth>, report::DefectTr
         let scan_seed = seed ^ 0x5CA7;
         let scan = sensor::partial_scan(&posed, &target, radius, &sensor, scan_seed);
         let scan_file = format!("parts/tray/{}_scan.ply", part.name);
-        output::write_ply(&out.join(&scan_file), &cloud_of(&scan, None), PLY_COMMENT)?;
+        equiscan::io::write_ply(&out.join(&scan_file), &cloud_of(&scan, None), &[])?;
         eprintln!(
             "{}: reference {} points, scan {} points",
             part.name,
@@ -307,7 +301,7 @@ fn part_scans(out: &Path) -> AnyResult<(Vec<report::PartTruth>, report::DefectTr
             let bad = Body::new(parts::flange(Some(hole)).solid.transformed(&pose));
             let bad_scan = sensor::partial_scan(&bad, &target, radius, &sensor, scan_seed);
             let file = "parts/tray/flange_defect_scan.ply".to_string();
-            output::write_ply(&out.join(&file), &cloud_of(&bad_scan, None), PLY_COMMENT)?;
+            equiscan::io::write_ply(&out.join(&file), &cloud_of(&bad_scan, None), &[])?;
             let where_scan = pose.apply(&at);
             defect = Some(report::DefectTruth {
                 part: part.name.to_string(),

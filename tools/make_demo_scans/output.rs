@@ -1,10 +1,9 @@
-//! File output: LAZ for the depot stations, binary PLY for the parts.
+//! LAZ output for the depot stations (the parts' PLY files go through `equiscan::io::write_ply`).
 
-use equiscan::Cloud;
 use las::point::Format;
 use las::{Builder, Point, Transform, Vector, Writer};
 use std::fs::File;
-use std::io::{BufWriter, Write};
+use std::io::BufWriter;
 use std::path::Path;
 
 /// Text for the LAS header's generating-software field (at most 32 bytes).
@@ -75,35 +74,4 @@ pub fn write_laz(
     }
     writer.close()?;
     Ok(())
-}
-
-/// Writes a binary little-endian PLY with float x, y, z (global coordinates) and, when the
-/// cloud has them, float nx, ny, nz.
-pub fn write_ply(path: &Path, cloud: &Cloud, comment: &str) -> std::io::Result<()> {
-    let mut w = BufWriter::new(File::create(path)?);
-    writeln!(w, "ply")?;
-    writeln!(w, "format binary_little_endian 1.0")?;
-    writeln!(w, "comment {comment}")?;
-    writeln!(w, "element vertex {}", cloud.len())?;
-    for name in ["x", "y", "z"] {
-        writeln!(w, "property float {name}")?;
-    }
-    if cloud.normals.is_some() {
-        for name in ["nx", "ny", "nz"] {
-            writeln!(w, "property float {name}")?;
-        }
-    }
-    writeln!(w, "end_header")?;
-    for i in 0..cloud.len() {
-        let g = cloud.global(i);
-        for v in g {
-            w.write_all(&(v as f32).to_le_bytes())?;
-        }
-        if let Some(n) = &cloud.normals {
-            for v in n[i] {
-                w.write_all(&v.to_le_bytes())?;
-            }
-        }
-    }
-    w.flush()
 }

@@ -275,7 +275,7 @@ pub fn readme(t: &Truth, sizes: &dyn Fn(&str) -> u64) -> String {
          removed. Each part stands about 13 times its bounding radius from the camera, so that \
          it spans about 320 pixels. The flange's rotation was redrawn until one of its faces \
          looked at the camera within 50°, so that its defective copy shows the defect. \
-         Coordinates are float32, binary little-endian PLY.\n\n",
+         Binary little-endian PLY: x, y, z as double, normals as float.\n\n",
     );
     o.push_str("| part | description | symmetry |\n|---|---|---|\n");
     for p in &t.parts {

@@ -520,16 +520,17 @@ impl TorusSegment {
     }
 
     fn aabb(&self) -> Aabb {
-        let rr = self.big_r + self.r;
-        let mut pts = Vec::new();
-        for s in [-1.0, 1.0] {
-            for t in [-1.0, 1.0] {
-                for q in [-1.0, 1.0] {
-                    pts.push(
-                        self.centre + self.u * (s * rr) + self.v * (t * rr) + self.w * (q * self.r),
-                    );
-                }
-            }
+        // Points along the centre circle, each padded by the tube radius (plus the chord's
+        // sagitta between samples) in every axis.
+        let steps = 64;
+        let da = self.sweep / steps as f64;
+        let pad = self.r + self.big_r * (1.0 - (0.5 * da).cos());
+        let mut pts = Vec::with_capacity(2 * (steps + 1));
+        for i in 0..=steps {
+            let (s, c) = (i as f64 * da).sin_cos();
+            let p = self.centre + (self.u * c + self.v * s) * self.big_r;
+            pts.push(p - V3::repeat(pad));
+            pts.push(p + V3::repeat(pad));
         }
         Aabb::around(&pts)
     }
