@@ -551,10 +551,11 @@ impl TorusSegment {
         let disc = b * b - c;
         if disc > 0.0 {
             let sq = disc.sqrt();
-            let (t_in, t_out) = (-b - sq, -b + sq);
             // March with steps no longer than the distance to the surface, so that no crossing
-            // is stepped over; bisect each sign change.
+            // is stepped over; bisect each sign change. Start and end just outside the bounding
+            // sphere, where the distance is surely positive.
             let min_step = self.r * 1e-3;
+            let (t_in, t_out) = (-b - sq - min_step, -b + sq + min_step);
             let f = |t: f64| self.sdf_local(&(ol + dl * t));
             let mut t0 = t_in;
             let mut f0 = f(t0);
@@ -912,7 +913,7 @@ mod tests {
                 .is_none()
         );
         // A slanted ray through the hole wall.
-        let d = V3::new(1.0, 0.0, -1.0).normalize();
+        let d = V3::new(1.0, 0.0, -0.2).normalize();
         let h = body
             .hit(&V3::new(-2.0, 0.0, 2.5), &d, 0.0, 100.0, &mut s)
             .unwrap();
