@@ -97,7 +97,9 @@ fn bounds(points: &[output::LasPoint]) -> ([f64; 3], [f64; 3]) {
             hi[k] = hi[k].max(p.xyz[k]);
         }
     }
-    (lo, hi)
+    // The file stores millimetres (whole-metre offsets), so the rounded values are the file's.
+    let mm = |v: [f64; 3]| v.map(|c| (c * 1000.0).round() / 1000.0);
+    (mm(lo), mm(hi))
 }
 
 fn round_mm(v: V3) -> [f64; 3] {

@@ -89,8 +89,8 @@ pub fn rot_z(a: f64) -> Matrix3<f64> {
 
 /// Two unit vectors completing `n` (unit) to a right-handed orthonormal basis.
 pub fn basis_for(n: &V3) -> (V3, V3) {
-    let helper = if n.x.abs() < 0.6 { V3::x() } else { V3::y() };
-    let e1 = n.cross(&helper).normalize();
+    let other = if n.x.abs() < 0.6 { V3::x() } else { V3::y() };
+    let e1 = n.cross(&other).normalize();
     let e2 = n.cross(&e1);
     (e1, e2)
 }
