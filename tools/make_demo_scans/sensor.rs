@@ -79,3 +79,41 @@ pub fn partial_scan(body: &Body, centre: &V3, radius: f64, s: &Sensor, seed: u64
         .collect();
     rows.into_iter().flatten().collect()
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::solid::{Convex, Pose};
+
+    #[test]
+    fn a_plate_facing_the_camera_is_sampled_on_the_pixel_grid() {
+        // 40 × 40 × 2 mm plate, front face at z = 499 mm.
+        let plate = Convex::cuboid(
+            V3::new(20.0, 20.0, 1.0),
+            &Pose::shift(V3::new(0.0, 0.0, 500.0)),
+        );
+        let body = Body::new(plate.into());
+        let s = Sensor {
+            baseline: 100.0,
+            pixel_pitch: 1e-3,
+            sigma: 0.0,
+            min_cos: 0.1,
+        };
+        let pts = partial_scan(&body, &V3::new(0.0, 0.0, 500.0), 30.0, &s, 1);
+        // One point per 0.499 mm pixel footprint: about (40 / 0.499)² points.
+        let want = (40.0f64 / 0.499).powi(2);
+        assert!(
+            (pts.len() as f64 / want - 1.0).abs() < 0.05,
+            "{} vs {want}",
+            pts.len()
+        );
+        assert!(pts.iter().all(|p| (p.z - 499.0).abs() < 1e-9));
+    }
+
+    #[test]
+    fn reference_samples_hit_the_target_count() {
+        let cube = Convex::cuboid(V3::repeat(10.0), &Pose::shift(V3::zeros()));
+        let n = reference_samples(&Body::new(cube.into()), 5000, 3).len();
+        assert!((n as f64 / 5000.0 - 1.0).abs() < 0.05, "{n}");
+    }
+}

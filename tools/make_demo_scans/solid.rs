@@ -962,4 +962,45 @@ mod tests {
         let want = 6.0 * std::f64::consts::PI / 0.0025;
         assert!((n as f64 / want - 1.0).abs() < 0.03, "{n} vs {want}");
     }
+
+    #[test]
+    fn cone_is_hit_at_its_radius_with_a_tilted_normal() {
+        let cone = Frustum::new(V3::zeros(), V3::new(0.0, 0.0, 10.0), 5.0, 0.0);
+        let body = Body::new(cone.into());
+        let mut s = Vec::new();
+        let o = V3::new(10.0, 0.0, 5.0);
+        let h = body.hit(&o, &-V3::x(), 0.0, 100.0, &mut s).unwrap();
+        assert!((h.t - 7.5).abs() < 1e-9, "{}", h.t);
+        let want = V3::new(1.0, 0.0, 0.5).normalize();
+        assert!((h.normal - want).norm() < 1e-9, "{:?}", h.normal);
+    }
+
+    #[test]
+    fn intersection_keeps_only_the_common_part() {
+        let cube = Convex::cuboid(V3::repeat(1.0), &Pose::shift(V3::zeros()));
+        let rod = Frustum::cylinder(V3::new(0.0, 0.0, -2.0), V3::new(0.0, 0.0, 2.0), 0.5);
+        let body = Body::new(Solid::Inter(vec![cube.into(), rod.into()]));
+        let mut s = Vec::new();
+        let down = -V3::z();
+        let h = body
+            .hit(&V3::new(0.2, 0.0, 5.0), &down, 0.0, 100.0, &mut s)
+            .unwrap();
+        assert!((h.t - 4.0).abs() < 1e-9 && (h.normal - V3::z()).norm() < 1e-12);
+        assert!(
+            body.hit(&V3::new(0.8, 0.0, 5.0), &down, 0.0, 100.0, &mut s)
+                .is_none()
+        );
+        let b = body.aabb;
+        assert!((b.hi - V3::new(0.5, 0.5, 1.0)).norm() < 1e-12, "{b:?}");
+    }
+
+    #[test]
+    fn pose_matrix_is_row_major() {
+        let p = Pose::new(rot_z(std::f64::consts::FRAC_PI_2), V3::new(1.0, 2.0, 3.0));
+        let m = p.matrix4();
+        let q = p.apply(&V3::new(1.0, 0.0, 0.0));
+        let r: Vec<f64> = (0..3).map(|i| m[i][0] + m[i][3]).collect();
+        assert!((q - V3::new(r[0], r[1], r[2])).norm() < 1e-12);
+        assert!((q - V3::new(1.0, 3.0, 3.0)).norm() < 1e-12);
+    }
 }
