@@ -176,7 +176,11 @@ pub fn readme(t: &Truth, sizes: &dyn Fn(&str) -> u64) -> String {
          depot is a made-up local grid, not a real map projection.\n\n",
     );
     o.push_str("Regenerate every file (same bytes on every run, any number of threads):\n\n");
-    o.push_str(&format!("```\n{}\n```\n\n", t.regenerate));
+    o.push_str(&format!(
+        "```\n{}\n```\n\nA run takes a few seconds on two cores after the build. The generator \
+         lives in `tools/make_demo_scans.rs` and `tools/make_demo_scans/`.\n\n",
+        t.regenerate
+    ));
     o.push_str("The true transforms are in `truth.json` as well (row-major 4×4, source → target, f64).\n\n");
 
     o.push_str("## Files\n\n| file | points | size | frame |\n|---|---:|---:|---|\n");
@@ -237,9 +241,10 @@ pub fn readme(t: &Truth, sizes: &dyn Fn(&str) -> u64) -> String {
         v3(&s1.instrument_in_project, 3)
     ));
     o.push_str(&format!(
-        "- `{}` is in its **own instrument frame**: the instrument at the origin, not levelled \
-         (tilt {:.2}° about x, {:.2}° about y) and with heading {:.2}° about z. Its centre is at {} \
-         in the project frame, {:.2} m from station 1.\n\n",
+        "- `{}` is in its **own instrument frame** (origin at the instrument centre, z along the \
+         instrument's vertical axis, x towards the start of its turn): not levelled (tilt {:.2}° \
+         about x, {:.2}° about y) and with heading {:.2}° about z. Its centre is at {} in the \
+         project frame, {:.2} m from station 1.\n\n",
         s2.file,
         s2.tilt_x_deg,
         s2.tilt_y_deg,
