@@ -56,7 +56,7 @@ fn nearest_both(a: &[f32], b: &[f32], dim: usize) -> Near {
             let start = blk * BLOCK;
             let n = chunk.len() / dim;
             let am = DMatrix::from_column_slice(dim, n, chunk);
-            let dots = am.tr_mul(&bm);
+            let dots = am.transpose() * &bm;
             let mut rows = vec![(0u32, f32::INFINITY, f32::INFINITY); n];
             let mut cols = vec![(0u32, f32::INFINITY); m];
             for (k, s) in rows.iter_mut().enumerate() {

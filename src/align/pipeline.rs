@@ -10,7 +10,7 @@ use super::equivariant::{self, EquivariantRecipe};
 use super::fpfh::{FPFH_LEN, fpfh};
 use super::icp::{IcpParams, RobustLoss, fit_quality, icp_point_to_plane, plane_fit};
 use super::matching::{MatchParams, match_features};
-use super::prep::{auto_voxel, prepare, spacing_of};
+use super::prep::{choose_voxel, prepare, spacing_of};
 use super::quality::{self, Figures, Verdict};
 use super::rigid::Rigid;
 use crate::cloud::Cloud;
@@ -168,7 +168,12 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
                 || spacing_of("source", &source.positions),
                 || spacing_of("target", &target.positions),
             );
-            auto_voxel(source.len(), ss?).max(auto_voxel(target.len(), st?))
+            let (ss, st) = (ss?, st?);
+            let (vs, vt) = rayon::join(
+                || choose_voxel(&source.positions, ss),
+                || choose_voxel(&target.positions, st),
+            );
+            vs.max(vt)
         }
     };
     let radius = params
@@ -309,13 +314,20 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
         .max_by(|a, b| a.1.1.total_cmp(&b.1.1).then(b.0.cmp(&a.0)))
         .map(|(_, x)| x)
         .unwrap_or((Rigid::identity(), 0.0, 0));
+    // A rival must come close to the winner both in tight overlap and in the correspondences
+    // it explains: a dominant plane (the ground) lets a wrong pose keep much of the overlap, but
+    // not the matched features; a truly symmetric shape keeps both.
+    let support = pairs.support(&coarse, tau).max(1) as f64;
     let rival = polished
         .iter()
         .filter(|p| !consensus::same_pose(&p.0, &coarse, 10.0, 5.0 * tau))
-        .map(|p| p.1)
+        .map(|p| {
+            let s = pairs.support(&p.0, tau) as f64 / support;
+            (p.1 / tight.max(f64::MIN_POSITIVE)).min(s)
+        })
         .fold(0.0f64, f64::max);
     let margin = if tight > 0.0 {
-        (1.0 - rival / tight).max(0.0)
+        (1.0 - rival).clamp(0.0, 1.0)
     } else {
         0.0
     };

@@ -6,7 +6,7 @@ use crate::error::{Error, Result};
 use crate::spatial::{KdIndex, estimate_normals, estimate_spacing, voxel_downsample};
 
 /// Keypoints per cloud aimed at when the voxel size is chosen automatically.
-pub const TARGET_KEYPOINTS: f64 = 2500.0;
+pub const TARGET_KEYPOINTS: f64 = 5000.0;
 
 /// Neighbours used for PCA normals at the keypoints.
 pub const NORMAL_NEIGHBOURS: usize = 12;
@@ -44,6 +44,30 @@ pub fn spacing_of(name: &str, points: &[[f32; 3]]) -> Result<f64> {
 pub fn auto_voxel(n: usize, spacing: f64) -> f64 {
     let area = n as f64 * spacing * spacing / 0.4;
     (1.5 * area / TARGET_KEYPOINTS).sqrt().max(2.0 * spacing)
+}
+
+/// A voxel size that leaves about [`TARGET_KEYPOINTS`] keypoints (at most 1.5 times as many):
+/// starts from [`auto_voxel`] and, where the spacing varies widely (terrestrial scans, whose
+/// spacing grows with range), enlarges the voxel by `√(count / target)` and re-thins the
+/// keypoints already found, a few times.
+pub fn choose_voxel(points: &[[f32; 3]], spacing: f64) -> f64 {
+    let mut voxel = auto_voxel(points.len(), spacing);
+    let mut kept: Vec<[f32; 3]> = voxel_downsample(points, voxel as f32)
+        .into_iter()
+        .map(|i| points[i])
+        .collect();
+    for _ in 0..6 {
+        let n = kept.len() as f64;
+        if n <= 1.5 * TARGET_KEYPOINTS {
+            break;
+        }
+        voxel *= (n / TARGET_KEYPOINTS).sqrt();
+        kept = voxel_downsample(&kept, voxel as f32)
+            .into_iter()
+            .map(|i| kept[i])
+            .collect();
+    }
+    voxel
 }
 
 /// Downsamples `points` on a voxel grid of edge `voxel`, estimates normals and builds the index.

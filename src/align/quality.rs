@@ -2,10 +2,12 @@
 //!
 //! - *consensus*: correspondences explained by the final transform (within the inlier threshold);
 //! - *overlap*: fraction of source keypoints with a target keypoint within the inlier threshold;
-//! - *margin*: `1 − s₂/s₁`, where `s₁` is the tight overlap of the winning pose (source keypoints
-//!   within the inlier threshold of a target keypoint *and* within a quarter voxel of its tangent
-//!   plane) and `s₂` the best tight overlap of a clearly different refined pose (another rotation
-//!   by more than 10° or a shift by more than 5 inlier thresholds); near 0 for symmetric shapes.
+//! - *margin*: `1 − ρ`, where `ρ` is, over the clearly different refined poses (another rotation
+//!   by more than 10° or a shift by more than 5 inlier thresholds), the largest
+//!   `min(o₂/o₁, k₂/k₁)`: `o` the tight overlap (source keypoints within the inlier threshold of a
+//!   target keypoint *and* within a quarter voxel of its tangent plane), `k` the correspondences
+//!   explained, `1` the winner and `2` the rival. Near 0 for symmetric shapes, where a rival keeps
+//!   both; a dominant plane lets a rival keep overlap but not the matched features.
 //!
 //! confidence = `(1 − e^(−consensus/10)) · min(1, overlap/0.25) · min(1, margin/0.25)`, in [0, 1].
 //! The verdict is confident when consensus ≥ [`MIN_CONSENSUS`], overlap ≥ [`MIN_OVERLAP`] and
@@ -71,7 +73,7 @@ pub struct Figures {
     pub correspondences: usize,
     /// Correspondences explained by the final transform.
     pub inliers: usize,
-    /// `1 − s₂/s₁` of the tight overlaps of the best pose and of a clearly different one.
+    /// How much better the pose is than a clearly different one (module docs), in [0, 1].
     pub margin: f64,
     /// Confidence figure in [0, 1].
     pub confidence: f64,
