@@ -26,12 +26,14 @@ pub mod equivariant;
 pub mod fpfh;
 pub mod icp;
 pub mod matching;
+pub mod multi;
 pub mod pipeline;
 pub mod prep;
 pub mod quality;
 pub mod rigid;
 
 pub use icp::RobustLoss;
+pub use multi::{LoopResidual, MultiAlignment, PairAlignment, align_many};
 pub use pipeline::{AlignParams, Alignment, Method, StageTime, align_pair};
 pub use quality::{Figures, Reason, Verdict};
 pub use rigid::{Rigid, horn, rotation_error_deg, umeyama};
