@@ -89,7 +89,7 @@ pub fn best_distinct(
     distance: f64,
 ) -> Vec<Hypothesis> {
     // Stable sort: equal support keeps input order, so the result is deterministic.
-    hyps.sort_by(|a, b| b.support.cmp(&a.support));
+    hyps.sort_by_key(|h| std::cmp::Reverse(h.support));
     let mut out: Vec<Hypothesis> = Vec::new();
     for h in hyps {
         if out.len() >= keep {
@@ -190,7 +190,7 @@ pub fn ransac(pairs: &Pairs, tau: f64, iterations: usize, seed: u64) -> Vec<Hypo
                     support,
                 });
             }
-            best.sort_by(|a, b| b.support.cmp(&a.support));
+            best.sort_by_key(|h| std::cmp::Reverse(h.support));
             best.truncate(16);
             best
         })

@@ -116,7 +116,9 @@ pub fn hypotheses(
             let Ok(res) = searcher.search(a, t) else {
                 return Vec::new();
             };
-            if !(res.best.normalized_rotational_score > 0.0) {
+            if res.best.normalized_rotational_score.is_nan()
+                || res.best.normalized_rotational_score <= 0.0
+            {
                 return Vec::new();
             }
             let p = v(source_points[i]);

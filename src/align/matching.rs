@@ -49,7 +49,7 @@ fn nearest_both(a: &[f32], b: &[f32], dim: usize) -> Near {
         .chunks_exact(dim)
         .map(|r| r.iter().map(|x| x * x).sum())
         .collect();
-    let blocks: Vec<(Vec<(u32, f32, f32)>, Vec<(u32, f32)>)> = a
+    let blocks: Vec<Near> = a
         .par_chunks(BLOCK * dim)
         .enumerate()
         .map(|(blk, chunk)| {

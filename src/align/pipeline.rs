@@ -179,7 +179,7 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
     let radius = params
         .radius
         .unwrap_or(params.method.radius_in_voxels() * voxel);
-    if !(radius > voxel) {
+    if radius.is_nan() || radius <= voxel {
         return Err(Error::invalid(
             format!("support radius {radius} is not larger than the voxel size {voxel}"),
             "give a support radius of several voxel sizes",
@@ -251,14 +251,29 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
             consensus::score(&pairs, &poses, tau)
         }
     };
-    // Re-rank the strongest distinct hypotheses by the overlap they give on a subsample of the
-    // source keypoints: correspondences can be few, the geometry is always there.
+    // Re-rank the strongest distinct hypotheses, each first refined on its inliers, by how many
+    // of a subsample of the source keypoints they put close to the target's tangent planes:
+    // correspondences can be few, the geometry is always there, and a dominant plane (ground)
+    // does not favour a wrong pose under a plane-distance test as it does under a plain
+    // distance test.
     let shortlist = consensus::best_distinct(hyps, SHORTLIST, 10.0, 5.0 * tau);
     let stride = ps.points.len().div_ceil(OVERLAP_SAMPLE).max(1);
     let sample: Vec<[f32; 3]> = ps.points.iter().step_by(stride).copied().collect();
     let mut ranked: Vec<(usize, Hypothesis)> = shortlist
         .par_iter()
-        .map(|h| (fit_quality(&sample, &pt.index, &h.transform, tau).1, *h))
+        .map(|h| {
+            let h = consensus::refine_on_inliers(&pairs, &h.transform, tau, 4);
+            let (n, _) = plane_fit(
+                &sample,
+                &pt.points,
+                &pt.normals,
+                &pt.index,
+                &h.transform,
+                tau,
+                2.0 * PLANE_TOLERANCE_VOXELS * voxel,
+            );
+            (n, h)
+        })
         .collect();
     ranked.sort_by(|x, y| y.0.cmp(&x.0).then(y.1.support.cmp(&x.1.support)));
     clock.lap("hypotheses");
@@ -276,7 +291,6 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
         if starts.len() >= params.refine_best {
             break;
         }
-        let h = consensus::refine_on_inliers(&pairs, &h.transform, tau, 4);
         if starts
             .iter()
             .all(|s| !consensus::same_pose(s, &h.transform, 2.0, tau))

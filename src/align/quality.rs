@@ -89,9 +89,9 @@ pub fn confidence(inliers: usize, overlap: f64, margin: f64) -> f64 {
 pub fn verdict(f: &Figures) -> Verdict {
     if f.inliers < MIN_CONSENSUS {
         Verdict::NotFound(Reason::TooFewDistinctivePoints)
-    } else if !(f.overlap >= MIN_OVERLAP) {
+    } else if f.overlap.is_nan() || f.overlap < MIN_OVERLAP {
         Verdict::NotFound(Reason::TooLittleOverlap)
-    } else if !(f.margin >= MIN_MARGIN) {
+    } else if f.margin.is_nan() || f.margin < MIN_MARGIN {
         Verdict::NotFound(Reason::AmbiguousSymmetricShape)
     } else {
         Verdict::Confident

@@ -165,6 +165,16 @@ pub fn nearest_rotation(m: &Matrix3<f64>) -> Option<Matrix3<f64>> {
     Some(u * s * vt)
 }
 
+/// True for a number above zero (false for NaN).
+fn positive(x: f64) -> bool {
+    x > 0.0
+}
+
+/// True for a number at or above zero (false for NaN).
+fn non_negative(x: f64) -> bool {
+    x >= 0.0
+}
+
 /// A similarity transform `p ↦ c R p + t`.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Similarity {
@@ -183,7 +193,7 @@ fn weighted_means(
         return None;
     }
     if let Some(w) = weights
-        && (w.len() != src.len() || w.iter().any(|v| !(*v >= 0.0)))
+        && (w.len() != src.len() || w.iter().any(|v| !non_negative(*v)))
     {
         return None;
     }
@@ -196,7 +206,7 @@ fn weighted_means(
         ms += w(i) * src[i];
         md += w(i) * dst[i];
     }
-    if !(total > 0.0) {
+    if !positive(total) {
         return None;
     }
     Some((ms / total, md / total, total))
@@ -215,18 +225,18 @@ pub fn umeyama_dim(
     weights: Option<&[f64]>,
     with_scale: bool,
 ) -> Option<(f64, DMatrix<f64>, DVector<f64>)> {
-    if dim == 0 || src.len() != dst.len() || src.is_empty() || src.len() % dim != 0 {
+    if dim == 0 || src.len() != dst.len() || src.is_empty() || !src.len().is_multiple_of(dim) {
         return None;
     }
     let n = src.len() / dim;
     let w = |i: usize| weights.map_or(1.0, |w| w[i]);
     if let Some(ws) = weights
-        && (ws.len() != n || ws.iter().any(|v| !(*v >= 0.0)))
+        && (ws.len() != n || ws.iter().any(|v| !non_negative(*v)))
     {
         return None;
     }
     let total: f64 = (0..n).map(w).sum();
-    if !(total > 0.0) {
+    if !positive(total) {
         return None;
     }
     let row = |m: &[f64], i: usize| DVector::from_column_slice(&m[i * dim..(i + 1) * dim]);
@@ -248,7 +258,7 @@ pub fn umeyama_dim(
     }
     cov /= total;
     var_s /= total;
-    if !(var_s > 0.0) || !cov.iter().all(|v| v.is_finite()) {
+    if !positive(var_s) || !cov.iter().all(|v| v.is_finite()) {
         return None;
     }
     let svd = cov.svd(true, true);
@@ -304,7 +314,7 @@ pub fn horn(src: &[Vector3<f64>], dst: &[Vector3<f64>], weights: Option<&[f64]>)
         m += w(i) * a * b.transpose();
         spread += w(i) * a.norm_squared();
     }
-    if !(spread > 0.0) || !m.iter().all(|v| v.is_finite()) {
+    if !positive(spread) || !m.iter().all(|v| v.is_finite()) {
         return None;
     }
     let (sxx, sxy, sxz) = (m[(0, 0)], m[(0, 1)], m[(0, 2)]);

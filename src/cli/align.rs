@@ -495,10 +495,7 @@ fn moved(source: &Cloud, tf: &Rigid) -> Cloud {
     let new_o = tf.apply(&o).map(|v| v.round());
     let shift = tf.apply(&o) - new_o;
     let r = tf.rotation;
-    let turn = |p: &[f32; 3]| {
-        let q = r * Vector3::new(p[0] as f64, p[1] as f64, p[2] as f64);
-        q
-    };
+    let turn = |p: &[f32; 3]| r * Vector3::new(p[0] as f64, p[1] as f64, p[2] as f64);
     let mut out = source.clone();
     out.origin = [new_o.x, new_o.y, new_o.z];
     out.positions = source
