@@ -340,6 +340,25 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
             (p.1 / tight.max(f64::MIN_POSITIVE)).min(s)
         })
         .fold(0.0f64, f64::max);
+    // The shortlist holds more poses than were polished: a symmetric shape splits its matches
+    // among its symmetric poses, which then rank alike. Compare them on the same subsample.
+    let (sample_tight, _) = plane_fit(
+        &sample,
+        &pt.points,
+        &pt.normals,
+        &pt.index,
+        &coarse,
+        tau,
+        2.0 * PLANE_TOLERANCE_VOXELS * voxel,
+    );
+    let rival = ranked
+        .iter()
+        .filter(|(_, h)| !consensus::same_pose(&h.transform, &coarse, 10.0, 5.0 * tau))
+        .map(|(n, h)| {
+            let o = *n as f64 / sample_tight.max(1) as f64;
+            o.min(h.support as f64 / support)
+        })
+        .fold(rival, f64::max);
     let margin = if tight > 0.0 {
         (1.0 - rival).clamp(0.0, 1.0)
     } else {

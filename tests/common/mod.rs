@@ -311,3 +311,45 @@ pub fn errors(source: &Cloud, est: &Rigid, truth: &Rigid) -> (f64, f64) {
     let rot = equiscan::align::rotation_error_deg(&est.rotation, &truth.rotation);
     (rot, (est.apply(&c) - truth.apply(&c)).norm())
 }
+
+/// Scans of the mesh from views `step_deg` apart around one axis; scan 0 stays in the mesh
+/// frame, every other is moved by a random rigid transform. Returns each scan with its true
+/// transform into scan 0's frame (file coordinates).
+pub fn view_ring(
+    mesh: &Mesh,
+    count: usize,
+    step_deg: f64,
+    points: usize,
+    noise_frac: f64,
+    seed: u64,
+) -> Vec<(Cloud, Rigid)> {
+    let mut rng = SplitMix64::new(seed);
+    let d = mesh.diagonal();
+    let v0 = unit(&mut rng);
+    let axis = nalgebra::Unit::new_normalize(v0.cross(&unit(&mut rng)));
+    (0..count)
+        .map(|k| {
+            let view = Rotation3::from_axis_angle(&axis, (k as f64 * step_deg).to_radians()) * v0;
+            let pts = virtual_scan(mesh, view, points, noise_frac * d, rng.next_u64());
+            let (r0, t0) = if k == 0 {
+                (Matrix3::identity(), Vector3::zeros())
+            } else {
+                let t = Vector3::new(
+                    rng.uniform(-1.0, 1.0),
+                    rng.uniform(-1.0, 1.0),
+                    rng.uniform(-1.0, 1.0),
+                ) * d;
+                (random_rotation(&mut rng), t)
+            };
+            let global: Vec<[f64; 3]> = pts
+                .iter()
+                .map(|p| {
+                    let q = r0 * p + t0;
+                    [q.x, q.y, q.z]
+                })
+                .collect();
+            let rt = r0.transpose();
+            (Cloud::from_global(&global), Rigid::new(rt, -(rt * t0)))
+        })
+        .collect()
+}

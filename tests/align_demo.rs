@@ -1,0 +1,64 @@
+//! The demo depot stations (scans/, synthetic; see scans/README.md): station 2, in its own
+//! tilted instrument frame, registered onto station 1 in the project grid with no initial guess.
+//! Pass: within 1 cm and 0.1° of the transform in scans/truth.json. Skips when scans/ is absent.
+
+use std::path::Path;
+
+use equiscan::align::{AlignParams, Method, Rigid, Verdict, align_pair, rotation_error_deg};
+use equiscan::io::read_cloud;
+use nalgebra::Vector3;
+
+fn truth(root: &Path) -> Rigid {
+    let text = std::fs::read_to_string(root.join("scans/truth.json")).unwrap();
+    let v: serde_json::Value = serde_json::from_str(&text).unwrap();
+    let m: [[f64; 4]; 4] =
+        serde_json::from_value(v["depot"]["station2_to_station1"]["matrix"].clone()).unwrap();
+    Rigid::from_rows(&m).unwrap()
+}
+
+#[test]
+fn depot_stations_register_within_a_centimetre() {
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    let (s, t) = (
+        root.join("scans/depot_station2.laz"),
+        root.join("scans/depot_station1.laz"),
+    );
+    if !s.exists() || !t.exists() {
+        eprintln!("scans/ not present: skipped");
+        return;
+    }
+    let (source, _) = read_cloud(&s).unwrap();
+    let (target, _) = read_cloud(&t).unwrap();
+    let truth = truth(root);
+    let mut c = Vector3::zeros();
+    for i in 0..source.len() {
+        c += Vector3::from(source.global(i));
+    }
+    c /= source.len() as f64;
+    for method in [Method::Equivariant, Method::Fpfh] {
+        let a = align_pair(
+            &source,
+            &target,
+            &AlignParams {
+                method,
+                ..AlignParams::default()
+            },
+        )
+        .unwrap();
+        let rot = rotation_error_deg(&a.transform.rotation, &truth.rotation);
+        let trans = (a.transform.apply(&c) - truth.apply(&c)).norm();
+        eprintln!(
+            "{}: voxel {:.3}, rotation error {rot:.5}°, translation error {trans:.5} m, {:?}",
+            method.name(),
+            a.voxel,
+            a.verdict
+        );
+        assert_eq!(a.verdict, Verdict::Confident, "{}", method.name());
+        assert!(rot <= 0.1, "{}: rotation error {rot}°", method.name());
+        assert!(
+            trans <= 0.01,
+            "{}: translation error {trans} m",
+            method.name()
+        );
+    }
+}
