@@ -12,7 +12,7 @@ use std::time::Instant;
 use common::{Mesh, bunny, errors, problem};
 use equiscan::align::{AlignParams, Method, Verdict, align_pair};
 
-const POINTS: usize = 6000;
+const POINTS: usize = 10_000;
 const NOISE: f64 = 0.003;
 
 struct Trial {
@@ -108,11 +108,12 @@ fn table(mesh: &Mesh, methods: &[Method]) {
         let t = run(mesh, m, &seps, 1000);
         let ok: Vec<&Trial> = t.iter().filter(|x| x.ok).collect();
         println!(
-            "| {} | {} | {:.0} % | {:.0} % | {:.3} | {:.3} | {:.3} |",
+            "| {} | {} | {:.0} % | {:.0} % | {} | {:.3} | {:.3} | {:.3} |",
             m.name(),
             t.len(),
             100.0 * rate(&t),
             100.0 * t.iter().filter(|x| x.confident).count() as f64 / t.len() as f64,
+            t.iter().filter(|x| x.confident && !x.ok).count(),
             median(ok.iter().map(|x| x.rot).collect()),
             100.0 * median(ok.iter().map(|x| x.trans).collect()),
             median(t.iter().map(|x| x.seconds).collect()),

@@ -15,6 +15,7 @@ use super::quality::{self, Figures, Verdict};
 use super::rigid::Rigid;
 use crate::cloud::Cloud;
 use crate::error::{Error, Result};
+use crate::spatial::voxel_downsample;
 
 /// How correspondences are described and turned into pose hypotheses.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
@@ -186,9 +187,19 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
         ));
     }
     let tau = params.inlier_voxels * voxel;
+    // One pass over the full clouds: points at half the voxel size for the final ICP, and the
+    // keypoints taken from those.
+    let fine_voxel = 0.5 * voxel;
+    let thin = |pts: &[[f32; 3]]| -> Vec<[f32; 3]> {
+        voxel_downsample(pts, fine_voxel as f32)
+            .into_iter()
+            .map(|i| pts[i])
+            .collect()
+    };
+    let (fine_s, fine_t) = rayon::join(|| thin(&source.positions), || thin(&target.positions));
     let (ps, pt) = rayon::join(
-        || prepare("source", &source.positions, voxel),
-        || prepare("target", &target.positions, voxel),
+        || prepare("source", &fine_s, voxel),
+        || prepare("target", &fine_t, voxel),
     );
     let (ps, pt) = (ps?, pt?);
     clock.lap("keypoints and normals");
@@ -366,10 +377,9 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
     };
 
     // Final ICP on denser points (half the voxel size), from the winning pose.
-    let fine_voxel = 0.5 * voxel;
     let (fs, ft) = rayon::join(
-        || prepare("source", &source.positions, fine_voxel),
-        || prepare("target", &target.positions, fine_voxel),
+        || prepare("source", &fine_s, fine_voxel),
+        || prepare("target", &fine_t, fine_voxel),
     );
     let (fs, ft) = (fs?, ft?);
     let fine = icp_point_to_plane(

@@ -117,8 +117,8 @@ fn unit(rng: &mut SplitMix64) -> Vector3<f64> {
     Vector3::new(x, y, z)
 }
 
-/// Points seen from direction `view` (pointing from the object towards the viewer), about
-/// `points` of them, with isotropic Gaussian noise of standard deviation `noise`.
+/// Points seen from direction `view` (pointing from the object towards the viewer), `points`
+/// of them (fewer only if the view shows too little), with isotropic Gaussian noise of standard deviation `noise`.
 pub fn virtual_scan(
     mesh: &Mesh,
     view: Vector3<f64>,
@@ -128,12 +128,12 @@ pub fn virtual_scan(
 ) -> Vec<Vector3<f64>> {
     const GRID: usize = 256;
     let view = view.normalize();
-    let helper = if view.x.abs() < 0.9 {
+    let side = if view.x.abs() < 0.9 {
         Vector3::x()
     } else {
         Vector3::y()
     };
-    let e1 = view.cross(&helper).normalize();
+    let e1 = view.cross(&side).normalize();
     let e2 = view.cross(&e1);
     let c = mesh.centre();
     let d = mesh.diagonal();
@@ -190,8 +190,8 @@ pub fn virtual_scan(
         })
         .collect();
     let total: f64 = areas.iter().sum();
-    // About half of the front-facing area is visible; aim the density at `points` kept.
-    let density = 2.0 * points as f64 / total;
+    // Usually a third to a half of the front-facing area is visible; oversample, then thin.
+    let density = 4.0 * points as f64 / total;
     let eps = 0.01 * d;
     let mut rng = SplitMix64::new(seed);
     let mut out = Vec::with_capacity(points * 2);
@@ -210,6 +210,18 @@ pub fn virtual_scan(
             let jitter = Vector3::new(rng.normal(), rng.normal(), rng.normal()) * noise;
             out.push(p + jitter);
         }
+    }
+    // The visible share of the front-facing area varies with the view: sample more, then keep a
+    // random subset of exactly `points` (partial Fisher–Yates), in sampling order.
+    if out.len() > points {
+        let mut idx: Vec<usize> = (0..out.len()).collect();
+        for k in 0..points {
+            let j = k + rng.below((idx.len() - k) as u64) as usize;
+            idx.swap(k, j);
+        }
+        idx.truncate(points);
+        idx.sort_unstable();
+        out = idx.into_iter().map(|i| out[i]).collect();
     }
     out
 }
