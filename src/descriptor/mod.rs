@@ -28,6 +28,7 @@
 
 mod engine;
 mod invariants;
+mod kernel;
 pub mod radial;
 mod recipe;
 
