@@ -8,6 +8,7 @@
 
 pub mod cloud;
 pub mod error;
+pub mod so3;
 pub mod spatial;
 
 pub use cloud::Cloud;
