@@ -8,6 +8,7 @@
 
 pub mod cloud;
 pub mod error;
+pub mod io;
 pub mod so3;
 pub mod spatial;
 

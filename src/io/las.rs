@@ -1,0 +1,607 @@
+//! LAS and LAZ: reading through the `las` crate, checked header first; writing LAS 1.4 with
+//! named f32 columns as Extra Bytes.
+//!
+//! Reading streams points with `Reader::fill_points` into one reused buffer and converts each
+//! chunk straight to f32 offsets from the cloud's origin (the centre of the header bounds,
+//! rounded to whole units), so no f64 copy of the whole file is made.
+//!
+//! Writing ([`write_las`]): LAS 1.4, point format 6 (7 when the cloud has colour) unless
+//! [`LasOptions`] says otherwise, scale 0.001 and the cloud's origin as offset by default. Each
+//! column becomes 4 bytes of Extra Bytes per point, described in a `LASF_Spec` record 4 VLR
+//! with one 192-byte descriptor per column (data type 9 = float). Descriptor layout, from the
+//! ASPRS LAS 1.4 R15 specification (Table 24), byte offsets: reserved `[0, 2)`, data type
+//! `2`, options `3`, name `[4, 36)`, unused `[36, 40)`, no data `[40, 48)`, deprecated
+//! `[48, 64)`, min `[64, 72)`, deprecated `[72, 88)`, max `[88, 96)`, deprecated `[96, 112)`,
+//! scale `[112, 120)`, deprecated `[120, 136)`, offset `[136, 144)`, deprecated `[144, 160)`,
+//! description `[160, 192)`. The "any type" fields hold an f64 for float data. We set options
+//! bits 1 (min) and 2 (max) when a column has finite values.
+
+use std::io::{BufWriter, Read, Seek, SeekFrom, Write};
+use std::path::Path;
+
+use las::{Builder, Color, PointDataBuilder, Transform, Vector, Version, Vlr};
+
+use crate::cloud::Cloud;
+use crate::error::{Error, Result};
+
+use super::atomic::write_atomic;
+use super::{Bounds, Column, FileInfo, check_columns, open_input};
+
+/// Points per `fill_points` call for LAS; LAZ uses more so that parallel decompression has
+/// several compressed chunks to share between threads.
+const CHUNK_LAS: u64 = 1 << 16;
+const CHUNK_LAZ: u64 = 1 << 20;
+/// Bytes of one Extra Bytes descriptor (LAS 1.4 R15, Table 24).
+pub(crate) const EXTRA_BYTES_DESCRIPTOR: usize = 192;
+
+fn bad(path: &Path, what: impl Into<String>) -> Error {
+    Error::file(
+        path,
+        what,
+        "check that the file is a complete LAS or LAZ file or export it again",
+    )
+}
+
+fn las_err(path: &Path, e: las::Error) -> Error {
+    // An I/O error anywhere in the chain (also inside LAZ decompression) names its kind.
+    let mut source: Option<&(dyn std::error::Error + 'static)> = Some(&e);
+    while let Some(s) = source {
+        if let Some(io) = s.downcast_ref::<std::io::Error>() {
+            return Error::io(path, io);
+        }
+        source = s.source();
+    }
+    if let las::Error::LasZipError(laz::LasZipError::IoError(io)) = &e {
+        return Error::io(path, io);
+    }
+    if let las::Error::LasZipVlrNotFound = &e {
+        return bad(path, "the LAZ compression record (LASzip VLR) is missing");
+    }
+    let text = e.to_string();
+    let mut c = text.chars();
+    let text = match c.next() {
+        Some(f) => f.to_lowercase().collect::<String>() + c.as_str(),
+        None => text,
+    };
+    bad(path, text)
+}
+
+fn u16_at(b: &[u8], o: usize) -> u16 {
+    u16::from_le_bytes([b[o], b[o + 1]])
+}
+fn u32_at(b: &[u8], o: usize) -> u32 {
+    u32::from_le_bytes(b[o..o + 4].try_into().unwrap())
+}
+fn u64_at(b: &[u8], o: usize) -> u64 {
+    u64::from_le_bytes(b[o..o + 8].try_into().unwrap())
+}
+fn f64_at(b: &[u8], o: usize) -> f64 {
+    f64::from_le_bytes(b[o..o + 8].try_into().unwrap())
+}
+
+/// Base record length of point formats 0–10 (LAS 1.4 R15, Tables 7–17).
+const BASE_LEN: [u16; 11] = [20, 28, 26, 34, 57, 63, 30, 36, 38, 59, 67];
+
+/// What the raw header check found.
+struct RawHeader {
+    compressed: bool,
+    format: u8,
+    /// Version as stored at bytes 24–25 (the `las` crate may report a later one).
+    version: (u8, u8),
+    offset_to_points: u64,
+}
+
+/// Checks the public header block against the file size before the `las` crate sees it, so
+/// that every problem gets a precise message and a huge declared count allocates nothing.
+/// Offsets are those of the LAS 1.4 R15 specification, Table 3.
+fn check_header(path: &Path, file: &mut std::fs::File, len: u64) -> Result<RawHeader> {
+    let mut b = vec![0u8; len.min(375) as usize];
+    file.read_exact(&mut b).map_err(|e| Error::io(path, &e))?;
+    if b.len() < 227 {
+        return Err(bad(
+            path,
+            format!(
+                "the LAS header is truncated ({} bytes, at least 227 needed)",
+                b.len()
+            ),
+        ));
+    }
+    let (major, minor) = (b[24], b[25]);
+    if major != 1 || minor > 4 {
+        return Err(Error::file(
+            path,
+            format!("LAS version {major}.{minor} is not read here (1.0 to 1.4 are)"),
+            "convert the file to LAS 1.4 or 1.2",
+        ));
+    }
+    let header_size = u16_at(&b, 94) as u64;
+    let offset_to_points = u32_at(&b, 96) as u64;
+    let raw_format = b[104];
+    let record_len = u16_at(&b, 105);
+    let legacy_count = u32_at(&b, 107) as u64;
+    if header_size < 227 || header_size > len {
+        return Err(bad(
+            path,
+            format!(
+                "the LAS header declares {header_size} header bytes in a {len}-byte file (truncated header)"
+            ),
+        ));
+    }
+    if offset_to_points < header_size || offset_to_points > len {
+        return Err(bad(
+            path,
+            format!(
+                "the point data should start at byte {offset_to_points} of a {len}-byte file (truncated)"
+            ),
+        ));
+    }
+    let compressed = raw_format & 0xC0 != 0;
+    let format = raw_format & 0x3F;
+    if format > 10 {
+        return Err(Error::file(
+            path,
+            format!("LAS point format {format} is not read here (0 to 10 are)"),
+            "convert the file to a standard point format",
+        ));
+    }
+    if record_len < BASE_LEN[format as usize] {
+        return Err(bad(
+            path,
+            format!(
+                "point records of {record_len} bytes are too short for point format {format} ({} bytes)",
+                BASE_LEN[format as usize]
+            ),
+        ));
+    }
+    let count = if minor >= 4 && header_size >= 375 && b.len() >= 255 {
+        let c = u64_at(&b, 247);
+        if c == 0 { legacy_count } else { c }
+    } else {
+        legacy_count
+    };
+    for (k, o) in [131usize, 139, 147].into_iter().enumerate() {
+        let s = f64_at(&b, o);
+        if !s.is_finite() || s == 0.0 {
+            return Err(bad(
+                path,
+                format!("the {} scale factor is {s}", ["x", "y", "z"][k]),
+            ));
+        }
+    }
+    if !compressed {
+        let room = (len - offset_to_points) / record_len as u64;
+        if count > room {
+            return Err(Error::file(
+                path,
+                format!(
+                    "the header declares {count} points but the data holds only {room} (truncated)"
+                ),
+                "copy or export the file again",
+            ));
+        }
+    }
+    file.seek(SeekFrom::Start(0))
+        .map_err(|e| Error::io(path, &e))?;
+    Ok(RawHeader {
+        compressed,
+        format,
+        version: (major, minor),
+        offset_to_points,
+    })
+}
+
+/// Refuses a LAZ file whose chunk table holds fewer points than the header declares (the
+/// decompressor would otherwise be asked for points that do not exist).
+fn check_laz_chunks(path: &Path, header: &las::Header, offset_to_points: u64) -> Result<()> {
+    let vlr = header.laz_vlr().map_err(|e| las_err(path, e))?;
+    let mut f =
+        std::io::BufReader::new(std::fs::File::open(path).map_err(|e| Error::io(path, &e))?);
+    f.seek(SeekFrom::Start(offset_to_points))
+        .map_err(|e| Error::io(path, &e))?;
+    let table = laz::laszip::ChunkTable::read_from(&mut f, &vlr)
+        .map_err(|e| las_err(path, las::Error::LasZipError(e)))?;
+    // With fixed-size chunks every entry counts a full chunk, so this is an upper bound.
+    let room: u64 = table.as_ref().iter().map(|c| c.point_count).sum();
+    let n = header.number_of_points();
+    if n > room {
+        return Err(Error::file(
+            path,
+            format!(
+                "the header declares {n} points but the compressed data holds at most {room} (truncated)"
+            ),
+            "copy or export the file again",
+        ));
+    }
+    Ok(())
+}
+
+/// Names in an Extra Bytes VLR.
+fn extra_bytes_names(vlr: &Vlr) -> Vec<String> {
+    vlr.data
+        .chunks_exact(EXTRA_BYTES_DESCRIPTOR)
+        .map(|d| {
+            let name = &d[4..36];
+            let end = name.iter().position(|&c| c == 0).unwrap_or(32);
+            String::from_utf8_lossy(&name[..end]).into_owned()
+        })
+        .collect()
+}
+
+fn is_extra_bytes_vlr(v: &Vlr) -> bool {
+    v.user_id == "LASF_Spec" && v.record_id == 4
+}
+
+fn crs_text(header: &las::Header) -> Option<String> {
+    if let Some(wkt) = header.get_wkt_crs_bytes() {
+        let end = wkt.iter().position(|&c| c == 0).unwrap_or(wkt.len());
+        let s = String::from_utf8_lossy(&wkt[..end]).trim().to_string();
+        if !s.is_empty() {
+            return Some(s);
+        }
+    }
+    match header.get_geotiff_crs() {
+        Ok(Some(g)) if !g.entries.is_empty() => {
+            let keys: Vec<String> = g
+                .entries
+                .iter()
+                .map(|e| {
+                    let v = match &e.data {
+                        las::crs::GeoTiffData::U16(v) => v.to_string(),
+                        las::crs::GeoTiffData::Doubles(v) => format!("{v:?}"),
+                        las::crs::GeoTiffData::String(s) => {
+                            format!("{:?}", s.trim_end_matches(['|', '\0']))
+                        }
+                    };
+                    format!("{}={}", e.id, v)
+                })
+                .collect();
+            Some(format!("GeoTIFF keys {}", keys.join(", ")))
+        }
+        _ => None,
+    }
+}
+
+/// Reads a LAS or LAZ file (the caller has seen the `LASF` signature).
+pub(crate) fn read_las(path: &Path) -> Result<(Cloud, FileInfo)> {
+    let (mut file, len) = open_input(path)?;
+    let raw = check_header(path, &mut file, len)?;
+    let mut reader = las::Reader::new(std::io::BufReader::with_capacity(1 << 20, file))
+        .map_err(|e| las_err(path, e))?;
+    let header = reader.header().clone();
+    if raw.compressed {
+        check_laz_chunks(path, &header, raw.offset_to_points)?;
+    }
+    let fmt = *header.point_format();
+    let n = header.number_of_points();
+    let t = *header.transforms();
+    let hb = header.bounds();
+
+    let mut info = FileInfo::new(
+        path,
+        if raw.compressed { "LAZ" } else { "LAS" },
+        format!("{}.{}", raw.version.0, raw.version.1),
+    );
+    info.point_count = n;
+    info.point_format = Some(raw.format);
+    info.record_length = Some(fmt.len());
+    info.scale = Some([t.x.scale, t.y.scale, t.z.scale]);
+    info.offset = Some([t.x.offset, t.y.offset, t.z.offset]);
+    let bounds = Bounds {
+        min: [hb.min.x, hb.min.y, hb.min.z],
+        max: [hb.max.x, hb.max.y, hb.max.z],
+    };
+    info.header_bounds = Some(bounds);
+    info.crs = crs_text(&header);
+    info.crs_records = header.all_vlrs().filter(|v| v.is_crs()).cloned().collect();
+    let described: Vec<String> = header
+        .all_vlrs()
+        .filter(|v| is_extra_bytes_vlr(v))
+        .flat_map(extra_bytes_names)
+        .collect();
+    info.other_fields = described;
+    if fmt.extra_bytes > 0 && info.other_fields.is_empty() {
+        info.other_fields
+            .push(format!("{} undescribed extra bytes", fmt.extra_bytes));
+    }
+
+    let header_origin_ok = (0..3).all(|k| {
+        bounds.min[k].is_finite() && bounds.max[k].is_finite() && bounds.min[k] <= bounds.max[k]
+    });
+    let mut origin: Option<[f64; 3]> = header_origin_ok
+        .then(|| std::array::from_fn(|k| ((bounds.min[k] + bounds.max[k]) * 0.5).round()));
+
+    // Never reserve more than a chunk before the data proves it exists.
+    let chunk = if raw.compressed { CHUNK_LAZ } else { CHUNK_LAS };
+    let reserve = n.min(chunk) as usize;
+    let mut cloud = Cloud::new([0.0; 3], Vec::with_capacity(reserve));
+    let mut intensity = Vec::with_capacity(reserve);
+    let mut classification = Vec::with_capacity(reserve);
+    let mut return_number = Vec::with_capacity(reserve);
+    let mut color = fmt.has_color.then(|| Vec::with_capacity(reserve));
+    let mut gps = fmt.has_gps_time.then(|| Vec::with_capacity(reserve));
+
+    let mut pd = PointDataBuilder::new().for_header(&header).build();
+    let mut done = 0u64;
+    while done < n {
+        let got = reader
+            .fill_points(chunk.min(n - done), &mut pd)
+            .map_err(|e| las_err(path, e))?;
+        if got == 0 {
+            return Err(Error::file(
+                path,
+                format!("the point data ends after {done} of {n} points (truncated)"),
+                "copy or export the file again",
+            ));
+        }
+        let o = *origin.get_or_insert_with(|| {
+            let x = pd.x().next().unwrap_or(0.0);
+            let y = pd.y().next().unwrap_or(0.0);
+            let z = pd.z().next().unwrap_or(0.0);
+            [x.round(), y.round(), z.round()]
+        });
+        let base = cloud.positions.len();
+        cloud.positions.resize(base + got as usize, [0.0; 3]);
+        let dst = &mut cloud.positions[base..];
+        for (k, (tr, col)) in [(t.x, 0usize), (t.y, 1), (t.z, 2)].into_iter().enumerate() {
+            let _ = col;
+            let shift = tr.offset - o[k];
+            let scale = tr.scale;
+            let it: Box<dyn Iterator<Item = i32>> = match k {
+                0 => Box::new(pd.x_raw()),
+                1 => Box::new(pd.y_raw()),
+                _ => Box::new(pd.z_raw()),
+            };
+            for (p, r) in dst.iter_mut().zip(it) {
+                p[k] = (shift + scale * r as f64) as f32;
+            }
+        }
+        intensity.extend(pd.intensity().map(f32::from));
+        classification.extend(pd.classification());
+        return_number.extend(pd.return_number());
+        if let (Some(c), Some(it)) = (color.as_mut(), pd.rgb()) {
+            c.extend(it.map(|(r, g, b)| [r, g, b]));
+        }
+        if let (Some(g), Some(it)) = (gps.as_mut(), pd.gps_time()) {
+            g.extend(it);
+        }
+        done += got;
+    }
+    cloud.origin = origin.unwrap_or([0.0; 3]);
+    cloud.intensity = Some(intensity);
+    cloud.classification = Some(classification);
+    cloud.return_number = Some(return_number);
+    cloud.color = color;
+    cloud.gps_time = gps;
+    info.attributes = cloud
+        .attribute_names()
+        .into_iter()
+        .map(String::from)
+        .collect();
+    Ok((cloud, info))
+}
+
+/// How [`write_las_with`] lays out the file. `Default` gives LAS 1.4 point format 6 (7 with
+/// colour), scale 0.001 on every axis and the cloud's origin as offset.
+#[derive(Debug, Clone, Default)]
+pub struct LasOptions {
+    /// Point data record format 0–10; waveform formats (4, 5, 9, 10) are written as the same
+    /// format without waveform (1, 3, 6, 8).
+    pub point_format: Option<u8>,
+    /// Scale factors x, y, z (file units per stored integer step).
+    pub scale: Option<[f64; 3]>,
+    /// Offsets x, y, z, file units.
+    pub offset: Option<[f64; 3]>,
+    crs_records: Vec<Vlr>,
+}
+
+impl LasOptions {
+    /// The layout of a LAS/LAZ input: its point format, scale, offset and CRS records, so
+    /// that an output of the same cloud keeps the file's precision and reference system.
+    /// For a non-LAS input this is the default.
+    pub fn like(info: &FileInfo) -> Self {
+        LasOptions {
+            point_format: info.point_format,
+            scale: info.scale,
+            offset: info.offset,
+            crs_records: info.crs_records.clone(),
+        }
+    }
+}
+
+/// The Extra Bytes VLR (`LASF_Spec`, record 4) describing `columns` as f32 values.
+pub(crate) fn extra_bytes_vlr(columns: &[Column<'_>]) -> Vlr {
+    let mut data = Vec::with_capacity(columns.len() * EXTRA_BYTES_DESCRIPTOR);
+    for c in columns {
+        let mut d = [0u8; EXTRA_BYTES_DESCRIPTOR];
+        d[2] = 9; // data type: float
+        let (lo, hi) = c
+            .values
+            .iter()
+            .filter(|v| v.is_finite())
+            .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &v| {
+                (lo.min(v as f64), hi.max(v as f64))
+            });
+        if lo <= hi {
+            d[3] = 0b0000_0110; // min and max are valid
+            d[64..72].copy_from_slice(&lo.to_le_bytes());
+            d[88..96].copy_from_slice(&hi.to_le_bytes());
+        }
+        d[4..4 + c.name.len()].copy_from_slice(c.name.as_bytes());
+        let desc = b"per-point feature";
+        d[160..160 + desc.len()].copy_from_slice(desc);
+        data.extend_from_slice(&d);
+    }
+    Vlr {
+        user_id: "LASF_Spec".to_string(),
+        record_id: 4,
+        description: "Extra Bytes".to_string(),
+        data,
+    }
+}
+
+/// Writes `cloud` as LAS 1.4 (LAZ when `path` ends in `.laz`) with `columns` as f32 Extra
+/// Bytes, with the default [`LasOptions`]. Atomic.
+pub fn write_las(path: &Path, cloud: &Cloud, columns: &[Column<'_>]) -> Result<()> {
+    write_las_with(path, cloud, columns, &LasOptions::default())
+}
+
+/// Writes `cloud` as LAS 1.4 (LAZ when `path` ends in `.laz`) with `columns` as f32 Extra
+/// Bytes in column order, laid out by `options`. Atomic.
+///
+/// Intensity is rounded and clamped to 0..=65535; classification 12 (overlap) is written
+/// with the overlap flag in formats 6–10. Column names: at most 32 bytes, letters, digits and
+/// `_`. Every coordinate must fit the 32-bit integer range at the chosen scale and offset.
+pub fn write_las_with(
+    path: &Path,
+    cloud: &Cloud,
+    columns: &[Column<'_>],
+    options: &LasOptions,
+) -> Result<()> {
+    cloud
+        .validate()
+        .map_err(|e| Error::file(path, e.to_string(), "nothing was written"))?;
+    check_columns(path, cloud.len(), columns, &[])?;
+    if let Some(c) = columns.iter().find(|c| c.name.len() > 32) {
+        return Err(Error::file(
+            path,
+            format!("column name {} is longer than 32 bytes", c.name),
+            "use a shorter name for LAS extra bytes",
+        ));
+    }
+    let n_extra = columns.len() * 4;
+    if n_extra + 67 > u16::MAX as usize {
+        return Err(Error::file(
+            path,
+            format!("{} columns do not fit a LAS point record", columns.len()),
+            "write fewer columns to LAS, or use NPY",
+        ));
+    }
+    let compress = path
+        .extension()
+        .is_some_and(|e| e.eq_ignore_ascii_case("laz"));
+    let fmt_no = match options
+        .point_format
+        .unwrap_or(if cloud.color.is_some() { 7 } else { 6 })
+    {
+        4 => 1,
+        5 => 3,
+        9 => 6,
+        10 => 8,
+        f if f <= 10 => f,
+        f => {
+            return Err(Error::file(
+                path,
+                format!("point format {f} does not exist"),
+                "choose a point format from 0 to 10",
+            ));
+        }
+    };
+    let mut format = las::point::Format::new(fmt_no).map_err(|e| las_err(path, e))?;
+    format.extra_bytes = n_extra as u16;
+    format.is_compressed = compress;
+    let scale = options.scale.unwrap_or([0.001; 3]);
+    let offset = options.offset.unwrap_or(cloud.origin);
+    if !scale.iter().all(|s| s.is_finite() && *s > 0.0) || !offset.iter().all(|o| o.is_finite()) {
+        return Err(Error::file(
+            path,
+            "the LAS scale must be positive and the offset finite",
+            "give other scale factors or offsets",
+        ));
+    }
+    let transforms = Vector {
+        x: Transform {
+            scale: scale[0],
+            offset: offset[0],
+        },
+        y: Transform {
+            scale: scale[1],
+            offset: offset[1],
+        },
+        z: Transform {
+            scale: scale[2],
+            offset: offset[2],
+        },
+    };
+    let mut builder = Builder::default();
+    builder.version = Version::new(1, 4);
+    builder.point_format = format;
+    builder.transforms = transforms;
+    builder.generating_software = "equiscan".to_string();
+    builder.system_identifier = "equiscan".to_string();
+    builder.vlrs = options.crs_records.clone();
+    if !columns.is_empty() {
+        builder.vlrs.push(extra_bytes_vlr(columns));
+    }
+    let header = builder.into_header().map_err(|e| las_err(path, e))?;
+
+    write_atomic(path, |w| {
+        let file = w.get_ref().try_clone().map_err(|e| Error::io(path, &e))?;
+        let mut writer = las::Writer::new(BufWriter::with_capacity(1 << 20, file), header)
+            .map_err(|e| las_err(path, e))?;
+        let step = 1 << 16;
+        let mut start = 0;
+        while start < cloud.len() {
+            let end = (start + step).min(cloud.len());
+            let points = (start..end).map(|i| las_point(cloud, columns, &format, i));
+            let pd = PointDataBuilder::new()
+                .for_header(writer.header())
+                .build_from_points(points)
+                .map_err(|e| match e {
+                    las::Error::InvalidInverseTransform { .. } => Error::file(
+                        path,
+                        "a coordinate does not fit the LAS integer range at this scale and offset",
+                        "choose a larger scale or an offset near the points",
+                    ),
+                    e => las_err(path, e),
+                })?;
+            writer.write_points(&pd).map_err(|e| las_err(path, e))?;
+            start = end;
+        }
+        let mut inner = writer.into_inner().map_err(|e| las_err(path, e))?;
+        inner.flush().map_err(|e| Error::io(path, &e))?;
+        Ok(())
+    })
+}
+
+fn las_point(
+    cloud: &Cloud,
+    columns: &[Column<'_>],
+    format: &las::point::Format,
+    i: usize,
+) -> las::Point {
+    let g = cloud.global(i);
+    let class = cloud.classification.as_ref().map_or(1, |c| c[i]);
+    let ret = cloud.return_number.as_ref().map_or(1, |r| r[i]);
+    let max_ret = if format.is_extended { 15 } else { 7 };
+    let ret = ret.min(max_ret);
+    let mut extra = Vec::with_capacity(columns.len() * 4);
+    for c in columns {
+        extra.extend_from_slice(&c.values[i].to_le_bytes());
+    }
+    las::Point {
+        x: g[0],
+        y: g[1],
+        z: g[2],
+        intensity: cloud
+            .intensity
+            .as_ref()
+            .map_or(0, |v| v[i].round().clamp(0.0, 65535.0) as u16),
+        return_number: ret,
+        number_of_returns: ret,
+        classification: las::point::Classification::new(class)
+            .unwrap_or(las::point::Classification::CreatedNeverClassified),
+        is_overlap: class == 12,
+        gps_time: format
+            .has_gps_time
+            .then(|| cloud.gps_time.as_ref().map_or(0.0, |v| v[i])),
+        color: format.has_color.then(|| {
+            cloud.color.as_ref().map_or(Color::default(), |c| {
+                let [red, green, blue] = c[i];
+                Color { red, green, blue }
+            })
+        }),
+        nir: format.has_nir.then_some(0),
+        extra_bytes: extra,
+        ..Default::default()
+    }
+}

@@ -1,0 +1,248 @@
+//! Reading and writing point clouds and per-point feature matrices.
+//!
+//! Readers: [`read_cloud`] picks the format from the file's first bytes (`LASF` for LAS and
+//! LAZ, `ply` for PLY), not from the extension, and returns a [`Cloud`] plus a [`FileInfo`]
+//! describing the file as its header declares it. [`read_ply_mesh`] also returns triangles.
+//!
+//! Writers: [`write_ply`] (binary little-endian PLY), [`write_las`] (LAS 1.4, or LAZ when the
+//! path ends in `.laz`, with named f32 columns as Extra Bytes), [`write_npy`] and
+//! [`write_npy_with_sidecar`] (NumPy float32 matrices), [`write_csv`]. Every writer is atomic
+//! ([`write_atomic`]): the output appears complete or not at all, and inputs are never touched.
+//!
+//! Conventions: coordinates are in file units (usually metres). A [`Cloud`] keeps an f64
+//! origin and f32 offsets; readers choose the origin so that offsets stay small (LAS: the centre
+//! of the header bounds rounded to whole units; PLY with double coordinates: the first vertex
+//! rounded to whole units, or the origin recorded by [`write_ply`]; PLY with float
+//! coordinates: zero, so the file's values are kept bit for bit). Matrices are row-major, one
+//! row per point, in the cloud's point order.
+//!
+//! Every failure is an [`Error::File`] that reads `PATH: what is wrong; what to do`.
+
+mod atomic;
+mod csv;
+mod las;
+mod npy;
+mod ply;
+
+use std::fs::File;
+use std::io::Read;
+use std::path::Path;
+
+use serde::Serialize;
+
+use crate::cloud::Cloud;
+use crate::error::{Error, Result};
+
+pub use atomic::write_atomic;
+pub use csv::write_csv;
+pub use las::{LasOptions, write_las, write_las_with};
+pub use npy::{npy_header, write_npy, write_npy_with_sidecar};
+pub use ply::{read_ply_mesh, write_ply};
+
+/// A named per-point f32 column, borrowed: `values[i]` belongs to point `i`.
+#[derive(Debug, Clone, Copy)]
+pub struct Column<'a> {
+    /// Column name as written into the output (PLY property, LAS extra-bytes name, CSV
+    /// header, NPY sidecar). Letters, digits and `_` only; LAS allows at most 32 bytes.
+    pub name: &'a str,
+    /// One value per point.
+    pub values: &'a [f32],
+}
+
+impl<'a> Column<'a> {
+    /// A column named `name` with `values`.
+    pub fn new(name: &'a str, values: &'a [f32]) -> Self {
+        Column { name, values }
+    }
+}
+
+/// Axis-aligned bounds in file coordinates.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct Bounds {
+    /// Smallest x, y, z.
+    pub min: [f64; 3],
+    /// Largest x, y, z.
+    pub max: [f64; 3],
+}
+
+/// What a point-cloud file declares about itself, as read from its header.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct FileInfo {
+    /// The file as named by the caller.
+    pub path: String,
+    /// `"LAS"`, `"LAZ"` or `"PLY"`.
+    pub format: String,
+    /// Format version, e.g. `"1.4"` (LAS) or `"1.0"` (PLY).
+    pub version: String,
+    /// PLY encoding (`ascii`, `binary_little_endian`, `binary_big_endian`); `None` for LAS.
+    pub encoding: Option<String>,
+    /// Number of points the header declares.
+    pub point_count: u64,
+    /// LAS point data record format (0–10); `None` for PLY.
+    pub point_format: Option<u8>,
+    /// Bytes per LAS point record, including extra bytes; `None` for PLY.
+    pub record_length: Option<u16>,
+    /// Attributes the reader keeps in the [`Cloud`], in [`Cloud::attribute_names`] order.
+    pub attributes: Vec<String>,
+    /// Other per-point fields present in the file but not kept: LAS extra-bytes names, other
+    /// PLY vertex properties.
+    pub other_fields: Vec<String>,
+    /// Coordinate reference system as found: the WKT text of a LAS WKT record, or the GeoTIFF
+    /// keys as `id=value` pairs. `None` when the file carries none.
+    pub crs: Option<String>,
+    /// LAS scale factors x, y, z.
+    pub scale: Option<[f64; 3]>,
+    /// LAS offsets x, y, z.
+    pub offset: Option<[f64; 3]>,
+    /// Bounds stored in the LAS header, file coordinates.
+    pub header_bounds: Option<Bounds>,
+    /// Other elements of a PLY file (e.g. `face 6`), as `name count`.
+    pub other_elements: Vec<String>,
+    /// CRS records of a LAS file, kept so that a LAS writer can copy them.
+    #[serde(skip)]
+    pub(crate) crs_records: Vec<::las::Vlr>,
+}
+
+impl FileInfo {
+    fn new(path: &Path, format: &str, version: String) -> Self {
+        FileInfo {
+            path: path.display().to_string(),
+            format: format.to_string(),
+            version,
+            encoding: None,
+            point_count: 0,
+            point_format: None,
+            record_length: None,
+            attributes: Vec::new(),
+            other_fields: Vec::new(),
+            crs: None,
+            scale: None,
+            offset: None,
+            header_bounds: None,
+            other_elements: Vec::new(),
+            crs_records: Vec::new(),
+        }
+    }
+}
+
+/// The formats [`read_cloud`] recognises by content.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Kind {
+    Las,
+    Ply,
+}
+
+/// Opens `path` for reading, with a clear message for folders and missing or empty files.
+/// Returns the file and its length in bytes.
+pub(crate) fn open_input(path: &Path) -> Result<(File, u64)> {
+    let meta = std::fs::metadata(path).map_err(|e| Error::io(path, &e))?;
+    if meta.is_dir() {
+        return Err(Error::file(
+            path,
+            "is a folder, not a point-cloud file",
+            "give a .las, .laz or .ply file",
+        ));
+    }
+    if meta.len() == 0 {
+        return Err(Error::file(
+            path,
+            "the file is empty",
+            "copy or export the file again",
+        ));
+    }
+    let file = File::open(path).map_err(|e| Error::io(path, &e))?;
+    Ok((file, meta.len()))
+}
+
+fn sniff(path: &Path) -> Result<Kind> {
+    let (mut file, _) = open_input(path)?;
+    let mut head = [0u8; 4];
+    let mut n = 0;
+    while n < head.len() {
+        match file.read(&mut head[n..]) {
+            Ok(0) => break,
+            Ok(k) => n += k,
+            Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {}
+            Err(e) => return Err(Error::io(path, &e)),
+        }
+    }
+    let head = &head[..n];
+    if head == b"LASF" {
+        Ok(Kind::Las)
+    } else if head.starts_with(b"ply") && matches!(head.get(3), Some(b'\n' | b'\r')) {
+        Ok(Kind::Ply)
+    } else {
+        let shown: String = head
+            .iter()
+            .map(|&b| {
+                if b.is_ascii_graphic() {
+                    (b as char).to_string()
+                } else {
+                    format!("\\x{b:02x}")
+                }
+            })
+            .collect();
+        Err(Error::file(
+            path,
+            format!("not a LAS, LAZ or PLY file (it starts with \"{shown}\")"),
+            "give a .las, .laz or .ply file",
+        ))
+    }
+}
+
+/// Reads a LAS, LAZ or PLY file into a [`Cloud`], choosing the reader from the file's content.
+///
+/// LAS and LAZ keep intensity, colour (when the point format has it), classification, return
+/// number and GPS time (when present). PLY keeps x/y/z, `nx ny nz`, `red green blue` (uchar
+/// or ushort), `intensity` or `scalar_intensity`, and the `classification`, `return_number`
+/// and `gps_time` properties written by [`write_ply`]; other properties and elements are
+/// skipped. Coordinates must be finite.
+pub fn read_cloud(path: &Path) -> Result<(Cloud, FileInfo)> {
+    match sniff(path)? {
+        Kind::Las => las::read_las(path),
+        Kind::Ply => ply::read_ply(path, false).map(|(c, _, i)| (c, i)),
+    }
+}
+
+/// Checks that `columns` fit `n` points and have distinct, plain names not in `taken`.
+pub(crate) fn check_columns(
+    path: &Path,
+    n: usize,
+    columns: &[Column<'_>],
+    taken: &[&str],
+) -> Result<()> {
+    for (i, c) in columns.iter().enumerate() {
+        if c.name.is_empty()
+            || !c
+                .name
+                .chars()
+                .all(|ch| ch.is_ascii_alphanumeric() || ch == '_')
+        {
+            return Err(Error::file(
+                path,
+                format!("column name \"{}\" is not plain", c.name),
+                "use letters, digits and _ only",
+            ));
+        }
+        if c.values.len() != n {
+            return Err(Error::file(
+                path,
+                format!(
+                    "column {} has {} values for {} points",
+                    c.name,
+                    c.values.len(),
+                    n
+                ),
+                "give one value per point",
+            ));
+        }
+        if taken.contains(&c.name) || columns[..i].iter().any(|o| o.name == c.name) {
+            return Err(Error::file(
+                path,
+                format!("column name {} is used twice", c.name),
+                "give each column its own name",
+            ));
+        }
+    }
+    Ok(())
+}
