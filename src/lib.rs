@@ -10,6 +10,7 @@ pub mod cloud;
 pub mod descriptor;
 pub mod error;
 pub mod io;
+pub mod report;
 pub mod so3;
 pub mod spatial;
 

@@ -43,8 +43,19 @@ fn bad(path: &Path, what: impl Into<String>) -> Error {
 }
 
 fn las_err(path: &Path, e: las::Error) -> Error {
-    if let las::Error::Io(io) = &e {
+    // An I/O error anywhere in the chain (also inside LAZ decompression) names its kind.
+    let mut source: Option<&(dyn std::error::Error + 'static)> = Some(&e);
+    while let Some(s) = source {
+        if let Some(io) = s.downcast_ref::<std::io::Error>() {
+            return Error::io(path, io);
+        }
+        source = s.source();
+    }
+    if let las::Error::LasZipError(laz::LasZipError::IoError(io)) = &e {
         return Error::io(path, io);
+    }
+    if let las::Error::LasZipVlrNotFound = &e {
+        return bad(path, "the LAZ compression record (LASzip VLR) is missing");
     }
     let text = e.to_string();
     let mut c = text.chars();
@@ -75,6 +86,9 @@ const BASE_LEN: [u16; 11] = [20, 28, 26, 34, 57, 63, 30, 36, 38, 59, 67];
 struct RawHeader {
     compressed: bool,
     format: u8,
+    /// Version as stored at bytes 24–25 (the `las` crate may report a later one).
+    version: (u8, u8),
+    offset_to_points: u64,
 }
 
 /// Checks the public header block against the file size before the `las` crate sees it, so
@@ -168,7 +182,37 @@ fn check_header(path: &Path, file: &mut std::fs::File, len: u64) -> Result<RawHe
     }
     file.seek(SeekFrom::Start(0))
         .map_err(|e| Error::io(path, &e))?;
-    Ok(RawHeader { compressed, format })
+    Ok(RawHeader {
+        compressed,
+        format,
+        version: (major, minor),
+        offset_to_points,
+    })
+}
+
+/// Refuses a LAZ file whose chunk table holds fewer points than the header declares (the
+/// decompressor would otherwise be asked for points that do not exist).
+fn check_laz_chunks(path: &Path, header: &las::Header, offset_to_points: u64) -> Result<()> {
+    let vlr = header.laz_vlr().map_err(|e| las_err(path, e))?;
+    let mut f =
+        std::io::BufReader::new(std::fs::File::open(path).map_err(|e| Error::io(path, &e))?);
+    f.seek(SeekFrom::Start(offset_to_points))
+        .map_err(|e| Error::io(path, &e))?;
+    let table = laz::laszip::ChunkTable::read_from(&mut f, &vlr)
+        .map_err(|e| las_err(path, las::Error::LasZipError(e)))?;
+    // With fixed-size chunks every entry counts a full chunk, so this is an upper bound.
+    let room: u64 = table.as_ref().iter().map(|c| c.point_count).sum();
+    let n = header.number_of_points();
+    if n > room {
+        return Err(Error::file(
+            path,
+            format!(
+                "the header declares {n} points but the compressed data holds at most {room} (truncated)"
+            ),
+            "copy or export the file again",
+        ));
+    }
+    Ok(())
 }
 
 /// Names in an Extra Bytes VLR.
@@ -224,6 +268,9 @@ pub(crate) fn read_las(path: &Path) -> Result<(Cloud, FileInfo)> {
     let mut reader = las::Reader::new(std::io::BufReader::with_capacity(1 << 20, file))
         .map_err(|e| las_err(path, e))?;
     let header = reader.header().clone();
+    if raw.compressed {
+        check_laz_chunks(path, &header, raw.offset_to_points)?;
+    }
     let fmt = *header.point_format();
     let n = header.number_of_points();
     let t = *header.transforms();
@@ -232,7 +279,7 @@ pub(crate) fn read_las(path: &Path) -> Result<(Cloud, FileInfo)> {
     let mut info = FileInfo::new(
         path,
         if raw.compressed { "LAZ" } else { "LAS" },
-        format!("{}.{}", header.version().major, header.version().minor),
+        format!("{}.{}", raw.version.0, raw.version.1),
     );
     info.point_count = n;
     info.point_format = Some(raw.format);

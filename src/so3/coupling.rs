@@ -142,7 +142,11 @@ pub fn real_cg(l1: usize, m1: i64, l2: usize, m2: i64, l: usize, m: i64) -> f64 
             acc.1 += t.1 * cg;
         }
     }
-    if (l1 + l2 + l) % 2 == 0 { acc.0 } else { acc.1 }
+    if (l1 + l2 + l).is_multiple_of(2) {
+        acc.0
+    } else {
+        acc.1
+    }
 }
 
 /// One nonzero real coupling coefficient of a path `(l1, l2, l)`.

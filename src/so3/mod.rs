@@ -16,5 +16,6 @@ pub mod coupling;
 pub mod float;
 pub mod rng;
 pub mod rotation;
+pub mod search;
 pub mod sh;
 pub mod wigner;

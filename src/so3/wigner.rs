@@ -28,6 +28,8 @@ pub struct WignerD {
     l_max: usize,
     /// Blocks for `l = 0..=l_max`, concatenated; block `l` starts at `offset(l)`.
     data: Vec<f64>,
+    /// Work space of the recursion.
+    scratch: Vec<f64>,
 }
 
 /// Start of block `l` in the concatenated storage: `Σ_{k<l} (2k+1)² = l(2l−1)(2l+1)/3`.
@@ -56,6 +58,7 @@ impl WignerD {
         let mut w = WignerD {
             l_max,
             data: vec![0.0; block_entries(l_max)],
+            scratch: vec![0.0; if l_max >= 2 { scratch_len(l_max) } else { 0 }],
         };
         w.set(r);
         w
@@ -81,7 +84,7 @@ impl WignerD {
             let (head, tail) = self.data.split_at_mut(block_offset(l));
             let prev = &head[block_offset(l - 1)..];
             let cur = &mut tail[..(2 * l + 1) * (2 * l + 1)];
-            recursion_step(l as i64, &r1, prev, cur);
+            recursion_step(l as i64, &r1, prev, cur, &mut self.scratch);
         }
     }
 
@@ -195,61 +198,90 @@ fn apply_generic<T: Copy + Into<f64>>(
     }
 }
 
+/// Scratch length needed by [`recursion_step`] for degree `l`.
+fn scratch_len(l: usize) -> usize {
+    3 * (2 * l - 1) * (2 * l + 1) + (2 * l + 1)
+}
+
 /// One step of the Ivanic–Ruedenberg recursion: `cur = D^l` from `r1 = D^1` and `prev = D^(l−1)`.
-fn recursion_step(l: i64, r1: &[f64; 9], prev: &[f64], cur: &mut [f64]) {
+///
+/// In the paper's notation `D^l_{mk} = u U + v V + w W`, where `u, v, w` factor into a part
+/// depending on the row `m` and the common `1/√denom(k)`, and `U, V, W` are sums of the helper
+/// `P(i, a, k)`. The rows `P(i, a, ·)` are formed once per `(i, a)` and each output row is then
+/// a short linear combination of them (vectorisable).
+fn recursion_step(l: i64, r1: &[f64; 9], prev: &[f64], cur: &mut [f64], scratch: &mut [f64]) {
     let np = (2 * l - 1) as usize;
     let n = (2 * l + 1) as usize;
-    let r = |i: i64, j: i64| r1[((i + 1) * 3 + (j + 1)) as usize];
-    let pv = |a: i64, b: i64| prev[(a + l - 1) as usize * np + (b + l - 1) as usize];
-    // The helper function P of the paper.
-    let p = |i: i64, a: i64, b: i64| -> f64 {
-        if b == l {
-            r(i, 1) * pv(a, l - 1) - r(i, -1) * pv(a, -l + 1)
-        } else if b == -l {
-            r(i, 1) * pv(a, -l + 1) + r(i, -1) * pv(a, l - 1)
-        } else {
-            r(i, 0) * pv(a, b)
+    let (prows, s) = scratch[..3 * np * n + n].split_at_mut(3 * np * n);
+    // P(i, a, k) rows; i = −1, 0, 1 stored at 0, 1, 2.
+    for i in 0..3 {
+        let (rm, r0, rp) = (r1[i * 3], r1[i * 3 + 1], r1[i * 3 + 2]);
+        for a in 0..np {
+            let pr = &prev[a * np..(a + 1) * np];
+            let out = &mut prows[(i * np + a) * n..(i * np + a + 1) * n];
+            out[0] = rp * pr[0] + rm * pr[np - 1];
+            out[n - 1] = rp * pr[np - 1] - rm * pr[0];
+            for (o, &v) in out[1..n - 1].iter_mut().zip(pr) {
+                *o = r0 * v;
+            }
         }
+    }
+    // 1/√denom(k)
+    for k in -l..=l {
+        let denom = if k.abs() == l {
+            2 * l * (2 * l - 1)
+        } else {
+            (l + k) * (l - k)
+        };
+        s[(k + l) as usize] = 1.0 / (denom as f64).sqrt();
+    }
+    let prow = |i: i64, a: i64| {
+        let o = (((i + 1) as usize) * np + (a + l - 1) as usize) * n;
+        &prows[o..o + n]
     };
     for m in -l..=l {
         let am = m.abs();
-        let d0: f64 = if m == 0 { 1.0 } else { 0.0 };
-        for k in -l..=l {
-            let denom = if k.abs() == l {
-                (2 * l * (2 * l - 1)) as f64
+        let row = &mut cur[(m + l) as usize * n..(m + l + 1) as usize * n];
+        row.fill(0.0);
+        let mut add = |c: f64, i: i64, a: i64| {
+            for (o, &p) in row.iter_mut().zip(prow(i, a)) {
+                *o += c * p;
+            }
+        };
+        if am < l {
+            add((((l + m) * (l - m)) as f64).sqrt(), 0, m);
+        }
+        let sqrt2 = std::f64::consts::SQRT_2;
+        if m == 0 {
+            let v = -0.5 * ((2 * (l - 1) * l) as f64).sqrt();
+            add(v, 1, 1);
+            add(v, -1, -1);
+        } else {
+            let v = 0.5 * (((l + am - 1) * (l + am)) as f64).sqrt();
+            if m == 1 {
+                add(v * sqrt2, 1, 0);
+            } else if m == -1 {
+                add(v * sqrt2, -1, 0);
+            } else if m > 0 {
+                add(v, 1, m - 1);
+                add(-v, -1, -m + 1);
             } else {
-                ((l + k) * (l - k)) as f64
-            };
-            let u = (((l + m) * (l - m)) as f64 / denom).sqrt();
-            let v = 0.5
-                * ((1.0 + d0) * ((l + am - 1) * (l + am)) as f64 / denom).sqrt()
-                * (1.0 - 2.0 * d0);
-            let w = -0.5 * (((l - am - 1) * (l - am)) as f64 / denom).sqrt() * (1.0 - d0);
-            let mut val = 0.0;
-            if u != 0.0 {
-                val += u * p(0, m, k);
+                add(v, 1, m + 1);
+                add(v, -1, -m - 1);
             }
-            if v != 0.0 {
-                let vv = if m == 0 {
-                    p(1, 1, k) + p(-1, -1, k)
-                } else if m > 0 {
-                    let d1: f64 = if m == 1 { 1.0 } else { 0.0 };
-                    p(1, m - 1, k) * (1.0 + d1).sqrt() - p(-1, -m + 1, k) * (1.0 - d1)
+            if am < l - 1 {
+                let w = -0.5 * (((l - am - 1) * (l - am)) as f64).sqrt();
+                if m > 0 {
+                    add(w, 1, m + 1);
+                    add(w, -1, -m - 1);
                 } else {
-                    let d1: f64 = if m == -1 { 1.0 } else { 0.0 };
-                    p(1, m + 1, k) * (1.0 - d1) + p(-1, -m - 1, k) * (1.0 + d1).sqrt()
-                };
-                val += v * vv;
+                    add(w, 1, m - 1);
+                    add(-w, -1, -m + 1);
+                }
             }
-            if w != 0.0 {
-                let ww = if m > 0 {
-                    p(1, m + 1, k) + p(-1, -m - 1, k)
-                } else {
-                    p(1, m - 1, k) - p(-1, -m + 1, k)
-                };
-                val += w * ww;
-            }
-            cur[(m + l) as usize * n + (k + l) as usize] = val;
+        }
+        for (o, &f) in row.iter_mut().zip(s.iter()) {
+            *o *= f;
         }
     }
 }

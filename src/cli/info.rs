@@ -1,0 +1,171 @@
+//! `equiscan info FILE...`: what a point-cloud file holds, and a suggested support radius.
+//!
+//! Point spacing is the median nearest-neighbour distance over an evenly strided sample of at
+//! most 10 000 points; the suggested support radius is 5 × the spacing, common practice for
+//! local descriptors (about 60–100 neighbours on a scanned surface). Both are in file units.
+
+use std::io::Write;
+use std::path::{Path, PathBuf};
+
+use equiscan::io::{Bounds, FileInfo, read_cloud};
+use equiscan::spatial::{estimate_spacing, suggested_support_radius};
+use equiscan::{Error, Result};
+use serde::Serialize;
+
+/// Arguments of `equiscan info`.
+#[derive(Debug, clap::Args)]
+pub struct InfoArgs {
+    /// LAS, LAZ or PLY files (the format is recognised from the content).
+    #[arg(required = true, value_name = "FILE")]
+    pub files: Vec<PathBuf>,
+    /// Print one JSON object per file, one per line, instead of text.
+    #[arg(long)]
+    pub json: bool,
+}
+
+/// What `info` reports for one file.
+#[derive(Debug, Serialize)]
+pub struct InfoReport {
+    /// The header summary.
+    #[serde(flatten)]
+    pub file: FileInfo,
+    /// Points read.
+    pub points_read: usize,
+    /// Bounds of the points read, file coordinates.
+    pub bounds: Option<Bounds>,
+    /// Median nearest-neighbour distance, file units; `None` with fewer than two distinct
+    /// points.
+    pub point_spacing: Option<f32>,
+    /// 5 × point spacing, file units.
+    pub suggested_support_radius: Option<f32>,
+}
+
+/// Reads `path` and builds its report.
+pub fn inspect(path: &Path) -> Result<InfoReport> {
+    let (cloud, file) = read_cloud(path)?;
+    let bounds = cloud.global_bounds().map(|(min, max)| Bounds { min, max });
+    let point_spacing = estimate_spacing(&cloud.positions);
+    Ok(InfoReport {
+        file,
+        points_read: cloud.len(),
+        bounds,
+        point_spacing,
+        suggested_support_radius: point_spacing.map(suggested_support_radius),
+    })
+}
+
+/// Decimals worth printing for coordinates: from the LAS scale, else 6.
+fn decimals(info: &FileInfo) -> usize {
+    info.scale
+        .map(|s| {
+            let finest = s.iter().cloned().fold(f64::INFINITY, f64::min);
+            (-finest.log10()).ceil().clamp(0.0, 9.0) as usize
+        })
+        .unwrap_or(6)
+}
+
+/// Human-readable text for one report.
+pub fn render(r: &InfoReport) -> String {
+    let f = &r.file;
+    let mut s = format!("{}\n", f.path);
+    let mut line = |k: &str, v: String| s.push_str(&format!("  {k:<16}{v}\n"));
+    let mut format = format!("{} {}", f.format, f.version);
+    if let Some(e) = &f.encoding {
+        format += &format!(", {e}");
+    }
+    if let (Some(p), Some(l)) = (f.point_format, f.record_length) {
+        format += &format!(", point format {p}, {l}-byte records");
+    }
+    line("format", format);
+    let mut points = format!("{}", r.points_read);
+    if r.points_read as u64 != f.point_count {
+        points += &format!(" (header declares {})", f.point_count);
+    }
+    line("points", points);
+    let d = decimals(f);
+    if let Some(b) = r.bounds {
+        for (k, axis) in ["x", "y", "z"].iter().enumerate() {
+            line(
+                if k == 0 { "bounds" } else { "" },
+                format!("{axis} {:.d$} .. {:.d$}", b.min[k], b.max[k]),
+            );
+        }
+    }
+    let list = |v: &[String]| {
+        if v.is_empty() {
+            "none".to_string()
+        } else {
+            v.join(", ")
+        }
+    };
+    line("attributes", list(&f.attributes));
+    if !f.other_fields.is_empty() {
+        line("other fields", list(&f.other_fields));
+    }
+    if !f.other_elements.is_empty() {
+        line("other elements", list(&f.other_elements));
+    }
+    if let (Some(sc), Some(of)) = (f.scale, f.offset) {
+        line("scale", format!("{} {} {}", sc[0], sc[1], sc[2]));
+        line("offset", format!("{} {} {}", of[0], of[1], of[2]));
+    }
+    line("CRS", f.crs.clone().unwrap_or_else(|| "none".to_string()));
+    match (r.point_spacing, r.suggested_support_radius) {
+        (Some(sp), Some(rad)) => {
+            line(
+                "point spacing",
+                format!("{sp:.4} (median nearest-neighbour distance)"),
+            );
+            line(
+                "support radius",
+                format!("{rad:.4} suggested (5 × point spacing)"),
+            );
+        }
+        _ => line(
+            "point spacing",
+            "unknown (fewer than two distinct points)".to_string(),
+        ),
+    }
+    s
+}
+
+/// Runs `info` on every file; a failing file prints its one-line error on stderr and the run
+/// goes on. Exit code 0 when every file was read, 2 otherwise.
+pub fn run(args: &InfoArgs) -> Result<u8> {
+    let mut code = 0;
+    let stdout = std::io::stdout();
+    for (i, path) in args.files.iter().enumerate() {
+        match inspect(path) {
+            Ok(r) => {
+                let text = if args.json {
+                    let mut t = serde_json::to_string(&r).map_err(|e| {
+                        Error::invalid(
+                            format!("cannot encode the report: {e}"),
+                            "report this as a bug",
+                        )
+                    })?;
+                    t.push('\n');
+                    t
+                } else if i > 0 {
+                    format!("\n{}", render(&r))
+                } else {
+                    render(&r)
+                };
+                let mut out = stdout.lock();
+                // A closed pipe (e.g. `| head`) ends the run quietly.
+                if out
+                    .write_all(text.as_bytes())
+                    .and_then(|_| out.flush())
+                    .is_err()
+                {
+                    return Ok(code);
+                }
+            }
+            Err(e) => {
+                eprintln!("{e}");
+                code = 2;
+            }
+        }
+    }
+    Ok(code)
+}

@@ -1,0 +1,36 @@
+//! Command-line definitions: the clap [`Cli`] and one module per subcommand.
+//!
+//! Each subcommand has a `#[derive(clap::Args)]` struct and a `run(&Args) -> Result<u8>`
+//! returning the exit code (0 done, 1 ran but found no confident result, 2 error). To add a
+//! subcommand: a module here, a variant in [`Command`], a line in [`Command::run`].
+
+pub mod info;
+
+use clap::{Parser, Subcommand};
+use equiscan::Result;
+
+/// SO(3)-equivariant local descriptors for 3D scans.
+#[derive(Debug, Parser)]
+#[command(name = "equiscan", version, about, long_about = None)]
+pub struct Cli {
+    /// What to do.
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+/// The subcommands.
+#[derive(Debug, Subcommand)]
+pub enum Command {
+    /// Describe point-cloud files: format, points, bounds, attributes, CRS, point spacing and a
+    /// suggested support radius.
+    Info(info::InfoArgs),
+}
+
+impl Command {
+    /// Runs the subcommand and returns the process exit code.
+    pub fn run(&self) -> Result<u8> {
+        match self {
+            Command::Info(args) => info::run(args),
+        }
+    }
+}
