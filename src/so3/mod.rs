@@ -12,7 +12,10 @@
 //! [`rotation`] (parametrisations, random rotations, grids), [`search`] (best rotation between
 //! two expansions), [`rng`] (seeded generator), [`float`] (the scalar trait).
 
+#![deny(missing_docs)]
+
 pub mod coupling;
+
 pub mod float;
 pub mod rng;
 pub mod rotation;

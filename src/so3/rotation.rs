@@ -191,7 +191,10 @@ pub fn random_rotation(rng: &mut SplitMix64) -> Matrix3<f64> {
 
 /// Centre `(z, φ)` of pixel `p` of the HEALPix ring scheme with resolution `nside`
 /// (Górski et al., ApJ 622, 759, 2005): `12·nside²` pixels of equal area, on iso-latitude rings.
+/// `nside = 0` is treated as 1; `p` is taken modulo the number of pixels.
 pub fn healpix_ring_centre(nside: usize, p: usize) -> (f64, f64) {
+    let nside = nside.max(1);
+    let p = p % (12 * nside * nside);
     let ns = nside as f64;
     let npix = 12 * nside * nside;
     let ncap = 2 * nside * (nside - 1);
@@ -243,8 +246,10 @@ pub struct HopfGrid {
 pub const HOPF_COVERING_RADIUS_DEG: [f64; 4] = [50.04, 27.15, 13.20, 6.26];
 
 impl HopfGrid {
-    /// The grid of refinement `level` (`72·8^level` rotations; level ≤ 6 is sensible).
+    /// The grid of refinement `level` (`72·8^level` rotations; levels above 7 are clamped to 7,
+    /// 150 994 944 rotations; level ≤ 4 is sensible).
     pub fn new(level: u32) -> Self {
+        let level = level.min(7);
         let nside = 1usize << level;
         let npix = 12 * nside * nside;
         let npsi = 6 * nside;

@@ -331,12 +331,14 @@ impl RotationSearcher {
         // Refinement stage.
         let pre = Precomputed::new(self, &m);
         let mut wd = WignerD::new(&Matrix3::identity(), self.l_max);
-        let mut found: Vec<(Matrix3<f64>, f64)> = starts
-            .iter()
-            .map(|&i| pre.refine(self, self.grid.matrices()[i], &mut wd))
-            .collect();
-        found.sort_by(|x, y| y.1.total_cmp(&x.1));
         let sep = self.opts.separation_deg.to_radians();
+        let mut found: Vec<(Matrix3<f64>, f64)> = Vec::with_capacity(starts.len());
+        for &i in &starts {
+            if let Some(x) = pre.refine(self, self.grid.matrices()[i], &mut wd, &found, sep) {
+                found.push(x);
+            }
+        }
+        found.sort_by(|x, y| y.1.total_cmp(&x.1));
         let mut distinct: Vec<(Matrix3<f64>, f64)> = Vec::new();
         for f in found {
             if distinct.iter().all(|d| geodesic_angle(&d.0, &f.0) > sep) {
@@ -391,13 +393,16 @@ impl RotationSearcher {
             idx.truncate(pool);
         }
         idx.sort_by(|&i, &j| scores[j].total_cmp(&scores[i]));
-        let mats = self.grid.matrices();
+        let qs = self.grid.quaternions();
+        // angle > sep  ⇔  |q_k · q_i| < cos(sep/2)
+        let cos_half = (0.5 * self.candidate_sep).cos();
         let mut out: Vec<usize> = Vec::with_capacity(want);
         for i in idx {
-            if out
-                .iter()
-                .all(|&k| geodesic_angle(&mats[k], &mats[i]) > self.candidate_sep)
-            {
+            let far = |k: usize| {
+                let (a, b) = (qs[k], qs[i]);
+                (a[0] * b[0] + a[1] * b[1] + a[2] * b[2] + a[3] * b[3]).abs() < cos_half
+            };
+            if out.iter().all(|&k| far(k)) {
                 out.push(i);
                 if out.len() == want {
                     break;
@@ -452,13 +457,16 @@ impl Precomputed {
         dot(wd.blocks(), &self.m)
     }
 
-    /// Newton ascent from `r`; returns the local maximum and its score.
+    /// Newton ascent from `r`; returns the local maximum and its score, or `None` when the path
+    /// enters (within `sep/2`) a better maximum in `known`.
     fn refine(
         &self,
         s: &RotationSearcher,
         mut r: Matrix3<f64>,
         wd: &mut WignerD,
-    ) -> (Matrix3<f64>, f64) {
+        known: &[(Matrix3<f64>, f64)],
+        sep: f64,
+    ) -> Option<(Matrix3<f64>, f64)> {
         wd.set(&r);
         let mut f = self.score(wd);
         for _ in 0..s.opts.max_iterations {
@@ -481,11 +489,19 @@ impl Precomputed {
             if !len.is_finite() || len < 1e-12 {
                 break;
             }
+            if len < 1e-7 {
+                // Converged to well below 1e-5 degrees: the score change is at rounding level,
+                // so take the Newton step as it is and stop.
+                r = rotation_vector_to_matrix([step.x, step.y, step.z]) * r;
+                wd.set(&r);
+                f = self.score(wd);
+                break;
+            }
             if len > 0.5 {
                 step *= 0.5 / len;
             }
             let mut accepted = false;
-            for _ in 0..20 {
+            for _ in 0..12 {
                 let cand = rotation_vector_to_matrix([step.x, step.y, step.z]) * r;
                 wd.set(&cand);
                 let fc = self.score(wd);
@@ -501,11 +517,16 @@ impl Precomputed {
                 wd.set(&r);
                 break;
             }
-            if step.norm() < 1e-10 {
-                break;
+            // Already in the basin of a maximum found from a better start: stop early, the
+            // result would only duplicate it.
+            if known
+                .iter()
+                .any(|k| geodesic_angle(&k.0, &r) < 0.5 * sep && k.1 >= f)
+            {
+                return None;
             }
         }
-        (r, f)
+        Some((r, f))
     }
 }
 

@@ -184,8 +184,68 @@ fn sh_closed<T: Real>(l_max: usize, x: T, y: T, z: T, out: &mut [T]) {
     out[24] = k44 * c4;
 }
 
-/// General recurrence, any `l_max`.
+/// General recurrence, any `l_max`: for each order `m`, `Q_m^m` from `Q_{m−1}^{m−1}`, then
+/// `Q_l^m` up the degrees by the three-term recurrence.
 fn sh_recurrence<T: ShScalar>(l_max: usize, x: T, y: T, z: T, out: &mut [T]) {
+    if l_max < TABLE_DEGREES {
+        sh_recurrence_table(l_max, x, y, z, out)
+    } else {
+        sh_recurrence_any(l_max, x, y, z, out)
+    }
+}
+
+/// [`sh_recurrence`] with every coefficient from the table (`l_max < TABLE_DEGREES`).
+#[inline(always)]
+fn sh_recurrence_table<T: ShScalar>(l_max: usize, x: T, y: T, z: T, out: &mut [T]) {
+    let t = T::tables();
+    let out = &mut out[..num_coeffs(l_max)];
+    // m = 0: zonal harmonics
+    let mut qmm = t.q_mm[0];
+    out[0] = qmm;
+    if l_max == 0 {
+        return;
+    }
+    let mut q2 = qmm;
+    let mut q1 = t.c[0] * z * qmm;
+    out[2] = q1;
+    for l in 2..=l_max {
+        let i = l * (l + 1) / 2;
+        let q = t.a[i] * (z * q1 - t.b[i] * q2);
+        out[l * l + l] = q;
+        q2 = q1;
+        q1 = q;
+    }
+    let (mut cm, mut sm) = (T::ONE, T::ZERO);
+    for m in 1..=l_max {
+        qmm = qmm * t.q_mm[m];
+        let c_new = x * cm - y * sm;
+        sm = x * sm + y * cm;
+        cm = c_new;
+        let centre = m * m + m;
+        out[centre + m] = qmm * cm;
+        out[centre - m] = qmm * sm;
+        if m == l_max {
+            break;
+        }
+        let mut q2 = qmm;
+        let mut q1 = t.c[m] * z * qmm;
+        let centre = (m + 1) * (m + 1) + m + 1;
+        out[centre + m] = q1 * cm;
+        out[centre - m] = q1 * sm;
+        for l in m + 2..=l_max {
+            let i = l * (l + 1) / 2 + m;
+            let q = t.a[i] * (z * q1 - t.b[i] * q2);
+            let centre = l * l + l;
+            out[centre + m] = q * cm;
+            out[centre - m] = q * sm;
+            q2 = q1;
+            q1 = q;
+        }
+    }
+}
+
+/// [`sh_recurrence`] for any degree (coefficients beyond the table computed on the fly).
+fn sh_recurrence_any<T: ShScalar>(l_max: usize, x: T, y: T, z: T, out: &mut [T]) {
     let t = T::tables();
     let out = &mut out[..num_coeffs(l_max)];
     let q_mm = |m: usize| {
@@ -437,6 +497,22 @@ mod tests {
                     a[k],
                     b[k]
                 );
+            }
+        }
+    }
+
+    /// The table-driven recurrence against the on-the-fly one.
+    #[test]
+    fn table_recurrence_matches_general() {
+        let mut rng = SplitMix64::new(12);
+        let n = num_coeffs(20);
+        let (mut a, mut b) = (vec![0.0f64; n], vec![0.0f64; n]);
+        for l_max in 0..=20 {
+            let [x, y, z] = unit(&mut rng);
+            sh_recurrence_table(l_max, x, y, z, &mut a);
+            sh_recurrence_any(l_max, x, y, z, &mut b);
+            for k in 0..num_coeffs(l_max) {
+                assert!((a[k] - b[k]).abs() < 1e-13, "L={l_max} k={k}");
             }
         }
     }
