@@ -4,6 +4,7 @@
 //! returning the exit code (0 done, 1 ran but found no confident result, 2 error). To add a
 //! subcommand: a module here, a variant in [`Command`], a line in [`Command::run`].
 
+pub mod features;
 pub mod info;
 
 use clap::{Parser, Subcommand};
@@ -24,6 +25,9 @@ pub enum Command {
     /// Describe point-cloud files: format, points, bounds, attributes, CRS, point spacing and a
     /// suggested support radius.
     Info(info::InfoArgs),
+    /// Compute rotation-invariant local descriptors (spherical harmonics × radial shells) at
+    /// every point, a voxel subsample or keypoints, and write them as NPY, PLY, CSV or LAS/LAZ.
+    Features(features::FeaturesArgs),
 }
 
 impl Command {
@@ -31,6 +35,7 @@ impl Command {
     pub fn run(&self) -> Result<u8> {
         match self {
             Command::Info(args) => info::run(args),
+            Command::Features(args) => features::run(args),
         }
     }
 }

@@ -222,8 +222,23 @@ impl Engine {
         index: &KdIndex,
         centres: &[[f32; 3]],
     ) -> Features {
+        self.compute_at_with(points, index, centres, None)
+    }
+
+    /// [`Engine::compute_at`] with a progress callback, called with the number of centres
+    /// finished after each chunk of work (from worker threads).
+    ///
+    /// # Panics
+    /// If `index` was not built over `points` (different lengths).
+    pub fn compute_at_with(
+        &self,
+        points: &[[f32; 3]],
+        index: &KdIndex,
+        centres: &[[f32; 3]],
+        progress: Option<&(dyn Fn(usize) + Sync)>,
+    ) -> Features {
         check_index(points, index).expect("compute_at: the index must be built over the points");
-        self.run(points, index, centres.to_vec(), None)
+        self.run(points, index, centres.to_vec(), progress)
     }
 
     fn scratch(&self) -> Scratch {

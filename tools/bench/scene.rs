@@ -50,7 +50,7 @@ pub fn scene(n: usize, spacing: f32, seed: u64) -> Vec<[f32; 3]> {
         let cx = (0.15 + 0.7 * (cell % per_row) as f32 / per_row as f32) * extent;
         let cy = (0.15 + 0.7 * ((cell / per_row) % per_row) as f32 / per_row as f32) * extent;
         let radius = (0.03 + 0.02 * rng.next()) * extent;
-        if cell % 2 == 0 {
+        if cell.is_multiple_of(2) {
             // vertical pipe
             let around = ((std::f32::consts::TAU * radius) / s) as usize;
             let up = ((0.5 * height) / s) as usize;
