@@ -1,7 +1,8 @@
 //! Times the descriptor engine on a synthetic scan-like scene and reports the figures used in
 //! the performance notes (run under `/usr/bin/time -v` for the peak memory).
 //!
-//! `cargo run --release --example descriptor_run -- [POINTS] [THREADS] [--search-only]`
+//! `cargo run --release --example descriptor_run -- [POINTS] [THREADS] [--search-only]
+//! [--write SCENE.ply]` (`--write` saves the scene, e.g. for the numpy reference's timing).
 
 use std::time::Instant;
 
@@ -38,6 +39,10 @@ fn main() {
             .unwrap();
     }
     let pts = scene::scene(n, 1.0, 42);
+    if let Some(i) = args.iter().position(|a| a == "--write") {
+        let path = std::path::Path::new(&args[i + 1]);
+        equiscan::io::write_ply(path, &equiscan::Cloud::new([0.0; 3], pts.clone()), &[]).unwrap();
+    }
     let t0 = Instant::now();
     let index = KdIndex::new(&pts).unwrap();
     let t_tree = t0.elapsed().as_secs_f64();
@@ -77,6 +82,7 @@ fn main() {
     let f = engine
         .compute_with_index(&pts, &index, &Centres::All, None)
         .unwrap();
+    let out_bytes = f.values.len() * 4 + f.counts.len() * 4 + f.flags.len() + f.len() * (12 + 8);
     let t_all = t2.elapsed().as_secs_f64();
     let c_all = cpu_seconds() - c2;
     println!(
@@ -85,5 +91,10 @@ fn main() {
         n as f64 / c_all,
         f.columns.len(),
         100.0 * c_search / c_all
+    );
+    println!(
+        "memory: cloud {:.0} MB, output {:.0} MB",
+        (pts.len() * 12) as f64 / 1e6,
+        out_bytes as f64 / 1e6
     );
 }

@@ -131,6 +131,8 @@ struct Scratch {
     acc: Vec<f32>,
     /// Coefficients `c[n][l² + l + m]` of the current scale.
     c: Vec<f32>,
+    /// The same in f64, for the invariants.
+    c64: Vec<f64>,
 }
 
 impl Engine {
@@ -255,6 +257,7 @@ impl Engine {
             stride,
             acc: vec![0.0; self.recipe.shells() * stride],
             c: vec![0.0; self.recipe.shells() * nk],
+            c64: Vec::with_capacity(self.recipe.shells() * nk),
         }
     }
 
@@ -364,8 +367,11 @@ impl Engine {
             let (count, fl) = self.accumulate(s, r);
             counts[si] = count;
             flag_out[si] = fl;
-            self.plan
-                .compute(&s.c, &mut values[si * per_scale..(si + 1) * per_scale]);
+            self.plan.compute(
+                &s.c,
+                &mut s.c64,
+                &mut values[si * per_scale..(si + 1) * per_scale],
+            );
             if let Some(k) = coeffs.as_deref_mut() {
                 k[si * kc..(si + 1) * kc].copy_from_slice(&s.c);
             }
