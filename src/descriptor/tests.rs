@@ -434,8 +434,13 @@ fn portable_and_simd_kernels_agree() {
     // multiply-adds in the projection.
     let cloud = bunny();
     let rec = all_invariants_recipe(bunny_radius(&cloud));
-    let fast = Engine::new(rec.clone()).compute(&cloud, &Centres::All).unwrap();
-    let plain = Engine::new(rec).portable().compute(&cloud, &Centres::All).unwrap();
+    let fast = Engine::new(rec.clone())
+        .compute(&cloud, &Centres::All)
+        .unwrap();
+    let plain = Engine::new(rec)
+        .portable()
+        .compute(&cloud, &Centres::All)
+        .unwrap();
     assert_eq!(fast.counts, plain.counts);
     let e = worst_column_error(&plain.values, &fast.values, fast.columns.len());
     assert!(e < 1e-5, "kernels differ by {e:e}");
