@@ -121,6 +121,8 @@ struct Scratch {
     rho: Vec<f32>,
     /// Cutoff of each selected neighbour.
     fc: Vec<f32>,
+    /// Radial recurrence factors, one per selected neighbour.
+    step: Vec<f32>,
     /// Weights `g_n f_c`, layout `[n][neighbour]`.
     w: Vec<f32>,
     /// Harmonics of each selected neighbour, rows of `stride` values (zero padded).
@@ -252,6 +254,7 @@ impl Engine {
             sel: Vec::with_capacity(256),
             rho: Vec::with_capacity(256),
             fc: Vec::with_capacity(256),
+            step: Vec::with_capacity(256),
             w: Vec::new(),
             y: Vec::new(),
             stride,
@@ -442,7 +445,7 @@ impl Engine {
             m2[4] += d[1] * d[2];
             m2[5] += d[2] * d[2];
         }
-        let wsum = kernel::weights(self.kernel, &s.rho, n_sh, &mut s.fc, &mut s.w);
+        let wsum = kernel::weights(self.kernel, &s.rho, n_sh, &mut s.fc, &mut s.step, &mut s.w);
         kernel::project(self.kernel, &s.w, &s.y, count, n_sh, stride, &mut s.acc);
         let w = 1.0 + wsum + coincident as f32;
         for (row, out) in s.acc.chunks_exact(stride).zip(s.c.chunks_exact_mut(nk)) {

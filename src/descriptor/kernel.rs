@@ -35,33 +35,46 @@ impl Kernel {
     }
 }
 
-/// Cutoffs `fc[j] = f_c(ρ_j)` and weights `w[n·J + j] = g_n(ρ_j) f_c(ρ_j)` for the `J = rho.len()`
+/// Cutoffs `fc[j] = f_c(ρ_j)` and weights (`step` is scratch) `w[n·J + j] = g_n(ρ_j) f_c(ρ_j)` for the `J = rho.len()`
 /// neighbours; returns `Σ_j f_c(ρ_j)` summed in order.
 pub(crate) fn weights(
     k: Kernel,
     rho: &[f32],
     n_sh: usize,
     fc: &mut Vec<f32>,
+    step: &mut Vec<f32>,
     w: &mut Vec<f32>,
 ) -> f32 {
     match k {
-        Kernel::Portable => weights_impl(rho, n_sh, fc, w),
+        Kernel::Portable => weights_impl(rho, n_sh, fc, step, w),
         #[cfg(target_arch = "x86_64")]
         // SAFETY: `Avx2Fma` is only chosen after the processor reported AVX2 and FMA.
-        Kernel::Avx2Fma => unsafe { weights_avx2(rho, n_sh, fc, w) },
+        Kernel::Avx2Fma => unsafe { weights_avx2(rho, n_sh, fc, step, w) },
     }
 }
 
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2,fma")]
-fn weights_avx2(rho: &[f32], n_sh: usize, fc: &mut Vec<f32>, w: &mut Vec<f32>) -> f32 {
-    weights_impl(rho, n_sh, fc, w)
+fn weights_avx2(
+    rho: &[f32],
+    n_sh: usize,
+    fc: &mut Vec<f32>,
+    step: &mut Vec<f32>,
+    w: &mut Vec<f32>,
+) -> f32 {
+    weights_impl(rho, n_sh, fc, step, w)
 }
 
 /// The same arithmetic on every kernel (Rust never fuses a multiply and an add on its own), so
 /// the weights are bit-identical whichever build runs; AVX2 only makes the vectors wider.
 #[inline(always)]
-fn weights_impl(rho: &[f32], n_sh: usize, fc: &mut Vec<f32>, w: &mut Vec<f32>) -> f32 {
+fn weights_impl(
+    rho: &[f32],
+    n_sh: usize,
+    fc: &mut Vec<f32>,
+    step: &mut Vec<f32>,
+    w: &mut Vec<f32>,
+) -> f32 {
     let j = rho.len();
     fc.clear();
     fc.extend(rho.iter().map(|&r| cutoff(r)));
@@ -71,15 +84,47 @@ fn weights_impl(rho: &[f32], n_sh: usize, fc: &mut Vec<f32>, w: &mut Vec<f32>) -
     }
     w.resize(n_sh * j, 0.0);
     let nf = n_sh as f32;
-    for (n, wn) in w.chunks_exact_mut(j.max(1)).take(n_sh).enumerate() {
-        let off = n as f32 + 0.5;
-        for ((o, &r), &f) in wn.iter_mut().zip(rho).zip(fc.iter()) {
-            let a = r * nf - off;
-            *o = exp(-0.5 * a * a) * f;
+    if n_sh <= RECURRENCE_SHELLS && j > 0 {
+        // g_0 = exp(−(t − ½)²/2), then g_{n+1} = g_n · exp(t − n − 1): two exponentials per
+        // neighbour; the step factor shrinks by 1/e per shell. With N ≤ 8 nothing leaves the
+        // normal f32 range (g ≥ e^−29, steps ≤ e^7).
+        step.clear();
+        step.extend(rho.iter().map(|&r| exp(r * nf - 1.0)));
+        let (first, rest) = w.split_at_mut(j);
+        for (o, &r) in first.iter_mut().zip(rho) {
+            let a = r * nf - 0.5;
+            *o = exp(-0.5 * a * a);
+        }
+        let mut prev: &mut [f32] = first;
+        for wn in rest.chunks_exact_mut(j).take(n_sh - 1) {
+            for ((o, p), st) in wn.iter_mut().zip(prev.iter()).zip(step.iter_mut()) {
+                *o = p * *st;
+                *st *= INV_E;
+            }
+            prev = wn;
+        }
+        for wn in w.chunks_exact_mut(j) {
+            for (o, &f) in wn.iter_mut().zip(fc.iter()) {
+                *o *= f;
+            }
+        }
+    } else {
+        for (n, wn) in w.chunks_exact_mut(j.max(1)).take(n_sh).enumerate() {
+            let off = n as f32 + 0.5;
+            for ((o, &r), &f) in wn.iter_mut().zip(rho).zip(fc.iter()) {
+                let a = r * nf - off;
+                *o = exp(-0.5 * a * a) * f;
+            }
         }
     }
     wsum
 }
+
+/// Up to this many shells the weights use the two-exponential recurrence.
+const RECURRENCE_SHELLS: usize = 8;
+
+/// `1/e`.
+const INV_E: f32 = 0.367_879_44;
 
 /// `acc[n·stride + k] = Σ_j w[n·J + j] · y[j·stride + k]` for `n < n_sh`, `k < stride`, with
 /// `J = count` neighbours, summed in ascending `j`.
