@@ -145,3 +145,36 @@ fn format_is_recognised_by_content_not_extension() {
     assert_eq!(info.format, "LAZ");
     assert_eq!(c.len(), 106);
 }
+
+#[test]
+fn crs_is_reported_and_copied_by_the_writer() {
+    // GeoTIFF keys (key ids from the GeoTIFF specification: 1024 model type, 3072 projected
+    // CRS); autzen is in EPSG 2994.
+    let (cloud, info) = read_cloud(&data("autzen.las")).unwrap();
+    let crs = info.crs.clone().unwrap();
+    assert!(crs.starts_with("GeoTIFF keys 1024=1,"), "{crs}");
+    assert!(crs.contains("3072=2994"), "{crs}");
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("copy.las");
+    equiscan::io::write_las_with(&out, &cloud, &[], &equiscan::io::LasOptions::like(&info))
+        .unwrap();
+    let (_, info2) = read_cloud(&out).unwrap();
+    assert_eq!(info2.crs, info.crs);
+
+    // WKT, as LAS 1.4 stores it (LASF_Projection record 2112), written by the las crate.
+    let wkt = "PROJCS[\"example\",GEOGCS[\"WGS 84\"],UNIT[\"metre\",1]]";
+    let mut b = las::Builder::from((1, 4));
+    b.point_format = las::point::Format::new(6).unwrap();
+    let mut header = b.into_header().unwrap();
+    header.set_wkt_crs(wkt.as_bytes().to_vec()).unwrap();
+    let mut w = las::Writer::new(std::io::Cursor::new(Vec::new()), header).unwrap();
+    w.write_point(las::Point {
+        gps_time: Some(0.0),
+        ..Default::default()
+    })
+    .unwrap();
+    let path = dir.path().join("wkt.las");
+    std::fs::write(&path, w.into_inner().unwrap().into_inner()).unwrap();
+    let (_, info) = read_cloud(&path).unwrap();
+    assert_eq!(info.crs.as_deref(), Some(wkt));
+}

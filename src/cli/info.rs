@@ -107,7 +107,11 @@ pub fn render(r: &InfoReport) -> String {
     }
     if let (Some(sc), Some(of)) = (f.scale, f.offset) {
         line("scale", format!("{} {} {}", sc[0], sc[1], sc[2]));
-        line("offset", format!("{} {} {}", of[0], of[1], of[2]));
+        // Adding 0.0 turns a stored -0 into 0.
+        line(
+            "offset",
+            format!("{} {} {}", of[0] + 0.0, of[1] + 0.0, of[2] + 0.0),
+        );
     }
     line("CRS", f.crs.clone().unwrap_or_else(|| "none".to_string()));
     match (r.point_spacing, r.suggested_support_radius) {

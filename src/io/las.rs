@@ -310,9 +310,11 @@ pub(crate) fn read_las(path: &Path) -> Result<(Cloud, FileInfo)> {
     let mut origin: Option<[f64; 3]> = header_origin_ok
         .then(|| std::array::from_fn(|k| ((bounds.min[k] + bounds.max[k]) * 0.5).round()));
 
-    // Never reserve more than a chunk before the data proves it exists.
+    // Reserve for every point only when the file size has proven they exist (uncompressed);
+    // for LAZ never more than a chunk ahead of the data.
     let chunk = if raw.compressed { CHUNK_LAZ } else { CHUNK_LAS };
-    let reserve = n.min(chunk) as usize;
+    let reserve = if raw.compressed { n.min(chunk) } else { n } as usize;
+    let layout = Layout::new(raw.format, fmt.len() as usize);
     let mut cloud = Cloud::new([0.0; 3], Vec::with_capacity(reserve));
     let mut intensity = Vec::with_capacity(reserve);
     let mut classification = Vec::with_capacity(reserve);
@@ -339,31 +341,20 @@ pub(crate) fn read_las(path: &Path) -> Result<(Cloud, FileInfo)> {
             let z = pd.z().next().unwrap_or(0.0);
             [x.round(), y.round(), z.round()]
         });
-        let base = cloud.positions.len();
-        cloud.positions.resize(base + got as usize, [0.0; 3]);
-        let dst = &mut cloud.positions[base..];
-        for (k, (tr, col)) in [(t.x, 0usize), (t.y, 1), (t.z, 2)].into_iter().enumerate() {
-            let _ = col;
-            let shift = tr.offset - o[k];
-            let scale = tr.scale;
-            let it: Box<dyn Iterator<Item = i32>> = match k {
-                0 => Box::new(pd.x_raw()),
-                1 => Box::new(pd.y_raw()),
-                _ => Box::new(pd.z_raw()),
-            };
-            for (p, r) in dst.iter_mut().zip(it) {
-                p[k] = (shift + scale * r as f64) as f32;
-            }
-        }
-        intensity.extend(pd.intensity().map(f32::from));
-        classification.extend(pd.classification());
-        return_number.extend(pd.return_number());
-        if let (Some(c), Some(it)) = (color.as_mut(), pd.rgb()) {
-            c.extend(it.map(|(r, g, b)| [r, g, b]));
-        }
-        if let (Some(g), Some(it)) = (gps.as_mut(), pd.gps_time()) {
-            g.extend(it);
-        }
+        decode_records(
+            pd.raw_bytes(),
+            &layout,
+            [t.x, t.y, t.z],
+            o,
+            &mut Columns {
+                positions: &mut cloud.positions,
+                intensity: &mut intensity,
+                classification: &mut classification,
+                return_number: &mut return_number,
+                color: color.as_mut(),
+                gps: gps.as_mut(),
+            },
+        );
         done += got;
     }
     cloud.origin = origin.unwrap_or([0.0; 3]);
@@ -378,6 +369,80 @@ pub(crate) fn read_las(path: &Path) -> Result<(Cloud, FileInfo)> {
         .map(String::from)
         .collect();
     Ok((cloud, info))
+}
+
+/// Byte offsets inside a point record (LAS 1.4 R15, Tables 7–17).
+struct Layout {
+    record_len: usize,
+    extended: bool,
+    gps: Option<usize>,
+    rgb: Option<usize>,
+}
+
+impl Layout {
+    fn new(format: u8, record_len: usize) -> Self {
+        let extended = format >= 6;
+        let gps = match format {
+            1 | 3 | 4 | 5 => Some(20),
+            6..=10 => Some(22),
+            _ => None,
+        };
+        let rgb = match format {
+            2 => Some(20),
+            3 | 5 => Some(28),
+            7 | 8 | 10 => Some(30),
+            _ => None,
+        };
+        Layout {
+            record_len,
+            extended,
+            gps,
+            rgb,
+        }
+    }
+}
+
+/// Output columns of the LAS reader.
+struct Columns<'a> {
+    positions: &'a mut Vec<[f32; 3]>,
+    intensity: &'a mut Vec<f32>,
+    classification: &'a mut Vec<u8>,
+    return_number: &'a mut Vec<u8>,
+    color: Option<&'a mut Vec<[u16; 3]>>,
+    gps: Option<&'a mut Vec<f64>>,
+}
+
+/// Decodes raw point records in one pass: positions relative to `origin`, and attributes.
+fn decode_records(
+    bytes: &[u8],
+    l: &Layout,
+    t: [Transform; 3],
+    origin: [f64; 3],
+    out: &mut Columns<'_>,
+) {
+    let shift: [f64; 3] = std::array::from_fn(|k| t[k].offset - origin[k]);
+    let scale: [f64; 3] = std::array::from_fn(|k| t[k].scale);
+    let i32le = |r: &[u8], o: usize| i32::from_le_bytes(r[o..o + 4].try_into().unwrap());
+    let u16le = |r: &[u8], o: usize| u16::from_le_bytes([r[o], r[o + 1]]);
+    for r in bytes.chunks_exact(l.record_len) {
+        out.positions.push(std::array::from_fn(|k| {
+            (shift[k] + scale[k] * i32le(r, 4 * k) as f64) as f32
+        }));
+        out.intensity.push(u16le(r, 12) as f32);
+        if l.extended {
+            out.return_number.push(r[14] & 0x0F);
+            out.classification.push(r[16]);
+        } else {
+            out.return_number.push(r[14] & 0x07);
+            out.classification.push(r[15] & 0x1F);
+        }
+        if let (Some(c), Some(o)) = (out.color.as_deref_mut(), l.rgb) {
+            c.push([u16le(r, o), u16le(r, o + 2), u16le(r, o + 4)]);
+        }
+        if let (Some(g), Some(o)) = (out.gps.as_deref_mut(), l.gps) {
+            g.push(f64::from_le_bytes(r[o..o + 8].try_into().unwrap()));
+        }
+    }
 }
 
 /// How [`write_las_with`] lays out the file. `Default` gives LAS 1.4 point format 6 (7 with
@@ -557,8 +622,17 @@ pub fn write_las_with(
             writer.write_points(&pd).map_err(|e| las_err(path, e))?;
             start = end;
         }
-        let mut inner = writer.into_inner().map_err(|e| las_err(path, e))?;
-        inner.flush().map_err(|e| Error::io(path, &e))?;
+        let inner = writer.into_inner().map_err(|e| las_err(path, e))?;
+        let mut file = inner.into_inner().map_err(|e| Error::io(path, e.error()))?;
+        if fmt_no >= 6 {
+            // LAS 1.4 R15, Table 3: the legacy point count (byte 107, u32) and legacy counts
+            // by return (bytes 111–130, 5 × u32) must be zero for point formats 6–10; the las
+            // crate fills them in, so clear them here.
+            file.seek(SeekFrom::Start(107))
+                .and_then(|_| file.write_all(&[0u8; 24]))
+                .and_then(|_| file.seek(SeekFrom::End(0)).map(|_| ()))
+                .map_err(|e| Error::io(path, &e))?;
+        }
         Ok(())
     })
 }
