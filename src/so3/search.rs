@@ -183,7 +183,8 @@ pub fn degree_one_rotation(l_max: usize, a: &[f64], b: &[f64]) -> Option<Matrix3
         let vb = Vector3::new(sb[3], sb[1], sb[2]);
         m += vb * va.transpose();
     }
-    if !(m.norm() > 0.0) {
+    let norm = m.norm();
+    if norm == 0.0 || !norm.is_finite() {
         return None;
     }
     let svd = m.svd(true, true);
