@@ -9,12 +9,15 @@
 //! 1. **coarse**: the real Wigner-D matrices of every rotation of a [`HopfGrid`] are computed
 //!    once when the [`RotationSearcher`] is built (stored as `f32`); per call the score of every
 //!    grid rotation is one dot product with the flattened `M` (a matrix–vector product);
-//! 2. **candidates**: the best grid rotations, thinned so that no two are closer than the grid
-//!    spacing;
+//! 2. **candidates**: the closed-form best rotation of the degree-1 parts
+//!    ([`degree_one_rotation`]), then the best grid rotations, thinned so that no two are closer
+//!    than the grid's covering radius;
 //! 3. **refinement**: Newton's method on the tangent space: with the exact generators `J_k^l`
 //!    (`D^l(exp(ω×) R) = exp(Σ ω_k J_k^l) D^l(R)`), the score near `R` is
 //!    `f + gᵀω + ½ ωᵀHω` with `g_k = ⟨J_k D, M⟩`, `H_jk = ⟨½(J_j J_k + J_k J_j) D, M⟩`; the steps
 //!    use `|H|` (eigenvalues clamped away from zero), with backtracking, so they always ascend;
+//!    a candidate whose path enters (within `separation_deg/2`) the basin of a better maximum
+//!    already found stops there;
 //! 4. **ambiguity**: refined candidates are merged when closer than `separation_deg`; the best
 //!    one is returned with the second-best distinct maximum, and the result is flagged
 //!    `ambiguous` when the rotation-dependent score (degrees `l ≥ 1`) of the second is within
@@ -22,6 +25,13 @@
 //!
 //! A [`RotationSearcher`] holds no per-call state: build it once per `(L, grid level)` and
 //! share it across threads.
+//!
+//! Measured at `L = 4`, `N = 6`, grid level 1 (`cargo run --release --example
+//! so3_search_timing`): no error above 0.5° in 3 000 exact cases (random coefficients and 8- or
+//! 40-point patterns), about 0.1 ms per call on one core. Error against Gaussian noise of
+//! standard deviation `σ` × the RMS coefficient added to `b` (test `search_error_vs_noise`,
+//! 30 random cases each): median 0.04° at σ = 0.01, 0.19° at 0.05, 0.39° at 0.1, 0.79° at 0.2,
+//! 2.1° at 0.5, 4.2° at 1.
 
 use super::rotation::{HopfGrid, geodesic_angle, rotation_vector_to_matrix};
 use super::sh::num_coeffs;
