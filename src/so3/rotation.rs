@@ -246,10 +246,10 @@ pub struct HopfGrid {
 pub const HOPF_COVERING_RADIUS_DEG: [f64; 4] = [50.04, 27.15, 13.20, 6.26];
 
 impl HopfGrid {
-    /// The grid of refinement `level` (`72·8^level` rotations; levels above 7 are clamped to 7,
-    /// 150 994 944 rotations; level ≤ 4 is sensible).
+    /// The grid of refinement `level` (`72·8^level` rotations; levels above 5 are clamped to 5,
+    /// 2 359 296 rotations, about 250 MB; level ≤ 3 suits most uses).
     pub fn new(level: u32) -> Self {
-        let level = level.min(7);
+        let level = level.min(5);
         let nside = 1usize << level;
         let npix = 12 * nside * nside;
         let npsi = 6 * nside;
