@@ -531,6 +531,29 @@ fn harmonics_rotate_by_wigner_d() {
 }
 
 #[test]
+fn f32_shells_and_search() {
+    let mut rng = SplitMix64::new(21);
+    let l_max = 4;
+    let nc = num_coeffs(l_max);
+    let r = random_rotation(&mut rng);
+    let d = WignerD::new(&r, l_max);
+    let a: Vec<f32> = (0..3 * nc).map(|_| rng.normal() as f32).collect();
+    let mut b = vec![0.0f32; 3 * nc];
+    d.apply_shells_f32(3, &a, &mut b);
+    let a64: Vec<f64> = a.iter().map(|&v| v as f64).collect();
+    let mut b64 = vec![0.0; 3 * nc];
+    d.apply_shells(3, &a64, &mut b64);
+    assert!(
+        b.iter()
+            .zip(&b64)
+            .all(|(x, y)| (*x as f64 - y).abs() < 1e-5)
+    );
+    let res = RotationSearcher::new(l_max).search_f32(&a, &b).unwrap();
+    // f32 rounding of the inputs limits the accuracy
+    assert!(geodesic_angle(&res.best.rotation, &r).to_degrees() < 0.01);
+}
+
+#[test]
 fn shells_rotate_together() {
     let mut rng = SplitMix64::new(3);
     let l_max = 4;
