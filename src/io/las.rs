@@ -192,7 +192,12 @@ fn check_header(path: &Path, file: &mut std::fs::File, len: u64) -> Result<RawHe
 
 /// Refuses a LAZ file whose chunk table holds fewer points than the header declares (the
 /// decompressor would otherwise be asked for points that do not exist).
-fn check_laz_chunks(path: &Path, header: &las::Header, offset_to_points: u64) -> Result<()> {
+fn check_laz_chunks(
+    path: &Path,
+    header: &las::Header,
+    offset_to_points: u64,
+    file_len: u64,
+) -> Result<()> {
     let vlr = header.laz_vlr().map_err(|e| las_err(path, e))?;
     let record_len = header.point_format().len() as u64;
     if vlr.items_size() != record_len {
@@ -210,8 +215,23 @@ fn check_laz_chunks(path: &Path, header: &las::Header, offset_to_points: u64) ->
         .map_err(|e| Error::io(path, &e))?;
     let table = laz::laszip::ChunkTable::read_from(&mut f, &vlr)
         .map_err(|e| las_err(path, las::Error::LasZipError(e)))?;
+    // The compressed chunks must fit in the file (a damaged table would otherwise make the
+    // decompressor allocate what the table says).
+    let bytes = table
+        .as_ref()
+        .iter()
+        .fold(0u64, |s, c| s.saturating_add(c.byte_count));
+    if bytes > file_len.saturating_sub(offset_to_points) {
+        return Err(bad(
+            path,
+            format!("the LAZ chunk table lists {bytes} compressed bytes, more than the file holds"),
+        ));
+    }
     // With fixed-size chunks every entry counts a full chunk, so this is an upper bound.
-    let room: u64 = table.as_ref().iter().map(|c| c.point_count).sum();
+    let room: u64 = table
+        .as_ref()
+        .iter()
+        .fold(0u64, |s, c| s.saturating_add(c.point_count));
     let n = header.number_of_points();
     if n > room {
         return Err(Error::file(
@@ -279,7 +299,7 @@ pub(crate) fn read_las(path: &Path) -> Result<(Cloud, FileInfo)> {
         .map_err(|e| las_err(path, e))?;
     let header = reader.header().clone();
     if raw.compressed {
-        check_laz_chunks(path, &header, raw.offset_to_points)?;
+        check_laz_chunks(path, &header, raw.offset_to_points, len)?;
     }
     let fmt = *header.point_format();
     let n = header.number_of_points();
