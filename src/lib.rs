@@ -9,6 +9,8 @@
 pub mod cloud;
 pub mod error;
 pub mod io;
+pub mod report;
+pub mod so3;
 pub mod spatial;
 
 pub use cloud::Cloud;
