@@ -543,6 +543,12 @@ pub fn write_las(path: &Path, cloud: &Cloud, columns: &[Column<'_>]) -> Result<(
 /// Writes `cloud` as LAS 1.4 (LAZ when `path` ends in `.laz`) with `columns` as f32 Extra
 /// Bytes in column order, laid out by `options`. Atomic.
 ///
+/// Each column becomes 4 bytes (little-endian f32) at the end of every point record, in
+/// column order, described by one 192-byte descriptor in a `LASF_Spec` record 4 VLR (Extra
+/// Bytes, ASPRS LAS 1.4 R15 Table 24: data type 9 = float at byte 2, options at 3, name at
+/// 4–35, min at 64 and max at 88 as f64 with options bits 1 and 2 set). For formats 6–10 the
+/// legacy point counts are zero, as the specification requires.
+///
 /// Intensity is rounded and clamped to 0..=65535; classification 12 (overlap) is written
 /// with the overlap flag in formats 6–10. Column names: at most 32 bytes, letters, digits and
 /// `_`. Every coordinate must fit the 32-bit integer range at the chosen scale and offset.
