@@ -3,7 +3,8 @@
 //!
 //! Reading streams points with `Reader::fill_points` into one reused buffer and converts each
 //! chunk straight to f32 offsets from the cloud's origin (the centre of the header bounds,
-//! rounded to whole units), so no f64 copy of the whole file is made.
+//! rounded to whole units; the first point rounded when the bounds are missing or do not hold
+//! it), so no f64 copy of the whole file is made.
 //!
 //! Writing ([`write_las`]): LAS 1.4, point format 6 (7 when the cloud has colour) unless
 //! [`LasOptions`] says otherwise, scale 0.001 and the cloud's origin as offset by default. Each
@@ -337,8 +338,9 @@ pub(crate) fn read_las(path: &Path) -> Result<(Cloud, FileInfo)> {
     let header_origin_ok = (0..3).all(|k| {
         bounds.min[k].is_finite() && bounds.max[k].is_finite() && bounds.min[k] <= bounds.max[k]
     });
-    let mut origin: Option<[f64; 3]> = header_origin_ok
-        .then(|| std::array::from_fn(|k| ((bounds.min[k] + bounds.max[k]) * 0.5).round()));
+    // Decided at the first chunk: the centre of the header bounds when they hold the first
+    // point (within a unit), else that point rounded (bounds missing or wrong).
+    let mut origin: Option<[f64; 3]> = None;
 
     // Reserve for every point only when the file size has proven they exist (uncompressed);
     // for LAZ never more than a chunk ahead of the data.
@@ -366,10 +368,18 @@ pub(crate) fn read_las(path: &Path) -> Result<(Cloud, FileInfo)> {
             ));
         }
         let o = *origin.get_or_insert_with(|| {
-            let x = pd.x().next().unwrap_or(0.0);
-            let y = pd.y().next().unwrap_or(0.0);
-            let z = pd.z().next().unwrap_or(0.0);
-            [x.round(), y.round(), z.round()]
+            let first = [
+                pd.x().next().unwrap_or(0.0),
+                pd.y().next().unwrap_or(0.0),
+                pd.z().next().unwrap_or(0.0),
+            ];
+            let inside =
+                (0..3).all(|k| first[k] >= bounds.min[k] - 1.0 && first[k] <= bounds.max[k] + 1.0);
+            if header_origin_ok && inside {
+                std::array::from_fn(|k| ((bounds.min[k] + bounds.max[k]) * 0.5).round())
+            } else {
+                first.map(f64::round)
+            }
         });
         decode_records(
             pd.raw_bytes(),
