@@ -3,7 +3,8 @@
 //!
 //! Reading streams points with `Reader::fill_points` into one reused buffer and converts each
 //! chunk straight to f32 offsets from the cloud's origin (the centre of the header bounds,
-//! rounded to whole units), so no f64 copy of the whole file is made.
+//! rounded to whole units; the first point rounded when the bounds are missing or do not hold
+//! it), so no f64 copy of the whole file is made.
 //!
 //! Writing ([`write_las`]): LAS 1.4, point format 6 (7 when the cloud has colour) unless
 //! [`LasOptions`] says otherwise, scale 0.001 and the cloud's origin as offset by default. Each
@@ -192,16 +193,46 @@ fn check_header(path: &Path, file: &mut std::fs::File, len: u64) -> Result<RawHe
 
 /// Refuses a LAZ file whose chunk table holds fewer points than the header declares (the
 /// decompressor would otherwise be asked for points that do not exist).
-fn check_laz_chunks(path: &Path, header: &las::Header, offset_to_points: u64) -> Result<()> {
+fn check_laz_chunks(
+    path: &Path,
+    header: &las::Header,
+    offset_to_points: u64,
+    file_len: u64,
+) -> Result<()> {
     let vlr = header.laz_vlr().map_err(|e| las_err(path, e))?;
+    let record_len = header.point_format().len() as u64;
+    if vlr.items_size() != record_len {
+        return Err(bad(
+            path,
+            format!(
+                "the LAZ compression record describes {}-byte points but the header {record_len}-byte ones",
+                vlr.items_size()
+            ),
+        ));
+    }
     let mut f =
         std::io::BufReader::new(std::fs::File::open(path).map_err(|e| Error::io(path, &e))?);
     f.seek(SeekFrom::Start(offset_to_points))
         .map_err(|e| Error::io(path, &e))?;
     let table = laz::laszip::ChunkTable::read_from(&mut f, &vlr)
         .map_err(|e| las_err(path, las::Error::LasZipError(e)))?;
+    // The compressed chunks must fit in the file (a damaged table would otherwise make the
+    // decompressor allocate what the table says).
+    let bytes = table
+        .as_ref()
+        .iter()
+        .fold(0u64, |s, c| s.saturating_add(c.byte_count));
+    if bytes > file_len.saturating_sub(offset_to_points) {
+        return Err(bad(
+            path,
+            format!("the LAZ chunk table lists {bytes} compressed bytes, more than the file holds"),
+        ));
+    }
     // With fixed-size chunks every entry counts a full chunk, so this is an upper bound.
-    let room: u64 = table.as_ref().iter().map(|c| c.point_count).sum();
+    let room: u64 = table
+        .as_ref()
+        .iter()
+        .fold(0u64, |s, c| s.saturating_add(c.point_count));
     let n = header.number_of_points();
     if n > room {
         return Err(Error::file(
@@ -269,7 +300,7 @@ pub(crate) fn read_las(path: &Path) -> Result<(Cloud, FileInfo)> {
         .map_err(|e| las_err(path, e))?;
     let header = reader.header().clone();
     if raw.compressed {
-        check_laz_chunks(path, &header, raw.offset_to_points)?;
+        check_laz_chunks(path, &header, raw.offset_to_points, len)?;
     }
     let fmt = *header.point_format();
     let n = header.number_of_points();
@@ -307,8 +338,9 @@ pub(crate) fn read_las(path: &Path) -> Result<(Cloud, FileInfo)> {
     let header_origin_ok = (0..3).all(|k| {
         bounds.min[k].is_finite() && bounds.max[k].is_finite() && bounds.min[k] <= bounds.max[k]
     });
-    let mut origin: Option<[f64; 3]> = header_origin_ok
-        .then(|| std::array::from_fn(|k| ((bounds.min[k] + bounds.max[k]) * 0.5).round()));
+    // Decided at the first chunk: the centre of the header bounds when they hold the first
+    // point (within a unit), else that point rounded (bounds missing or wrong).
+    let mut origin: Option<[f64; 3]> = None;
 
     // Reserve for every point only when the file size has proven they exist (uncompressed);
     // for LAZ never more than a chunk ahead of the data.
@@ -336,10 +368,18 @@ pub(crate) fn read_las(path: &Path) -> Result<(Cloud, FileInfo)> {
             ));
         }
         let o = *origin.get_or_insert_with(|| {
-            let x = pd.x().next().unwrap_or(0.0);
-            let y = pd.y().next().unwrap_or(0.0);
-            let z = pd.z().next().unwrap_or(0.0);
-            [x.round(), y.round(), z.round()]
+            let first = [
+                pd.x().next().unwrap_or(0.0),
+                pd.y().next().unwrap_or(0.0),
+                pd.z().next().unwrap_or(0.0),
+            ];
+            let inside =
+                (0..3).all(|k| first[k] >= bounds.min[k] - 1.0 && first[k] <= bounds.max[k] + 1.0);
+            if header_origin_ok && inside {
+                std::array::from_fn(|k| ((bounds.min[k] + bounds.max[k]) * 0.5).round())
+            } else {
+                first.map(f64::round)
+            }
         });
         decode_records(
             pd.raw_bytes(),
@@ -513,6 +553,12 @@ pub fn write_las(path: &Path, cloud: &Cloud, columns: &[Column<'_>]) -> Result<(
 /// Writes `cloud` as LAS 1.4 (LAZ when `path` ends in `.laz`) with `columns` as f32 Extra
 /// Bytes in column order, laid out by `options`. Atomic.
 ///
+/// Each column becomes 4 bytes (little-endian f32) at the end of every point record, in
+/// column order, described by one 192-byte descriptor in a `LASF_Spec` record 4 VLR (Extra
+/// Bytes, ASPRS LAS 1.4 R15 Table 24: data type 9 = float at byte 2, options at 3, name at
+/// 4–35, min at 64 and max at 88 as f64 with options bits 1 and 2 set). For formats 6–10 the
+/// legacy point counts are zero, as the specification requires.
+///
 /// Intensity is rounded and clamped to 0..=65535; classification 12 (overlap) is written
 /// with the overlap flag in formats 6–10. Column names: at most 32 bytes, letters, digits and
 /// `_`. Every coordinate must fit the 32-bit integer range at the chosen scale and offset.
@@ -522,9 +568,7 @@ pub fn write_las_with(
     columns: &[Column<'_>],
     options: &LasOptions,
 ) -> Result<()> {
-    cloud
-        .validate()
-        .map_err(|e| Error::file(path, e.to_string(), "nothing was written"))?;
+    cloud.validate().map_err(|e| super::about(path, e))?;
     check_columns(path, cloud.len(), columns, &[])?;
     if let Some(c) = columns.iter().find(|c| c.name.len() > 32) {
         return Err(Error::file(

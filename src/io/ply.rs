@@ -5,13 +5,8 @@
 //! tokenised line by line). Elements other than `vertex` — before or after it, with scalar or
 //! list properties — are skipped exactly; `face` lists are read by [`read_ply_mesh`].
 //!
-//! Writing ([`write_ply`]): binary little-endian; `x y z` as double **global** coordinates
-//! (`origin + position`) so that other programs see file coordinates, with the cloud's origin
-//! recorded in a `comment equiscan origin X Y Z` line. The reader uses that origin again, so a
-//! written cloud reads back with the same origin, attributes and columns; its f32 positions
-//! come back bit for bit whenever each offset is 0 or larger in magnitude than about
-//! 2⁻²⁹ × |origin| (below 2 mm for origins up to 10⁶), i.e. for any offset an f32 can tell
-//! apart from the origin at file precision.
+//! Writing ([`write_ply`]): binary little-endian, `x y z` as double global coordinates with the
+//! cloud's origin in a header comment; see [`write_ply`] for the exactness of the round trip.
 
 use std::fs::File;
 use std::io::{BufRead, BufReader, Read, Write};
@@ -678,6 +673,24 @@ fn push_vertex(s: &mut Sink, m: &VertexMap, vals: &[f64]) {
     }
 }
 
+/// Refuses a non-finite coordinate among `positions[from..]`, naming the vertex.
+fn check_float_positions(path: &Path, positions: &[[f32; 3]], from: usize) -> Result<()> {
+    for (i, p) in positions.iter().enumerate().skip(from) {
+        if let Some(k) = (0..3).find(|&k| !p[k].is_finite()) {
+            return Err(Error::file(
+                path,
+                format!(
+                    "vertex {i} has a non-finite coordinate ({} = {})",
+                    ["x", "y", "z"][k],
+                    p[k]
+                ),
+                "drop or repair such points",
+            ));
+        }
+    }
+    Ok(())
+}
+
 /// Decodes a chunk of fixed-stride binary vertex records column by column.
 fn decode_chunk(
     s: &mut Sink,
@@ -688,11 +701,25 @@ fn decode_chunk(
     big: bool,
 ) {
     let n = buf.len() / stride;
-    for k in 0..3 {
-        let (off, ty) = offs[m.xyz[k]];
-        let col = &mut s.xyz[k];
-        col.reserve(n);
-        for_column(buf, stride, off, ty, big, |_, v| col.push(v));
+    if s.float_xyz {
+        // Float coordinates with origin zero go straight into the positions (finiteness is
+        // checked by the caller through `check_float_positions`).
+        let pos = &mut s.cloud.positions;
+        let base = pos.len();
+        pos.resize(base + n, [0.0; 3]);
+        for k in 0..3 {
+            let (off, ty) = offs[m.xyz[k]];
+            for_column(buf, stride, off, ty, big, |r, v| {
+                pos[base + r][k] = v as f32
+            });
+        }
+    } else {
+        for k in 0..3 {
+            let (off, ty) = offs[m.xyz[k]];
+            let col = &mut s.xyz[k];
+            col.reserve(n);
+            for_column(buf, stride, off, ty, big, |_, v| col.push(v));
+        }
     }
     let c = &mut s.cloud;
     if let (Some(v), Some(ix)) = (c.normals.as_mut(), m.normals) {
@@ -931,7 +958,9 @@ pub(crate) fn read_ply(path: &Path, faces: bool) -> Result<(Cloud, Vec<[u32; 3]>
                                 return Err(src.eof(format!("{whole} of {count} vertices present")));
                             }
                             src.read_exact(&mut buf, || format!("vertex {d} of {count}"))?;
+                            let before = sink.cloud.positions.len();
                             decode_chunk(&mut sink, &map, &offs, &buf, stride, big);
+                            check_float_positions(path, &sink.cloud.positions, before)?;
                             sink.flush_xyz(path, d as usize)?;
                             done += n as u64;
                         }
@@ -1031,12 +1060,18 @@ pub fn read_ply_mesh(path: &Path) -> Result<(Cloud, Vec<[u32; 3]>)> {
 /// Vertex properties in this order: `x y z` (double, global coordinates), then when present
 /// `nx ny nz` (float), `red green blue` (uchar when every value is ≤ 255, ushort otherwise),
 /// `intensity` (float), `classification`, `return_number` (uchar), `gps_time` (double), then
-/// one float property per column. The origin is recorded in a header comment (see the module
-/// docs). Column names must be plain (letters, digits, `_`) and must not repeat a name above.
+/// one float property per column. Column names must be plain (letters, digits, `_`) and must
+/// not repeat a name above.
+///
+/// `x y z` are global coordinates (`origin + position`), so other programs see file
+/// coordinates; the origin is recorded as `comment equiscan origin X Y Z` and used again by
+/// [`super::read_cloud`], which gives back the same origin, attributes and columns. Positions
+/// come back bit for bit when the origin is zero, and otherwise whenever each offset is 0 or
+/// larger in magnitude than about 2⁻²⁹ × |origin| (for an origin of 5 × 10⁶, above 1 cm);
+/// closer to the origin an f32 offset may change by one unit in the last place (below
+/// 10⁻⁹ file units there).
 pub fn write_ply(path: &Path, cloud: &Cloud, columns: &[Column<'_>]) -> Result<()> {
-    cloud
-        .validate()
-        .map_err(|e| Error::file(path, e.to_string(), "nothing was written"))?;
+    cloud.validate().map_err(|e| super::about(path, e))?;
     let taken = [
         "x",
         "y",
