@@ -366,29 +366,29 @@ fn one(
         }
     };
     let seconds = t0.elapsed().as_secs_f64();
+    drop(index);
+    let centres = features.len();
+    let without = (0..centres).filter(|&i| features.count(i, 0) == 0).count();
     let columns = write_features(
         &cloud,
         &info,
-        &features,
+        features,
         output,
         format,
         centres_kind,
         suggested,
     )?;
-    let s = engine.recipe().scales();
     Ok(Summary {
         input: input.display().to_string(),
         output: output.display().to_string(),
         points: cloud.len(),
-        centres: features.len(),
+        centres,
         seconds,
-        points_per_second: features.len() as f64 / seconds.max(1e-9),
+        points_per_second: centres as f64 / seconds.max(1e-9),
         columns,
         radii,
         radius_suggested: suggested,
-        centres_without_neighbours: (0..features.len())
-            .filter(|&i| s > 0 && features.count(i, 0) == 0)
-            .count(),
+        centres_without_neighbours: without,
     })
 }
 
@@ -426,58 +426,30 @@ fn with_progress<T>(
     out
 }
 
-/// Writes the features; returns the number of columns written.
+/// Writes the features; returns the number of columns written. Takes the features by value
+/// so that their matrices are freed as soon as the writer's copy exists (peak: one copy).
 fn write_features(
     cloud: &Cloud,
     info: &FileInfo,
-    f: &Features,
+    f: Features,
     output: &Path,
     format: Format,
     centres: serde_json::Value,
     suggested: bool,
 ) -> Result<usize> {
     let rows = f.len();
-    let recipe = &f.recipe;
+    let recipe = f.recipe.clone();
     let ns = recipe.scales();
-    // Column-major copies for the writers.
-    let mut names: Vec<String> = Vec::new();
-    let mut cols: Vec<Vec<f32>> = Vec::new();
     let with_local = matches!(format, Format::Npy | Format::Csv);
+    let mut names: Vec<String> = Vec::new();
     if with_local {
-        for (k, axis) in ["x_local", "y_local", "z_local"].iter().enumerate() {
-            names.push(axis.to_string());
-            cols.push(f.positions.iter().map(|p| p[k]).collect());
-        }
+        names.extend(["x_local", "y_local", "z_local"].map(String::from));
     }
-    let count_names = recipe.count_column_names();
-    for s in 0..ns {
-        names.push(count_names[2 * s].clone());
-        cols.push((0..rows).map(|i| f.count(i, s) as f32).collect());
-        names.push(count_names[2 * s + 1].clone());
-        cols.push((0..rows).map(|i| f.flag(i, s) as f32).collect());
+    names.extend(recipe.count_column_names());
+    names.extend(f.columns.iter().cloned());
+    if f.coefficients.is_some() {
+        names.extend(recipe.coefficient_names());
     }
-    let nc = f.columns.len();
-    for (c, name) in f.columns.iter().enumerate() {
-        names.push(name.clone());
-        cols.push((0..rows).map(|i| f.values[i * nc + c]).collect());
-    }
-    if let Some(coef) = &f.coefficients {
-        let k = recipe.coefficient_names();
-        let per_row = k.len();
-        for (c, name) in k.into_iter().enumerate() {
-            names.push(name);
-            cols.push((0..rows).map(|i| coef[i * per_row + c]).collect());
-        }
-    }
-    let columns: Vec<Column<'_>> = names
-        .iter()
-        .zip(&cols)
-        .map(|(n, v)| Column::new(n, v))
-        .collect();
-    let centre_cloud = match &f.indices {
-        Some(ix) => cloud.select(ix),
-        None => Cloud::new(cloud.origin, f.positions.clone()),
-    };
     let metadata = serde_json::json!({
         "input": info.path,
         "origin": cloud.origin,
@@ -486,26 +458,91 @@ fn write_features(
         "centres": centres,
         "centre_indices": match (&f.indices, centres.get("kind").and_then(|k| k.as_str())) {
             (Some(ix), Some("voxel")) => serde_json::json!(ix),
-            // Every point: row i is point i.
+            // Every point: row i is point i; keypoints: row i is keypoint i.
             _ => serde_json::Value::Null,
         },
         "radius_suggested": suggested,
-        "counts": count_summary(f),
+        "counts": count_summary(&f),
         "layout": "rows follow the centres; per scale count and flags, then invariants \
                    (norms l outer n inner; power spectrum l, n, n' >= n; bispectrum n, l1 <= l2, l), \
                    then coefficients [scale][n][l^2 + l + m]",
     });
-    match format {
-        Format::Npy => {
-            let mut data = vec![0.0f32; rows * cols.len()];
-            for (c, v) in cols.iter().enumerate() {
-                for (i, x) in v.iter().enumerate() {
-                    data[i * cols.len() + c] = *x;
-                }
-            }
-            let refs: Vec<&str> = names.iter().map(String::as_str).collect();
-            equiscan::io::write_npy_with_sidecar(output, rows, &refs, &data, metadata)?;
+    // One row of the output, in the order of `names`.
+    let row = |i: usize, out: &mut Vec<f32>| {
+        if with_local {
+            out.extend_from_slice(&f.positions[i]);
         }
+        for s in 0..ns {
+            out.push(f.count(i, s) as f32);
+            out.push(f.flag(i, s) as f32);
+        }
+        out.extend_from_slice(f.row(i));
+        if let Some(k) = &f.coefficients {
+            let per = k.len() / rows.max(1);
+            out.extend_from_slice(&k[i * per..(i + 1) * per]);
+        }
+    };
+    if format == Format::Npy {
+        // Streamed row by row from the features (no second copy of the matrix), in the layout
+        // of io::write_npy_with_sidecar: the matrix, then `<name>.json` beside it.
+        let side = output.with_extension("json");
+        if side == output {
+            return Err(Error::file(
+                output,
+                "the matrix and its JSON sidecar would have the same name",
+                "name the matrix file with the extension .npy",
+            ));
+        }
+        equiscan::io::write_atomic(output, |w| {
+            let io = |e: std::io::Error| Error::io(output, &e);
+            w.write_all(&equiscan::io::npy_header(rows, names.len()))
+                .map_err(io)?;
+            let (mut vals, mut bytes) = (Vec::new(), Vec::new());
+            for i in 0..rows {
+                vals.clear();
+                bytes.clear();
+                row(i, &mut vals);
+                for v in &vals {
+                    bytes.extend_from_slice(&v.to_le_bytes());
+                }
+                w.write_all(&bytes).map_err(io)?;
+            }
+            Ok(())
+        })?;
+        let doc = serde_json::json!({
+            "file": output.file_name().map(|f| f.to_string_lossy().into_owned()),
+            "dtype": "float32",
+            "order": "C",
+            "rows": rows,
+            "columns": names,
+            "metadata": metadata,
+        });
+        write_json(&side, &doc)?;
+        return Ok(names.len());
+    }
+    // Column-major copies for the other writers.
+    let nc = names.len();
+    let mut cols: Vec<Vec<f32>> = (0..nc).map(|_| Vec::with_capacity(rows)).collect();
+    let mut buf = Vec::with_capacity(nc);
+    for i in 0..rows {
+        buf.clear();
+        row(i, &mut buf);
+        for (c, v) in cols.iter_mut().zip(&buf) {
+            c.push(*v);
+        }
+    }
+    let centre_cloud = match &f.indices {
+        Some(ix) => cloud.select(ix),
+        None => Cloud::new(cloud.origin, f.positions.clone()),
+    };
+    drop(f);
+    let columns: Vec<Column<'_>> = names
+        .iter()
+        .zip(&cols)
+        .map(|(n, v)| Column::new(n, v))
+        .collect();
+    match format {
+        Format::Npy => unreachable!("written above"),
         Format::Csv => {
             equiscan::io::write_csv(output, &columns)?;
             let doc = serde_json::json!({
@@ -514,14 +551,7 @@ fn write_features(
                 "columns": names,
                 "metadata": metadata,
             });
-            let side = output.with_extension("json");
-            let text = serde_json::to_string_pretty(&doc)
-                .map_err(|e| Error::file(&side, e.to_string(), "report this as a bug"))?;
-            equiscan::io::write_atomic(&side, |w| {
-                w.write_all(text.as_bytes())
-                    .and_then(|_| w.write_all(b"\n"))
-                    .map_err(|e| Error::io(&side, &e))
-            })?;
+            write_json(&output.with_extension("json"), &doc)?;
         }
         Format::Ply => equiscan::io::write_ply(output, &centre_cloud, &columns)?,
         Format::Las | Format::Laz => {
@@ -532,6 +562,17 @@ fn write_features(
     Ok(columns.len())
 }
 
+/// Writes pretty JSON and a newline to `path`, atomically.
+fn write_json(path: &Path, doc: &serde_json::Value) -> Result<()> {
+    let text = serde_json::to_string_pretty(doc)
+        .map_err(|e| Error::file(path, e.to_string(), "report this as a bug"))?;
+    equiscan::io::write_atomic(path, |w| {
+        w.write_all(text.as_bytes())
+            .and_then(|_| w.write_all(b"\n"))
+            .map_err(|e| Error::io(path, &e))
+    })
+}
+
 /// Per scale: smallest, mean and largest neighbour count, and centres without neighbours.
 fn count_summary(f: &Features) -> serde_json::Value {
     let ns = f.recipe.scales();
@@ -540,7 +581,8 @@ fn count_summary(f: &Features) -> serde_json::Value {
             let c: Vec<u32> = (0..f.len()).map(|i| f.count(i, s)).collect();
             let mean = c.iter().map(|&v| v as f64).sum::<f64>() / c.len().max(1) as f64;
             serde_json::json!({
-                "radius": f.recipe.radii()[s],
+                // the radius as written in the recipe (shortest f32 decimal), not widened
+                "radius": format!("{}", f.recipe.radii()[s]).parse::<f64>().unwrap_or(f64::NAN),
                 "min": c.iter().min(),
                 "mean": mean,
                 "max": c.iter().max(),
