@@ -653,7 +653,8 @@ pub fn write_las_with(
     builder.point_format = format;
     builder.transforms = transforms;
     builder.generating_software = "equiscan".to_string();
-    // LAS 1.4 R15, Table 3: "OTHER" when the points do not come straight from one instrument.
+    // LAS 1.4 R15 system identifier, from memory: "OTHER" when the points do not come straight
+    // from one instrument (the spec also names MERGE, MODIFICATION, EXTRACTION, …).
     builder.system_identifier = "OTHER".to_string();
     builder.vlrs = options.crs_records.clone();
     if !columns.is_empty() {
