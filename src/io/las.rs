@@ -15,7 +15,9 @@
 //! `[48, 64)`, min `[64, 72)`, deprecated `[72, 88)`, max `[88, 96)`, deprecated `[96, 112)`,
 //! scale `[112, 120)`, deprecated `[120, 136)`, offset `[136, 144)`, deprecated `[144, 160)`,
 //! description `[160, 192)`. The "any type" fields hold an f64 for float data. We set options
-//! bits 1 (min) and 2 (max) when a column has finite values.
+//! bits 1 (min) and 2 (max) when a column has finite values. This layout is recalled from the
+//! specification, not copied from it; it adds up to the specified 192 bytes, and laspy decodes
+//! files written with it to the same values (tests/io_las_spec.rs).
 
 use std::io::{BufWriter, Read, Seek, SeekFrom, Write};
 use std::path::Path;
@@ -452,7 +454,8 @@ struct Columns<'a> {
     gps: Option<&'a mut Vec<f64>>,
 }
 
-/// Decodes raw point records in one pass: positions relative to `origin`, and attributes.
+/// Decodes raw point records: positions relative to `origin` on one thread, the attributes on
+/// another.
 fn decode_records(
     bytes: &[u8],
     l: &Layout,
@@ -464,25 +467,41 @@ fn decode_records(
     let scale: [f64; 3] = std::array::from_fn(|k| t[k].scale);
     let i32le = |r: &[u8], o: usize| i32::from_le_bytes(r[o..o + 4].try_into().unwrap());
     let u16le = |r: &[u8], o: usize| u16::from_le_bytes([r[o], r[o + 1]]);
-    for r in bytes.chunks_exact(l.record_len) {
-        out.positions.push(std::array::from_fn(|k| {
-            (shift[k] + scale[k] * i32le(r, 4 * k) as f64) as f32
-        }));
-        out.intensity.push(u16le(r, 12) as f32);
-        if l.extended {
-            out.return_number.push(r[14] & 0x0F);
-            out.classification.push(r[16]);
-        } else {
-            out.return_number.push(r[14] & 0x07);
-            out.classification.push(r[15] & 0x1F);
+    let Columns {
+        positions,
+        intensity,
+        classification,
+        return_number,
+        color,
+        gps,
+    } = out;
+    let records = || bytes.chunks_exact(l.record_len);
+    let coordinates = || {
+        for r in records() {
+            positions.push(std::array::from_fn(|k| {
+                (shift[k] + scale[k] * i32le(r, 4 * k) as f64) as f32
+            }));
         }
-        if let (Some(c), Some(o)) = (out.color.as_deref_mut(), l.rgb) {
-            c.push([u16le(r, o), u16le(r, o + 2), u16le(r, o + 4)]);
+    };
+    let attributes = || {
+        for r in records() {
+            intensity.push(u16le(r, 12) as f32);
+            if l.extended {
+                return_number.push(r[14] & 0x0F);
+                classification.push(r[16]);
+            } else {
+                return_number.push(r[14] & 0x07);
+                classification.push(r[15] & 0x1F);
+            }
+            if let (Some(c), Some(o)) = (color.as_deref_mut(), l.rgb) {
+                c.push([u16le(r, o), u16le(r, o + 2), u16le(r, o + 4)]);
+            }
+            if let (Some(g), Some(o)) = (gps.as_deref_mut(), l.gps) {
+                g.push(f64::from_le_bytes(r[o..o + 8].try_into().unwrap()));
+            }
         }
-        if let (Some(g), Some(o)) = (out.gps.as_deref_mut(), l.gps) {
-            g.push(f64::from_le_bytes(r[o..o + 8].try_into().unwrap()));
-        }
-    }
+    };
+    rayon::join(coordinates, attributes);
 }
 
 /// How [`write_las_with`] lays out the file. `Default` gives LAS 1.4 point format 6 (7 with
@@ -636,7 +655,9 @@ pub fn write_las_with(
     builder.point_format = format;
     builder.transforms = transforms;
     builder.generating_software = "equiscan".to_string();
-    builder.system_identifier = "equiscan".to_string();
+    // LAS 1.4 R15 system identifier, from memory: "OTHER" when the points do not come straight
+    // from one instrument (the spec also names MERGE, MODIFICATION, EXTRACTION, …).
+    builder.system_identifier = "OTHER".to_string();
     builder.vlrs = options.crs_records.clone();
     if !columns.is_empty() {
         builder.vlrs.push(extra_bytes_vlr(columns));

@@ -701,59 +701,80 @@ fn decode_chunk(
     big: bool,
 ) {
     let n = buf.len() / stride;
-    if s.float_xyz {
-        // Float coordinates with origin zero go straight into the positions (finiteness is
-        // checked by the caller through `check_float_positions`).
-        let pos = &mut s.cloud.positions;
-        let base = pos.len();
-        pos.resize(base + n, [0.0; 3]);
-        for k in 0..3 {
-            let (off, ty) = offs[m.xyz[k]];
-            for_column(buf, stride, off, ty, big, |r, v| {
-                pos[base + r][k] = v as f32
-            });
+    let Sink {
+        cloud,
+        xyz,
+        float_xyz,
+        ..
+    } = s;
+    let Cloud {
+        positions,
+        normals,
+        color,
+        intensity,
+        classification,
+        return_number,
+        gps_time,
+        ..
+    } = cloud;
+    // Coordinates on one thread, the other attributes on another: the work (and the first
+    // touch of the output memory) splits in about half.
+    let coordinates = || {
+        if *float_xyz {
+            // Float coordinates with origin zero go straight into the positions (finiteness is
+            // checked by the caller through `check_float_positions`).
+            let base = positions.len();
+            positions.resize(base + n, [0.0; 3]);
+            for k in 0..3 {
+                let (off, ty) = offs[m.xyz[k]];
+                for_column(buf, stride, off, ty, big, |r, v| {
+                    positions[base + r][k] = v as f32
+                });
+            }
+        } else {
+            for k in 0..3 {
+                let (off, ty) = offs[m.xyz[k]];
+                let col = &mut xyz[k];
+                col.reserve(n);
+                for_column(buf, stride, off, ty, big, |_, v| col.push(v));
+            }
         }
-    } else {
-        for k in 0..3 {
-            let (off, ty) = offs[m.xyz[k]];
-            let col = &mut s.xyz[k];
-            col.reserve(n);
-            for_column(buf, stride, off, ty, big, |_, v| col.push(v));
+    };
+    let attributes = || {
+        if let (Some(v), Some(ix)) = (normals.as_mut(), m.normals) {
+            let base = v.len();
+            v.resize(base + n, [0.0; 3]);
+            for (k, &i) in ix.iter().enumerate() {
+                let (off, ty) = offs[i];
+                for_column(buf, stride, off, ty, big, |r, x| v[base + r][k] = x as f32);
+            }
         }
-    }
-    let c = &mut s.cloud;
-    if let (Some(v), Some(ix)) = (c.normals.as_mut(), m.normals) {
-        let base = v.len();
-        v.resize(base + n, [0.0; 3]);
-        for (k, &i) in ix.iter().enumerate() {
+        if let (Some(v), Some(ix)) = (color.as_mut(), m.color) {
+            let base = v.len();
+            v.resize(base + n, [0; 3]);
+            for (k, &i) in ix.iter().enumerate() {
+                let (off, ty) = offs[i];
+                for_column(buf, stride, off, ty, big, |r, x| v[base + r][k] = x as u16);
+            }
+        }
+        if let (Some(v), Some(i)) = (intensity.as_mut(), m.intensity) {
             let (off, ty) = offs[i];
-            for_column(buf, stride, off, ty, big, |r, x| v[base + r][k] = x as f32);
+            for_column(buf, stride, off, ty, big, |_, x| v.push(x as f32));
         }
-    }
-    if let (Some(v), Some(ix)) = (c.color.as_mut(), m.color) {
-        let base = v.len();
-        v.resize(base + n, [0; 3]);
-        for (k, &i) in ix.iter().enumerate() {
+        if let (Some(v), Some(i)) = (classification.as_mut(), m.classification) {
             let (off, ty) = offs[i];
-            for_column(buf, stride, off, ty, big, |r, x| v[base + r][k] = x as u16);
+            for_column(buf, stride, off, ty, big, |_, x| v.push(x as u8));
         }
-    }
-    if let (Some(v), Some(i)) = (c.intensity.as_mut(), m.intensity) {
-        let (off, ty) = offs[i];
-        for_column(buf, stride, off, ty, big, |_, x| v.push(x as f32));
-    }
-    if let (Some(v), Some(i)) = (c.classification.as_mut(), m.classification) {
-        let (off, ty) = offs[i];
-        for_column(buf, stride, off, ty, big, |_, x| v.push(x as u8));
-    }
-    if let (Some(v), Some(i)) = (c.return_number.as_mut(), m.return_number) {
-        let (off, ty) = offs[i];
-        for_column(buf, stride, off, ty, big, |_, x| v.push(x as u8));
-    }
-    if let (Some(v), Some(i)) = (c.gps_time.as_mut(), m.gps_time) {
-        let (off, ty) = offs[i];
-        for_column(buf, stride, off, ty, big, |_, x| v.push(x));
-    }
+        if let (Some(v), Some(i)) = (return_number.as_mut(), m.return_number) {
+            let (off, ty) = offs[i];
+            for_column(buf, stride, off, ty, big, |_, x| v.push(x as u8));
+        }
+        if let (Some(v), Some(i)) = (gps_time.as_mut(), m.gps_time) {
+            let (off, ty) = offs[i];
+            for_column(buf, stride, off, ty, big, |_, x| v.push(x));
+        }
+    };
+    rayon::join(coordinates, attributes);
 }
 
 /// Reads (or skips, when `out` is `None`) one record of `el` with list properties, from

@@ -9,7 +9,7 @@ use std::time::Instant;
 use equiscan::descriptor::{Centres, Engine, Recipe};
 use equiscan::spatial::{KdIndex, estimate_spacing_with, suggested_support_radius};
 
-#[path = "../tools/bench/scene.rs"]
+#[path = "../bench/scene.rs"]
 mod scene;
 
 /// CPU seconds used by this process so far (user + system, from /proc/self/stat; 0 elsewhere).
