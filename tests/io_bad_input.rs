@@ -132,6 +132,12 @@ fn truncated_point_data_and_counts_larger_than_the_data() {
         "declares 1000000000 points but the compressed data holds at most",
     );
 
+    // A damaged chunk table (stored at the end of this file) must not drive an allocation.
+    let mut table = sample("32-1-472-150-76.laz");
+    let n = table.len();
+    table[n - 6] ^= 0x5A;
+    check(&d.file("table.laz", &table), "chunk table lists");
+
     let ply = b"ply\nformat binary_little_endian 1.0\nelement vertex 4000000000\nproperty float x\nproperty float y\nproperty float z\nend_header\n";
     let mut body = ply.to_vec();
     body.extend_from_slice(&[0u8; 12 * 3 + 5]);

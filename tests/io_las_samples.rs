@@ -178,3 +178,35 @@ fn crs_is_reported_and_copied_by_the_writer() {
     let (_, info) = read_cloud(&path).unwrap();
     assert_eq!(info.crs.as_deref(), Some(wkt));
 }
+
+#[test]
+fn bounds_missing_from_the_header_fall_back_to_the_first_point() {
+    // Header bounds at bytes 179..227 (LAS 1.4 R15, Table 3) set to NaN, or to zero: the
+    // origin then comes from the first point, and offsets keep their precision.
+    let mut bytes = std::fs::read(data("autzen.las")).unwrap();
+    for k in 0..6 {
+        bytes[179 + 8 * k..187 + 8 * k].copy_from_slice(&f64::NAN.to_le_bytes());
+    }
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("nobounds.las");
+    std::fs::write(&path, &bytes).unwrap();
+    let (good, _) = read_cloud(&data("autzen.las")).unwrap();
+    let first = good.global(0);
+    // Wrong but finite bounds (all zero) are caught too: the first point is not inside them.
+    let mut zero = bytes.clone();
+    for k in 0..6 {
+        zero[179 + 8 * k..187 + 8 * k].copy_from_slice(&0.0f64.to_le_bytes());
+    }
+    let zero_path = dir.path().join("zerobounds.las");
+    std::fs::write(&zero_path, &zero).unwrap();
+    for p in [&path, &zero_path] {
+        let (cloud, _) = read_cloud(p).unwrap();
+        assert_eq!(cloud.origin, first.map(f64::round));
+        for i in 0..good.len() {
+            let (a, b) = (cloud.global(i), good.global(i));
+            for k in 0..3 {
+                assert!((a[k] - b[k]).abs() < 1e-3, "point {i}: {a:?} vs {b:?}");
+            }
+        }
+    }
+}

@@ -133,3 +133,70 @@ fn laz_output_sets_the_compression_bit() {
     assert_eq!(f[104] & 0x3F, 7, "format 7 with colour");
     assert_ne!(f[104] & 0x80, 0, "bit 7: LASzip compression");
 }
+
+/// The cloud and columns behind tests/data/las/equiscan_extra_bytes.las.
+fn golden() -> (Cloud, Vec<f32>, Vec<f32>) {
+    let n = 10;
+    let mut c = Cloud::new(
+        [512_300.0, 6_210_800.0, 40.0],
+        (0..n)
+            .map(|i| [i as f32 * 0.25, -(i as f32) * 0.5, i as f32 * 0.125])
+            .collect(),
+    );
+    c.intensity = Some((0..n).map(|i| (i * 100) as f32).collect());
+    c.color = Some((0..n).map(|i| [i as u16, 1000, 65535]).collect());
+    c.classification = Some((0..n).map(|i| (i % 3) as u8).collect());
+    c.return_number = Some(vec![1; n]);
+    c.gps_time = Some((0..n).map(|i| 1.0e5 + i as f64).collect());
+    let a = (0..n).map(|i| (i as f32 - 4.5) / 3.0).collect();
+    let b = (0..n).map(|i| 1.0e-3 * (i * i) as f32).collect();
+    (c, a, b)
+}
+
+/// Our writer's output is byte-for-byte the committed file, and laspy (PyPI) decodes that
+/// file's Extra Bytes to exactly our f32 values (tests/data/las/laspy_reference.json, made by
+/// tools/fixtures/las_fixtures.py). Set EQUISCAN_BLESS=1 to rewrite the committed file after a
+/// deliberate format change, then rerun the fixture script.
+#[test]
+fn written_file_matches_the_committed_one_and_laspy_reads_its_extra_bytes() {
+    let (cloud, a, b) = golden();
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("golden.las");
+    write_las(
+        &path,
+        &cloud,
+        &[Column::new("curvature", &a), Column::new("linearity", &b)],
+    )
+    .unwrap();
+    let root = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/data/las");
+    let committed = root.join("equiscan_extra_bytes.las");
+    if std::env::var_os("EQUISCAN_BLESS").is_some() {
+        std::fs::copy(&path, &committed).unwrap();
+    }
+    assert!(
+        std::fs::read(&path).unwrap() == std::fs::read(&committed).unwrap(),
+        "the LAS writer's bytes changed"
+    );
+    let doc: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(root.join("laspy_reference.json")).unwrap())
+            .unwrap();
+    let r = &doc["files"]["equiscan_extra_bytes.las"];
+    assert_eq!(
+        r["extra_bytes"],
+        serde_json::json!(["curvature", "linearity"])
+    );
+    for (name, col) in [("curvature", &a), ("linearity", &b)] {
+        let got: Vec<f32> = r["extra_values"][name]["all"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|v| v.as_f64().unwrap() as f32)
+            .collect();
+        assert_eq!(got.len(), col.len());
+        for (g, w) in got.iter().zip(col.iter()) {
+            assert_eq!(g.to_bits(), w.to_bits(), "{name}: laspy {g} vs ours {w}");
+        }
+    }
+    assert_eq!(r["point_format"], 7);
+    assert_eq!(r["count"], 10);
+}

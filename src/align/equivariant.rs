@@ -81,7 +81,8 @@ pub fn describe(
     })
 }
 
-/// A rotation searcher for the recipe's degree (coarse grid level 1, a few candidates).
+/// A rotation searcher for the recipe's degree: coarse grid level 1 and a few candidates, plus
+/// the closed-form rotation that aligns the shells' degree-1 vectors (Kabsch) as a start.
 pub fn searcher(degree: usize) -> RotationSearcher {
     RotationSearcher::with_options(
         degree,
@@ -91,6 +92,8 @@ pub fn searcher(degree: usize) -> RotationSearcher {
             separation_deg: 20.0,
             ambiguity_margin: 0.1,
             max_iterations: 15,
+            // The closed-form Kabsch fit of the degree-1 parts of the shells, as one more start.
+            degree_one_start: true,
         },
     )
 }

@@ -5,6 +5,7 @@
 //! subcommand: a module here, a variant in [`Command`], a line in [`Command::run`].
 
 pub mod align;
+pub mod features;
 pub mod info;
 
 use clap::{Parser, Subcommand};
@@ -25,6 +26,9 @@ pub enum Command {
     /// Describe point-cloud files: format, points, bounds, attributes, CRS, point spacing and a
     /// suggested support radius.
     Info(info::InfoArgs),
+    /// Compute rotation-invariant local descriptors (spherical harmonics × radial shells) at
+    /// every point, a voxel subsample or keypoints, and write them as NPY, PLY, CSV or LAS/LAZ.
+    Features(features::FeaturesArgs),
     /// Register scans with no initial guess: the rigid transform carrying SOURCE onto TARGET
     /// (or every scan onto the first), with quality figures and a verdict.
     Align(align::AlignArgs),
@@ -35,6 +39,7 @@ impl Command {
     pub fn run(&self) -> Result<u8> {
         match self {
             Command::Info(args) => info::run(args),
+            Command::Features(args) => features::run(args),
             Command::Align(args) => align::run(args),
         }
     }

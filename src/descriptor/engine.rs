@@ -9,7 +9,7 @@ use crate::spatial::{KdIndex, voxel_downsample};
 
 use super::flags;
 use super::invariants::InvariantPlan;
-use super::radial::{cutoff, gaussian_shells};
+use super::kernel;
 use super::recipe::Recipe;
 
 /// Centres handled per parallel task (and per progress update).
@@ -107,6 +107,7 @@ pub struct Engine {
     recipe: Recipe,
     columns: Vec<String>,
     plan: InvariantPlan,
+    kernel: kernel::Kernel,
 }
 
 /// Scratch space of one worker, reused for every centre of its tasks.
@@ -116,9 +117,24 @@ struct Scratch {
     nb: Vec<([f32; 3], f32)>,
     /// Selected neighbours (positions in `nb`) when a cap applies.
     sel: Vec<u32>,
-    g: Vec<f32>,
+    /// `ρ` of each selected neighbour.
+    rho: Vec<f32>,
+    /// Cutoff of each selected neighbour.
+    fc: Vec<f32>,
+    /// Radial recurrence factors, one per selected neighbour.
+    step: Vec<f32>,
+    /// Weights `g_n f_c`, layout `[n][neighbour]`.
+    w: Vec<f32>,
+    /// Harmonics of each selected neighbour, rows of `stride` values (zero padded).
     y: Vec<f32>,
+    /// Row stride of `y` and `acc`: `(L+1)²` rounded up to a multiple of the kernel's block.
+    stride: usize,
+    /// Unnormalised sums, `[n][stride]`.
     acc: Vec<f32>,
+    /// Coefficients `c[n][l² + l + m]` of the current scale.
+    c: Vec<f32>,
+    /// The same in f64, for the invariants.
+    c64: Vec<f64>,
 }
 
 impl Engine {
@@ -129,7 +145,15 @@ impl Engine {
             columns: recipe.column_names(),
             recipe,
             plan,
+            kernel: kernel::Kernel::detect(),
         }
+    }
+
+    /// The same engine using the portable kernel even where the processor offers AVX2 and FMA
+    /// (the two kernels agree to a few f32 rounding steps; this one is for comparison).
+    pub fn portable(mut self) -> Engine {
+        self.kernel = kernel::Kernel::Portable;
+        self
     }
 
     /// The recipe.
@@ -202,19 +226,41 @@ impl Engine {
         index: &KdIndex,
         centres: &[[f32; 3]],
     ) -> Features {
+        self.compute_at_with(points, index, centres, None)
+    }
+
+    /// [`Engine::compute_at`] with a progress callback, called with the number of centres
+    /// finished after each chunk of work (from worker threads).
+    ///
+    /// # Panics
+    /// If `index` was not built over `points` (different lengths).
+    pub fn compute_at_with(
+        &self,
+        points: &[[f32; 3]],
+        index: &KdIndex,
+        centres: &[[f32; 3]],
+        progress: Option<&(dyn Fn(usize) + Sync)>,
+    ) -> Features {
         check_index(points, index).expect("compute_at: the index must be built over the points");
-        self.run(points, index, centres.to_vec(), None)
+        self.run(points, index, centres.to_vec(), progress)
     }
 
     fn scratch(&self) -> Scratch {
         let nk = num_coeffs(self.recipe.degree());
+        let stride = nk.div_ceil(kernel::BLOCK) * kernel::BLOCK;
         Scratch {
             ids: Vec::with_capacity(256),
             nb: Vec::with_capacity(256),
-            sel: Vec::new(),
-            g: vec![0.0; self.recipe.shells()],
-            y: vec![0.0; nk],
-            acc: vec![0.0; self.recipe.shells() * nk],
+            sel: Vec::with_capacity(256),
+            rho: Vec::with_capacity(256),
+            fc: Vec::with_capacity(256),
+            step: Vec::with_capacity(256),
+            w: Vec::new(),
+            y: Vec::new(),
+            stride,
+            acc: vec![0.0; self.recipe.shells() * stride],
+            c: vec![0.0; self.recipe.shells() * nk],
+            c64: Vec::with_capacity(self.recipe.shells() * nk),
         }
     }
 
@@ -324,10 +370,13 @@ impl Engine {
             let (count, fl) = self.accumulate(s, r);
             counts[si] = count;
             flag_out[si] = fl;
-            self.plan
-                .compute(&s.acc, &mut values[si * per_scale..(si + 1) * per_scale]);
+            self.plan.compute(
+                &s.c,
+                &mut s.c64,
+                &mut values[si * per_scale..(si + 1) * per_scale],
+            );
             if let Some(k) = coeffs.as_deref_mut() {
-                k[si * kc..(si + 1) * kc].copy_from_slice(&s.acc);
+                k[si * kc..(si + 1) * kc].copy_from_slice(&s.c);
             }
         }
     }
@@ -371,28 +420,21 @@ impl Engine {
         if coincident > 0 {
             fl |= flags::COINCIDENT;
         }
-        s.acc.fill(0.0);
-        let mut wsum = 0.0f32;
+        let count = s.sel.len();
+        let stride = s.stride;
+        s.rho.clear();
+        s.y.resize(count * stride, 0.0);
         // Unweighted first and second moments of the offsets, for the shape flags.
         let mut m1 = [0.0f32; 3];
         let mut m2 = [0.0f32; 6];
         let inv_r = 1.0 / r;
-        let scale_t = n_sh as f32;
-        for &j in &s.sel {
+        // Scalar pass: directions, their harmonics (so3), radii.
+        for (row, &j) in s.y.chunks_exact_mut(stride).zip(&s.sel) {
             let (d, d2) = s.nb[j as usize];
             let dist = d2.sqrt();
-            let rho = (dist * inv_r).min(1.0);
-            let fc = cutoff(rho);
-            gaussian_shells(rho * scale_t, &mut s.g);
+            s.rho.push((dist * inv_r).min(1.0));
             let inv = 1.0 / dist;
-            real_sh_f32(l_max, [d[0] * inv, d[1] * inv, d[2] * inv], &mut s.y);
-            for (row, &g) in s.acc.chunks_exact_mut(nk).zip(&s.g) {
-                let w = g * fc;
-                for (a, &y) in row.iter_mut().zip(&s.y) {
-                    *a += w * y;
-                }
-            }
-            wsum += fc;
+            real_sh_f32(l_max, [d[0] * inv, d[1] * inv, d[2] * inv], row);
             for k in 0..3 {
                 m1[k] += d[k];
             }
@@ -403,13 +445,16 @@ impl Engine {
             m2[4] += d[1] * d[2];
             m2[5] += d[2] * d[2];
         }
-        let count = s.sel.len() as u32;
+        let wsum = kernel::weights(self.kernel, &s.rho, n_sh, &mut s.fc, &mut s.step, &mut s.w);
+        kernel::project(self.kernel, &s.w, &s.y, count, n_sh, stride, &mut s.acc);
         let w = 1.0 + wsum + coincident as f32;
-        for a in s.acc.iter_mut() {
-            *a /= w;
+        for (row, out) in s.acc.chunks_exact(stride).zip(s.c.chunks_exact_mut(nk)) {
+            for (o, a) in out.iter_mut().zip(row) {
+                *o = a / w;
+            }
         }
-        fl |= shape_flags(count, m1, m2);
-        (count, fl)
+        fl |= shape_flags(count as u32, m1, m2);
+        (count as u32, fl)
     }
 }
 

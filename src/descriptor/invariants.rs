@@ -67,33 +67,30 @@ impl InvariantPlan {
     }
 
     /// Writes the invariants of `c` (`N·(L+1)²` values, layout `[n][l² + l + m]`) to `out`, in the
-    /// column order of [`super::Recipe::column_names`] for one scale.
-    pub(crate) fn compute(&self, c: &[f32], out: &mut [f32]) {
+    /// column order of [`super::Recipe::column_names`] for one scale. `c64` is scratch space.
+    pub(crate) fn compute(&self, c: &[f32], c64: &mut Vec<f64>, out: &mut [f32]) {
         let nk = (self.degree + 1) * (self.degree + 1);
-        let shell = |n: usize| &c[n * nk..(n + 1) * nk];
+        c64.clear();
+        c64.extend(c[..self.shells * nk].iter().map(|&v| v as f64));
+        let c = &c64[..];
         let mut k = 0;
         if self.which.norms {
             for l in 0..=self.degree {
-                let r = l * l..(l + 1) * (l + 1);
                 for n in 0..self.shells {
-                    let s: f64 = shell(n)[r.clone()]
-                        .iter()
-                        .map(|&v| (v as f64).powi(2))
-                        .sum();
-                    out[k] = s.sqrt() as f32;
+                    let a = &c[n * nk + l * l..n * nk + (l + 1) * (l + 1)];
+                    out[k] = a.iter().map(|v| v * v).sum::<f64>().sqrt() as f32;
                     k += 1;
                 }
             }
         }
         if self.which.power_spectrum {
             for l in 0..=self.degree {
-                let r = l * l..(l + 1) * (l + 1);
+                let (lo, hi) = (l * l, (l + 1) * (l + 1));
                 for n in 0..self.shells {
-                    let a = &shell(n)[r.clone()];
+                    let a = &c[n * nk + lo..n * nk + hi];
                     for n2 in n..self.shells {
-                        let b = &shell(n2)[r.clone()];
-                        let s: f64 = a.iter().zip(b).map(|(&x, &y)| x as f64 * y as f64).sum();
-                        out[k] = s as f32;
+                        let b = &c[n2 * nk + lo..n2 * nk + hi];
+                        out[k] = a.iter().zip(b).map(|(x, y)| x * y).sum::<f64>() as f32;
                         k += 1;
                     }
                 }
@@ -101,16 +98,11 @@ impl InvariantPlan {
         }
         if self.which.bispectrum {
             for n in 0..self.shells {
-                let cn = shell(n);
+                let cn = &c[n * nk..(n + 1) * nk];
                 for &(a, b) in &self.triples {
                     let s: f64 = self.terms[a..b]
                         .iter()
-                        .map(|t| {
-                            t.value
-                                * cn[t.i1 as usize] as f64
-                                * cn[t.i2 as usize] as f64
-                                * cn[t.i as usize] as f64
-                        })
+                        .map(|t| t.value * cn[t.i1 as usize] * cn[t.i2 as usize] * cn[t.i as usize])
                         .sum();
                     out[k] = s as f32;
                     k += 1;

@@ -18,16 +18,18 @@
 //! change.
 //!
 //! # Output layout
-//! - Invariant columns ([`Recipe::column_names`]): per scale (radii in the order given), norms
-//!   `r{r}_norm_l{l}_n{n}` (`l` outer, `n` inner), power spectrum `r{r}_ps_l{l}_n{n}_n{n'}`
-//!   (`l`, then `n`, then `n' ≥ n`), bispectrum `r{r}_bs_n{n}_l{l1}_l{l2}_l{l}` (`n`, then
+//! - Invariant columns ([`Recipe::column_names`]): per scale (radii in the order given, `{s}`
+//!   the radius with `p` for the decimal point, e.g. `r0p25`), norms
+//!   `{s}_norm_l{l}_n{n}` (`l` outer, `n` inner), power spectrum `{s}_ps_l{l}_n{n}_n{n'}`
+//!   (`l`, then `n`, then `n' ≥ n`), bispectrum `{s}_bs_n{n}_l{l1}_l{l2}_l{l}` (`n`, then
 //!   `l1 ≤ l2`, then `l`).
 //! - Per scale a neighbour count and [`flags`] ([`Recipe::count_column_names`]).
 //! - Coefficients ([`Features::coefficients`]): `[centre][scale][n][l² + l + m]`, column names
-//!   `r{r}_c_n{n}_l{l}_m{m}` ([`Recipe::coefficient_names`]).
+//!   `{s}_c_n{n}_l{l}_m{m}` ([`Recipe::coefficient_names`], `mn2` for `m = −2`).
 
 mod engine;
 mod invariants;
+mod kernel;
 pub mod radial;
 mod recipe;
 

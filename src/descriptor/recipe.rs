@@ -358,9 +358,10 @@ impl Recipe {
     }
 
     /// The scale prefix of column names: `r` followed by the radius in its shortest exact
-    /// decimal form, e.g. `r0.25`, `r1.5`, `r2`.
+    /// decimal form with `p` for the decimal point (names stay plain letters, digits and `_`,
+    /// as PLY, LAS and CSV readers expect), e.g. `r0p25` for 0.25, `r1p5`, `r2`.
     pub fn scale_prefix(&self, scale: usize) -> String {
-        format!("r{}", self.radii[scale])
+        format!("r{}", self.radii[scale]).replace('.', "p")
     }
 
     /// Names of the invariant columns, in output order.
@@ -415,7 +416,8 @@ impl Recipe {
     }
 
     /// Names of the coefficient columns, in the layout `[scale][n][l² + l + m]`:
-    /// `{s}_c_n{n}_l{l}_m{m}` (`m` from `−l` to `l`).
+    /// `{s}_c_n{n}_l{l}_m{m}` (`m` from `−l` to `l`, a negative order written with `n`:
+    /// `m` = −2 is `mn2`).
     pub fn coefficient_names(&self) -> Vec<String> {
         let mut out = Vec::new();
         for s in 0..self.scales() {
@@ -423,6 +425,11 @@ impl Recipe {
             for n in 0..self.shells {
                 for l in 0..=self.degree as i64 {
                     for m in -l..=l {
+                        let m = if m < 0 {
+                            format!("n{}", -m)
+                        } else {
+                            m.to_string()
+                        };
                         out.push(format!("{p}_c_n{n}_l{l}_m{m}"));
                     }
                 }
@@ -457,14 +464,14 @@ mod tests {
         // 6·5 norms + 21·5 power spectrum
         assert_eq!(names.len(), 30 + 105);
         assert_eq!(names.len(), r.invariants_per_scale());
-        assert_eq!(names[0], "r0.25_norm_l0_n0");
-        assert_eq!(names[1], "r0.25_norm_l0_n1");
-        assert_eq!(names[6], "r0.25_norm_l1_n0");
-        assert_eq!(names[30], "r0.25_ps_l0_n0_n0");
-        assert_eq!(names[31], "r0.25_ps_l0_n0_n1");
-        assert_eq!(names[36], "r0.25_ps_l0_n1_n1");
-        assert_eq!(r.count_column_names(), ["r0.25_count", "r0.25_flags"]);
-        assert_eq!(r.coefficient_names()[4], "r0.25_c_n0_l2_m-2");
+        assert_eq!(names[0], "r0p25_norm_l0_n0");
+        assert_eq!(names[1], "r0p25_norm_l0_n1");
+        assert_eq!(names[6], "r0p25_norm_l1_n0");
+        assert_eq!(names[30], "r0p25_ps_l0_n0_n0");
+        assert_eq!(names[31], "r0p25_ps_l0_n0_n1");
+        assert_eq!(names[36], "r0p25_ps_l0_n1_n1");
+        assert_eq!(r.count_column_names(), ["r0p25_count", "r0p25_flags"]);
+        assert_eq!(r.coefficient_names()[4], "r0p25_c_n0_l2_mn2");
     }
 
     #[test]
@@ -483,7 +490,7 @@ mod tests {
         let names = r.column_names();
         assert_eq!(names.len(), 2 * 2 * 11);
         assert_eq!(names[3], "r1_bs_n0_l1_l1_l0");
-        assert_eq!(names[22], "r0.5_bs_n0_l0_l0_l0");
+        assert_eq!(names[22], "r0p5_bs_n0_l0_l0_l0");
     }
 
     #[test]

@@ -3,7 +3,8 @@
 //!
 //! Reading streams points with `Reader::fill_points` into one reused buffer and converts each
 //! chunk straight to f32 offsets from the cloud's origin (the centre of the header bounds,
-//! rounded to whole units), so no f64 copy of the whole file is made.
+//! rounded to whole units; the first point rounded when the bounds are missing or do not hold
+//! it), so no f64 copy of the whole file is made.
 //!
 //! Writing ([`write_las`]): LAS 1.4, point format 6 (7 when the cloud has colour) unless
 //! [`LasOptions`] says otherwise, scale 0.001 and the cloud's origin as offset by default. Each
@@ -14,7 +15,9 @@
 //! `[48, 64)`, min `[64, 72)`, deprecated `[72, 88)`, max `[88, 96)`, deprecated `[96, 112)`,
 //! scale `[112, 120)`, deprecated `[120, 136)`, offset `[136, 144)`, deprecated `[144, 160)`,
 //! description `[160, 192)`. The "any type" fields hold an f64 for float data. We set options
-//! bits 1 (min) and 2 (max) when a column has finite values.
+//! bits 1 (min) and 2 (max) when a column has finite values. This layout is recalled from the
+//! specification, not copied from it; it adds up to the specified 192 bytes, and laspy decodes
+//! files written with it to the same values (tests/io_las_spec.rs).
 
 use std::io::{BufWriter, Read, Seek, SeekFrom, Write};
 use std::path::Path;
@@ -192,7 +195,12 @@ fn check_header(path: &Path, file: &mut std::fs::File, len: u64) -> Result<RawHe
 
 /// Refuses a LAZ file whose chunk table holds fewer points than the header declares (the
 /// decompressor would otherwise be asked for points that do not exist).
-fn check_laz_chunks(path: &Path, header: &las::Header, offset_to_points: u64) -> Result<()> {
+fn check_laz_chunks(
+    path: &Path,
+    header: &las::Header,
+    offset_to_points: u64,
+    file_len: u64,
+) -> Result<()> {
     let vlr = header.laz_vlr().map_err(|e| las_err(path, e))?;
     let record_len = header.point_format().len() as u64;
     if vlr.items_size() != record_len {
@@ -210,8 +218,23 @@ fn check_laz_chunks(path: &Path, header: &las::Header, offset_to_points: u64) ->
         .map_err(|e| Error::io(path, &e))?;
     let table = laz::laszip::ChunkTable::read_from(&mut f, &vlr)
         .map_err(|e| las_err(path, las::Error::LasZipError(e)))?;
+    // The compressed chunks must fit in the file (a damaged table would otherwise make the
+    // decompressor allocate what the table says).
+    let bytes = table
+        .as_ref()
+        .iter()
+        .fold(0u64, |s, c| s.saturating_add(c.byte_count));
+    if bytes > file_len.saturating_sub(offset_to_points) {
+        return Err(bad(
+            path,
+            format!("the LAZ chunk table lists {bytes} compressed bytes, more than the file holds"),
+        ));
+    }
     // With fixed-size chunks every entry counts a full chunk, so this is an upper bound.
-    let room: u64 = table.as_ref().iter().map(|c| c.point_count).sum();
+    let room: u64 = table
+        .as_ref()
+        .iter()
+        .fold(0u64, |s, c| s.saturating_add(c.point_count));
     let n = header.number_of_points();
     if n > room {
         return Err(Error::file(
@@ -279,7 +302,7 @@ pub(crate) fn read_las(path: &Path) -> Result<(Cloud, FileInfo)> {
         .map_err(|e| las_err(path, e))?;
     let header = reader.header().clone();
     if raw.compressed {
-        check_laz_chunks(path, &header, raw.offset_to_points)?;
+        check_laz_chunks(path, &header, raw.offset_to_points, len)?;
     }
     let fmt = *header.point_format();
     let n = header.number_of_points();
@@ -317,8 +340,9 @@ pub(crate) fn read_las(path: &Path) -> Result<(Cloud, FileInfo)> {
     let header_origin_ok = (0..3).all(|k| {
         bounds.min[k].is_finite() && bounds.max[k].is_finite() && bounds.min[k] <= bounds.max[k]
     });
-    let mut origin: Option<[f64; 3]> = header_origin_ok
-        .then(|| std::array::from_fn(|k| ((bounds.min[k] + bounds.max[k]) * 0.5).round()));
+    // Decided at the first chunk: the centre of the header bounds when they hold the first
+    // point (within a unit), else that point rounded (bounds missing or wrong).
+    let mut origin: Option<[f64; 3]> = None;
 
     // Reserve for every point only when the file size has proven they exist (uncompressed);
     // for LAZ never more than a chunk ahead of the data.
@@ -346,10 +370,18 @@ pub(crate) fn read_las(path: &Path) -> Result<(Cloud, FileInfo)> {
             ));
         }
         let o = *origin.get_or_insert_with(|| {
-            let x = pd.x().next().unwrap_or(0.0);
-            let y = pd.y().next().unwrap_or(0.0);
-            let z = pd.z().next().unwrap_or(0.0);
-            [x.round(), y.round(), z.round()]
+            let first = [
+                pd.x().next().unwrap_or(0.0),
+                pd.y().next().unwrap_or(0.0),
+                pd.z().next().unwrap_or(0.0),
+            ];
+            let inside =
+                (0..3).all(|k| first[k] >= bounds.min[k] - 1.0 && first[k] <= bounds.max[k] + 1.0);
+            if header_origin_ok && inside {
+                std::array::from_fn(|k| ((bounds.min[k] + bounds.max[k]) * 0.5).round())
+            } else {
+                first.map(f64::round)
+            }
         });
         decode_records(
             pd.raw_bytes(),
@@ -422,7 +454,8 @@ struct Columns<'a> {
     gps: Option<&'a mut Vec<f64>>,
 }
 
-/// Decodes raw point records in one pass: positions relative to `origin`, and attributes.
+/// Decodes raw point records: positions relative to `origin` on one thread, the attributes on
+/// another.
 fn decode_records(
     bytes: &[u8],
     l: &Layout,
@@ -434,25 +467,41 @@ fn decode_records(
     let scale: [f64; 3] = std::array::from_fn(|k| t[k].scale);
     let i32le = |r: &[u8], o: usize| i32::from_le_bytes(r[o..o + 4].try_into().unwrap());
     let u16le = |r: &[u8], o: usize| u16::from_le_bytes([r[o], r[o + 1]]);
-    for r in bytes.chunks_exact(l.record_len) {
-        out.positions.push(std::array::from_fn(|k| {
-            (shift[k] + scale[k] * i32le(r, 4 * k) as f64) as f32
-        }));
-        out.intensity.push(u16le(r, 12) as f32);
-        if l.extended {
-            out.return_number.push(r[14] & 0x0F);
-            out.classification.push(r[16]);
-        } else {
-            out.return_number.push(r[14] & 0x07);
-            out.classification.push(r[15] & 0x1F);
+    let Columns {
+        positions,
+        intensity,
+        classification,
+        return_number,
+        color,
+        gps,
+    } = out;
+    let records = || bytes.chunks_exact(l.record_len);
+    let coordinates = || {
+        for r in records() {
+            positions.push(std::array::from_fn(|k| {
+                (shift[k] + scale[k] * i32le(r, 4 * k) as f64) as f32
+            }));
         }
-        if let (Some(c), Some(o)) = (out.color.as_deref_mut(), l.rgb) {
-            c.push([u16le(r, o), u16le(r, o + 2), u16le(r, o + 4)]);
+    };
+    let attributes = || {
+        for r in records() {
+            intensity.push(u16le(r, 12) as f32);
+            if l.extended {
+                return_number.push(r[14] & 0x0F);
+                classification.push(r[16]);
+            } else {
+                return_number.push(r[14] & 0x07);
+                classification.push(r[15] & 0x1F);
+            }
+            if let (Some(c), Some(o)) = (color.as_deref_mut(), l.rgb) {
+                c.push([u16le(r, o), u16le(r, o + 2), u16le(r, o + 4)]);
+            }
+            if let (Some(g), Some(o)) = (gps.as_deref_mut(), l.gps) {
+                g.push(f64::from_le_bytes(r[o..o + 8].try_into().unwrap()));
+            }
         }
-        if let (Some(g), Some(o)) = (out.gps.as_deref_mut(), l.gps) {
-            g.push(f64::from_le_bytes(r[o..o + 8].try_into().unwrap()));
-        }
-    }
+    };
+    rayon::join(coordinates, attributes);
 }
 
 /// How [`write_las_with`] lays out the file. `Default` gives LAS 1.4 point format 6 (7 with
@@ -522,6 +571,12 @@ pub fn write_las(path: &Path, cloud: &Cloud, columns: &[Column<'_>]) -> Result<(
 
 /// Writes `cloud` as LAS 1.4 (LAZ when `path` ends in `.laz`) with `columns` as f32 Extra
 /// Bytes in column order, laid out by `options`. Atomic.
+///
+/// Each column becomes 4 bytes (little-endian f32) at the end of every point record, in
+/// column order, described by one 192-byte descriptor in a `LASF_Spec` record 4 VLR (Extra
+/// Bytes, ASPRS LAS 1.4 R15 Table 24: data type 9 = float at byte 2, options at 3, name at
+/// 4–35, min at 64 and max at 88 as f64 with options bits 1 and 2 set). For formats 6–10 the
+/// legacy point counts are zero, as the specification requires.
 ///
 /// Intensity is rounded and clamped to 0..=65535; classification 12 (overlap) is written
 /// with the overlap flag in formats 6–10. Column names: at most 32 bytes, letters, digits and
@@ -600,7 +655,9 @@ pub fn write_las_with(
     builder.point_format = format;
     builder.transforms = transforms;
     builder.generating_software = "equiscan".to_string();
-    builder.system_identifier = "equiscan".to_string();
+    // LAS 1.4 R15 system identifier, from memory: "OTHER" when the points do not come straight
+    // from one instrument (the spec also names MERGE, MODIFICATION, EXTRACTION, …).
+    builder.system_identifier = "OTHER".to_string();
     builder.vlrs = options.crs_records.clone();
     if !columns.is_empty() {
         builder.vlrs.push(extra_bytes_vlr(columns));

@@ -11,7 +11,8 @@
 //!
 //! Conventions: coordinates are in file units (usually metres). A [`Cloud`] keeps an f64
 //! origin and f32 offsets; readers choose the origin so that offsets stay small (LAS: the centre
-//! of the header bounds rounded to whole units; PLY with double coordinates: the first vertex
+//! of the header bounds rounded to whole units, or the first point rounded when the bounds
+//! are missing or do not hold it; PLY with double coordinates: the first vertex
 //! rounded to whole units, or the origin recorded by [`write_ply`]; PLY with float
 //! coordinates: zero, so the file's values are kept bit for bit). Matrices are row-major, one
 //! row per point, in the cloud's point order.

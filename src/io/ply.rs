@@ -5,13 +5,8 @@
 //! tokenised line by line). Elements other than `vertex` — before or after it, with scalar or
 //! list properties — are skipped exactly; `face` lists are read by [`read_ply_mesh`].
 //!
-//! Writing ([`write_ply`]): binary little-endian; `x y z` as double **global** coordinates
-//! (`origin + position`) so that other programs see file coordinates, with the cloud's origin
-//! recorded in a `comment equiscan origin X Y Z` line. The reader uses that origin again, so a
-//! written cloud reads back with the same origin, attributes and columns; its f32 positions
-//! come back bit for bit whenever each offset is 0 or larger in magnitude than about
-//! 2⁻²⁹ × |origin| (below 2 mm for origins up to 10⁶), i.e. for any offset an f32 can tell
-//! apart from the origin at file precision.
+//! Writing ([`write_ply`]): binary little-endian, `x y z` as double global coordinates with the
+//! cloud's origin in a header comment; see [`write_ply`] for the exactness of the round trip.
 
 use std::fs::File;
 use std::io::{BufRead, BufReader, Read, Write};
@@ -706,59 +701,80 @@ fn decode_chunk(
     big: bool,
 ) {
     let n = buf.len() / stride;
-    if s.float_xyz {
-        // Float coordinates with origin zero go straight into the positions (finiteness is
-        // checked by the caller through `check_float_positions`).
-        let pos = &mut s.cloud.positions;
-        let base = pos.len();
-        pos.resize(base + n, [0.0; 3]);
-        for k in 0..3 {
-            let (off, ty) = offs[m.xyz[k]];
-            for_column(buf, stride, off, ty, big, |r, v| {
-                pos[base + r][k] = v as f32
-            });
+    let Sink {
+        cloud,
+        xyz,
+        float_xyz,
+        ..
+    } = s;
+    let Cloud {
+        positions,
+        normals,
+        color,
+        intensity,
+        classification,
+        return_number,
+        gps_time,
+        ..
+    } = cloud;
+    // Coordinates on one thread, the other attributes on another: the work (and the first
+    // touch of the output memory) splits in about half.
+    let coordinates = || {
+        if *float_xyz {
+            // Float coordinates with origin zero go straight into the positions (finiteness is
+            // checked by the caller through `check_float_positions`).
+            let base = positions.len();
+            positions.resize(base + n, [0.0; 3]);
+            for k in 0..3 {
+                let (off, ty) = offs[m.xyz[k]];
+                for_column(buf, stride, off, ty, big, |r, v| {
+                    positions[base + r][k] = v as f32
+                });
+            }
+        } else {
+            for k in 0..3 {
+                let (off, ty) = offs[m.xyz[k]];
+                let col = &mut xyz[k];
+                col.reserve(n);
+                for_column(buf, stride, off, ty, big, |_, v| col.push(v));
+            }
         }
-    } else {
-        for k in 0..3 {
-            let (off, ty) = offs[m.xyz[k]];
-            let col = &mut s.xyz[k];
-            col.reserve(n);
-            for_column(buf, stride, off, ty, big, |_, v| col.push(v));
+    };
+    let attributes = || {
+        if let (Some(v), Some(ix)) = (normals.as_mut(), m.normals) {
+            let base = v.len();
+            v.resize(base + n, [0.0; 3]);
+            for (k, &i) in ix.iter().enumerate() {
+                let (off, ty) = offs[i];
+                for_column(buf, stride, off, ty, big, |r, x| v[base + r][k] = x as f32);
+            }
         }
-    }
-    let c = &mut s.cloud;
-    if let (Some(v), Some(ix)) = (c.normals.as_mut(), m.normals) {
-        let base = v.len();
-        v.resize(base + n, [0.0; 3]);
-        for (k, &i) in ix.iter().enumerate() {
+        if let (Some(v), Some(ix)) = (color.as_mut(), m.color) {
+            let base = v.len();
+            v.resize(base + n, [0; 3]);
+            for (k, &i) in ix.iter().enumerate() {
+                let (off, ty) = offs[i];
+                for_column(buf, stride, off, ty, big, |r, x| v[base + r][k] = x as u16);
+            }
+        }
+        if let (Some(v), Some(i)) = (intensity.as_mut(), m.intensity) {
             let (off, ty) = offs[i];
-            for_column(buf, stride, off, ty, big, |r, x| v[base + r][k] = x as f32);
+            for_column(buf, stride, off, ty, big, |_, x| v.push(x as f32));
         }
-    }
-    if let (Some(v), Some(ix)) = (c.color.as_mut(), m.color) {
-        let base = v.len();
-        v.resize(base + n, [0; 3]);
-        for (k, &i) in ix.iter().enumerate() {
+        if let (Some(v), Some(i)) = (classification.as_mut(), m.classification) {
             let (off, ty) = offs[i];
-            for_column(buf, stride, off, ty, big, |r, x| v[base + r][k] = x as u16);
+            for_column(buf, stride, off, ty, big, |_, x| v.push(x as u8));
         }
-    }
-    if let (Some(v), Some(i)) = (c.intensity.as_mut(), m.intensity) {
-        let (off, ty) = offs[i];
-        for_column(buf, stride, off, ty, big, |_, x| v.push(x as f32));
-    }
-    if let (Some(v), Some(i)) = (c.classification.as_mut(), m.classification) {
-        let (off, ty) = offs[i];
-        for_column(buf, stride, off, ty, big, |_, x| v.push(x as u8));
-    }
-    if let (Some(v), Some(i)) = (c.return_number.as_mut(), m.return_number) {
-        let (off, ty) = offs[i];
-        for_column(buf, stride, off, ty, big, |_, x| v.push(x as u8));
-    }
-    if let (Some(v), Some(i)) = (c.gps_time.as_mut(), m.gps_time) {
-        let (off, ty) = offs[i];
-        for_column(buf, stride, off, ty, big, |_, x| v.push(x));
-    }
+        if let (Some(v), Some(i)) = (return_number.as_mut(), m.return_number) {
+            let (off, ty) = offs[i];
+            for_column(buf, stride, off, ty, big, |_, x| v.push(x as u8));
+        }
+        if let (Some(v), Some(i)) = (gps_time.as_mut(), m.gps_time) {
+            let (off, ty) = offs[i];
+            for_column(buf, stride, off, ty, big, |_, x| v.push(x));
+        }
+    };
+    rayon::join(coordinates, attributes);
 }
 
 /// Reads (or skips, when `out` is `None`) one record of `el` with list properties, from
@@ -1065,8 +1081,16 @@ pub fn read_ply_mesh(path: &Path) -> Result<(Cloud, Vec<[u32; 3]>)> {
 /// Vertex properties in this order: `x y z` (double, global coordinates), then when present
 /// `nx ny nz` (float), `red green blue` (uchar when every value is ≤ 255, ushort otherwise),
 /// `intensity` (float), `classification`, `return_number` (uchar), `gps_time` (double), then
-/// one float property per column. The origin is recorded in a header comment (see the module
-/// docs). Column names must be plain (letters, digits, `_`) and must not repeat a name above.
+/// one float property per column. Column names must be plain (letters, digits, `_`) and must
+/// not repeat a name above.
+///
+/// `x y z` are global coordinates (`origin + position`), so other programs see file
+/// coordinates; the origin is recorded as `comment equiscan origin X Y Z` and used again by
+/// [`super::read_cloud`], which gives back the same origin, attributes and columns. Positions
+/// come back bit for bit when the origin is zero, and otherwise whenever each offset is 0 or
+/// larger in magnitude than about 2⁻²⁹ × |origin| (for an origin of 5 × 10⁶, above 1 cm);
+/// closer to the origin an f32 offset may change by one unit in the last place (below
+/// 10⁻⁹ file units there).
 pub fn write_ply(path: &Path, cloud: &Cloud, columns: &[Column<'_>]) -> Result<()> {
     cloud.validate().map_err(|e| super::about(path, e))?;
     let taken = [

@@ -13,7 +13,7 @@
 //! this number is real when `l₁ + l₂ + l` is even and purely imaginary when it is odd; in the odd
 //! case we store its imaginary part (i.e. multiply the whole `(l₁, l₂, l)` block by `−i`, a
 //! constant factor, which keeps the map equivariant and makes it real). The odd blocks are
-//! antisymmetric under swapping the two inputs, so they vanish when `a = b`.
+//! antisymmetric under swapping the two inputs when `l₁ = l₂`, so they vanish for `a = b`.
 //!
 //! Nonzero real entries need `|m| ∈ {|m₁| + |m₂|, ||m₁| − |m₂||}`; [`CouplingTable`] stores only
 //! those, per `(l₁, l₂, l)` path.
@@ -325,6 +325,38 @@ mod tests {
                         let v = real_cg(l1, e.m1 as i64, l2, e.m2 as i64, l, e.m as i64);
                         assert!((v - e.value).abs() < 1e-13, "{l1} {l2} {l} {e:?} {v}");
                     }
+                }
+            }
+        }
+    }
+
+    /// For l1 = l2 and odd l, the coupling is antisymmetric: a ⊗ a vanishes, a ⊗ b = −b ⊗ a
+    /// (CG exchange symmetry (−1)^{l1+l2−l}).
+    #[test]
+    fn odd_paths_are_antisymmetric() {
+        let t = CouplingTable::build(4);
+        let mut rng = crate::so3::rng::SplitMix64::new(6);
+        for l1 in 1..=4usize {
+            for l in (1..=4usize).step_by(2) {
+                if l > 2 * l1 {
+                    continue;
+                }
+                let a: Vec<f64> = (0..2 * l1 + 1).map(|_| rng.normal()).collect();
+                let b: Vec<f64> = (0..2 * l1 + 1).map(|_| rng.normal()).collect();
+                let (mut p, mut q, mut z) = (
+                    vec![0.0; 2 * l + 1],
+                    vec![0.0; 2 * l + 1],
+                    vec![0.0; 2 * l + 1],
+                );
+                tensor_product(&t, &a, &b, l, &mut p);
+                tensor_product(&t, &b, &a, l, &mut q);
+                tensor_product(&t, &a, &a, l, &mut z);
+                assert!(
+                    p.iter().any(|v| v.abs() > 1e-6),
+                    "path ({l1},{l1},{l}) is zero"
+                );
+                for i in 0..p.len() {
+                    assert!((p[i] + q[i]).abs() < 1e-13 && z[i].abs() < 1e-13);
                 }
             }
         }

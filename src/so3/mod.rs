@@ -11,8 +11,24 @@
 //! Submodules: [`sh`] (harmonics), [`wigner`] (Wigner-D), [`coupling`] (Clebsch–Gordan),
 //! [`rotation`] (parametrisations, random rotations, grids), [`search`] (best rotation between
 //! two expansions), [`rng`] (seeded generator), [`float`] (the scalar trait).
+//!
+//! ```
+//! use equiscan::so3::{rotation::rot_z, sh, wigner::WignerD};
+//! // Y(R u) = D(R) Y(u)
+//! let r = rot_z(0.7);
+//! let u = [0.6, 0.0, 0.8];
+//! let ru = r * nalgebra::Vector3::from(u);
+//! let (mut y, mut yr, mut dy) = ([0.0; 25], [0.0; 25], [0.0; 25]);
+//! sh::real_sh_f64(4, u, &mut y);
+//! sh::real_sh_f64(4, [ru.x, ru.y, ru.z], &mut yr);
+//! WignerD::new(&r, 4).apply(&y, &mut dy);
+//! assert!(yr.iter().zip(&dy).all(|(a, b)| (a - b).abs() < 1e-12));
+//! ```
+
+#![deny(missing_docs)]
 
 pub mod coupling;
+
 pub mod float;
 pub mod rng;
 pub mod rotation;

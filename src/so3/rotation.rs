@@ -191,7 +191,10 @@ pub fn random_rotation(rng: &mut SplitMix64) -> Matrix3<f64> {
 
 /// Centre `(z, φ)` of pixel `p` of the HEALPix ring scheme with resolution `nside`
 /// (Górski et al., ApJ 622, 759, 2005): `12·nside²` pixels of equal area, on iso-latitude rings.
+/// `nside = 0` is treated as 1; `p` is taken modulo the number of pixels.
 pub fn healpix_ring_centre(nside: usize, p: usize) -> (f64, f64) {
+    let nside = nside.max(1);
+    let p = p % (12 * nside * nside);
     let ns = nside as f64;
     let npix = 12 * nside * nside;
     let ncap = 2 * nside * (nside - 1);
@@ -223,8 +226,8 @@ pub fn healpix_ring_centre(nside: usize, p: usize) -> (f64, f64) {
 /// A rotation `R` is split into the direction `R e_z ∈ S²` (the base of the fibration) and a
 /// spin about it (the circle fibre): `R = R_z(φ) R_y(θ) R_z(ψ)`. Level `k` takes the
 /// `12·4^k` HEALPix pixel centres (equal-area) for `(θ, φ)` and `6·2^k` equally spaced
-/// `ψ = 2π(j + ½)/(6·2^k)`, so `72·8^k` rotations; each level refines the previous one by
-/// splitting every pixel in four and every circle step in two.
+/// `ψ = 2π(j + ½)/(6·2^k)`, so `72·8^k` rotations; each level subdivides the cells of the
+/// previous one (every HEALPix pixel in four, every circle step in two), so the spacing halves.
 ///
 /// Covering radius (largest geodesic distance from any rotation to its nearest grid point),
 /// measured with [`measure_covering_radius`] over 20 000 Shoemake-random rotations (seed 1):
@@ -243,8 +246,10 @@ pub struct HopfGrid {
 pub const HOPF_COVERING_RADIUS_DEG: [f64; 4] = [50.04, 27.15, 13.20, 6.26];
 
 impl HopfGrid {
-    /// The grid of refinement `level` (`72·8^level` rotations; level ≤ 6 is sensible).
+    /// The grid of refinement `level` (`72·8^level` rotations; levels above 5 are clamped to 5,
+    /// 2 359 296 rotations, about 250 MB; level ≤ 3 suits most uses).
     pub fn new(level: u32) -> Self {
+        let level = level.min(5);
         let nside = 1usize << level;
         let npix = 12 * nside * nside;
         let npsi = 6 * nside;
@@ -384,6 +389,27 @@ mod tests {
         let mean = s / n as f64;
         assert!((mean - (PI / 2.0 + 2.0 / PI)).abs() < 0.01, "{mean}");
         assert!(zs.norm() / (n as f64) < 0.01);
+    }
+
+    /// Base-resolution centres (nside = 1): rings at z = 2/3, 0, −2/3 with four pixels each,
+    /// the polar rings starting at φ = π/4 and the equatorial one at φ = π/2 (from memory, the
+    /// base-pixel layout of Górski et al. 2005, fig. 3).
+    #[test]
+    fn healpix_base_pixels() {
+        for p in 0..12 {
+            let (z, phi) = healpix_ring_centre(1, p);
+            let ring = p / 4;
+            let want_z = [2.0 / 3.0, 0.0, -2.0 / 3.0][ring];
+            let want_phi = if ring == 1 {
+                PI / 2.0 * (p % 4 + 1) as f64
+            } else {
+                PI / 4.0 + PI / 2.0 * (p % 4) as f64
+            };
+            assert!(
+                (z - want_z).abs() < 1e-15 && (phi - want_phi).abs() < 1e-15,
+                "pixel {p}: {z} {phi}"
+            );
+        }
     }
 
     #[test]

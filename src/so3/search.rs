@@ -9,12 +9,15 @@
 //! 1. **coarse**: the real Wigner-D matrices of every rotation of a [`HopfGrid`] are computed
 //!    once when the [`RotationSearcher`] is built (stored as `f32`); per call the score of every
 //!    grid rotation is one dot product with the flattened `M` (a matrix–vector product);
-//! 2. **candidates**: the best grid rotations, thinned so that no two are closer than the grid
-//!    spacing;
+//! 2. **candidates**: the closed-form best rotation of the degree-1 parts
+//!    ([`degree_one_rotation`]), then the best grid rotations, thinned so that no two are closer
+//!    than the grid's covering radius;
 //! 3. **refinement**: Newton's method on the tangent space: with the exact generators `J_k^l`
 //!    (`D^l(exp(ω×) R) = exp(Σ ω_k J_k^l) D^l(R)`), the score near `R` is
 //!    `f + gᵀω + ½ ωᵀHω` with `g_k = ⟨J_k D, M⟩`, `H_jk = ⟨½(J_j J_k + J_k J_j) D, M⟩`; the steps
 //!    use `|H|` (eigenvalues clamped away from zero), with backtracking, so they always ascend;
+//!    a candidate whose path enters (within `separation_deg/2`) the basin of a better maximum
+//!    already found stops there;
 //! 4. **ambiguity**: refined candidates are merged when closer than `separation_deg`; the best
 //!    one is returned with the second-best distinct maximum, and the result is flagged
 //!    `ambiguous` when the rotation-dependent score (degrees `l ≥ 1`) of the second is within
@@ -22,6 +25,13 @@
 //!
 //! A [`RotationSearcher`] holds no per-call state: build it once per `(L, grid level)` and
 //! share it across threads.
+//!
+//! Measured at `L = 4`, `N = 6`, grid level 1 (`cargo run --release --example
+//! so3_search_timing`): no error above 0.5° in 3 000 exact cases (random coefficients and 8- or
+//! 40-point patterns), about 0.1 ms per call on one core. Error against Gaussian noise of
+//! standard deviation `σ` × the RMS coefficient added to `b` (test `search_error_vs_noise`,
+//! 30 random cases each): median 0.04° at σ = 0.01, 0.19° at 0.05, 0.39° at 0.1, 0.79° at 0.2,
+//! 2.1° at 0.5, 4.2° at 1.
 
 use super::rotation::{HopfGrid, geodesic_angle, rotation_vector_to_matrix};
 use super::sh::num_coeffs;
@@ -43,6 +53,9 @@ pub struct SearchOptions {
     pub ambiguity_margin: f64,
     /// Newton iterations per candidate at most.
     pub max_iterations: usize,
+    /// Also refine from the closed-form best rotation of the degree-1 parts
+    /// ([`degree_one_rotation`]).
+    pub degree_one_start: bool,
 }
 
 impl Default for SearchOptions {
@@ -53,6 +66,7 @@ impl Default for SearchOptions {
             separation_deg: 10.0,
             ambiguity_margin: 0.02,
             max_iterations: 30,
+            degree_one_start: true,
         }
     }
 }
@@ -160,6 +174,34 @@ fn dot_f32(a: &[f32], b: &[f32]) -> f32 {
         }
     }
     acc.iter().sum()
+}
+
+/// Closed-form best rotation for the degree-1 parts alone: the degree-1 coefficients of each
+/// shell are 3-vectors (stored `(y, z, x)`), and `Σ_n b_n1 · D^1(R) a_n1 = Σ_n b_n · R a_n` in
+/// `(x, y, z)` order, which Wahba's problem solves by an SVD of `Σ_n b_n a_nᵀ = U S Vᵀ`:
+/// `R = U diag(1, 1, det(U Vᵀ)) Vᵀ` (Markley 1988). `None` when `l_max = 0`, the shapes
+/// differ, or there is no degree-1 energy. The rotation is exact for exact data when the
+/// degree-1 vectors span at least two directions, and otherwise only a starting point.
+pub fn degree_one_rotation(l_max: usize, a: &[f64], b: &[f64]) -> Option<Matrix3<f64>> {
+    let nc = num_coeffs(l_max);
+    if l_max == 0 || a.len() != b.len() || a.is_empty() || !a.len().is_multiple_of(nc) {
+        return None;
+    }
+    let mut m = Matrix3::zeros();
+    for (sa, sb) in a.chunks_exact(nc).zip(b.chunks_exact(nc)) {
+        let va = Vector3::new(sa[3], sa[1], sa[2]);
+        let vb = Vector3::new(sb[3], sb[1], sb[2]);
+        m += vb * va.transpose();
+    }
+    let norm = m.norm();
+    if norm == 0.0 || !norm.is_finite() {
+        return None;
+    }
+    let svd = m.svd(true, true);
+    let (u, vt) = (svd.u?, svd.v_t?);
+    let d = (u * vt).determinant().signum();
+    let r = u * Matrix3::from_diagonal(&Vector3::new(1.0, 1.0, d)) * vt;
+    r.iter().all(|v| v.is_finite()).then_some(r)
 }
 
 /// Generators of the real representation: `J_k^l = d/dt D^l(exp(t e_k×))` at `t = 0`, for
@@ -331,12 +373,19 @@ impl RotationSearcher {
         // Refinement stage.
         let pre = Precomputed::new(self, &m);
         let mut wd = WignerD::new(&Matrix3::identity(), self.l_max);
-        let mut found: Vec<(Matrix3<f64>, f64)> = starts
-            .iter()
-            .map(|&i| pre.refine(self, self.grid.matrices()[i], &mut wd))
-            .collect();
-        found.sort_by(|x, y| y.1.total_cmp(&x.1));
         let sep = self.opts.separation_deg.to_radians();
+        let mut found: Vec<(Matrix3<f64>, f64)> = Vec::with_capacity(starts.len());
+        let mut start_rots: Vec<Matrix3<f64>> = Vec::with_capacity(starts.len() + 1);
+        if self.opts.degree_one_start {
+            start_rots.extend(degree_one_rotation(self.l_max, a, b));
+        }
+        start_rots.extend(starts.iter().map(|&i| self.grid.matrices()[i]));
+        for r0 in start_rots {
+            if let Some(x) = pre.refine(self, r0, &mut wd, &found, sep) {
+                found.push(x);
+            }
+        }
+        found.sort_by(|x, y| y.1.total_cmp(&x.1));
         let mut distinct: Vec<(Matrix3<f64>, f64)> = Vec::new();
         for f in found {
             if distinct.iter().all(|d| geodesic_angle(&d.0, &f.0) > sep) {
@@ -391,13 +440,16 @@ impl RotationSearcher {
             idx.truncate(pool);
         }
         idx.sort_by(|&i, &j| scores[j].total_cmp(&scores[i]));
-        let mats = self.grid.matrices();
+        let qs = self.grid.quaternions();
+        // angle > sep  ⇔  |q_k · q_i| < cos(sep/2)
+        let cos_half = (0.5 * self.candidate_sep).cos();
         let mut out: Vec<usize> = Vec::with_capacity(want);
         for i in idx {
-            if out
-                .iter()
-                .all(|&k| geodesic_angle(&mats[k], &mats[i]) > self.candidate_sep)
-            {
+            let far = |k: usize| {
+                let (a, b) = (qs[k], qs[i]);
+                (a[0] * b[0] + a[1] * b[1] + a[2] * b[2] + a[3] * b[3]).abs() < cos_half
+            };
+            if out.iter().all(|&k| far(k)) {
                 out.push(i);
                 if out.len() == want {
                     break;
@@ -452,13 +504,16 @@ impl Precomputed {
         dot(wd.blocks(), &self.m)
     }
 
-    /// Newton ascent from `r`; returns the local maximum and its score.
+    /// Newton ascent from `r`; returns the local maximum and its score, or `None` when the path
+    /// enters (within `sep/2`) a better maximum in `known`.
     fn refine(
         &self,
         s: &RotationSearcher,
         mut r: Matrix3<f64>,
         wd: &mut WignerD,
-    ) -> (Matrix3<f64>, f64) {
+        known: &[(Matrix3<f64>, f64)],
+        sep: f64,
+    ) -> Option<(Matrix3<f64>, f64)> {
         wd.set(&r);
         let mut f = self.score(wd);
         for _ in 0..s.opts.max_iterations {
@@ -481,11 +536,19 @@ impl Precomputed {
             if !len.is_finite() || len < 1e-12 {
                 break;
             }
+            if len < 1e-7 {
+                // Converged to well below 1e-5 degrees: the score change is at rounding level,
+                // so take the Newton step as it is and stop.
+                r = rotation_vector_to_matrix([step.x, step.y, step.z]) * r;
+                wd.set(&r);
+                f = self.score(wd);
+                break;
+            }
             if len > 0.5 {
                 step *= 0.5 / len;
             }
             let mut accepted = false;
-            for _ in 0..20 {
+            for _ in 0..12 {
                 let cand = rotation_vector_to_matrix([step.x, step.y, step.z]) * r;
                 wd.set(&cand);
                 let fc = self.score(wd);
@@ -501,11 +564,16 @@ impl Precomputed {
                 wd.set(&r);
                 break;
             }
-            if step.norm() < 1e-10 {
-                break;
+            // Already in the basin of a maximum found from a better start: stop early, the
+            // result would only duplicate it.
+            if known
+                .iter()
+                .any(|k| geodesic_angle(&k.0, &r) < 0.5 * sep && k.1 >= f)
+            {
+                return None;
             }
         }
-        (r, f)
+        Some((r, f))
     }
 }
 
@@ -549,6 +617,28 @@ mod tests {
         let err = geodesic_angle(&res.best.rotation, &r).to_degrees();
         assert!(err < 0.01, "seed {seed}: error {err}°");
         assert!((res.best.normalized_score - 1.0).abs() < 1e-9);
+    }
+
+    /// Wahba's solution recovers the rotation from the degree-1 parts of two shells.
+    #[test]
+    fn degree_one_rotation_exact() {
+        let mut rng = SplitMix64::new(41);
+        let l_max = 2;
+        let nc = num_coeffs(l_max);
+        let a: Vec<f64> = (0..2 * nc).map(|_| rng.normal()).collect();
+        let r = random_rotation(&mut rng);
+        let mut b = vec![0.0; a.len()];
+        WignerD::new(&r, l_max).apply_shells(2, &a, &mut b);
+        let g = degree_one_rotation(l_max, &a, &b).unwrap();
+        assert!(geodesic_angle(&g, &r) < 1e-10);
+        assert!(degree_one_rotation(0, &a[..1], &b[..1]).is_none());
+    }
+
+    #[test]
+    fn searcher_is_shareable() {
+        fn check<T: Send + Sync>() {}
+        check::<RotationSearcher>();
+        check::<crate::so3::coupling::CouplingTable>();
     }
 
     #[test]

@@ -184,8 +184,151 @@ fn sh_closed<T: Real>(l_max: usize, x: T, y: T, z: T, out: &mut [T]) {
     out[24] = k44 * c4;
 }
 
-/// General recurrence, any `l_max`.
+/// General recurrence, any `l_max`: for each order `m`, `Q_m^m` from `Q_{m−1}^{m−1}`, then
+/// `Q_l^m` up the degrees by the three-term recurrence.
 fn sh_recurrence<T: ShScalar>(l_max: usize, x: T, y: T, z: T, out: &mut [T]) {
+    if l_max < TABLE_DEGREES {
+        sh_recurrence_table(l_max, x, y, z, out)
+    } else {
+        sh_recurrence_any(l_max, x, y, z, out)
+    }
+}
+
+/// [`sh_recurrence`] with every coefficient from the table (`l_max < TABLE_DEGREES`).
+#[inline(always)]
+fn sh_recurrence_table<T: ShScalar>(l_max: usize, x: T, y: T, z: T, out: &mut [T]) {
+    let t = T::tables();
+    let out = &mut out[..num_coeffs(l_max)];
+    // m = 0: zonal harmonics
+    let mut qmm = t.q_mm[0];
+    out[0] = qmm;
+    if l_max == 0 {
+        return;
+    }
+    let mut q2 = qmm;
+    let mut q1 = t.c[0] * z * qmm;
+    out[2] = q1;
+    for l in 2..=l_max {
+        let i = l * (l + 1) / 2;
+        let q = t.a[i] * (z * q1 - t.b[i] * q2);
+        out[l * l + l] = q;
+        q2 = q1;
+        q1 = q;
+    }
+    let (mut cm, mut sm) = (T::ONE, T::ZERO);
+    for m in 1..=l_max {
+        qmm = qmm * t.q_mm[m];
+        let c_new = x * cm - y * sm;
+        sm = x * sm + y * cm;
+        cm = c_new;
+        let centre = m * m + m;
+        out[centre + m] = qmm * cm;
+        out[centre - m] = qmm * sm;
+        if m == l_max {
+            break;
+        }
+        let mut q2 = qmm;
+        let mut q1 = t.c[m] * z * qmm;
+        let centre = (m + 1) * (m + 1) + m + 1;
+        out[centre + m] = q1 * cm;
+        out[centre - m] = q1 * sm;
+        for l in m + 2..=l_max {
+            let i = l * (l + 1) / 2 + m;
+            let q = t.a[i] * (z * q1 - t.b[i] * q2);
+            let centre = l * l + l;
+            out[centre + m] = q * cm;
+            out[centre - m] = q * sm;
+            q2 = q1;
+            q1 = q;
+        }
+    }
+}
+
+/// Directions evaluated together by the batched recurrence.
+const LANES: usize = 8;
+
+/// [`sh_recurrence_table`] for `LANES` directions at once: every step is the same operation on
+/// each lane, so the arithmetic vectorises; `out` holds `LANES` expansions direction-major.
+#[inline(always)]
+fn sh_recurrence_lanes<T: ShScalar>(l_max: usize, d: &[[T; 3]], out: &mut [T]) {
+    type V<T> = [T; LANES];
+    let t = T::tables();
+    let n = num_coeffs(l_max);
+    let out = &mut out[..LANES * n];
+    let (mut x, mut y, mut z) = ([T::ZERO; LANES], [T::ZERO; LANES], [T::ZERO; LANES]);
+    for i in 0..LANES {
+        [x[i], y[i], z[i]] = d[i];
+    }
+    let store = |out: &mut [T], idx: usize, v: &V<T>| {
+        for i in 0..LANES {
+            out[i * n + idx] = v[i];
+        }
+    };
+    let store_cs = |out: &mut [T], l: usize, m: usize, q: &V<T>, c: &V<T>, s: &V<T>| {
+        let centre = l * l + l;
+        for i in 0..LANES {
+            out[i * n + centre + m] = q[i] * c[i];
+            out[i * n + centre - m] = q[i] * s[i];
+        }
+    };
+    let step = |q1: &V<T>, q2: &V<T>, a: T, b: T| -> V<T> {
+        let mut q = [T::ZERO; LANES];
+        for i in 0..LANES {
+            q[i] = a * (z[i] * q1[i] - b * q2[i]);
+        }
+        q
+    };
+    let mut qmm = [t.q_mm[0]; LANES];
+    store(out, 0, &qmm);
+    if l_max == 0 {
+        return;
+    }
+    let c0 = t.c[0];
+    let mut q2 = qmm;
+    let mut q1 = [T::ZERO; LANES];
+    for i in 0..LANES {
+        q1[i] = c0 * z[i] * qmm[i];
+    }
+    store(out, 2, &q1);
+    for l in 2..=l_max {
+        let k = l * (l + 1) / 2;
+        let q = step(&q1, &q2, t.a[k], t.b[k]);
+        store(out, l * l + l, &q);
+        q2 = q1;
+        q1 = q;
+    }
+    let (mut cm, mut sm) = ([T::ONE; LANES], [T::ZERO; LANES]);
+    for m in 1..=l_max {
+        let k = t.q_mm[m];
+        for i in 0..LANES {
+            qmm[i] = qmm[i] * k;
+            let c_new = x[i] * cm[i] - y[i] * sm[i];
+            sm[i] = x[i] * sm[i] + y[i] * cm[i];
+            cm[i] = c_new;
+        }
+        store_cs(out, m, m, &qmm, &cm, &sm);
+        if m == l_max {
+            break;
+        }
+        let cz = t.c[m];
+        let mut q2 = qmm;
+        let mut q1 = [T::ZERO; LANES];
+        for i in 0..LANES {
+            q1[i] = cz * z[i] * qmm[i];
+        }
+        store_cs(out, m + 1, m, &q1, &cm, &sm);
+        for l in m + 2..=l_max {
+            let k = l * (l + 1) / 2 + m;
+            let q = step(&q1, &q2, t.a[k], t.b[k]);
+            store_cs(out, l, m, &q, &cm, &sm);
+            q2 = q1;
+            q1 = q;
+        }
+    }
+}
+
+/// [`sh_recurrence`] for any degree (coefficients beyond the table computed on the fly).
+fn sh_recurrence_any<T: ShScalar>(l_max: usize, x: T, y: T, z: T, out: &mut [T]) {
     let t = T::tables();
     let out = &mut out[..num_coeffs(l_max)];
     let q_mm = |m: usize| {
@@ -341,6 +484,18 @@ fn batch<T: ShScalar>(l_max: usize, dirs: &[[T; 3]], out: &mut [T]) {
         2 => run!(2),
         3 => run!(3),
         4 => run!(4),
+        _ if l_max < TABLE_DEGREES => {
+            let full = dirs.len() / LANES * LANES;
+            for (d, o) in dirs[..full]
+                .chunks_exact(LANES)
+                .zip(out.chunks_exact_mut(LANES * n))
+            {
+                sh_recurrence_lanes(l_max, d, o);
+            }
+            for (u, o) in dirs[full..].iter().zip(out[full * n..].chunks_exact_mut(n)) {
+                sh_recurrence(l_max, u[0], u[1], u[2], o);
+            }
+        }
         _ => {
             for (u, o) in dirs.iter().zip(out.chunks_exact_mut(n)) {
                 sh_recurrence(l_max, u[0], u[1], u[2], o);
@@ -441,6 +596,22 @@ mod tests {
         }
     }
 
+    /// The table-driven recurrence against the on-the-fly one.
+    #[test]
+    fn table_recurrence_matches_general() {
+        let mut rng = SplitMix64::new(12);
+        let n = num_coeffs(20);
+        let (mut a, mut b) = (vec![0.0f64; n], vec![0.0f64; n]);
+        for l_max in 0..=20 {
+            let [x, y, z] = unit(&mut rng);
+            sh_recurrence_table(l_max, x, y, z, &mut a);
+            sh_recurrence_any(l_max, x, y, z, &mut b);
+            for k in 0..num_coeffs(l_max) {
+                assert!((a[k] - b[k]).abs() < 1e-13, "L={l_max} k={k}");
+            }
+        }
+    }
+
     /// Degree-1 order (y, z, x) and the absence of the Condon–Shortley phase.
     #[test]
     fn degree_one_order_and_phase() {
@@ -495,7 +666,7 @@ mod tests {
     fn batch_matches_single() {
         let mut rng = SplitMix64::new(9);
         let dirs: Vec<[f32; 3]> = (0..37).map(|_| unit(&mut rng).map(|v| v as f32)).collect();
-        for l_max in [0, 2, 4, 6] {
+        for l_max in [0, 2, 4, 5, 6, 9, 16] {
             let n = num_coeffs(l_max);
             let mut out = vec![0.0f32; dirs.len() * n];
             real_sh_batch_f32(l_max, &dirs, &mut out);

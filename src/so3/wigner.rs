@@ -206,9 +206,9 @@ fn scratch_len(l: usize) -> usize {
 /// One step of the Ivanic–Ruedenberg recursion: `cur = D^l` from `r1 = D^1` and `prev = D^(l−1)`.
 ///
 /// In the paper's notation `D^l_{mk} = u U + v V + w W`, where `u, v, w` factor into a part
-/// depending on the row `m` and the common `1/√denom(k)`, and `U, V, W` are sums of the helper
-/// `P(i, a, k)`. The rows `P(i, a, ·)` are formed once per `(i, a)` and each output row is then
-/// a short linear combination of them (vectorisable).
+/// depending on the row `m` and the common `1/√denom(k)`, and `U, V, W` are sums of the
+/// auxiliary function `P(i, a, k)`. The rows `P(i, a, ·)` are formed once per `(i, a)` and each
+/// output row is then a short linear combination of them (vectorisable).
 fn recursion_step(l: i64, r1: &[f64; 9], prev: &[f64], cur: &mut [f64], scratch: &mut [f64]) {
     let np = (2 * l - 1) as usize;
     let n = (2 * l + 1) as usize;

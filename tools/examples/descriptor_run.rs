@@ -1,0 +1,100 @@
+//! Times the descriptor engine on a synthetic scan-like scene and reports the figures used in
+//! the performance notes (run under `/usr/bin/time -v` for the peak memory).
+//!
+//! `cargo run --release --example descriptor_run -- [POINTS] [THREADS] [--search-only]
+//! [--write SCENE.ply]` (`--write` saves the scene, e.g. for the numpy reference's timing).
+
+use std::time::Instant;
+
+use equiscan::descriptor::{Centres, Engine, Recipe};
+use equiscan::spatial::{KdIndex, estimate_spacing_with, suggested_support_radius};
+
+#[path = "../bench/scene.rs"]
+mod scene;
+
+/// CPU seconds used by this process so far (user + system, from /proc/self/stat; 0 elsewhere).
+/// On a shared machine the wall clock overstates the work; CPU time does not.
+fn cpu_seconds() -> f64 {
+    let Ok(stat) = std::fs::read_to_string("/proc/self/stat") else {
+        return 0.0;
+    };
+    let after = &stat[stat.rfind(')').map_or(0, |i| i + 2)..];
+    let f: Vec<&str> = after.split_whitespace().collect();
+    let ticks: f64 = f[11].parse::<f64>().unwrap_or(0.0) + f[12].parse::<f64>().unwrap_or(0.0);
+    ticks / 100.0
+}
+
+fn main() {
+    let args: Vec<String> = std::env::args().skip(1).collect();
+    let n: usize = args
+        .first()
+        .and_then(|a| a.parse().ok())
+        .unwrap_or(1_000_000);
+    let threads: usize = args.get(1).and_then(|a| a.parse().ok()).unwrap_or(0);
+    let search_only = args.iter().any(|a| a == "--search-only");
+    if threads > 0 {
+        rayon::ThreadPoolBuilder::new()
+            .num_threads(threads)
+            .build_global()
+            .unwrap();
+    }
+    let pts = scene::scene(n, 1.0, 42);
+    if let Some(i) = args.iter().position(|a| a == "--write") {
+        let path = std::path::Path::new(&args[i + 1]);
+        equiscan::io::write_ply(path, &equiscan::Cloud::new([0.0; 3], pts.clone()), &[]).unwrap();
+    }
+    let t0 = Instant::now();
+    let index = KdIndex::new(&pts).unwrap();
+    let t_tree = t0.elapsed().as_secs_f64();
+    let spacing = estimate_spacing_with(&pts, &index).unwrap();
+    let r = suggested_support_radius(spacing);
+    let recipe = Recipe::builder().radius(r).build().unwrap();
+    let engine = Engine::new(recipe);
+    use rayon::prelude::*;
+    let t1 = Instant::now();
+    let c1 = cpu_seconds();
+    let total: u64 = pts
+        .par_chunks(256)
+        .map(|c| {
+            let mut k = 0u64;
+            for p in c {
+                index.for_each_within(*p, r, |_, _| k += 1);
+            }
+            k
+        })
+        .sum();
+    let t_search = t1.elapsed().as_secs_f64();
+    let c_search = cpu_seconds() - c1;
+    println!(
+        "points {n}, spacing {spacing:.3}, radius {r:.3}, tree {t_tree:.3} s, mean hits {:.1}",
+        total as f64 / n as f64
+    );
+    println!(
+        "bare search: {t_search:.3} s wall, {c_search:.2} s cpu, {:.0} centres/s, {:.0} centres per cpu-s",
+        n as f64 / t_search,
+        n as f64 / c_search
+    );
+    if search_only {
+        return;
+    }
+    let t2 = Instant::now();
+    let c2 = cpu_seconds();
+    let f = engine
+        .compute_with_index(&pts, &index, &Centres::All, None)
+        .unwrap();
+    let out_bytes = f.values.len() * 4 + f.counts.len() * 4 + f.flags.len() + f.len() * (12 + 8);
+    let t_all = t2.elapsed().as_secs_f64();
+    let c_all = cpu_seconds() - c2;
+    println!(
+        "descriptors: {t_all:.3} s wall, {c_all:.2} s cpu, {:.0} centres/s, {:.0} centres per cpu-s, {} columns, search share {:.0} % (cpu)",
+        n as f64 / t_all,
+        n as f64 / c_all,
+        f.columns.len(),
+        100.0 * c_search / c_all
+    );
+    println!(
+        "memory: cloud {:.0} MB, output {:.0} MB",
+        (pts.len() * 12) as f64 / 1e6,
+        out_bytes as f64 / 1e6
+    );
+}
