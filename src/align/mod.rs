@@ -16,7 +16,7 @@
 //!    from the equivariant coefficients), scored by the correspondences they explain;
 //! 5. refinement of the best few on their inliers (weighted Umeyama), then point-to-plane
 //!    [`icp`] with a robust loss; the best refined pose wins;
-//! 6. [`quality`]: RMSE, overlap, consensus, ambiguity, a confidence figure and a verdict.
+//! 6. [`residual`]: the inlier RMSE on the full-resolution clouds; [`quality`]: overlap, consensus, ambiguity, a confidence figure and a verdict.
 //!
 //! [`multi`] registers more than two scans through a maximum spanning tree of pair confidences.
 //! Nothing here prints; every stage is deterministic for any number of threads.
@@ -30,6 +30,7 @@ pub mod multi;
 pub mod pipeline;
 pub mod prep;
 pub mod quality;
+pub mod residual;
 pub mod rigid;
 
 pub use icp::RobustLoss;

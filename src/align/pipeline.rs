@@ -12,10 +12,11 @@ use super::icp::{IcpParams, RobustLoss, fit_quality, icp_point_to_plane, plane_f
 use super::matching::{MatchParams, match_features};
 use super::prep::{choose_voxel, prepare, spacing_of};
 use super::quality::{self, Figures, Verdict};
+use super::residual::full_resolution_rmse;
 use super::rigid::Rigid;
 use crate::cloud::Cloud;
 use crate::error::{Error, Result};
-use crate::spatial::voxel_downsample;
+use crate::spatial::{KdIndex, estimate_spacing_with, voxel_downsample};
 
 /// How correspondences are described and turned into pose hypotheses.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
@@ -399,14 +400,17 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
     clock.lap("fine ICP");
 
     let overlap = fit_quality(&ps.points, &pt.index, &local, tau).1 as f64 / ps.points.len() as f64;
-    let (_, rmse) = plane_fit(
-        &fs.points,
-        &ft.points,
-        &ft.normals,
-        &ft.index,
+    // Inlier RMSE on the full-resolution clouds: pairs closer than three TARGET point spacings
+    // (at most one fine voxel) are inside the overlap.
+    let target_full = KdIndex::new(&target.positions)?;
+    let pairing = estimate_spacing_with(&target.positions, &target_full)
+        .map_or(fine_voxel, |s| (3.0 * s as f64).min(fine_voxel));
+    let (rmse, _) = full_resolution_rmse(
+        &source.positions,
+        &target.positions,
+        &target_full,
         &local,
-        tau,
-        PLANE_TOLERANCE_VOXELS * voxel,
+        pairing,
     );
     let inliers = pairs.support(&local, tau);
     let mut figures = Figures {

@@ -64,8 +64,9 @@ pub enum Verdict {
 /// Figures behind the verdict.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 pub struct Figures {
-    /// RMSE of the point-to-plane distances (source points at half the voxel size to the target's
-    /// tangent planes) of the pairs within the inlier threshold.
+    /// RMSE of the point-to-plane distances of full-resolution SOURCE points (a sample) to the
+    /// TARGET's local planes, over the pairs closer than three TARGET point spacings (at most
+    /// half the voxel size), i.e. inside the overlap (see [`super::residual`]).
     pub rmse: f64,
     /// Fraction of source keypoints within the inlier threshold of the target.
     pub overlap: f64,
