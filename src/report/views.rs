@@ -407,10 +407,27 @@ fn cloud_footer_height(colour_bar: bool) -> i64 {
 }
 
 /// Draws the footer caution line along the bottom edge.
-fn draw_footer_line(canvas: &mut Canvas, footer: &str) {
+/// `reserved` pixels at the right end are kept free.
+fn draw_footer_line(canvas: &mut Canvas, footer: &str, reserved: i64) {
     let y = canvas.height() as i64 - MARGIN - Canvas::text_height(2) as i64;
-    let usable = canvas.width() as i64 - 2 * MARGIN;
+    let usable = canvas.width() as i64 - 2 * MARGIN - reserved;
     canvas.text(MARGIN, y, &fit_text(footer, 2, usable), 2, SOFT_INK);
+}
+
+/// Draws the depth-shading note after the legend when it fits on that row, otherwise at the
+/// right end of the footer row, then the footer caution line in the room left.
+fn draw_depth_note(canvas: &mut Canvas, legend_end: i64, legend_y: i64, footer: &str) {
+    const NOTE: &str = "darker = farther";
+    let note_w = Canvas::text_width(NOTE, 2) as i64;
+    let right = canvas.width() as i64 - MARGIN;
+    if legend_end + note_w <= right {
+        canvas.text(legend_end, legend_y + 2, NOTE, 2, SOFT_INK);
+        draw_footer_line(canvas, footer, 0);
+    } else {
+        let y = canvas.height() as i64 - MARGIN - Canvas::text_height(2) as i64;
+        canvas.text(right - note_w, y, NOTE, 2, SOFT_INK);
+        draw_footer_line(canvas, footer, note_w + 40);
+    }
 }
 
 /// Draws legend entries (swatch and name) on one row at `y`; returns the x after the last.
@@ -525,8 +542,7 @@ pub fn draw_alignment_views(layers: &[Layer<'_>], text: &FigureText) -> Result<C
         .collect();
     let legend_y = height as i64 - MARGIN - FOOTER_HEIGHT + 14;
     let x = draw_legend(&mut canvas, MARGIN, legend_y, &legend);
-    canvas.text(x, legend_y + 2, "darker = farther", 2, SOFT_INK);
-    draw_footer_line(&mut canvas, &text.footer);
+    draw_depth_note(&mut canvas, x, legend_y, &text.footer);
     Ok(canvas)
 }
 
@@ -632,13 +648,13 @@ pub fn draw_cloud_views(
                 note += ", grey = no value";
             }
             draw_colour_bar(&mut canvas, legend_y, field, [lo, hi], &note);
+            draw_footer_line(&mut canvas, &text.footer, 0);
         }
         _ => {
             let x = draw_legend(&mut canvas, MARGIN, legend_y, &[(layer.colour, count)]);
-            canvas.text(x, legend_y + 2, "darker = farther", 2, SOFT_INK);
+            draw_depth_note(&mut canvas, x, legend_y, &text.footer);
         }
     }
-    draw_footer_line(&mut canvas, &text.footer);
     Ok(canvas)
 }
 
