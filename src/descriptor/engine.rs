@@ -113,6 +113,8 @@ pub struct Engine {
 /// Scratch space of one worker, reused for every centre of its tasks.
 struct Scratch {
     ids: Vec<u32>,
+    /// Bitmap for [`sort_distinct`].
+    bits: Vec<u64>,
     /// Offsets `q − p` and squared distances of the gathered neighbours (`0 < |q − p| ≤ r_max`),
     /// ascending index (structure of arrays).
     gx: Vec<f32>,
@@ -263,6 +265,7 @@ impl Engine {
         let v = || Vec::with_capacity(256);
         Scratch {
             ids: Vec::with_capacity(256),
+            bits: Vec::new(),
             gx: v(),
             gy: v(),
             gz: v(),
@@ -377,7 +380,7 @@ impl Engine {
         s.ids.clear();
         let ids = &mut s.ids;
         index.for_each_within(p, r_max * QUERY_SLACK, |i, _| ids.push(i as u32));
-        s.ids.sort_unstable();
+        sort_distinct(&mut s.ids, &mut s.bits);
         // Offsets of the neighbours with 0 < |d| ≤ r_max, ascending index; coincident points
         // are only counted.
         let r_max2 = r_max * r_max;
@@ -524,6 +527,44 @@ impl Engine {
     }
 }
 
+/// Sorts distinct point indices (each point appears once in a query's hits) ascending. When the
+/// hits span few indices, as they do in clouds stored in scan or grid order, a bitmap over their
+/// range is set and read back in order (no comparison, no branch per pair); otherwise a
+/// comparison sort runs. Either way the result is the ascending order.
+fn sort_distinct(ids: &mut [u32], bits: &mut Vec<u64>) {
+    let n = ids.len();
+    if n < 2 {
+        return;
+    }
+    let (mut lo, mut hi) = (u32::MAX, 0u32);
+    for &i in ids.iter() {
+        lo = lo.min(i);
+        hi = hi.max(i);
+    }
+    let words = ((hi - lo) >> 6) as usize + 1;
+    if words > 2 * n + 16 {
+        ids.sort_unstable();
+        return;
+    }
+    bits.clear();
+    bits.resize(words, 0);
+    for &i in ids.iter() {
+        let o = i - lo;
+        bits[(o >> 6) as usize] |= 1u64 << (o & 63);
+    }
+    let mut k = 0;
+    for (w, &b) in bits.iter().enumerate() {
+        let base = lo + ((w as u32) << 6);
+        let mut b = b;
+        while b != 0 {
+            ids[k] = base + b.trailing_zeros();
+            k += 1;
+            b &= b - 1;
+        }
+    }
+    debug_assert_eq!(k, n, "indices must be distinct");
+}
+
 /// Flags from the neighbour count and the offsets' moments (see [`flags`]).
 fn shape_flags(count: u32, m1: [f32; 3], m2: [f32; 6]) -> u8 {
     let mut fl = 0;
@@ -568,4 +609,38 @@ fn check_index(points: &[[f32; 3]], index: &KdIndex) -> Result<()> {
         ));
     }
     Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::sort_distinct;
+
+    #[test]
+    fn sort_distinct_sorts_narrow_and_wide_sets() {
+        let mut bits = Vec::new();
+        let mut s = 0x2545_f491_4f6c_dd1du64;
+        for (n, span) in [
+            (0usize, 1u32),
+            (1, 1),
+            (2, 2),
+            (70, 2000),
+            (60, 64),
+            (70, 1 << 30),
+        ] {
+            let mut ids: Vec<u32> = Vec::new();
+            while ids.len() < n {
+                s ^= s << 13;
+                s ^= s >> 7;
+                s ^= s << 17;
+                let v = 1000 + (s % span as u64) as u32;
+                if !ids.contains(&v) {
+                    ids.push(v);
+                }
+            }
+            let mut want = ids.clone();
+            want.sort_unstable();
+            sort_distinct(&mut ids, &mut bits);
+            assert_eq!(ids, want, "n {n} span {span}");
+        }
+    }
 }
