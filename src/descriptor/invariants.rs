@@ -70,63 +70,32 @@ impl InvariantPlan {
     /// column order of [`super::Recipe::column_names`] for one scale. `c64` is scratch space.
     pub(crate) fn compute(&self, c: &[f32], c64: &mut Vec<f64>, out: &mut [f32]) {
         let nk = (self.degree + 1) * (self.degree + 1);
-        let ns = self.shells;
         c64.clear();
-        c64.extend(c[..ns * nk].iter().map(|&v| v as f64));
+        c64.extend(c[..self.shells * nk].iter().map(|&v| v as f64));
+        let c = &c64[..];
         let mut k = 0;
-        if self.which.norms || self.which.power_spectrum {
-            // Per degree, the Gram matrix `G[n][n'] = Σ_m c_nlm c_n'lm` (m ascending, as a plain
-            // sum): norms are √G[n][n], the power spectrum its upper triangle.
-            c64.resize(ns * nk + ns * ns + ns, 0.0);
-            let (c, rest) = c64.split_at_mut(ns * nk);
-            let (gram, col) = rest.split_at_mut(ns * ns);
-            let np = ns * (ns + 1) / 2;
-            let ps_at = if self.which.norms {
-                ns * (self.degree + 1)
-            } else {
-                0
-            };
+        if self.which.norms {
             for l in 0..=self.degree {
-                for m in l * l..(l + 1) * (l + 1) {
-                    for (n, v) in col.iter_mut().enumerate() {
-                        *v = c[n * nk + m];
-                    }
-                    let first = m == l * l;
-                    for (row, &x) in gram.chunks_exact_mut(ns).zip(col.iter()) {
-                        if first {
-                            for (g, &y) in row.iter_mut().zip(col.iter()) {
-                                *g = x * y;
-                            }
-                        } else {
-                            for (g, &y) in row.iter_mut().zip(col.iter()) {
-                                *g += x * y;
-                            }
-                        }
-                    }
+                for n in 0..self.shells {
+                    let a = &c[n * nk + l * l..n * nk + (l + 1) * (l + 1)];
+                    out[k] = a.iter().map(|v| v * v).sum::<f64>().sqrt() as f32;
+                    k += 1;
                 }
-                if self.which.norms {
-                    for n in 0..ns {
-                        out[l * ns + n] = gram[n * ns + n].sqrt() as f32;
-                    }
-                }
-                if self.which.power_spectrum {
-                    let mut at = ps_at + l * np;
-                    for n in 0..ns {
-                        for &g in &gram[n * ns + n..(n + 1) * ns] {
-                            out[at] = g as f32;
-                            at += 1;
-                        }
+            }
+        }
+        if self.which.power_spectrum {
+            for l in 0..=self.degree {
+                let (lo, hi) = (l * l, (l + 1) * (l + 1));
+                for n in 0..self.shells {
+                    let a = &c[n * nk + lo..n * nk + hi];
+                    for n2 in n..self.shells {
+                        let b = &c[n2 * nk + lo..n2 * nk + hi];
+                        out[k] = a.iter().zip(b).map(|(x, y)| x * y).sum::<f64>() as f32;
+                        k += 1;
                     }
                 }
             }
-            k = ps_at
-                + if self.which.power_spectrum {
-                    (self.degree + 1) * np
-                } else {
-                    0
-                };
         }
-        let c = &c64[..ns * nk];
         if self.which.bispectrum {
             for n in 0..self.shells {
                 let cn = &c[n * nk..(n + 1) * nk];
