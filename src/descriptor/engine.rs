@@ -100,8 +100,10 @@ impl Features {
 /// positions; `W = 1 + Σ f_c(ρ) + (points coinciding with p, other than the centre)`, where a
 /// centre position that coincides with one or more cloud points is taken to be one of them (so
 /// a cloud point used as centre and the same position given as [`Engine::compute_at`] agree);
-/// `c_nlm = Σ g_n f_c Y_lm / W`. Sums run over the neighbours in ascending point index, so the
-/// result does not depend on the tree's visiting order or on the number of threads.
+/// `c_nlm = Σ g_n f_c Y_lm / W`. Neighbours are put in ascending point index before anything is
+/// summed, and every sum runs in an order fixed by that list alone (the harmonic sums in eight
+/// lanes of neighbours `j ≡ i (mod 8)`, then the lanes in a fixed tree), so the result does not
+/// depend on the tree's visiting order or on the number of threads.
 #[derive(Debug)]
 pub struct Engine {
     recipe: Recipe,

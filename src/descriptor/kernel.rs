@@ -1,12 +1,15 @@
-//! The two vectorised inner loops of the engine: radial weights and the projection of the
+//! The vectorised inner loops of the engine: the per-neighbour pass (distances, directions,
+//! harmonics, eight neighbours at a time), radial weights, and the projection of the
 //! neighbours' harmonics onto the shells.
 //!
-//! Both run over structure-of-arrays buffers so that the compiler turns them into SIMD code.
-//! Where the processor has AVX2 and FMA (checked once, at run time) the projection is compiled
-//! for them and uses fused multiply-adds; elsewhere a portable build of the same loops runs.
-//! Each sum still runs over the neighbours in ascending point index, so on one machine the
-//! result is the same for any number of threads; the two kernels differ only by the rounding
-//! that fusing saves (a few f32 units in the last place).
+//! All run over structure-of-arrays buffers padded to a multiple of eight neighbours, so that
+//! the compiler turns them into SIMD code. Where the processor has AVX2 and FMA (checked once,
+//! at run time) the loops are compiled for them and the projection uses fused multiply-adds;
+//! elsewhere a portable build of the same loops runs. The per-neighbour values and the weights
+//! are bit-identical on both builds. Each projection sum runs in eight lanes (neighbours
+//! `j ≡ i (mod 8)` in ascending point index) added in a fixed tree, so on one machine the result
+//! is the same for any number of threads; the two kernels differ only by the rounding that
+//! fusing saves (a few f32 units in the last place).
 
 use super::radial::{cutoff, exp};
 use crate::so3::sh::{num_coeffs, real_sh_f32, real_sh_lanes8_f32};
