@@ -386,28 +386,35 @@ impl Engine {
         // Offsets of the neighbours with 0 < |d| ≤ r_max, ascending index; coincident points
         // are only counted.
         let r_max2 = r_max * r_max;
-        s.gx.clear();
-        s.gy.clear();
-        s.gz.clear();
-        s.gd2.clear();
-        s.zeros = 0;
+        // Branch-free compaction: every hit is written at `m`, which advances only for a kept
+        // one; the buffers only grow (values past the kept ones are never read).
+        let n = s.ids.len();
+        for v in [&mut s.gx, &mut s.gy, &mut s.gz, &mut s.gd2] {
+            if v.len() < n {
+                v.resize(n, 0.0);
+            }
+        }
+        let (gx, gy, gz, gd2) = (
+            &mut s.gx[..n],
+            &mut s.gy[..n],
+            &mut s.gz[..n],
+            &mut s.gd2[..n],
+        );
+        let mut m = 0;
+        let mut zeros = 0u32;
         for &i in &s.ids {
             let q = points[i as usize];
             let d = [q[0] - p[0], q[1] - p[1], q[2] - p[2]];
             let d2 = d[0] * d[0] + d[1] * d[1] + d[2] * d[2];
-            if d2 > r_max2 {
-                continue;
-            }
-            if d2 == 0.0 {
-                s.zeros += 1;
-                continue;
-            }
-            s.gx.push(d[0]);
-            s.gy.push(d[1]);
-            s.gz.push(d[2]);
-            s.gd2.push(d2);
+            gx[m] = d[0];
+            gy[m] = d[1];
+            gz[m] = d[2];
+            gd2[m] = d2;
+            zeros += (d2 == 0.0) as u32;
+            m += (d2 > 0.0 && d2 <= r_max2) as usize;
         }
-        s.gathered = s.gd2.len();
+        s.zeros = zeros;
+        s.gathered = m;
         let per_scale = self.recipe.invariants_per_scale();
         let kc = self.recipe.coefficients_per_scale();
         for (si, &r) in radii.iter().enumerate() {
