@@ -4,7 +4,7 @@ use rayon::prelude::*;
 
 use crate::cloud::Cloud;
 use crate::error::{Error, Result};
-use crate::so3::sh::{num_coeffs, real_sh_f32};
+use crate::so3::sh::num_coeffs;
 use crate::spatial::{KdIndex, voxel_downsample};
 
 use super::flags;
@@ -100,8 +100,10 @@ impl Features {
 /// positions; `W = 1 + Σ f_c(ρ) + (points coinciding with p, other than the centre)`, where a
 /// centre position that coincides with one or more cloud points is taken to be one of them (so
 /// a cloud point used as centre and the same position given as [`Engine::compute_at`] agree);
-/// `c_nlm = Σ g_n f_c Y_lm / W`. Sums run over the neighbours in ascending point index, so the
-/// result does not depend on the tree's visiting order or on the number of threads.
+/// `c_nlm = Σ g_n f_c Y_lm / W`. Neighbours are put in ascending point index before anything is
+/// summed, and every sum runs in an order fixed by that list alone (the harmonic sums in eight
+/// lanes of neighbours `j ≡ i (mod 8)`, then the lanes in a fixed tree), so the result does not
+/// depend on the tree's visiting order or on the number of threads.
 #[derive(Debug)]
 pub struct Engine {
     recipe: Recipe,
@@ -113,11 +115,28 @@ pub struct Engine {
 /// Scratch space of one worker, reused for every centre of its tasks.
 struct Scratch {
     ids: Vec<u32>,
-    /// Offset `q − p` and squared distance of each gathered neighbour, ascending index.
-    nb: Vec<([f32; 3], f32)>,
-    /// Selected neighbours (positions in `nb`) when a cap applies.
+    /// Bitmap for [`sort_distinct`].
+    bits: Vec<u64>,
+    /// Offsets `q − p` and squared distances of the gathered neighbours (`0 < |q − p| ≤ r_max`),
+    /// ascending index (structure of arrays).
+    gx: Vec<f32>,
+    gy: Vec<f32>,
+    gz: Vec<f32>,
+    gd2: Vec<f32>,
+    /// Number of gathered neighbours (the arrays above may hold padding beyond it).
+    gathered: usize,
+    /// Points coinciding with the centre (the centre itself included when it is a cloud point).
+    zeros: u32,
+    /// Selected neighbours (positions in the gathered arrays), ascending.
     sel: Vec<u32>,
-    /// `ρ` of each selected neighbour.
+    /// Offsets and squared distances of the selected neighbours when they are not all the
+    /// gathered ones; the arrays in use are padded to a multiple of [`kernel::LANES`] (padding:
+    /// offset `(r, 0, 0)`, `ρ = 1`, so its weights are exactly 0).
+    dx: Vec<f32>,
+    dy: Vec<f32>,
+    dz: Vec<f32>,
+    d2: Vec<f32>,
+    /// `ρ` of each selected neighbour (padded).
     rho: Vec<f32>,
     /// Cutoff of each selected neighbour.
     fc: Vec<f32>,
@@ -125,11 +144,9 @@ struct Scratch {
     step: Vec<f32>,
     /// Weights `g_n f_c`, layout `[n][neighbour]`.
     w: Vec<f32>,
-    /// Harmonics of each selected neighbour, rows of `stride` values (zero padded).
+    /// Harmonics, layout `[l² + l + m][neighbour]`.
     y: Vec<f32>,
-    /// Row stride of `y` and `acc`: `(L+1)²` rounded up to a multiple of the kernel's block.
-    stride: usize,
-    /// Unnormalised sums, `[n][stride]`.
+    /// Unnormalised sums, `[n][l² + l + m]`.
     acc: Vec<f32>,
     /// Coefficients `c[n][l² + l + m]` of the current scale.
     c: Vec<f32>,
@@ -247,18 +264,27 @@ impl Engine {
 
     fn scratch(&self) -> Scratch {
         let nk = num_coeffs(self.recipe.degree());
-        let stride = nk.div_ceil(kernel::BLOCK) * kernel::BLOCK;
+        let v = || Vec::with_capacity(256);
         Scratch {
             ids: Vec::with_capacity(256),
-            nb: Vec::with_capacity(256),
+            bits: Vec::new(),
+            gx: v(),
+            gy: v(),
+            gz: v(),
+            gd2: v(),
+            gathered: 0,
+            zeros: 0,
             sel: Vec::with_capacity(256),
-            rho: Vec::with_capacity(256),
-            fc: Vec::with_capacity(256),
-            step: Vec::with_capacity(256),
+            dx: v(),
+            dy: v(),
+            dz: v(),
+            d2: v(),
+            rho: v(),
+            fc: v(),
+            step: v(),
             w: Vec::new(),
             y: Vec::new(),
-            stride,
-            acc: vec![0.0; self.recipe.shells() * stride],
+            acc: vec![0.0; self.recipe.shells() * nk],
             c: vec![0.0; self.recipe.shells() * nk],
             c64: Vec::with_capacity(self.recipe.shells() * nk),
         }
@@ -356,18 +382,43 @@ impl Engine {
         s.ids.clear();
         let ids = &mut s.ids;
         index.for_each_within(p, r_max * QUERY_SLACK, |i, _| ids.push(i as u32));
-        s.ids.sort_unstable();
-        s.nb.clear();
+        sort_distinct(&mut s.ids, &mut s.bits);
+        // Offsets of the neighbours with 0 < |d| ≤ r_max, ascending index; coincident points
+        // are only counted.
+        let r_max2 = r_max * r_max;
+        // Branch-free compaction: every hit is written at `m`, which advances only for a kept
+        // one; the buffers only grow (values past the kept ones are never read).
+        let n = s.ids.len();
+        for v in [&mut s.gx, &mut s.gy, &mut s.gz, &mut s.gd2] {
+            if v.len() < n {
+                v.resize(n, 0.0);
+            }
+        }
+        let (gx, gy, gz, gd2) = (
+            &mut s.gx[..n],
+            &mut s.gy[..n],
+            &mut s.gz[..n],
+            &mut s.gd2[..n],
+        );
+        let mut m = 0;
+        let mut zeros = 0u32;
         for &i in &s.ids {
             let q = points[i as usize];
             let d = [q[0] - p[0], q[1] - p[1], q[2] - p[2]];
             let d2 = d[0] * d[0] + d[1] * d[1] + d[2] * d[2];
-            s.nb.push((d, d2));
+            gx[m] = d[0];
+            gy[m] = d[1];
+            gz[m] = d[2];
+            gd2[m] = d2;
+            zeros += (d2 == 0.0) as u32;
+            m += (d2 > 0.0 && d2 <= r_max2) as usize;
         }
+        s.zeros = zeros;
+        s.gathered = m;
         let per_scale = self.recipe.invariants_per_scale();
         let kc = self.recipe.coefficients_per_scale();
         for (si, &r) in radii.iter().enumerate() {
-            let (count, fl) = self.accumulate(s, r);
+            let (count, fl) = self.accumulate(s, r, r_max);
             counts[si] = count;
             flag_out[si] = fl;
             self.plan.compute(
@@ -381,32 +432,28 @@ impl Engine {
         }
     }
 
-    /// Fills `s.acc` with the normalised coefficients `c[n][l² + l + m]` of radius `r` from the
-    /// gathered neighbours `s.nb`; returns the neighbour count and the flags.
-    fn accumulate(&self, s: &mut Scratch, r: f32) -> (u32, u8) {
+    /// Fills `s.c` with the normalised coefficients `c[n][l² + l + m]` of radius `r ≤ r_max` from
+    /// the gathered neighbours; returns the neighbour count and the flags.
+    fn accumulate(&self, s: &mut Scratch, r: f32, r_max: f32) -> (u32, u8) {
         let r2 = r * r;
         let n_sh = self.recipe.shells();
         let l_max = self.recipe.degree();
         let nk = num_coeffs(l_max);
         let mut fl = 0u8;
-        let mut zeros = 0u32;
-        s.sel.clear();
-        for (j, &(_, d2)) in s.nb.iter().enumerate() {
-            if d2 > r2 {
-                continue;
-            }
-            if d2 == 0.0 {
-                zeros += 1;
-            } else {
-                s.sel.push(j as u32);
-            }
+        let ng = s.gathered;
+        let cap = self.recipe.max_neighbours().unwrap_or(usize::MAX);
+        // Every gathered neighbour is used unless a smaller radius or the cap drops some.
+        let mut all = r >= r_max;
+        if !all || ng > cap {
+            s.sel.clear();
+            s.sel
+                .extend((0..ng as u32).filter(|&j| s.gd2[j as usize] <= r2));
+            all = false;
         }
-        if let Some(cap) = self.recipe.max_neighbours()
-            && s.sel.len() > cap
-        {
-            // K nearest, ties by point index (positions in `nb` follow the index order).
-            let nb = &s.nb;
-            let key = |&j: &u32| (nb[j as usize].1, j);
+        if !all && s.sel.len() > cap {
+            // K nearest, ties by point index (gathered positions follow the index order).
+            let gd2 = &s.gd2;
+            let key = |&j: &u32| (gd2[j as usize], j);
             s.sel.select_nth_unstable_by(cap - 1, |a, b| {
                 let (da, ja) = key(a);
                 let (db, jb) = key(b);
@@ -416,25 +463,43 @@ impl Engine {
             s.sel.sort_unstable();
             fl |= flags::CAPPED;
         }
-        let coincident = zeros.saturating_sub(1);
+        let coincident = s.zeros.saturating_sub(1);
         if coincident > 0 {
             fl |= flags::COINCIDENT;
         }
-        let count = s.sel.len();
-        let stride = s.stride;
-        s.rho.clear();
-        s.y.resize(count * stride, 0.0);
+        let count = if all { ng } else { s.sel.len() };
+        let jp = count.div_ceil(kernel::LANES) * kernel::LANES;
+        // The selected offsets, padded with offset (r, 0, 0).
+        let (dx, dy, dz, d2) = if all {
+            (&mut s.gx, &mut s.gy, &mut s.gz, &mut s.gd2)
+        } else {
+            s.dx.clear();
+            s.dy.clear();
+            s.dz.clear();
+            s.d2.clear();
+            for &j in &s.sel {
+                let j = j as usize;
+                s.dx.push(s.gx[j]);
+                s.dy.push(s.gy[j]);
+                s.dz.push(s.gz[j]);
+                s.d2.push(s.gd2[j]);
+            }
+            (&mut s.dx, &mut s.dy, &mut s.dz, &mut s.d2)
+        };
+        for (v, pad) in [
+            (&mut *dx, r),
+            (&mut *dy, 0.0),
+            (&mut *dz, 0.0),
+            (&mut *d2, r2),
+        ] {
+            v.truncate(count);
+            v.resize(jp, pad);
+        }
         // Unweighted first and second moments of the offsets, for the shape flags.
         let mut m1 = [0.0f32; 3];
         let mut m2 = [0.0f32; 6];
-        let inv_r = 1.0 / r;
-        // Scalar pass: directions, their harmonics (so3), radii.
-        for (row, &j) in s.y.chunks_exact_mut(stride).zip(&s.sel) {
-            let (d, d2) = s.nb[j as usize];
-            let dist = d2.sqrt();
-            s.rho.push((dist * inv_r).min(1.0));
-            let inv = 1.0 / dist;
-            real_sh_f32(l_max, [d[0] * inv, d[1] * inv, d[2] * inv], row);
+        for ((&x, &y), &z) in dx[..count].iter().zip(&dy[..count]).zip(&dz[..count]) {
+            let d = [x, y, z];
             for k in 0..3 {
                 m1[k] += d[k];
             }
@@ -445,17 +510,68 @@ impl Engine {
             m2[4] += d[1] * d[2];
             m2[5] += d[2] * d[2];
         }
+        // Directions, their harmonics (so3) and radii, eight neighbours at a time.
+        kernel::directions(
+            self.kernel,
+            l_max,
+            1.0 / r,
+            dx,
+            dy,
+            dz,
+            d2,
+            &mut s.rho,
+            &mut s.y,
+        );
+        // Padding lanes sit on the sphere: f_c(1) = 0 exactly, so their weights are 0 and their
+        // cutoffs add exact zeros to the sum.
+        s.rho[count..].fill(1.0);
         let wsum = kernel::weights(self.kernel, &s.rho, n_sh, &mut s.fc, &mut s.step, &mut s.w);
-        kernel::project(self.kernel, &s.w, &s.y, count, n_sh, stride, &mut s.acc);
+        kernel::project(self.kernel, &s.w, &s.y, jp, n_sh, nk, &mut s.acc);
         let w = 1.0 + wsum + coincident as f32;
-        for (row, out) in s.acc.chunks_exact(stride).zip(s.c.chunks_exact_mut(nk)) {
-            for (o, a) in out.iter_mut().zip(row) {
-                *o = a / w;
-            }
+        for (o, a) in s.c.iter_mut().zip(&s.acc) {
+            *o = a / w;
         }
         fl |= shape_flags(count as u32, m1, m2);
         (count as u32, fl)
     }
+}
+
+/// Sorts distinct point indices (each point appears once in a query's hits) ascending. When the
+/// hits span few indices, as they do in clouds stored in scan or grid order, a bitmap over their
+/// range is set and read back in order (no comparison, no branch per pair); otherwise a
+/// comparison sort runs. Either way the result is the ascending order.
+fn sort_distinct(ids: &mut [u32], bits: &mut Vec<u64>) {
+    let n = ids.len();
+    if n < 2 {
+        return;
+    }
+    let (mut lo, mut hi) = (u32::MAX, 0u32);
+    for &i in ids.iter() {
+        lo = lo.min(i);
+        hi = hi.max(i);
+    }
+    let words = ((hi - lo) >> 6) as usize + 1;
+    if words > 2 * n + 16 {
+        ids.sort_unstable();
+        return;
+    }
+    bits.clear();
+    bits.resize(words, 0);
+    for &i in ids.iter() {
+        let o = i - lo;
+        bits[(o >> 6) as usize] |= 1u64 << (o & 63);
+    }
+    let mut k = 0;
+    for (w, &b) in bits.iter().enumerate() {
+        let base = lo + ((w as u32) << 6);
+        let mut b = b;
+        while b != 0 {
+            ids[k] = base + b.trailing_zeros();
+            k += 1;
+            b &= b - 1;
+        }
+    }
+    debug_assert_eq!(k, n, "indices must be distinct");
 }
 
 /// Flags from the neighbour count and the offsets' moments (see [`flags`]).
@@ -502,4 +618,38 @@ fn check_index(points: &[[f32; 3]], index: &KdIndex) -> Result<()> {
         ));
     }
     Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::sort_distinct;
+
+    #[test]
+    fn sort_distinct_sorts_narrow_and_wide_sets() {
+        let mut bits = Vec::new();
+        let mut s = 0x2545_f491_4f6c_dd1du64;
+        for (n, span) in [
+            (0usize, 1u32),
+            (1, 1),
+            (2, 2),
+            (70, 2000),
+            (60, 64),
+            (70, 1 << 30),
+        ] {
+            let mut ids: Vec<u32> = Vec::new();
+            while ids.len() < n {
+                s ^= s << 13;
+                s ^= s >> 7;
+                s ^= s << 17;
+                let v = 1000 + (s % span as u64) as u32;
+                if !ids.contains(&v) {
+                    ids.push(v);
+                }
+            }
+            let mut want = ids.clone();
+            want.sort_unstable();
+            sort_distinct(&mut ids, &mut bits);
+            assert_eq!(ids, want, "n {n} span {span}");
+        }
+    }
 }

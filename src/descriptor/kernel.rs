@@ -1,17 +1,18 @@
-//! The two vectorised inner loops of the engine: radial weights and the projection of the
+//! The vectorised inner loops of the engine: the per-neighbour pass (distances, directions,
+//! harmonics, eight neighbours at a time), radial weights, and the projection of the
 //! neighbours' harmonics onto the shells.
 //!
-//! Both run over structure-of-arrays buffers so that the compiler turns them into SIMD code.
-//! Where the processor has AVX2 and FMA (checked once, at run time) the projection is compiled
-//! for them and uses fused multiply-adds; elsewhere a portable build of the same loops runs.
-//! Each sum still runs over the neighbours in ascending point index, so on one machine the
-//! result is the same for any number of threads; the two kernels differ only by the rounding
-//! that fusing saves (a few f32 units in the last place).
+//! All run over structure-of-arrays buffers padded to a multiple of eight neighbours, so that
+//! the compiler turns them into SIMD code. Where the processor has AVX2 and FMA (checked once,
+//! at run time) the loops are compiled for them and the projection uses fused multiply-adds;
+//! elsewhere a portable build of the same loops runs. The per-neighbour values and the weights
+//! are bit-identical on both builds. Each projection sum runs in eight lanes (neighbours
+//! `j ≡ i (mod 8)` in ascending point index) added in a fixed tree, so on one machine the result
+//! is the same for any number of threads; the two kernels differ only by the rounding that
+//! fusing saves (a few f32 units in the last place).
 
 use super::radial::{cutoff, exp};
-
-/// Rows of harmonics are padded to a multiple of this many f32 values.
-pub(crate) const BLOCK: usize = 8;
+use crate::so3::sh::{num_coeffs, real_sh_f32, real_sh_lanes8_f32};
 
 /// Which build of the loops runs.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -126,83 +127,196 @@ const RECURRENCE_SHELLS: usize = 8;
 /// `1/e`.
 const INV_E: f32 = 0.367_879_44;
 
-/// `acc[n·stride + k] = Σ_j w[n·J + j] · y[j·stride + k]` for `n < n_sh`, `k < stride`, with
-/// `J = count` neighbours, summed in ascending `j`.
-pub(crate) fn project(
+/// Neighbours are processed in lanes of this many; buffers are padded to a multiple of it.
+pub(crate) const LANES: usize = 8;
+
+/// Per-neighbour pass over `J = d2.len()` neighbours (a multiple of [`LANES`]), given their
+/// offsets `dx, dy, dz` and squared distances `d2 > 0`: `rho[j] = min(|d_j|/r, 1)` (with
+/// `inv_r = 1/r`) and the harmonics of `d_j/|d_j|`, structure of arrays, `y[k·J + j]` for the
+/// flat index `k < (L+1)²`. Plain IEEE square roots, divisions and products (no fusing), so the
+/// values are bit-identical on every kernel and to the one-direction functions of so3.
+#[allow(clippy::too_many_arguments)]
+pub(crate) fn directions(
     k: Kernel,
-    w: &[f32],
-    y: &[f32],
-    count: usize,
-    n_sh: usize,
-    stride: usize,
-    acc: &mut [f32],
+    l_max: usize,
+    inv_r: f32,
+    dx: &[f32],
+    dy: &[f32],
+    dz: &[f32],
+    d2: &[f32],
+    rho: &mut Vec<f32>,
+    y: &mut Vec<f32>,
 ) {
     match k {
-        Kernel::Portable => project_impl::<false>(w, y, count, n_sh, stride, acc),
+        Kernel::Portable => directions_impl(l_max, inv_r, dx, dy, dz, d2, rho, y),
         #[cfg(target_arch = "x86_64")]
         // SAFETY: `Avx2Fma` is only chosen after the processor reported AVX2 and FMA.
-        Kernel::Avx2Fma => unsafe { project_avx2(w, y, count, n_sh, stride, acc) },
+        Kernel::Avx2Fma => unsafe { directions_avx2(l_max, inv_r, dx, dy, dz, d2, rho, y) },
     }
 }
 
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2,fma")]
-fn project_avx2(w: &[f32], y: &[f32], count: usize, n_sh: usize, stride: usize, acc: &mut [f32]) {
-    project_impl::<true>(w, y, count, n_sh, stride, acc)
+#[allow(clippy::too_many_arguments)]
+fn directions_avx2(
+    l_max: usize,
+    inv_r: f32,
+    dx: &[f32],
+    dy: &[f32],
+    dz: &[f32],
+    d2: &[f32],
+    rho: &mut Vec<f32>,
+    y: &mut Vec<f32>,
+) {
+    directions_impl(l_max, inv_r, dx, dy, dz, d2, rho, y)
+}
+
+#[inline(always)]
+#[allow(clippy::too_many_arguments)]
+fn directions_impl(
+    l_max: usize,
+    inv_r: f32,
+    dx: &[f32],
+    dy: &[f32],
+    dz: &[f32],
+    d2: &[f32],
+    rho: &mut Vec<f32>,
+    y: &mut Vec<f32>,
+) {
+    let jp = d2.len();
+    debug_assert!(jp.is_multiple_of(LANES));
+    let nk = num_coeffs(l_max);
+    // Every value is overwritten below: grow the buffers without clearing them.
+    rho.resize(jp, 0.0);
+    y.resize(nk * jp, 0.0);
+    let mut sh = [[0.0f32; LANES]; 25];
+    let mut row = vec![0.0f32; if l_max > 4 { nk } else { 0 }];
+    for (b, (((x8, y8), z8), q8)) in dx
+        .chunks_exact(LANES)
+        .zip(dy.chunks_exact(LANES))
+        .zip(dz.chunks_exact(LANES))
+        .zip(d2.chunks_exact(LANES))
+        .enumerate()
+    {
+        let j0 = b * LANES;
+        let mut u = [[0.0f32; LANES]; 3];
+        let r8 = &mut rho[j0..j0 + LANES];
+        for i in 0..LANES {
+            let dist = q8[i].sqrt();
+            r8[i] = (dist * inv_r).min(1.0);
+            let inv = 1.0 / dist;
+            u[0][i] = x8[i] * inv;
+            u[1][i] = y8[i] * inv;
+            u[2][i] = z8[i] * inv;
+        }
+        if l_max <= 4 {
+            real_sh_lanes8_f32(l_max, u[0], u[1], u[2], &mut sh);
+            for (kk, v) in sh[..nk].iter().enumerate() {
+                y[kk * jp + j0..kk * jp + j0 + LANES].copy_from_slice(v);
+            }
+        } else {
+            for i in 0..LANES {
+                real_sh_f32(l_max, [u[0][i], u[1][i], u[2][i]], &mut row);
+                for (kk, &v) in row.iter().enumerate() {
+                    y[kk * jp + j0 + i] = v;
+                }
+            }
+        }
+    }
+}
+
+/// `acc[n·K + k] = Σ_j w[n·J + j] · y[k·J + j]` for `n < n_sh`, `k < K = nk`, over the `J`
+/// (a multiple of [`LANES`]) neighbours: each lane `i` sums the neighbours `j ≡ i (mod 8)` in
+/// ascending `j`, then the eight lane sums are added in a fixed tree. The order depends only on
+/// `J`, never on the thread or the tree's visiting order.
+pub(crate) fn project(
+    k: Kernel,
+    w: &[f32],
+    y: &[f32],
+    jp: usize,
+    n_sh: usize,
+    nk: usize,
+    acc: &mut [f32],
+) {
+    match k {
+        Kernel::Portable => project_impl::<false>(w, y, jp, n_sh, nk, acc),
+        #[cfg(target_arch = "x86_64")]
+        // SAFETY: `Avx2Fma` is only chosen after the processor reported AVX2 and FMA.
+        Kernel::Avx2Fma => unsafe { project_avx2(w, y, jp, n_sh, nk, acc) },
+    }
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2,fma")]
+fn project_avx2(w: &[f32], y: &[f32], jp: usize, n_sh: usize, nk: usize, acc: &mut [f32]) {
+    project_impl::<true>(w, y, jp, n_sh, nk, acc)
 }
 
 #[inline(always)]
 fn project_impl<const FMA: bool>(
     w: &[f32],
     y: &[f32],
-    count: usize,
+    jp: usize,
     n_sh: usize,
-    stride: usize,
+    nk: usize,
     acc: &mut [f32],
 ) {
-    let y = &y[..count * stride];
-    for n in 0..n_sh {
-        let wn = &w[n * count..(n + 1) * count];
-        let out = &mut acc[n * stride..(n + 1) * stride];
-        let mut kb = 0;
-        while kb + 32 <= stride {
-            block::<32, FMA>(wn, y, stride, kb, &mut out[kb..kb + 32]);
-            kb += 32;
+    debug_assert!(jp.is_multiple_of(LANES));
+    let mut n = 0;
+    while n < n_sh {
+        let two = n + 2 <= n_sh;
+        let mut k = 0;
+        while k < nk {
+            let five = k + 5 <= nk;
+            match (two, five) {
+                (true, true) => tile::<2, 5, FMA>(w, y, jp, n, k, nk, acc),
+                (true, false) => tile::<2, 1, FMA>(w, y, jp, n, k, nk, acc),
+                (false, true) => tile::<1, 5, FMA>(w, y, jp, n, k, nk, acc),
+                (false, false) => tile::<1, 1, FMA>(w, y, jp, n, k, nk, acc),
+            }
+            k += if five { 5 } else { 1 };
         }
-        while kb + 16 <= stride {
-            block::<16, FMA>(wn, y, stride, kb, &mut out[kb..kb + 16]);
-            kb += 16;
-        }
-        while kb + BLOCK <= stride {
-            block::<BLOCK, FMA>(wn, y, stride, kb, &mut out[kb..kb + BLOCK]);
-            kb += BLOCK;
-        }
+        n += if two { 2 } else { 1 };
     }
 }
 
-/// Columns `kb..kb + B` of one shell's sums, kept in registers over all neighbours.
+/// Sums of shells `n..n + NB` against harmonics `k..k + KB`, lane sums kept in registers.
 #[inline(always)]
-fn block<const B: usize, const FMA: bool>(
-    wn: &[f32],
+fn tile<const NB: usize, const KB: usize, const FMA: bool>(
+    w: &[f32],
     y: &[f32],
-    stride: usize,
-    kb: usize,
-    out: &mut [f32],
+    jp: usize,
+    n: usize,
+    k: usize,
+    nk: usize,
+    acc: &mut [f32],
 ) {
-    let mut a = [0.0f32; B];
-    for (j, &wj) in wn.iter().enumerate() {
-        let row: &[f32; B] = y[j * stride + kb..j * stride + kb + B]
-            .try_into()
-            .expect("block width");
-        for k in 0..B {
-            a[k] = if FMA {
-                wj.mul_add(row[k], a[k])
-            } else {
-                wj * row[k] + a[k]
-            };
+    let wr: [&[f32]; NB] = std::array::from_fn(|a| &w[(n + a) * jp..(n + a + 1) * jp]);
+    let yr: [&[f32]; KB] = std::array::from_fn(|b| &y[(k + b) * jp..(k + b + 1) * jp]);
+    let mut s = [[[0.0f32; LANES]; KB]; NB];
+    for j0 in (0..jp).step_by(LANES) {
+        let wv: [[f32; LANES]; NB] =
+            std::array::from_fn(|a| wr[a][j0..j0 + LANES].try_into().expect("lane block"));
+        for b in 0..KB {
+            let yv: &[f32; LANES] = yr[b][j0..j0 + LANES].try_into().expect("lane block");
+            for a in 0..NB {
+                for i in 0..LANES {
+                    s[a][b][i] = if FMA {
+                        wv[a][i].mul_add(yv[i], s[a][b][i])
+                    } else {
+                        wv[a][i] * yv[i] + s[a][b][i]
+                    };
+                }
+            }
         }
     }
-    out.copy_from_slice(&a);
+    for a in 0..NB {
+        for b in 0..KB {
+            let l = &s[a][b];
+            acc[(n + a) * nk + k + b] =
+                ((l[0] + l[1]) + (l[2] + l[3])) + ((l[4] + l[5]) + (l[6] + l[7]));
+        }
+    }
 }
 
 #[cfg(test)]
@@ -211,25 +325,73 @@ mod tests {
 
     #[test]
     fn projection_kernels_agree_with_a_plain_sum() {
-        let (count, n_sh, stride) = (37, 3, 48);
-        let w: Vec<f32> = (0..n_sh * count)
-            .map(|i| ((i * 7919) % 101) as f32 / 101.0)
+        // 37 neighbours padded to 40 (zero weights), 3 shells and 27 columns: every tile shape.
+        let (count, jp, n_sh, nk) = (37, 40, 3, 27);
+        let w: Vec<f32> = (0..n_sh * jp)
+            .map(|i| {
+                if i % jp < count {
+                    ((i * 7919) % 101) as f32 / 101.0
+                } else {
+                    0.0
+                }
+            })
             .collect();
-        let y: Vec<f32> = (0..count * stride)
+        let y: Vec<f32> = (0..nk * jp)
             .map(|i| ((i * 104_729) % 97) as f32 / 48.0 - 1.0)
             .collect();
         for k in [Kernel::Portable, Kernel::detect()] {
-            let mut acc = vec![0.0f32; n_sh * stride];
-            project(k, &w, &y, count, n_sh, stride, &mut acc);
+            let mut acc = vec![0.0f32; n_sh * nk];
+            project(k, &w, &y, jp, n_sh, nk, &mut acc);
             for n in 0..n_sh {
-                for c in 0..stride {
+                for c in 0..nk {
                     let want: f64 = (0..count)
-                        .map(|j| w[n * count + j] as f64 * y[j * stride + c] as f64)
+                        .map(|j| w[n * jp + j] as f64 * y[c * jp + j] as f64)
                         .sum();
                     assert!(
-                        (acc[n * stride + c] as f64 - want).abs() < 1e-5,
+                        (acc[n * nk + c] as f64 - want).abs() < 1e-5,
                         "{k:?} n {n} col {c}"
                     );
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn directions_match_the_one_direction_harmonics() {
+        for l_max in [0usize, 2, 4, 5] {
+            let nk = num_coeffs(l_max);
+            let jp = 16;
+            let d: Vec<[f32; 3]> = (0..jp)
+                .map(|i| {
+                    let t = i as f32 * 0.7;
+                    [t.cos() * 1.3, (t * 1.7).sin() - 0.2, 0.4 * t - 2.0]
+                })
+                .collect();
+            let (dx, dy, dz): (Vec<f32>, Vec<f32>, Vec<f32>) = (
+                d.iter().map(|v| v[0]).collect(),
+                d.iter().map(|v| v[1]).collect(),
+                d.iter().map(|v| v[2]).collect(),
+            );
+            let d2: Vec<f32> = d
+                .iter()
+                .map(|v| v[0] * v[0] + v[1] * v[1] + v[2] * v[2])
+                .collect();
+            for k in [Kernel::Portable, Kernel::detect()] {
+                let (mut rho, mut y) = (Vec::new(), Vec::new());
+                directions(k, l_max, 0.5, &dx, &dy, &dz, &d2, &mut rho, &mut y);
+                let mut row = vec![0.0f32; nk];
+                for j in 0..jp {
+                    let dist = d2[j].sqrt();
+                    assert_eq!(rho[j], (dist * 0.5).min(1.0));
+                    let inv = 1.0 / dist;
+                    real_sh_f32(
+                        l_max,
+                        [d[j][0] * inv, d[j][1] * inv, d[j][2] * inv],
+                        &mut row,
+                    );
+                    for c in 0..nk {
+                        assert_eq!(y[c * jp + j], row[c], "{k:?} L {l_max} j {j} k {c}");
+                    }
                 }
             }
         }

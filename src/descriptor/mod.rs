@@ -10,8 +10,9 @@
 //! over the neighbours `0 < |q − p| ≤ r`, with `ρ = |q − p|/r`, `u = (q − p)/|q − p|`, Gaussian
 //! shells `g_n` ([`radial`]), cutoff `f_c(ρ) = ½(1 + cos πρ)`, and the orthonormal real harmonics
 //! of [`crate::so3::sh`] (no Condon–Shortley phase, index `l² + l + m`). Lengths are in the
-//! cloud's file units; all arithmetic is f32 on local positions, summed in ascending neighbour
-//! index, with invariants formed in f64 from the f32 coefficients.
+//! cloud's file units; all arithmetic is f32 on local positions, summed in an order fixed by the
+//! ascending neighbour indices (eight lanes of neighbours, then the lanes in a fixed tree), with
+//! invariants formed in f64 from the f32 coefficients.
 //!
 //! Under a rotation `R` the coefficients of each `(n, l)` turn by the real Wigner-D matrix:
 //! `c_nl(Rp; RP) = D^l(R) c_nl(p; P)`; the invariants (norms, power spectrum, bispectrum) do not

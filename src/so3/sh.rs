@@ -15,7 +15,7 @@
 //! recurrence in `l` at fixed `m`. No trigonometric function is called. Degrees `L ≤ 4` take a
 //! hand-unrolled closed form of the same polynomials.
 
-use super::float::Real;
+use super::float::{Lanes8, Poly, Real};
 use std::sync::OnceLock;
 
 /// Degrees up to this value (exclusive) use precomputed recurrence coefficients; higher degrees
@@ -106,7 +106,7 @@ impl<T: Real> Tables<T> {
 }
 
 /// Scalars with a cached recurrence table.
-trait ShScalar: Real {
+trait ShScalar: Real + Poly {
     fn tables() -> &'static Tables<Self>;
 }
 
@@ -126,8 +126,8 @@ impl ShScalar for f64 {
 
 /// Closed form for `l_max ≤ 4` (unit `x, y, z`).
 #[inline(always)]
-fn sh_closed<T: Real>(l_max: usize, x: T, y: T, z: T, out: &mut [T]) {
-    let k = |v: f64| T::from_f64(v);
+fn sh_closed<T: Poly>(l_max: usize, x: T, y: T, z: T, out: &mut [T]) {
+    let k = |v: f64| T::constant(v);
     let out = &mut out[..num_coeffs(l_max)];
     out[0] = k(Y00);
     if l_max == 0 {
@@ -147,7 +147,7 @@ fn sh_closed<T: Real>(l_max: usize, x: T, y: T, z: T, out: &mut [T]) {
     let k20 = k(0.315_391_565_252_520_05);
     out[4] = k22 * s2;
     out[5] = k21 * z * y;
-    out[6] = k20 * (k(3.0) * z2 - T::ONE);
+    out[6] = k20 * (k(3.0) * z2 - T::UNIT);
     out[7] = k21 * z * x;
     out[8] = k22 * c2;
     if l_max == 2 {
@@ -156,7 +156,7 @@ fn sh_closed<T: Real>(l_max: usize, x: T, y: T, z: T, out: &mut [T]) {
     let (c3, s3) = (x * c2 - y * s2, x * s2 + y * c2);
     let k33 = k(0.590_043_589_926_643_6);
     let k32 = k(1.445_305_721_320_277_3);
-    let p31 = k(0.457_045_799_464_465_8) * (k(5.0) * z2 - T::ONE);
+    let p31 = k(0.457_045_799_464_465_8) * (k(5.0) * z2 - T::UNIT);
     let k32z = k32 * z;
     out[9] = k33 * s3;
     out[10] = k32z * s2;
@@ -171,7 +171,7 @@ fn sh_closed<T: Real>(l_max: usize, x: T, y: T, z: T, out: &mut [T]) {
     let (c4, s4) = (x * c3 - y * s3, x * s3 + y * c3);
     let k44 = k(0.625_835_735_449_176_3);
     let k43z = k(1.770_130_769_779_930_7) * z;
-    let p42 = k(0.473_087_347_878_78) * (k(7.0) * z2 - T::ONE);
+    let p42 = k(0.473_087_347_878_78) * (k(7.0) * z2 - T::UNIT);
     let p41 = k(0.669_046_543_557_289_2) * z * (k(7.0) * z2 - k(3.0));
     out[16] = k44 * s4;
     out[17] = k43z * s3;
@@ -428,6 +428,28 @@ fn sh_vec<T: ShScalar>(l_max: usize, v: [T; 3], out: &mut [T]) -> T {
 #[inline]
 pub fn real_sh_f32(l_max: usize, u: [f32; 3], out: &mut [f32]) {
     sh_unit(l_max, u, out)
+}
+
+/// Real spherical harmonics of degrees `0..=l_max ≤ 4` at eight unit vectors at once (lane `i`
+/// is the vector `(x[i], y[i], z[i])`), structure of arrays: `out[k][i] = Y_k(u_i)` for the flat
+/// index `k = l² + l + m`. Each lane is bit-identical to [`real_sh_f32`] of that vector.
+///
+/// # Panics
+/// If `l_max > 4` or `out.len() < (l_max + 1)²`.
+#[inline(always)]
+pub fn real_sh_lanes8_f32(
+    l_max: usize,
+    x: [f32; 8],
+    y: [f32; 8],
+    z: [f32; 8],
+    out: &mut [[f32; 8]],
+) {
+    assert!(l_max <= 4, "real_sh_lanes8_f32: degree {l_max} is above 4");
+    let mut v = [Lanes8([0.0; 8]); 25];
+    sh_closed(l_max, Lanes8(x), Lanes8(y), Lanes8(z), &mut v);
+    for (o, v) in out[..num_coeffs(l_max)].iter_mut().zip(&v) {
+        *o = v.0;
+    }
 }
 
 /// `f64` version of [`real_sh_f32`].

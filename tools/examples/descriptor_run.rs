@@ -92,6 +92,18 @@ fn main() {
         f.columns.len(),
         100.0 * c_search / c_all
     );
+    // FNV-1a over the output bytes: equal checksums for any thread count (determinism).
+    let mut h = 0xcbf2_9ce4_8422_2325u64;
+    let bytes = f
+        .values
+        .iter()
+        .flat_map(|v| v.to_le_bytes())
+        .chain(f.counts.iter().flat_map(|v| v.to_le_bytes()))
+        .chain(f.flags.iter().copied());
+    for b in bytes {
+        h = (h ^ b as u64).wrapping_mul(0x0100_0000_01b3);
+    }
+    println!("output checksum {h:016x}");
     println!(
         "memory: cloud {:.0} MB, output {:.0} MB",
         (pts.len() * 12) as f64 / 1e6,
