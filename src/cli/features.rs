@@ -222,6 +222,15 @@ pub fn run(args: &FeaturesArgs) -> Result<u8> {
                         summary.points_per_second,
                         summary.output
                     );
+                    if summary.centres_without_neighbours > 0 {
+                        eprintln!(
+                            "{}: {} centres ({:.1} %) found no neighbour within the support radius and are all zeros (flag 1); give a larger --radius if they matter",
+                            summary.input,
+                            summary.centres_without_neighbours,
+                            100.0 * summary.centres_without_neighbours as f64
+                                / summary.centres.max(1) as f64
+                        );
+                    }
                 }
             }
             Err(e) => {
