@@ -354,25 +354,10 @@ pub fn horn(src: &[Vector3<f64>], dst: &[Vector3<f64>], weights: Option<&[f64]>)
 mod tests {
     use super::*;
     use crate::so3::rng::SplitMix64;
+    use crate::so3::rotation::random_rotation;
 
     fn v(x: f64, y: f64, z: f64) -> Vector3<f64> {
         Vector3::new(x, y, z)
-    }
-
-    /// Uniform random rotation (Shoemake 1992, from three uniforms).
-    fn random_rotation(rng: &mut SplitMix64) -> Matrix3<f64> {
-        let (u1, u2, u3) = (rng.next_f64(), rng.next_f64(), rng.next_f64());
-        let tau = std::f64::consts::TAU;
-        let (a, b) = ((1.0 - u1).sqrt(), u1.sqrt());
-        let q = nalgebra::Quaternion::new(
-            b * (tau * u3).cos(),
-            a * (tau * u2).sin(),
-            a * (tau * u2).cos(),
-            b * (tau * u3).sin(),
-        );
-        *UnitQuaternion::from_quaternion(q)
-            .to_rotation_matrix()
-            .matrix()
     }
 
     /// Umeyama (1991), worked example: (0,0), (1,0), (0,2) onto (0,0), (−1,0), (0,2) gives

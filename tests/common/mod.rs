@@ -15,7 +15,7 @@ use equiscan::Cloud;
 use equiscan::align::Rigid;
 use equiscan::so3::rng::SplitMix64;
 use equiscan::spatial::{KdIndex, estimate_spacing};
-use nalgebra::{Matrix3, Rotation3, UnitQuaternion, Vector3};
+use nalgebra::{Matrix3, Rotation3, Vector3};
 
 /// A triangle mesh.
 pub struct Mesh {
@@ -96,21 +96,8 @@ pub fn bunny() -> Mesh {
     Mesh { vertices, faces }
 }
 
-/// Uniformly random rotation from three uniforms (K. Shoemake, Graphics Gems III, 1992).
-pub fn random_rotation(rng: &mut SplitMix64) -> Matrix3<f64> {
-    let (u1, u2, u3) = (rng.next_f64(), rng.next_f64(), rng.next_f64());
-    let tau = std::f64::consts::TAU;
-    let (a, b) = ((1.0 - u1).sqrt(), u1.sqrt());
-    let q = nalgebra::Quaternion::new(
-        b * (tau * u3).cos(),
-        a * (tau * u2).sin(),
-        a * (tau * u2).cos(),
-        b * (tau * u3).sin(),
-    );
-    *UnitQuaternion::from_quaternion(q)
-        .to_rotation_matrix()
-        .matrix()
-}
+/// Uniformly random rotation (Shoemake 1992), from the library's SO(3) core.
+pub use equiscan::so3::rotation::random_rotation;
 
 fn unit(rng: &mut SplitMix64) -> Vector3<f64> {
     let [x, y, z] = rng.unit_vector();
