@@ -84,7 +84,7 @@ impl Default for AlignParams {
             radius: None,
             inlier_voxels: 2.5,
             ransac_iterations: 20_000,
-            refine_best: 4,
+            refine_best: 12,
             loss: RobustLoss::Tukey,
             seed: 1,
         }
