@@ -56,7 +56,7 @@ fn part_scans_get_no_confident_wrong_pose() {
         ("bracket", Outcome::NotFound),
         ("flange", Outcome::NotFound),
         ("shaft", Outcome::Ambiguous),
-        ("elbow", Outcome::Ambiguous),
+        ("elbow", Outcome::Aligned),
         ("nut", Outcome::Ambiguous),
     ];
     for part in v["parts"].as_array().unwrap() {
