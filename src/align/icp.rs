@@ -146,6 +146,56 @@ pub fn fit_quality(
     (rmse, n)
 }
 
+/// Like [`plane_fit`]'s tight count, and the points must also agree in surface orientation:
+/// the source normal, rotated by `tf`, makes an angle of at most `max_angle_deg` with the target
+/// normal's line (sign ignored, as PCA normals of a one-sided scan carry no reliable outward
+/// sense). A wrong pose that lays a flat face of the source on a flat face of the target fits
+/// the plane test along that face, but the edges and other faces then cross the target's
+/// surface at an angle.
+#[allow(clippy::too_many_arguments)]
+pub fn oriented_fit(
+    source: &[[f32; 3]],
+    source_normals: &[[f32; 3]],
+    target: &[[f32; 3]],
+    target_normals: &[[f32; 3]],
+    target_index: &KdIndex,
+    tf: &Rigid,
+    max_distance: f64,
+    plane_tolerance: f64,
+    max_angle_deg: f64,
+) -> usize {
+    let cutoff2 = max_distance * max_distance;
+    let min_cos = max_angle_deg.to_radians().cos();
+    let parts: Vec<usize> = source
+        .par_chunks(CHUNK)
+        .zip(source_normals.par_chunks(CHUNK))
+        .map(|(chunk, normals)| {
+            let mut tight = 0usize;
+            for (p, ns) in chunk.iter().zip(normals) {
+                let pm = tf.apply_f32(*p);
+                let (j, d2) = target_index.nearest_one([pm.x as f32, pm.y as f32, pm.z as f32]);
+                if d2 as f64 > cutoff2 {
+                    continue;
+                }
+                let n = target_normals[j];
+                let q = target[j];
+                let d: f64 = (0..3).map(|k| n[k] as f64 * (pm[k] - q[k] as f64)).sum();
+                if d.abs() > plane_tolerance {
+                    continue;
+                }
+                let nr =
+                    tf.rotation * nalgebra::Vector3::new(ns[0] as f64, ns[1] as f64, ns[2] as f64);
+                let c: f64 = (0..3).map(|k| n[k] as f64 * nr[k]).sum();
+                if c.abs() >= min_cos {
+                    tight += 1;
+                }
+            }
+            tight
+        })
+        .collect();
+    parts.iter().sum()
+}
+
 /// For `source` moved by `tf`: the number of points whose nearest target point lies within
 /// `max_distance` and whose distance to that point's tangent plane is at most `plane_tolerance`
 /// (a tight overlap count that tells a pose that fits the surface from one that only lies near

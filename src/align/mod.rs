@@ -14,8 +14,9 @@
 //! 3. [`matching`]: nearest neighbours in feature space, mutual check and ratio test;
 //! 4. [`consensus`]: pose hypotheses (3-point RANSAC for the baseline; one per correspondence
 //!    from the equivariant coefficients), scored by the correspondences they explain;
-//! 5. refinement of the best few on their inliers (weighted Umeyama), then point-to-plane
-//!    [`icp`] with a robust loss; the best refined pose wins;
+//! 5. refinement of the best few on their inliers (weighted Umeyama), ranking by tight overlap
+//!    (plane distance and normal agreement), then point-to-plane [`icp`] with a robust loss from
+//!    the 12 best distinct poses; the best refined pose wins;
 //! 6. [`residual`]: the inlier RMSE on the full-resolution clouds; [`quality`]: overlap, consensus, ambiguity, a confidence figure and a verdict.
 //!
 //! [`multi`] registers more than two scans through a maximum spanning tree of pair confidences.

@@ -8,7 +8,7 @@ use serde::{Deserialize, Serialize};
 use super::consensus::{self, Hypothesis, Pairs};
 use super::equivariant::{self, EquivariantRecipe};
 use super::fpfh::{FPFH_LEN, fpfh};
-use super::icp::{IcpParams, RobustLoss, fit_quality, icp_point_to_plane, plane_fit};
+use super::icp::{IcpParams, RobustLoss, fit_quality, icp_point_to_plane, oriented_fit};
 use super::matching::{MatchParams, match_features};
 use super::prep::{choose_voxel, prepare, spacing_of};
 use super::quality::{self, Figures, Verdict};
@@ -73,6 +73,9 @@ pub struct AlignParams {
 const SHORTLIST: usize = 40;
 /// Tolerance of the tight overlap (distance to the target's tangent plane), in voxel sizes.
 const PLANE_TOLERANCE_VOXELS: f64 = 0.25;
+/// Largest angle between the source and target normal lines for a point to count in the tight
+/// overlap, in degrees.
+const NORMAL_ANGLE_DEG: f64 = 30.0;
 /// Source keypoints used to re-rank hypotheses by overlap.
 const OVERLAP_SAMPLE: usize = 400;
 
@@ -84,7 +87,7 @@ impl Default for AlignParams {
             radius: None,
             inlier_voxels: 2.5,
             ransac_iterations: 20_000,
-            refine_best: 4,
+            refine_best: 12,
             loss: RobustLoss::Tukey,
             seed: 1,
         }
@@ -264,25 +267,29 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
         }
     };
     // Re-rank the strongest distinct hypotheses, each first refined on its inliers, by how many
-    // of a subsample of the source keypoints they put close to the target's tangent planes:
-    // correspondences can be few, the geometry is always there, and a dominant plane (ground)
-    // does not favour a wrong pose under a plane-distance test as it does under a plain
-    // distance test.
+    // of a subsample of the source keypoints they put close to the target's tangent planes with
+    // the surface orientations agreeing: correspondences can be few, the geometry is always
+    // there, and a dominant plane (ground) does not favour a wrong pose under a plane-distance
+    // test as it does under a plain distance test; the orientation test keeps a pose that lays
+    // one flat face on another from counting the edges and faces that cross the target.
     let shortlist = consensus::best_distinct(hyps, SHORTLIST, 10.0, 5.0 * tau);
     let stride = ps.points.len().div_ceil(OVERLAP_SAMPLE).max(1);
     let sample: Vec<[f32; 3]> = ps.points.iter().step_by(stride).copied().collect();
+    let sample_normals: Vec<[f32; 3]> = ps.normals.iter().step_by(stride).copied().collect();
     let mut ranked: Vec<(usize, Hypothesis)> = shortlist
         .par_iter()
         .map(|h| {
             let h = consensus::refine_on_inliers(&pairs, &h.transform, tau, 4);
-            let (n, _) = plane_fit(
+            let n = oriented_fit(
                 &sample,
+                &sample_normals,
                 &pt.points,
                 &pt.normals,
                 &pt.index,
                 &h.transform,
                 tau,
                 2.0 * PLANE_TOLERANCE_VOXELS * voxel,
+                NORMAL_ANGLE_DEG,
             );
             (n, h)
         })
@@ -315,14 +322,16 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
         .map(|start| {
             let out =
                 icp_point_to_plane(&ps.points, &pt.points, &pt.normals, &pt.index, start, &icp);
-            let (n, _) = plane_fit(
+            let n = oriented_fit(
                 &ps.points,
+                &ps.normals,
                 &pt.points,
                 &pt.normals,
                 &pt.index,
                 &out.transform,
                 tau,
                 PLANE_TOLERANCE_VOXELS * voxel,
+                NORMAL_ANGLE_DEG,
             );
             (
                 out.transform,
@@ -354,14 +363,16 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
         .fold(0.0f64, f64::max);
     // The shortlist holds more poses than were polished: a symmetric shape splits its matches
     // among its symmetric poses, which then rank alike. Compare them on the same subsample.
-    let (sample_tight, _) = plane_fit(
+    let sample_tight = oriented_fit(
         &sample,
+        &sample_normals,
         &pt.points,
         &pt.normals,
         &pt.index,
         &coarse,
         tau,
         2.0 * PLANE_TOLERANCE_VOXELS * voxel,
+        NORMAL_ANGLE_DEG,
     );
     let rival = ranked
         .iter()

@@ -5,7 +5,8 @@
 //! - *margin*: `1 − ρ`, where `ρ` is, over the clearly different refined poses (another rotation
 //!   by more than 10° or a shift by more than 5 inlier thresholds), the largest
 //!   `min(o₂/o₁, k₂/k₁)`: `o` the tight overlap (source keypoints within the inlier threshold of a
-//!   target keypoint *and* within a quarter voxel of its tangent plane), `k` the correspondences
+//!   target keypoint, within a quarter voxel of its tangent plane, and with normals within 30°
+//!   of each other, sign ignored), `k` the correspondences
 //!   explained, `1` the winner and `2` the rival. Near 0 for symmetric shapes, where a rival keeps
 //!   both; a dominant plane lets a rival keep overlap but not the matched features.
 //!
