@@ -18,14 +18,8 @@ fn equiscan(args: &[&str], dir: &Path) -> Output {
 /// A seeded cloud: 600 points on a unit sphere and a plane below it, offset far from zero like
 /// survey coordinates, written as PLY.
 fn small_cloud(dir: &Path, name: &str, seed: u64) -> PathBuf {
-    let mut s = seed;
-    let mut next = move || {
-        s = s.wrapping_add(0x9E37_79B9_7F4A_7C15);
-        let mut z = s;
-        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-        ((z ^ (z >> 31)) >> 11) as f64 / (1u64 << 53) as f64
-    };
+    let mut rng = equiscan::so3::rng::SplitMix64::new(seed);
+    let mut next = move || rng.next_f64();
     let mut pts = Vec::new();
     for _ in 0..300 {
         let (u, v) = (2.0 * next() - 1.0, std::f64::consts::TAU * next());

@@ -146,8 +146,9 @@ pub fn fit_quality(
     (rmse, n)
 }
 
-/// Like [`plane_fit`]'s tight count, and the points must also agree in surface orientation:
-/// the source normal, rotated by `tf`, makes an angle of at most `max_angle_deg` with the target
+/// For `source` moved by `tf`: the number of points whose nearest target point lies within
+/// `max_distance`, whose distance to that point's tangent plane is at most `plane_tolerance`, and
+/// whose orientation agrees: the source normal, rotated by `tf`, makes an angle of at most `max_angle_deg` with the target
 /// normal's line (sign ignored, as PCA normals of a one-sided scan carry no reliable outward
 /// sense). A wrong pose that lays a flat face of the source on a flat face of the target fits
 /// the plane test along that face, but the edges and other faces then cross the target's
@@ -194,54 +195,6 @@ pub fn oriented_fit(
         })
         .collect();
     parts.iter().sum()
-}
-
-/// For `source` moved by `tf`: the number of points whose nearest target point lies within
-/// `max_distance` and whose distance to that point's tangent plane is at most `plane_tolerance`
-/// (a tight overlap count that tells a pose that fits the surface from one that only lies near
-/// it, such as a patch slid over a rounded surface), and the RMSE of the point-to-plane distances
-/// of all points paired within `max_distance`.
-pub fn plane_fit(
-    source: &[[f32; 3]],
-    target: &[[f32; 3]],
-    target_normals: &[[f32; 3]],
-    target_index: &KdIndex,
-    tf: &Rigid,
-    max_distance: f64,
-    plane_tolerance: f64,
-) -> (usize, f64) {
-    let cutoff2 = max_distance * max_distance;
-    let parts: Vec<(usize, usize, f64)> = source
-        .par_chunks(CHUNK)
-        .map(|chunk| {
-            let (mut tight, mut paired, mut ss) = (0usize, 0usize, 0.0f64);
-            for p in chunk {
-                let pm = tf.apply_f32(*p);
-                let (j, d2) = target_index.nearest_one([pm.x as f32, pm.y as f32, pm.z as f32]);
-                if d2 as f64 > cutoff2 {
-                    continue;
-                }
-                let n = target_normals[j];
-                let q = target[j];
-                let d: f64 = (0..3).map(|k| n[k] as f64 * (pm[k] - q[k] as f64)).sum();
-                paired += 1;
-                ss += d * d;
-                if d.abs() <= plane_tolerance {
-                    tight += 1;
-                }
-            }
-            (tight, paired, ss)
-        })
-        .collect();
-    let (tight, paired, ss) = parts
-        .iter()
-        .fold((0, 0, 0.0), |a, x| (a.0 + x.0, a.1 + x.1, a.2 + x.2));
-    let rmse = if paired > 0 {
-        (ss / paired as f64).sqrt()
-    } else {
-        f64::NAN
-    };
-    (tight, rmse)
 }
 
 fn collect_pairs(

@@ -108,17 +108,12 @@ impl KdIndex {
 mod tests {
     use super::*;
 
-    /// Seeded pseudo-random points (SplitMix64), reproducible across platforms.
+    /// Seeded pseudo-random points in the unit cube.
     fn points(n: usize, seed: u64) -> Vec<[f32; 3]> {
-        let mut s = seed;
-        let mut next = move || {
-            s = s.wrapping_add(0x9E37_79B9_7F4A_7C15);
-            let mut z = s;
-            z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-            z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-            ((z ^ (z >> 31)) >> 40) as f32 / (1u64 << 24) as f32
-        };
-        (0..n).map(|_| [next(), next(), next()]).collect()
+        let mut rng = crate::so3::rng::SplitMix64::new(seed);
+        (0..n)
+            .map(|_| std::array::from_fn(|_| rng.next_f64() as f32))
+            .collect()
     }
 
     #[test]

@@ -4,12 +4,13 @@
 //! Every stream is derived from a seed with [`Rng::derive`], so that the numbers a ray or a
 //! sample sees depend only on its own index, never on the order in which threads run.
 
+use equiscan::so3::rng::SplitMix64;
 use nalgebra::{Matrix3, UnitQuaternion};
 
-/// SplitMix64 generator with a cached second Box–Muller deviate.
+/// The library's SplitMix64 generator with a cached second Box–Muller deviate.
 #[derive(Debug, Clone)]
 pub struct Rng {
-    state: u64,
+    bits: SplitMix64,
     spare: Option<f64>,
 }
 
@@ -17,7 +18,7 @@ impl Rng {
     /// A generator started at `seed`.
     pub fn new(seed: u64) -> Self {
         Rng {
-            state: seed,
+            bits: SplitMix64::new(seed),
             spare: None,
         }
     }
@@ -31,16 +32,12 @@ impl Rng {
 
     /// Next 64 random bits.
     pub fn next_u64(&mut self) -> u64 {
-        self.state = self.state.wrapping_add(0x9E37_79B9_7F4A_7C15);
-        let mut z = self.state;
-        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-        z ^ (z >> 31)
+        self.bits.next_u64()
     }
 
     /// Uniform in [0, 1), 53 random bits.
     pub fn uniform(&mut self) -> f64 {
-        (self.next_u64() >> 11) as f64 * (1.0 / (1u64 << 53) as f64)
+        self.bits.next_f64()
     }
 
     /// Uniform in [lo, hi).
