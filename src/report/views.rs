@@ -27,8 +27,8 @@ pub const ALIGNMENT_SIZE: [u32; 2] = [1800, 1200];
 /// Size in pixels of the single-cloud picture.
 pub const CLOUD_SIZE: [u32; 2] = [1800, 860];
 
-/// A row-major 4 × 4 rigid transform acting on global coordinates (`p' = T p`).
-pub type Transform = [[f64; 4]; 4];
+/// The rigid transform moving a layer in the "after" row, acting on global coordinates.
+pub type Transform = crate::geometry::Rigid;
 
 /// One set of points drawn in one colour.
 #[derive(Debug, Clone)]
@@ -224,9 +224,12 @@ fn prepare(layer: &Layer<'_>, reference: [f64; 3], transform: Option<&Transform>
         .map(|p| {
             let g: [f64; 3] = std::array::from_fn(|k| layer.origin[k] + p[k] as f64);
             let g = match transform {
-                Some(t) => std::array::from_fn(|r| {
-                    t[r][0] * g[0] + t[r][1] * g[1] + t[r][2] * g[2] + t[r][3]
-                }),
+                Some(t) => {
+                    let (m, v) = (&t.rotation, &t.translation);
+                    std::array::from_fn(|r| {
+                        m[(r, 0)] * g[0] + m[(r, 1)] * g[1] + m[(r, 2)] * g[2] + v[r]
+                    })
+                }
                 None => g,
             };
             std::array::from_fn(|k| g[k] - reference[k])
@@ -462,7 +465,7 @@ fn grid(width: i64, top: i64, bottom: i64, rows: i64) -> Vec<PanelLayout> {
 
 fn check_transform(layer: &Layer<'_>) -> Result<()> {
     if let Some(t) = &layer.after
-        && !t.iter().flatten().all(|v| v.is_finite())
+        && !(t.rotation.iter().chain(t.translation.iter())).all(|v| v.is_finite())
     {
         return Err(Error::invalid(
             format!("the transform of layer {} is not finite", layer.name),
@@ -864,12 +867,7 @@ mod tests {
         }
         let fixed_origin = [638_864.6, 4_853_123.4, 120.0];
         let moved_origin = [638_869.6, 4_853_126.4, 122.0];
-        let mut back = [[0.0; 4]; 4];
-        for (k, d) in [-5.0, -3.0, -2.0].into_iter().enumerate() {
-            back[k][k] = 1.0;
-            back[k][3] = d;
-        }
-        back[3][3] = 1.0;
+        let back = Transform::translation(nalgebra::Vector3::new(-5.0, -3.0, -2.0));
         let orange = [250, 120, 0];
         let blue = [0, 90, 250];
         let layers = [
@@ -974,7 +972,9 @@ mod tests {
             colour: [0; 3],
             origin: [0.0; 3],
             points: &[],
-            after: Some([[f64::NAN; 4]; 4]),
+            after: Some(Transform::translation(nalgebra::Vector3::from_element(
+                f64::NAN,
+            ))),
         };
         assert!(draw_alignment_views(&[bad], &text).is_err());
     }

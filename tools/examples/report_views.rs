@@ -6,6 +6,7 @@
 use std::path::PathBuf;
 
 use equiscan::Cloud;
+use equiscan::geometry::Rigid;
 use equiscan::report::{
     ColourMap, FigureText, LAYER_PALETTE, Layer, ScalarField, render_alignment_views,
     render_cloud_views,
@@ -114,7 +115,10 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     let source = Cloud::from_global(&source);
     let target = Cloud::from_global(&target);
     let layers = [
-        Layer::from_cloud("source", LAYER_PALETTE[0], &source).moved_after(transform),
+        Layer::from_cloud("source", LAYER_PALETTE[0], &source).moved_after(Rigid::new(
+            nalgebra::Matrix3::from_fn(|i, j| transform[i][j]),
+            nalgebra::Vector3::new(transform[0][3], transform[1][3], transform[2][3]),
+        )),
         Layer::from_cloud("target", LAYER_PALETTE[1], &target),
     ];
     let text = FigureText {
