@@ -72,7 +72,8 @@ fn npy_with_sidecar_and_suggested_radius() {
     // x/y/z local, count, flags, 30 norms, 105 power-spectrum values
     assert_eq!(cols, 3 + 2 + 30 + 105);
     let side: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(dir.path().join("f.json")).unwrap()).unwrap();
+        serde_json::from_str(&std::fs::read_to_string(dir.path().join("f.npy.json")).unwrap())
+            .unwrap();
     assert_eq!(side["rows"], 600);
     assert_eq!(side["columns"].as_array().unwrap().len(), cols);
     assert!(side["columns"][3].as_str().unwrap().ends_with("_count"));
@@ -136,7 +137,8 @@ fn ply_csv_las_outputs_and_json_summary() {
         lines.len() - 1
     );
     let side: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(dir.path().join("f.json")).unwrap()).unwrap();
+        serde_json::from_str(&std::fs::read_to_string(dir.path().join("f.csv.json")).unwrap())
+            .unwrap();
     assert_eq!(side["metadata"]["centres"]["kind"], "voxel");
     assert_eq!(
         side["metadata"]["centre_indices"].as_array().unwrap().len(),
@@ -298,7 +300,7 @@ fn bad_input_exits_2_with_one_line_and_no_output() {
         assert_eq!(out.status.code(), Some(2), "{args:?}: {stderr}");
         assert!(stderr.contains(want), "{args:?}: {stderr}");
         assert_eq!(stderr.trim_end().lines().count(), 1, "{args:?}: {stderr}");
-        assert!(!dir.path().join("x.npy").exists() && !dir.path().join("x.json").exists());
+        assert!(!dir.path().join("x.npy").exists() && !dir.path().join("x.npy.json").exists());
     }
     // clap's own usage errors exit 2 too
     let out = equiscan(&["features", "scan.ply"], dir.path());

@@ -4,13 +4,14 @@
 //! most 10 000 points; the suggested support radius is 5 × the spacing, common practice for
 //! local descriptors (about 60–100 neighbours on a scanned surface). Both are in file units.
 
-use std::io::Write;
 use std::path::{Path, PathBuf};
 
+use equiscan::Result;
 use equiscan::io::{Bounds, FileInfo, read_cloud};
 use equiscan::spatial::{estimate_spacing, suggested_support_radius};
-use equiscan::{Error, Result};
 use serde::Serialize;
+
+use super::common::{CommonArgs, print_stdout};
 
 /// Arguments of `equiscan info`.
 #[derive(Debug, clap::Args)]
@@ -18,9 +19,9 @@ pub struct InfoArgs {
     /// LAS, LAZ or PLY files (the format is recognised from the content).
     #[arg(required = true, value_name = "FILE")]
     pub files: Vec<PathBuf>,
-    /// Print one JSON object per file, one per line, instead of text.
-    #[arg(long)]
-    pub json: bool,
+    /// `-q`, `--json` (one object per file, one per line), `--threads`.
+    #[command(flatten)]
+    pub common: CommonArgs,
 }
 
 /// What `info` reports for one file.
@@ -136,32 +137,23 @@ pub fn render(r: &InfoReport) -> String {
 /// Runs `info` on every file; a failing file prints its one-line error on stderr and the run
 /// goes on. Exit code 0 when every file was read, 2 otherwise.
 pub fn run(args: &InfoArgs) -> Result<u8> {
+    let c = &args.common;
+    let pool = c.pool()?;
     let mut code = 0;
-    let stdout = std::io::stdout();
     for (i, path) in args.files.iter().enumerate() {
-        match inspect(path) {
+        match pool.install(|| inspect(path)) {
             Ok(r) => {
-                let text = if args.json {
-                    let mut t = serde_json::to_string(&r).map_err(|e| {
-                        Error::invalid(
-                            format!("cannot encode the report: {e}"),
-                            "report this as a bug",
-                        )
-                    })?;
-                    t.push('\n');
-                    t
-                } else if i > 0 {
-                    format!("\n{}", render(&r))
-                } else {
-                    render(&r)
-                };
-                let mut out = stdout.lock();
                 // A closed pipe (e.g. `| head`) ends the run quietly.
-                if out
-                    .write_all(text.as_bytes())
-                    .and_then(|_| out.flush())
-                    .is_err()
-                {
+                let open = if c.json {
+                    c.print_json(&r)?
+                } else if c.quiet {
+                    true
+                } else if i > 0 {
+                    print_stdout(&format!("\n{}", render(&r)))
+                } else {
+                    print_stdout(&render(&r))
+                };
+                if !open {
                     return Ok(code);
                 }
             }

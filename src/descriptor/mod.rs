@@ -31,14 +31,17 @@
 mod engine;
 mod invariants;
 mod kernel;
+pub mod output;
 pub mod radial;
 mod recipe;
+mod support;
 
 pub use engine::{Centres, Engine, Features};
 pub use recipe::{
     DEFAULT_DEGREE, DEFAULT_SHELLS, Invariants, MAX_DEGREE, MAX_SHELLS, RECIPE_VERSION, Recipe,
     RecipeBuilder, bispectrum_triples,
 };
+pub use support::{round_2_significant, suggested_radius};
 
 /// Per-centre, per-scale flag bits ([`Features::flags`]). A flagged row is still well defined
 /// (finite, no NaN); the flags say how far to trust it.

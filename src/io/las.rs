@@ -27,7 +27,6 @@ use las::{Builder, Color, PointDataBuilder, Transform, Vector, Version, Vlr};
 use crate::cloud::Cloud;
 use crate::error::{Error, Result};
 
-use super::atomic::write_atomic;
 use super::{Bounds, Column, FileInfo, check_columns, open_input};
 
 /// Points per `fill_points` call for LAS; LAZ uses more so that parallel decompression has
@@ -532,25 +531,42 @@ impl LasOptions {
     }
 }
 
-/// The Extra Bytes VLR (`LASF_Spec`, record 4) describing `columns` as f32 values.
-pub(crate) fn extra_bytes_vlr(columns: &[Column<'_>]) -> Vlr {
-    let mut data = Vec::with_capacity(columns.len() * EXTRA_BYTES_DESCRIPTOR);
-    for c in columns {
+/// Most f32 columns whose Extra Bytes descriptors fit one VLR (its length is a u16:
+/// 341 × 192 = 65 472 bytes).
+pub const MAX_LAS_COLUMNS: usize = u16::MAX as usize / EXTRA_BYTES_DESCRIPTOR;
+
+/// Running smallest and largest finite value of each column, for the Extra Bytes descriptors.
+#[derive(Debug, Clone)]
+struct Ranges(Vec<(f64, f64)>);
+
+impl Ranges {
+    fn new(n: usize) -> Self {
+        Ranges(vec![(f64::INFINITY, f64::NEG_INFINITY); n])
+    }
+
+    fn add(&mut self, values: &[f32]) {
+        for ((lo, hi), &v) in self.0.iter_mut().zip(values) {
+            if v.is_finite() {
+                *lo = lo.min(v as f64);
+                *hi = hi.max(v as f64);
+            }
+        }
+    }
+}
+
+/// The Extra Bytes VLR (`LASF_Spec`, record 4) describing `names` as f32 values with the
+/// given ranges (options bits 1 and 2 set where a column has a finite value).
+fn extra_bytes_vlr(names: &[String], ranges: &Ranges) -> Vlr {
+    let mut data = Vec::with_capacity(names.len() * EXTRA_BYTES_DESCRIPTOR);
+    for (name, &(lo, hi)) in names.iter().zip(&ranges.0) {
         let mut d = [0u8; EXTRA_BYTES_DESCRIPTOR];
         d[2] = 9; // data type: float
-        let (lo, hi) = c
-            .values
-            .iter()
-            .filter(|v| v.is_finite())
-            .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &v| {
-                (lo.min(v as f64), hi.max(v as f64))
-            });
         if lo <= hi {
             d[3] = 0b0000_0110; // min and max are valid
             d[64..72].copy_from_slice(&lo.to_le_bytes());
             d[88..96].copy_from_slice(&hi.to_le_bytes());
         }
-        d[4..4 + c.name.len()].copy_from_slice(c.name.as_bytes());
+        d[4..4 + name.len()].copy_from_slice(name.as_bytes());
         let desc = b"per-point feature";
         d[160..160 + desc.len()].copy_from_slice(desc);
         data.extend_from_slice(&d);
@@ -580,7 +596,8 @@ pub fn write_las(path: &Path, cloud: &Cloud, columns: &[Column<'_>]) -> Result<(
 ///
 /// Intensity is rounded and clamped to 0..=65535; classification 12 (overlap) is written
 /// with the overlap flag in formats 6–10. Column names: at most 32 bytes, letters, digits and
-/// `_`. Every coordinate must fit the 32-bit integer range at the chosen scale and offset.
+/// `_`; at most [`MAX_LAS_COLUMNS`] columns. Every coordinate must fit the 32-bit integer range
+/// at the chosen scale and offset.
 pub fn write_las_with(
     path: &Path,
     cloud: &Cloud,
@@ -589,155 +606,283 @@ pub fn write_las_with(
 ) -> Result<()> {
     cloud.validate().map_err(|e| super::about(path, e))?;
     check_columns(path, cloud.len(), columns, &[])?;
-    if let Some(c) = columns.iter().find(|c| c.name.len() > 32) {
-        return Err(Error::file(
-            path,
-            format!("column name {} is longer than 32 bytes", c.name),
-            "use a shorter name for LAS extra bytes",
-        ));
+    let names: Vec<String> = columns.iter().map(|c| c.name.to_string()).collect();
+    let mut w = LasRowWriter::create(path, cloud, &names, options)?;
+    let step = 1 << 16;
+    let mut values = Vec::with_capacity(step * columns.len());
+    let mut start = 0;
+    while start < cloud.len() {
+        let end = (start + step).min(cloud.len());
+        values.clear();
+        for i in start..end {
+            values.extend(columns.iter().map(|c| c.values[i]));
+        }
+        let rows: Vec<(usize, [f32; 3])> = (start..end).map(|i| (i, cloud.positions[i])).collect();
+        w.write_rows(Some(cloud), &rows, &values)?;
+        start = end;
     }
-    let n_extra = columns.len() * 4;
-    if n_extra + 67 > u16::MAX as usize {
-        return Err(Error::file(
-            path,
-            format!("{} columns do not fit a LAS point record", columns.len()),
-            "write fewer columns to LAS, or use NPY",
-        ));
-    }
-    let compress = path
-        .extension()
-        .is_some_and(|e| e.eq_ignore_ascii_case("laz"));
-    let fmt_no = match options
-        .point_format
-        .unwrap_or(if cloud.color.is_some() { 7 } else { 6 })
-    {
-        4 => 1,
-        5 => 3,
-        9 => 6,
-        10 => 8,
-        f if f <= 10 => f,
-        f => {
+    w.finish()?.commit()
+}
+
+/// A LAS/LAZ file written in chunks of rows, in the layout of [`write_las_with`]: the header
+/// and VLRs first (the Extra Bytes ranges are filled in by [`LasRowWriter::finish`]), then
+/// the points as they come. The file stays under a temporary name until the
+/// [`Finished`](super::Finished) it returns is committed.
+pub struct LasRowWriter {
+    path: std::path::PathBuf,
+    temp: super::TempFile,
+    writer: las::Writer<BufWriter<std::fs::File>>,
+    format: las::point::Format,
+    fmt_no: u8,
+    names: Vec<String>,
+    ranges: Ranges,
+    origin: [f64; 3],
+}
+
+impl LasRowWriter {
+    /// Starts `path` for points with the attributes present in `like` (its origin is the
+    /// local frame of the rows) and f32 columns `names`.
+    pub fn create(
+        path: &Path,
+        like: &Cloud,
+        names: &[String],
+        options: &LasOptions,
+    ) -> Result<LasRowWriter> {
+        if let Some(c) = names.iter().find(|c| c.len() > 32) {
             return Err(Error::file(
                 path,
-                format!("point format {f} does not exist"),
-                "choose a point format from 0 to 10",
+                format!("column name {c} is longer than 32 bytes"),
+                "use a shorter name for LAS extra bytes",
             ));
         }
-    };
-    let mut format = las::point::Format::new(fmt_no).map_err(|e| las_err(path, e))?;
-    format.extra_bytes = n_extra as u16;
-    format.is_compressed = compress;
-    let scale = options.scale.unwrap_or([0.001; 3]);
-    let offset = options.offset.unwrap_or(cloud.origin);
-    if !scale.iter().all(|s| s.is_finite() && *s > 0.0) || !offset.iter().all(|o| o.is_finite()) {
-        return Err(Error::file(
-            path,
-            "the LAS scale must be positive and the offset finite",
-            "give other scale factors or offsets",
-        ));
-    }
-    let transforms = Vector {
-        x: Transform {
-            scale: scale[0],
-            offset: offset[0],
-        },
-        y: Transform {
-            scale: scale[1],
-            offset: offset[1],
-        },
-        z: Transform {
-            scale: scale[2],
-            offset: offset[2],
-        },
-    };
-    let mut builder = Builder::default();
-    builder.version = Version::new(1, 4);
-    builder.point_format = format;
-    builder.transforms = transforms;
-    builder.generating_software = "equiscan".to_string();
-    // LAS 1.4 R15 system identifier, from memory: "OTHER" when the points do not come straight
-    // from one instrument (the spec also names MERGE, MODIFICATION, EXTRACTION, …).
-    builder.system_identifier = "OTHER".to_string();
-    builder.vlrs = options.crs_records.clone();
-    if !columns.is_empty() {
-        builder.vlrs.push(extra_bytes_vlr(columns));
-    }
-    let header = builder.into_header().map_err(|e| las_err(path, e))?;
-
-    write_atomic(path, |w| {
-        let file = w.get_ref().try_clone().map_err(|e| Error::io(path, &e))?;
-        let mut writer = las::Writer::new(BufWriter::with_capacity(1 << 20, file), header)
-            .map_err(|e| las_err(path, e))?;
-        let step = 1 << 16;
-        let mut start = 0;
-        while start < cloud.len() {
-            let end = (start + step).min(cloud.len());
-            let points = (start..end).map(|i| las_point(cloud, columns, &format, i));
-            let pd = PointDataBuilder::new()
-                .for_header(writer.header())
-                .build_from_points(points)
-                .map_err(|e| match e {
-                    las::Error::InvalidInverseTransform { .. } => Error::file(
-                        path,
-                        "a coordinate does not fit the LAS integer range at this scale and offset",
-                        "choose a larger scale or an offset near the points",
-                    ),
-                    e => las_err(path, e),
-                })?;
-            writer.write_points(&pd).map_err(|e| las_err(path, e))?;
-            start = end;
+        if names.len() > MAX_LAS_COLUMNS {
+            return Err(Error::file(
+                path,
+                format!(
+                    "{} feature columns are more than the {MAX_LAS_COLUMNS} whose descriptions fit a LAS Extra Bytes record",
+                    names.len()
+                ),
+                "write NPY or CSV (a .npy or .csv output), or ask for fewer invariants or scales",
+            ));
         }
-        let inner = writer.into_inner().map_err(|e| las_err(path, e))?;
+        let compress = path
+            .extension()
+            .is_some_and(|e| e.eq_ignore_ascii_case("laz"));
+        let fmt_no = match options
+            .point_format
+            .unwrap_or(if like.color.is_some() { 7 } else { 6 })
+        {
+            4 => 1,
+            5 => 3,
+            9 => 6,
+            10 => 8,
+            f if f <= 10 => f,
+            f => {
+                return Err(Error::file(
+                    path,
+                    format!("point format {f} does not exist"),
+                    "choose a point format from 0 to 10",
+                ));
+            }
+        };
+        let mut format = las::point::Format::new(fmt_no).map_err(|e| las_err(path, e))?;
+        format.extra_bytes = (names.len() * 4) as u16;
+        format.is_compressed = compress;
+        let scale = options.scale.unwrap_or([0.001; 3]);
+        let offset = options.offset.unwrap_or(like.origin);
+        if !scale.iter().all(|s| s.is_finite() && *s > 0.0) || !offset.iter().all(|o| o.is_finite())
+        {
+            return Err(Error::file(
+                path,
+                "the LAS scale must be positive and the offset finite",
+                "give other scale factors or offsets",
+            ));
+        }
+        let t = |k: usize| Transform {
+            scale: scale[k],
+            offset: offset[k],
+        };
+        let mut builder = Builder::default();
+        builder.version = Version::new(1, 4);
+        builder.point_format = format;
+        builder.transforms = Vector {
+            x: t(0),
+            y: t(1),
+            z: t(2),
+        };
+        builder.generating_software = "equiscan".to_string();
+        // LAS 1.4 R15 system identifier, from memory: "OTHER" when the points do not come
+        // straight from one instrument (the spec also names MERGE, MODIFICATION, EXTRACTION, …).
+        builder.system_identifier = "OTHER".to_string();
+        builder.vlrs = options.crs_records.clone();
+        let ranges = Ranges::new(names.len());
+        if !names.is_empty() {
+            // Same length as the final record; the ranges are written by `finish`.
+            builder.vlrs.push(extra_bytes_vlr(names, &ranges));
+        }
+        let header = builder.into_header().map_err(|e| las_err(path, e))?;
+        let mut temp = super::TempFile::create(path)?;
+        let file = temp
+            .writer()
+            .get_ref()
+            .try_clone()
+            .map_err(|e| Error::io(path, &e))?;
+        let writer = las::Writer::new(BufWriter::with_capacity(1 << 20, file), header)
+            .map_err(|e| las_err(path, e))?;
+        Ok(LasRowWriter {
+            path: path.to_path_buf(),
+            temp,
+            writer,
+            format,
+            fmt_no,
+            names: names.to_vec(),
+            ranges,
+            origin: like.origin,
+        })
+    }
+
+    /// Writes one point per entry of `rows`, `(point index in attrs, local position)`, with
+    /// the column values `values` (row-major, `rows.len() × names.len()`). `attrs`: the cloud
+    /// whose attributes the points carry; `None` writes defaults (class 1, first return).
+    pub fn write_rows(
+        &mut self,
+        attrs: Option<&Cloud>,
+        rows: &[(usize, [f32; 3])],
+        values: &[f32],
+    ) -> Result<()> {
+        let nc = self.names.len();
+        let path = &self.path;
+        let points = rows.iter().enumerate().map(|(r, &(i, p))| {
+            let v = &values[r * nc..(r + 1) * nc];
+            let g: [f64; 3] = std::array::from_fn(|k| self.origin[k] + p[k] as f64);
+            las_point(attrs.map(|c| (c, i)), g, v, &self.format)
+        });
+        let pd = PointDataBuilder::new()
+            .for_header(self.writer.header())
+            .build_from_points(points)
+            .map_err(|e| match e {
+                las::Error::InvalidInverseTransform { .. } => Error::file(
+                    path,
+                    "a coordinate does not fit the LAS integer range at this scale and offset",
+                    "choose a larger scale or an offset near the points",
+                ),
+                e => las_err(path, e),
+            })?;
+        self.writer
+            .write_points(&pd)
+            .map_err(|e| las_err(path, e))?;
+        for r in 0..rows.len() {
+            self.ranges.add(&values[r * nc..(r + 1) * nc]);
+        }
+        Ok(())
+    }
+
+    /// Closes the point data, writes the column ranges into the Extra Bytes record and, for
+    /// formats 6–10, zeroes the legacy counts; returns the complete, synced temporary file.
+    pub fn finish(self) -> Result<super::Finished> {
+        let path = &self.path;
+        let inner = self.writer.into_inner().map_err(|e| las_err(path, e))?;
         let mut file = inner.into_inner().map_err(|e| Error::io(path, e.error()))?;
-        if fmt_no >= 6 {
+        if self.fmt_no >= 6 {
             // LAS 1.4 R15, Table 3: the legacy point count (byte 107, u32) and legacy counts
             // by return (bytes 111–130, 5 × u32) must be zero for point formats 6–10; the las
             // crate fills them in, so clear them here.
             file.seek(SeekFrom::Start(107))
                 .and_then(|_| file.write_all(&[0u8; 24]))
-                .and_then(|_| file.seek(SeekFrom::End(0)).map(|_| ()))
                 .map_err(|e| Error::io(path, &e))?;
         }
-        Ok(())
-    })
+        if !self.names.is_empty() {
+            let vlr = extra_bytes_vlr(&self.names, &self.ranges);
+            let at = find_vlr_data(&mut file, "LASF_Spec", 4).map_err(|e| Error::io(path, &e))?;
+            let at = at.ok_or_else(|| {
+                Error::file(
+                    path,
+                    "the Extra Bytes record is missing from the file just written",
+                    "report this as a bug",
+                )
+            })?;
+            file.seek(SeekFrom::Start(at))
+                .and_then(|_| file.write_all(&vlr.data))
+                .map_err(|e| Error::io(path, &e))?;
+        }
+        file.seek(SeekFrom::End(0))
+            .map_err(|e| Error::io(path, &e))?;
+        drop(file);
+        self.temp.finish()
+    }
+}
+
+/// Offset of the data of the first VLR with `user_id` and `record_id` in a LAS file (header
+/// size at byte 94, VLR count at 100; each VLR header is 54 bytes: user id at 2–17, record id
+/// at 18, length after the header at 20).
+fn find_vlr_data(
+    file: &mut std::fs::File,
+    user_id: &str,
+    record_id: u16,
+) -> std::io::Result<Option<u64>> {
+    let mut head = [0u8; 104];
+    file.seek(SeekFrom::Start(0))?;
+    file.read_exact(&mut head)?;
+    let mut at = u16_at(&head, 94) as u64;
+    for _ in 0..u32_at(&head, 100) {
+        let mut v = [0u8; 54];
+        file.seek(SeekFrom::Start(at))?;
+        file.read_exact(&mut v)?;
+        let len = u16_at(&v, 20) as u64;
+        let id = &v[2..18];
+        let name_len = id.iter().position(|&b| b == 0).unwrap_or(16);
+        if &id[..name_len] == user_id.as_bytes() && u16_at(&v, 18) == record_id {
+            return Ok(Some(at + 54));
+        }
+        at += 54 + len;
+    }
+    Ok(None)
 }
 
 fn las_point(
-    cloud: &Cloud,
-    columns: &[Column<'_>],
+    attrs: Option<(&Cloud, usize)>,
+    g: [f64; 3],
+    values: &[f32],
     format: &las::point::Format,
-    i: usize,
 ) -> las::Point {
-    let g = cloud.global(i);
-    let class = cloud.classification.as_ref().map_or(1, |c| c[i]);
-    let ret = cloud.return_number.as_ref().map_or(1, |r| r[i]);
+    let cloud = attrs.map(|(c, _)| c);
+    let i = attrs.map_or(0, |(_, i)| i);
+    let class = cloud
+        .and_then(|c| c.classification.as_ref())
+        .map_or(1, |c| c[i]);
+    let ret = cloud
+        .and_then(|c| c.return_number.as_ref())
+        .map_or(1, |r| r[i]);
     let max_ret = if format.is_extended { 15 } else { 7 };
     let ret = ret.min(max_ret);
-    let mut extra = Vec::with_capacity(columns.len() * 4);
-    for c in columns {
-        extra.extend_from_slice(&c.values[i].to_le_bytes());
+    let mut extra = Vec::with_capacity(values.len() * 4);
+    for v in values {
+        extra.extend_from_slice(&v.to_le_bytes());
     }
     las::Point {
         x: g[0],
         y: g[1],
         z: g[2],
         intensity: cloud
-            .intensity
-            .as_ref()
+            .and_then(|c| c.intensity.as_ref())
             .map_or(0, |v| v[i].round().clamp(0.0, 65535.0) as u16),
         return_number: ret,
         number_of_returns: ret,
         classification: las::point::Classification::new(class)
             .unwrap_or(las::point::Classification::CreatedNeverClassified),
         is_overlap: class == 12,
-        gps_time: format
-            .has_gps_time
-            .then(|| cloud.gps_time.as_ref().map_or(0.0, |v| v[i])),
+        gps_time: format.has_gps_time.then(|| {
+            cloud
+                .and_then(|c| c.gps_time.as_ref())
+                .map_or(0.0, |v| v[i])
+        }),
         color: format.has_color.then(|| {
-            cloud.color.as_ref().map_or(Color::default(), |c| {
-                let [red, green, blue] = c[i];
-                Color { red, green, blue }
-            })
+            cloud
+                .and_then(|c| c.color.as_ref())
+                .map_or(Color::default(), |c| {
+                    let [red, green, blue] = c[i];
+                    Color { red, green, blue }
+                })
         }),
         nir: format.has_nir.then_some(0),
         extra_bytes: extra,

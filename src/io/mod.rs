@@ -21,6 +21,7 @@
 
 mod atomic;
 mod csv;
+pub mod guard;
 mod las;
 mod npy;
 mod ply;
@@ -34,11 +35,14 @@ use serde::Serialize;
 use crate::cloud::Cloud;
 use crate::error::{Error, Result};
 
-pub use atomic::write_atomic;
+pub use atomic::{
+    Finished, TEMP_SUFFIX, TempFile, remove_live_temp_files, remove_stale_temp_files, temp_owner,
+    write_atomic,
+};
 pub use csv::write_csv;
-pub use las::{LasOptions, write_las, write_las_with};
+pub use las::{LasOptions, LasRowWriter, MAX_LAS_COLUMNS, write_las, write_las_with};
 pub use npy::{npy_header, write_npy, write_npy_with_sidecar};
-pub use ply::{read_ply_mesh, write_ply};
+pub use ply::{PLY_TAKEN, PlyLayout, read_ply_mesh, write_ply};
 
 /// A named per-point f32 column, borrowed: `values[i]` belongs to point `i`.
 #[derive(Debug, Clone, Copy)]

@@ -1093,90 +1093,16 @@ pub fn read_ply_mesh(path: &Path) -> Result<(Cloud, Vec<[u32; 3]>)> {
 /// 10⁻⁹ file units there).
 pub fn write_ply(path: &Path, cloud: &Cloud, columns: &[Column<'_>]) -> Result<()> {
     cloud.validate().map_err(|e| super::about(path, e))?;
-    let taken = [
-        "x",
-        "y",
-        "z",
-        "nx",
-        "ny",
-        "nz",
-        "red",
-        "green",
-        "blue",
-        "intensity",
-        "classification",
-        "return_number",
-        "gps_time",
-    ];
-    check_columns(path, cloud.len(), columns, &taken)?;
-    let wide_color = cloud
-        .color
-        .as_ref()
-        .is_some_and(|c| c.iter().flatten().any(|&v| v > 255));
-    let mut h = String::from("ply\nformat binary_little_endian 1.0\n");
-    let o = cloud.origin;
-    h += &format!("comment {ORIGIN_COMMENT} {} {} {}\n", o[0], o[1], o[2]);
-    h += &format!("element vertex {}\n", cloud.len());
-    h += "property double x\nproperty double y\nproperty double z\n";
-    if cloud.normals.is_some() {
-        h += "property float nx\nproperty float ny\nproperty float nz\n";
-    }
-    if cloud.color.is_some() {
-        let t = if wide_color { "ushort" } else { "uchar" };
-        h += &format!("property {t} red\nproperty {t} green\nproperty {t} blue\n");
-    }
-    if cloud.intensity.is_some() {
-        h += "property float intensity\n";
-    }
-    if cloud.classification.is_some() {
-        h += "property uchar classification\n";
-    }
-    if cloud.return_number.is_some() {
-        h += "property uchar return_number\n";
-    }
-    if cloud.gps_time.is_some() {
-        h += "property double gps_time\n";
-    }
-    for c in columns {
-        h += &format!("property float {}\n", c.name);
-    }
-    h += "end_header\n";
+    check_columns(path, cloud.len(), columns, &PLY_TAKEN)?;
+    let names: Vec<&str> = columns.iter().map(|c| c.name).collect();
+    let layout = PlyLayout::new(cloud, None, &names, cloud.len());
+    let header = layout.header();
     write_atomic(path, |w| {
-        put(w, path, h.as_bytes())?;
+        put(w, path, header.as_bytes())?;
         let mut rec = Vec::with_capacity(64 + 4 * columns.len());
         for i in 0..cloud.len() {
             rec.clear();
-            for (o, l) in cloud.origin.iter().zip(cloud.positions[i]) {
-                // With a zero origin the f32 value itself is written (keeps -0.0).
-                let g = if *o == 0.0 { l as f64 } else { o + l as f64 };
-                rec.extend_from_slice(&g.to_le_bytes());
-            }
-            if let Some(n) = &cloud.normals {
-                for v in n[i] {
-                    rec.extend_from_slice(&v.to_le_bytes());
-                }
-            }
-            if let Some(c) = &cloud.color {
-                for v in c[i] {
-                    if wide_color {
-                        rec.extend_from_slice(&v.to_le_bytes());
-                    } else {
-                        rec.push(v as u8);
-                    }
-                }
-            }
-            if let Some(v) = &cloud.intensity {
-                rec.extend_from_slice(&v[i].to_le_bytes());
-            }
-            if let Some(v) = &cloud.classification {
-                rec.push(v[i]);
-            }
-            if let Some(v) = &cloud.return_number {
-                rec.push(v[i]);
-            }
-            if let Some(v) = &cloud.gps_time {
-                rec.extend_from_slice(&v[i].to_le_bytes());
-            }
+            layout.point(cloud.positions[i], Some((cloud, i)), &mut rec);
             for c in columns {
                 rec.extend_from_slice(&c.values[i].to_le_bytes());
             }
@@ -1184,4 +1110,145 @@ pub fn write_ply(path: &Path, cloud: &Cloud, columns: &[Column<'_>]) -> Result<(
         }
         Ok(())
     })
+}
+
+/// Property names [`write_ply`] uses for coordinates and attributes; columns may not reuse them.
+pub const PLY_TAKEN: [&str; 13] = [
+    "x",
+    "y",
+    "z",
+    "nx",
+    "ny",
+    "nz",
+    "red",
+    "green",
+    "blue",
+    "intensity",
+    "classification",
+    "return_number",
+    "gps_time",
+];
+
+/// The vertex layout of a binary PLY written by [`write_ply`], for writers that produce rows in
+/// chunks: [`PlyLayout::header`] first, then per row [`PlyLayout::point`] followed by the row's
+/// column values as little-endian f32.
+#[derive(Debug, Clone)]
+pub struct PlyLayout {
+    origin: [f64; 3],
+    normals: bool,
+    /// `Some(wide)` when colour is written; wide = ushort.
+    color: Option<bool>,
+    intensity: bool,
+    classification: bool,
+    return_number: bool,
+    gps_time: bool,
+    columns: Vec<String>,
+    rows: usize,
+}
+
+impl PlyLayout {
+    /// The layout for `rows` vertices with the attributes present in `like` (its origin too)
+    /// and float `columns`. `wide_color`: ushort colour; `None` decides from `like`'s colours
+    /// (ushort when any value is above 255).
+    pub fn new(like: &Cloud, wide_color: Option<bool>, columns: &[&str], rows: usize) -> Self {
+        let wide = wide_color.unwrap_or_else(|| {
+            like.color
+                .as_ref()
+                .is_some_and(|c| c.iter().flatten().any(|&v| v > 255))
+        });
+        PlyLayout {
+            origin: like.origin,
+            normals: like.normals.is_some(),
+            color: like.color.is_some().then_some(wide),
+            intensity: like.intensity.is_some(),
+            classification: like.classification.is_some(),
+            return_number: like.return_number.is_some(),
+            gps_time: like.gps_time.is_some(),
+            columns: columns.iter().map(|c| c.to_string()).collect(),
+            rows,
+        }
+    }
+
+    /// The header text, `ply` to `end_header` and its newline.
+    pub fn header(&self) -> String {
+        let mut h = String::from("ply\nformat binary_little_endian 1.0\n");
+        let o = self.origin;
+        h += &format!("comment {ORIGIN_COMMENT} {} {} {}\n", o[0], o[1], o[2]);
+        h += &format!("element vertex {}\n", self.rows);
+        h += "property double x\nproperty double y\nproperty double z\n";
+        if self.normals {
+            h += "property float nx\nproperty float ny\nproperty float nz\n";
+        }
+        if let Some(wide) = self.color {
+            let t = if wide { "ushort" } else { "uchar" };
+            h += &format!("property {t} red\nproperty {t} green\nproperty {t} blue\n");
+        }
+        if self.intensity {
+            h += "property float intensity\n";
+        }
+        if self.classification {
+            h += "property uchar classification\n";
+        }
+        if self.return_number {
+            h += "property uchar return_number\n";
+        }
+        if self.gps_time {
+            h += "property double gps_time\n";
+        }
+        for c in &self.columns {
+            h += &format!("property float {c}\n");
+        }
+        h += "end_header\n";
+        h
+    }
+
+    /// Appends the coordinates (`position` in the layout's local frame) and the attributes of
+    /// point `i` of `attrs` (a cloud with the attributes the layout was made with; `None` only
+    /// for a layout without attributes) to `rec`. The column values follow.
+    pub fn point(&self, position: [f32; 3], attrs: Option<(&Cloud, usize)>, rec: &mut Vec<u8>) {
+        for (o, l) in self.origin.iter().zip(position) {
+            // With a zero origin the f32 value itself is written (keeps -0.0).
+            let g = if *o == 0.0 { l as f64 } else { o + l as f64 };
+            rec.extend_from_slice(&g.to_le_bytes());
+        }
+        let Some((cloud, i)) = attrs else {
+            return;
+        };
+        if self.normals
+            && let Some(n) = &cloud.normals
+        {
+            for v in n[i] {
+                rec.extend_from_slice(&v.to_le_bytes());
+            }
+        }
+        if let (Some(wide), Some(c)) = (self.color, &cloud.color) {
+            for v in c[i] {
+                if wide {
+                    rec.extend_from_slice(&v.to_le_bytes());
+                } else {
+                    rec.push(v as u8);
+                }
+            }
+        }
+        if self.intensity
+            && let Some(v) = &cloud.intensity
+        {
+            rec.extend_from_slice(&v[i].to_le_bytes());
+        }
+        if self.classification
+            && let Some(v) = &cloud.classification
+        {
+            rec.push(v[i]);
+        }
+        if self.return_number
+            && let Some(v) = &cloud.return_number
+        {
+            rec.push(v[i]);
+        }
+        if self.gps_time
+            && let Some(v) = &cloud.gps_time
+        {
+            rec.extend_from_slice(&v[i].to_le_bytes());
+        }
+    }
 }
