@@ -537,3 +537,36 @@ fn messages_count_in_words() {
         "{stderr}"
     );
 }
+
+#[test]
+fn las_column_limit_matches_laspy() {
+    // laspy 2.7.0 writes and reads back at most 341 float32 extra dimensions and refuses 342
+    // (tests/data/las/extra_bytes_limit_laspy.json, made by
+    // tools/fixtures/las_extra_bytes_limit.py): the Extra Bytes VLR's u16 length holds 341
+    // descriptions of 192 bytes (LAS 1.4 R15).
+    let fixture: serde_json::Value = serde_json::from_str(
+        &std::fs::read_to_string("tests/data/las/extra_bytes_limit_laspy.json").unwrap(),
+    )
+    .unwrap();
+    let laspy_max = fixture["largest_float32_extra_dims_round_trip"]
+        .as_u64()
+        .unwrap() as usize;
+    assert_eq!(equiscan::io::MAX_LAS_COLUMNS, laspy_max);
+    let dir = tempfile::tempdir().unwrap();
+    let cloud = Cloud::from_global(&[[1.0, 2.0, 3.0], [4.0, 5.0, 6.0]]);
+    let names: Vec<String> = (0..=laspy_max).map(|i| format!("c{i}")).collect();
+    let values = [0.5f32, -1.5];
+    let cols: Vec<Column<'_>> = names.iter().map(|n| Column::new(n, &values)).collect();
+    let path = dir.path().join("eb.las");
+    let err = equiscan::io::write_las(&path, &cloud, &cols)
+        .unwrap_err()
+        .to_string();
+    assert!(
+        err.contains("342 feature columns are more than the 341"),
+        "{err}"
+    );
+    equiscan::io::write_las(&path, &cloud, &cols[..laspy_max]).unwrap();
+    let (_, info) = read_cloud(&path).unwrap();
+    assert_eq!(info.other_fields.len(), laspy_max);
+    assert_eq!(info.other_fields[340], "c340");
+}
