@@ -7,11 +7,10 @@ use std::path::{Path, PathBuf};
 use std::time::Instant;
 
 use equiscan::descriptor::output::{
-    CentreList, CentresInfo, FeatureWriter, FileSpec, Format, estimate, place_keypoints,
+    CentreList, CentresInfo, FeatureWriter, FileSpec, Format, Job, estimate, place_keypoints, plan,
     write_features,
 };
 use equiscan::descriptor::{Engine, Invariants, Recipe, suggested_radius};
-use equiscan::io::guard::{FOLDER_MISSING, FOLDER_MISSING_FIX, check_outputs, folder_of};
 use equiscan::io::read_cloud;
 use equiscan::spatial::{KdIndex, estimate_spacing_with, voxel_downsample};
 use equiscan::{Cloud, Error, Result};
@@ -159,14 +158,24 @@ pub fn run(args: &FeaturesArgs) -> Result<u8> {
             "give a voxel size such as 0.05 (file units)",
         ));
     }
-    let jobs = plan_outputs(args)?;
+    let jobs = plan(
+        &args.inputs,
+        &args.output,
+        args.format.map(FormatArg::format),
+        args.keypoints.as_deref(),
+    )?;
     let pool = c.pool()?;
     let keypoints = match &args.keypoints {
         Some(p) => Some(read_cloud(p)?.0),
         None => None,
     };
     let mut code = 0;
-    for (input, output, format) in jobs {
+    for Job {
+        input,
+        output,
+        format,
+    } in jobs
+    {
         match pool.install(|| one(args, &check, keypoints.as_ref(), &input, &output, format)) {
             Ok(s) => {
                 if c.json && !c.print_json(&s)? {
@@ -217,70 +226,6 @@ fn recipe(args: &FeaturesArgs, radii: Vec<f32>) -> Result<Recipe> {
         .invariants(Invariants::parse(&args.invariants)?)
         .keep_coefficients(args.keep_coefficients)
         .build()
-}
-
-/// `(input, output, format)` per input, with every output checked (folder, not an input, not
-/// twice) before any work.
-fn plan_outputs(args: &FeaturesArgs) -> Result<Vec<(PathBuf, PathBuf, Format)>> {
-    let out = &args.output;
-    let named = args.format.map(FormatArg::format);
-    let jobs = if args.inputs.len() == 1 && !out.is_dir() {
-        let format = named.or_else(|| Format::from_path(out)).ok_or_else(|| {
-            Error::file(
-                out,
-                "cannot tell the output format from the name",
-                "end the output name in .npy, .ply, .csv, .las or .laz, or give --format",
-            )
-        })?;
-        vec![(args.inputs[0].clone(), out.clone(), format)]
-    } else {
-        if out.exists() && !out.is_dir() || !out.exists() && Format::from_path(out).is_some() {
-            return Err(Error::file(
-                out,
-                format!(
-                    "names a file, but {} inputs need an output folder",
-                    args.inputs.len()
-                ),
-                "give a folder for -o (one file per input is written there), or run one input at a time",
-            ));
-        }
-        let format = named.unwrap_or(Format::Npy);
-        let mut jobs = Vec::new();
-        for input in &args.inputs {
-            let stem = input
-                .file_stem()
-                .map_or("features".into(), |s| s.to_string_lossy());
-            jobs.push((
-                input.clone(),
-                out.join(format!("{stem}.{}", format.ext())),
-                format,
-            ));
-        }
-        jobs
-    };
-    let inputs: Vec<&Path> = args
-        .inputs
-        .iter()
-        .map(PathBuf::as_path)
-        .chain(args.keypoints.as_deref())
-        .collect();
-    let files: Vec<PathBuf> = jobs.iter().flat_map(|(_, o, f)| f.files(o)).collect();
-    if !out.exists() && jobs.len() > 1 {
-        // The folder for several inputs is made, but only inside an existing one.
-        if !folder_of(out).is_dir() {
-            return Err(Error::file(
-                folder_of(out),
-                FOLDER_MISSING,
-                FOLDER_MISSING_FIX,
-            ));
-        }
-        std::fs::create_dir(out).map_err(|e| Error::io(out, &e))?;
-    }
-    check_outputs(
-        &inputs,
-        &files.iter().map(PathBuf::as_path).collect::<Vec<_>>(),
-    )?;
-    Ok(jobs)
 }
 
 /// Reads one input, estimates the cost, computes and writes in chunks.

@@ -20,6 +20,7 @@
 //! [`verify`] refuses a pair torn by a kill between the two renames.
 
 mod cost;
+mod plan;
 mod sidecar;
 mod sinks;
 
@@ -32,6 +33,7 @@ use crate::io::{FileInfo, LasOptions};
 use crate::spatial::KdIndex;
 
 pub use cost::{Cost, estimate};
+pub use plan::{Job, plan};
 pub use sidecar::{
     CentresInfo, CountSummary, Metadata, SIDECAR_VERSION, Sidecar, checksum, sidecar_path, verify,
 };
