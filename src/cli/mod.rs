@@ -5,6 +5,7 @@
 //! subcommand: a module here, a variant in [`Command`], a line in [`Command::run`].
 
 pub mod align;
+pub mod align_checks;
 pub mod features;
 pub mod info;
 

@@ -1092,6 +1092,17 @@ pub fn read_ply_mesh(path: &Path) -> Result<(Cloud, Vec<[u32; 3]>)> {
 /// closer to the origin an f32 offset may change by one unit in the last place (below
 /// 10⁻⁹ file units there).
 pub fn write_ply(path: &Path, cloud: &Cloud, columns: &[Column<'_>]) -> Result<()> {
+    write_ply_with_comments(path, cloud, columns, &[])
+}
+
+/// [`write_ply`] with extra header comment lines (one per entry, without the `comment`
+/// keyword; line breaks are replaced by spaces), written after the origin comment.
+pub fn write_ply_with_comments(
+    path: &Path,
+    cloud: &Cloud,
+    columns: &[Column<'_>],
+    comments: &[String],
+) -> Result<()> {
     cloud.validate().map_err(|e| super::about(path, e))?;
     let taken = [
         "x",
@@ -1116,6 +1127,9 @@ pub fn write_ply(path: &Path, cloud: &Cloud, columns: &[Column<'_>]) -> Result<(
     let mut h = String::from("ply\nformat binary_little_endian 1.0\n");
     let o = cloud.origin;
     h += &format!("comment {ORIGIN_COMMENT} {} {} {}\n", o[0], o[1], o[2]);
+    for c in comments {
+        h += &format!("comment {}\n", c.replace(['\n', '\r'], " "));
+    }
     h += &format!("element vertex {}\n", cloud.len());
     h += "property double x\nproperty double y\nproperty double z\n";
     if cloud.normals.is_some() {
