@@ -29,7 +29,8 @@ impl TruthCheck {
 }
 
 /// Reads a true transform: a JSON array of 4 rows of 4 numbers, or an object holding one in a
-/// `matrix` field, optionally under a dotted `key` path.
+/// `matrix` field, optionally under a dotted `key` path whose numeric parts index lists
+/// (`parts.0.pose`).
 pub fn read_truth(path: &Path, key: Option<&str>) -> Result<Rigid> {
     let text = std::fs::read_to_string(path).map_err(|e| Error::io(path, &e))?;
     let mut v: serde_json::Value = serde_json::from_str(&text).map_err(|e| {
@@ -41,11 +42,15 @@ pub fn read_truth(path: &Path, key: Option<&str>) -> Result<Rigid> {
     })?;
     if let Some(key) = key {
         for part in key.split('.') {
-            v = v.get(part).cloned().ok_or_else(|| {
+            let next = match (&v, part.parse::<usize>()) {
+                (serde_json::Value::Array(items), Ok(i)) => items.get(i).cloned(),
+                _ => v.get(part).cloned(),
+            };
+            v = next.ok_or_else(|| {
                 Error::file(
                     path,
                     format!("has no `{part}` along --truth-key {key}"),
-                    "give the dotted path to the object holding the matrix",
+                    "give the dotted path to the object holding the matrix (list items by number from 0, e.g. parts.0.pose)",
                 )
             })?;
         }

@@ -2,19 +2,22 @@
 //!
 //! Two scans: the rigid transform mapping SOURCE into TARGET's frame. More scans: every scan
 //! into the frame of the first, through a maximum spanning tree of pair confidences, with loop
-//! residuals. Transforms are row-major 4×4 in the files' own coordinates (f64), angles in
-//! degrees, lengths in file units. Exit code 0 on a confident result, 1 when the run found
-//! none (the reason is printed and reported), 2 on an error.
+//! residuals. The library builds the report ([`equiscan::align::report`]); this file parses
+//! arguments, checks outputs before reading, prints and sets the exit code: 0 on a confident
+//! result, 1 when the run found none, 2 on an error.
 
 use std::io::Write;
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 use std::time::Instant;
 
-use equiscan::align::export::write_moved;
-use equiscan::align::report::{Input, MultiReport, PairReport, Timing, write_pair_picture};
+use super::align_checks::{Output, busy, check_cost, check_outputs, occupied_voxels};
+use equiscan::align::export::{MoveRecord, write_moved};
+use equiscan::align::report::{
+    Input, MultiReport, PairReport, RunContext, Timing, Units, fingerprint, write_pair_picture,
+};
 use equiscan::align::truth::{TruthCheck, read_truth};
-use equiscan::align::{AlignParams, Method, Verdict, align_many, align_pair};
-use equiscan::io::{read_cloud, write_atomic};
+use equiscan::align::{AlignParams, Method, align_many, align_pair};
+use equiscan::io::{FileInfo, read_cloud, write_atomic};
 use equiscan::{Cloud, Error, Result};
 use serde::Serialize;
 
@@ -30,26 +33,36 @@ pub struct AlignArgs {
     #[arg(long, value_enum, default_value = "equivariant")]
     pub method: MethodArg,
     /// Voxel size for keypoints, file units (default: chosen from the point spacing).
-    #[arg(long, value_name = "SIZE")]
+    #[arg(long, value_name = "SIZE", allow_negative_numbers = true)]
     pub voxel: Option<f64>,
     /// Support radius of the descriptors, file units (default: 10 voxels, 5 for fpfh).
-    #[arg(long, value_name = "R")]
+    #[arg(long, short = 'r', value_name = "R", allow_negative_numbers = true)]
     pub radius: Option<f64>,
+    /// Unit of the coordinates (default: from the LAS CRS; otherwise figures say "units").
+    #[arg(long, value_enum)]
+    pub units: Option<UnitsArg>,
     /// Write the JSON report to this file.
     #[arg(long, value_name = "FILE")]
     pub report: Option<PathBuf>,
-    /// Write SOURCE moved into TARGET's frame (.las, .laz or .ply); two scans only.
+    /// Write SOURCE moved into TARGET's frame (.las, .laz or .ply) when the result is
+    /// confident; two scans only.
     #[arg(long, value_name = "FILE")]
     pub write: Option<PathBuf>,
+    /// Write --write's file even without a confident result (the verdict is recorded in it).
+    #[arg(long, requires = "write")]
+    pub write_anyway: bool,
     /// Draw SOURCE and TARGET before and after, three views each, as a PNG; two scans only.
     #[arg(long, value_name = "FILE")]
     pub picture: Option<PathBuf>,
-    /// Print the JSON report on standard output instead of the summary.
+    /// Print the JSON report on standard output instead of the summary (also with --quiet).
     #[arg(long)]
     pub json: bool,
-    /// Print nothing on success (errors still go to standard error).
-    #[arg(long)]
+    /// Print nothing but the JSON asked for (errors still go to standard error).
+    #[arg(long, short = 'q')]
     pub quiet: bool,
+    /// Worker threads (default: all cores); the result is the same for any number.
+    #[arg(long, value_name = "N")]
+    pub threads: Option<usize>,
     /// Seed of every random choice; the same seed gives the same result.
     #[arg(long, default_value_t = 1)]
     pub seed: u64,
@@ -57,9 +70,16 @@ pub struct AlignArgs {
     /// with a `matrix` field); the report then adds the errors against it. Two scans only.
     #[arg(long, value_name = "FILE")]
     pub truth: Option<PathBuf>,
-    /// Dotted path to the truth object inside the --truth file, e.g. `depot.station2_to_station1`.
+    /// Dotted path to the truth inside the --truth file; numbers index lists, e.g.
+    /// `depot.station2_to_station1` or `parts.0.pose`.
     #[arg(long, value_name = "PATH", requires = "truth")]
     pub truth_key: Option<String>,
+    /// Memory budget, GB, for the estimate made before the heavy work.
+    #[arg(long, value_name = "GB", default_value_t = 4.0)]
+    pub max_memory: f64,
+    /// Run even when the estimate exceeds --max-memory.
+    #[arg(long)]
+    pub force: bool,
 }
 
 /// `--method` values.
@@ -71,21 +91,35 @@ pub enum MethodArg {
     Fpfh,
 }
 
-fn params(args: &AlignArgs) -> AlignParams {
-    AlignParams {
-        method: match args.method {
-            MethodArg::Equivariant => Method::Equivariant,
-            MethodArg::Fpfh => Method::Fpfh,
-        },
-        voxel: args.voxel,
-        radius: args.radius,
-        seed: args.seed,
-        ..AlignParams::default()
+/// `--units` values.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum UnitsArg {
+    /// Metres.
+    M,
+    /// Millimetres.
+    Mm,
+    /// International feet.
+    Ft,
+    /// US survey feet.
+    UsFt,
+}
+
+fn positive(v: Option<f64>, option: &str, what: &str) -> Result<()> {
+    match v {
+        Some(x) if !(x > 0.0 && x.is_finite()) => Err(Error::invalid(
+            format!("{option} {x}: the {what} must be a positive number of file units"),
+            format!(
+                "give a value above 0, or leave {option} out to choose it from the point spacing"
+            ),
+        )),
+        _ => Ok(()),
     }
 }
 
 /// Runs `align`; returns the exit code.
 pub fn run(args: &AlignArgs) -> Result<u8> {
+    positive(args.voxel, "--voxel", "voxel size")?;
+    positive(args.radius, "--radius", "support radius")?;
     if args.scans.len() > 2
         && (args.write.is_some() || args.picture.is_some() || args.truth.is_some())
     {
@@ -94,65 +128,163 @@ pub fn run(args: &AlignArgs) -> Result<u8> {
             "give SOURCE and TARGET only, or drop those options",
         ));
     }
+    if let Some(n) = args.threads {
+        let _ = rayon::ThreadPoolBuilder::new()
+            .num_threads(n.max(1))
+            .build_global();
+    }
+    let mut inputs: Vec<&Path> = args.scans.iter().map(PathBuf::as_path).collect();
+    inputs.extend(args.truth.as_deref());
+    let outputs = [
+        (args.report.as_deref(), "--report", &[][..], ""),
+        (
+            args.write.as_deref(),
+            "--write",
+            &["las", "laz", "ply"][..],
+            "name the output .las, .laz or .ply",
+        ),
+        (
+            args.picture.as_deref(),
+            "--picture",
+            &["png"][..],
+            "pictures are PNG: name the file .png",
+        ),
+    ];
+    let outputs: Vec<Output<'_>> = outputs
+        .into_iter()
+        .filter_map(|(p, option, extensions, advice)| {
+            p.map(|path| Output {
+                option,
+                path,
+                extensions,
+                advice,
+            })
+        })
+        .collect();
+    check_outputs(&inputs, &outputs)?;
+    let truth = match &args.truth {
+        Some(path) => Some(read_truth(path, args.truth_key.as_deref())?),
+        None => None,
+    };
+    let say = |m: &str| {
+        if !args.quiet {
+            eprintln!("{m}");
+        }
+    };
     let t = Instant::now();
-    let clouds: Vec<Cloud> = args
+    let read: Vec<(Cloud, FileInfo)> = busy(args.quiet, "reading the scans", || {
+        args.scans
+            .iter()
+            .map(|p| read_cloud(p))
+            .collect::<Result<_>>()
+    })?;
+    let prints: Vec<(u64, u64)> = args
         .scans
         .iter()
-        .map(|p| read_cloud(p).map(|(c, _)| c))
+        .map(|p| fingerprint(p))
         .collect::<Result<_>>()?;
     let read_seconds = t.elapsed().as_secs_f64();
-    let p = params(args);
+    let p = AlignParams {
+        method: match args.method {
+            MethodArg::Equivariant => Method::Equivariant,
+            MethodArg::Fpfh => Method::Fpfh,
+        },
+        voxel: args.voxel,
+        radius: args.radius,
+        seed: args.seed,
+        ..AlignParams::default()
+    };
+    if let (Some(v), false) = (args.voxel, args.force) {
+        let keypoints = read.iter().map(|(c, _)| occupied_voxels(c, v)).sum();
+        check_cost(keypoints, v, args.max_memory)?;
+    }
+    let ctx = context(args, &read);
     let inputs: Vec<Input<'_>> = args
         .scans
         .iter()
-        .zip(&clouds)
-        .map(|(path, cloud)| Input { path, cloud })
+        .zip(&read)
+        .zip(&prints)
+        .map(|((path, (cloud, _)), &(bytes, checksum))| Input {
+            path,
+            cloud,
+            bytes,
+            checksum,
+        })
         .collect();
-    if clouds.len() == 2 {
-        run_pair(args, inputs[0], inputs[1], &p, read_seconds)
-    } else {
-        let multi = align_many(&clouds, &p)?;
-        let report = MultiReport::new(&inputs, p.method, &multi);
+    let stages = "registering (keypoints, descriptors, matching, poses, refinement)";
+    if read.len() > 2 {
+        let clouds: Vec<Cloud> = read.iter().map(|(c, _)| c.clone()).collect();
+        let multi = busy(args.quiet, stages, || align_many(&clouds, &p))?;
+        let report = MultiReport::new(&inputs, p.method, &multi, &ctx);
         finish(args, &report, &report.summary())?;
-        Ok(if report.is_confident() { 0 } else { 1 })
+        return Ok(if report.is_confident() { 0 } else { 1 });
     }
-}
-
-fn run_pair(
-    args: &AlignArgs,
-    source: Input<'_>,
-    target: Input<'_>,
-    p: &AlignParams,
-    read_seconds: f64,
-) -> Result<u8> {
-    let a = align_pair(source.cloud, target.cloud, p)?;
-    let truth = match &args.truth {
-        Some(path) => {
-            let t = read_truth(path, args.truth_key.as_deref())?;
-            Some(TruthCheck::new(&a.transform, &t, &source.cloud.centroid()))
-        }
-        None => None,
-    };
-    let mut report = PairReport::new(source, target, p.method, &a, truth);
-    report.timings.insert(
-        0,
-        Timing {
-            stage: "reading".into(),
-            seconds: read_seconds,
-        },
-    );
+    let (source, target) = (inputs[0], inputs[1]);
+    let a = busy(args.quiet, stages, || {
+        align_pair(source.cloud, target.cloud, &p)
+    })?;
+    let check = truth.map(|t| TruthCheck::new(&a.transform, &t, &source.cloud.centroid()));
+    let mut report = PairReport::new(source, target, p.method, &a, check, &ctx);
+    if !ctx.reproducible {
+        report.timings.insert(
+            0,
+            Timing {
+                stage: "reading".into(),
+                seconds: read_seconds,
+            },
+        );
+    }
     if let Some(out) = &args.write {
-        write_moved(out, source.cloud, &a.transform)?;
+        if report.is_confident() || args.write_anyway {
+            let record = MoveRecord {
+                version: ctx.version.clone(),
+                verdict: report.verdict.clone(),
+                transform: report.transform,
+            };
+            write_moved(
+                out,
+                (source.cloud, &read[0].1),
+                &read[1].1,
+                &a.transform,
+                &record,
+            )?;
+            say(&format!("wrote {}", out.display()));
+        } else {
+            eprintln!(
+                "{}: not written: no confident alignment; add --write-anyway to write SOURCE moved by the best pose found (the verdict is recorded in the file)",
+                out.display()
+            );
+        }
     }
     if let Some(pic) = &args.picture {
         write_pair_picture(pic, source, target, &report, &a.transform)?;
+        say(&format!("wrote {}", pic.display()));
     }
     finish(args, &report, &report.summary())?;
-    Ok(if a.verdict == Verdict::Confident {
-        0
-    } else {
-        1
-    })
+    Ok(if report.is_confident() { 0 } else { 1 })
+}
+
+/// The run's settings, units (flag, else a CRS), job and clock.
+fn context(args: &AlignArgs, read: &[(Cloud, FileInfo)]) -> RunContext {
+    let units = args.units.map(|u| match u {
+        UnitsArg::M => Units::Metre,
+        UnitsArg::Mm => Units::Millimetre,
+        UnitsArg::Ft => Units::Foot,
+        UnitsArg::UsFt => Units::UsSurveyFoot,
+    });
+    let scans: Vec<_> = args
+        .scans
+        .iter()
+        .zip(read)
+        .map(|(p, (c, i))| (p.as_path(), c, i))
+        .collect();
+    RunContext::new(
+        args.seed,
+        args.voxel.is_some(),
+        args.radius.is_some(),
+        units,
+        &scans,
+    )
 }
 
 fn finish<T: Serialize>(args: &AlignArgs, report: &T, summary: &str) -> Result<()> {
@@ -164,12 +296,15 @@ fn finish<T: Serialize>(args: &AlignArgs, report: &T, summary: &str) -> Result<(
                 .and_then(|_| w.write_all(b"\n"))
                 .map_err(|e| Error::io(path, &e))
         })?;
-    }
-    if args.quiet {
-        return Ok(());
+        if !args.quiet {
+            eprintln!("wrote {}", path.display());
+        }
     }
     let mut out = std::io::stdout().lock();
-    let text = if args.json { json } else { summary.to_string() };
-    let _ = writeln!(out, "{text}");
+    if args.json {
+        let _ = writeln!(out, "{json}");
+    } else if !args.quiet {
+        let _ = writeln!(out, "{summary}");
+    }
     Ok(())
 }

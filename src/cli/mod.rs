@@ -7,6 +7,7 @@
 //! with `equiscan::io::guard::check_outputs` before reading any point.
 
 pub mod align;
+pub mod align_checks;
 pub mod common;
 pub mod features;
 pub mod info;

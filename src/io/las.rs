@@ -515,6 +515,7 @@ pub struct LasOptions {
     /// Offsets x, y, z, file units.
     pub offset: Option<[f64; 3]>,
     crs_records: Vec<Vlr>,
+    own_records: Vec<Vlr>,
 }
 
 impl LasOptions {
@@ -527,7 +528,33 @@ impl LasOptions {
             scale: info.scale,
             offset: info.offset,
             crs_records: info.crs_records.clone(),
+            own_records: Vec::new(),
         }
+    }
+
+    /// The same layout with the CRS records of `info` instead (an output moved into another
+    /// file's frame takes that file's reference system).
+    pub fn with_crs_of(mut self, info: &FileInfo) -> Self {
+        self.crs_records = info.crs_records.clone();
+        self
+    }
+
+    /// Adds a variable-length record of our own to the header: `user_id` (at most 16 bytes),
+    /// `record_id`, a description (at most 32 bytes) and the payload.
+    pub fn with_record(
+        mut self,
+        user_id: &str,
+        record_id: u16,
+        description: &str,
+        data: Vec<u8>,
+    ) -> Self {
+        self.own_records.push(Vlr {
+            user_id: user_id.to_string(),
+            record_id,
+            description: description.to_string(),
+            data,
+        });
+        self
     }
 }
 
@@ -715,6 +742,7 @@ impl LasRowWriter {
         // straight from one instrument (the spec also names MERGE, MODIFICATION, EXTRACTION, …).
         builder.system_identifier = "OTHER".to_string();
         builder.vlrs = options.crs_records.clone();
+        builder.vlrs.extend(options.own_records.iter().cloned());
         let ranges = Ranges::new(names.len());
         if !names.is_empty() {
             // Same length as the final record; the ranges are written by `finish`.

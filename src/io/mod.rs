@@ -42,7 +42,7 @@ pub use atomic::{
 pub use csv::write_csv;
 pub use las::{LasOptions, LasRowWriter, MAX_LAS_COLUMNS, write_las, write_las_with};
 pub use npy::{npy_header, write_npy, write_npy_with_sidecar};
-pub use ply::{PLY_TAKEN, PlyLayout, read_ply_mesh, write_ply};
+pub use ply::{PLY_TAKEN, PlyLayout, read_ply_mesh, write_ply, write_ply_with_comments};
 
 /// A named per-point f32 column, borrowed: `values[i]` belongs to point `i`.
 #[derive(Debug, Clone, Copy)]

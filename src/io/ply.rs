@@ -1092,11 +1092,34 @@ pub fn read_ply_mesh(path: &Path) -> Result<(Cloud, Vec<[u32; 3]>)> {
 /// closer to the origin an f32 offset may change by one unit in the last place (below
 /// 10⁻⁹ file units there).
 pub fn write_ply(path: &Path, cloud: &Cloud, columns: &[Column<'_>]) -> Result<()> {
+    write_ply_with_comments(path, cloud, columns, &[])
+}
+
+/// [`write_ply`] with extra header comment lines (one per entry, without the `comment`
+/// keyword; line breaks are replaced by spaces), written after the origin comment.
+pub fn write_ply_with_comments(
+    path: &Path,
+    cloud: &Cloud,
+    columns: &[Column<'_>],
+    comments: &[String],
+) -> Result<()> {
     cloud.validate().map_err(|e| super::about(path, e))?;
     check_columns(path, cloud.len(), columns, &PLY_TAKEN)?;
     let names: Vec<&str> = columns.iter().map(|c| c.name).collect();
     let layout = PlyLayout::new(cloud, None, &names, cloud.len());
-    let header = layout.header();
+    let mut header = layout.header();
+    if !comments.is_empty() {
+        // Right after the origin comment.
+        let at = header
+            .find(&format!("comment {ORIGIN_COMMENT}"))
+            .and_then(|i| header[i..].find('\n').map(|j| i + j + 1))
+            .unwrap_or(0);
+        let extra: String = comments
+            .iter()
+            .map(|c| format!("comment {}\n", c.replace(['\n', '\r'], " ")))
+            .collect();
+        header.insert_str(at, &extra);
+    }
     write_atomic(path, |w| {
         put(w, path, header.as_bytes())?;
         let mut rec = Vec::with_capacity(64 + 4 * columns.len());

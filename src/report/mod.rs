@@ -29,6 +29,7 @@
 //!     lines: vec!["rotation 0.00\u{b0}".into(), "overlap 100 %".into()],
 //!     footer: "A made-up example.".into(),
 //!     unit: "m".into(),
+//!     warning: String::new(),
 //! };
 //! let picture = draw_alignment_views(&layers, &text)?;
 //! assert_eq!((picture.width(), picture.height()), (1800, 1200));
@@ -42,7 +43,7 @@ pub mod font;
 pub mod views;
 
 pub use canvas::{Canvas, Rgb, Share, Splat, ViewAxis, Viewport};
-pub use colour::{ColourMap, LAYER_PALETTE};
+pub use colour::{ColourMap, LAYER_PALETTE, SOURCE_COLOUR, TARGET_COLOUR};
 pub use views::{
     FigureText, Layer, ScalarField, Transform, draw_alignment_views, draw_cloud_views, nice_length,
     render_alignment_views, render_cloud_views,

@@ -134,6 +134,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         footer: "Synthetic scene. Check the after row: the layers should overlap everywhere."
             .into(),
         unit: "m".into(),
+        warning: String::new(),
     };
     let path = folder.join("alignment.png");
     render_alignment_views(&layers, &text, &path)?;
@@ -151,6 +152,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         lines: vec![format!("{} points", target.len())],
         footer: "Colours clamp at the 1st and 99th percentiles.".into(),
         unit: "m".into(),
+        warning: String::new(),
     };
     let path = folder.join("cloud.png");
     render_cloud_views(&target, Some(&field), &text, &path)?;
@@ -177,6 +179,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         lines: vec!["tolerance +/-0.004 m".into()],
         footer: "Blue: below the reference; red: above.".into(),
         unit: "m".into(),
+        warning: String::new(),
     };
     let path = folder.join("deviation.png");
     render_cloud_views(&target, Some(&field), &text, &path)?;

@@ -281,7 +281,8 @@ pub fn readme(t: &Truth, sizes: &dyn Fn(&str) -> u64) -> String {
          removed. Each part stands about 13 times its bounding radius from the camera, so that \
          it spans about 320 pixels. The flange's rotation was redrawn until one of its faces \
          looked at the camera within 50°, so that its defective copy shows the defect. \
-         Binary little-endian PLY: x, y, z as double, normals as float.\n\n",
+         Binary little-endian PLY, x, y, z as double; the reference files also carry outward \
+         unit normals (nx, ny, nz as float), the tray scans carry positions only (no normals).\n\n",
     );
     o.push_str("| part | description | symmetry |\n|---|---|---|\n");
     for p in &t.parts {
