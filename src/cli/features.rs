@@ -351,7 +351,7 @@ fn one(
                 .collect();
             centres_kind["matched_to_points"] = serde_json::json!(matched);
             with_progress(args, at.len(), |cb| {
-                Ok(engine.compute_at_with(&cloud.positions, &index, &at, Some(cb)))
+                engine.compute_at_with(&cloud.positions, &index, &at, Some(cb))
             })?
         }
         None => {
