@@ -235,21 +235,21 @@ impl Engine {
     /// over `points`. Centres need not be points of the cloud. This is the entry point for
     /// registration: keep the coefficients in the recipe to get the equivariant part.
     ///
-    /// # Panics
+    /// # Errors
     /// If `index` was not built over `points` (different lengths).
     pub fn compute_at(
         &self,
         points: &[[f32; 3]],
         index: &KdIndex,
         centres: &[[f32; 3]],
-    ) -> Features {
+    ) -> Result<Features> {
         self.compute_at_with(points, index, centres, None)
     }
 
     /// [`Engine::compute_at`] with a progress callback, called with the number of centres
     /// finished after each chunk of work (from worker threads).
     ///
-    /// # Panics
+    /// # Errors
     /// If `index` was not built over `points` (different lengths).
     pub fn compute_at_with(
         &self,
@@ -257,9 +257,9 @@ impl Engine {
         index: &KdIndex,
         centres: &[[f32; 3]],
         progress: Option<&(dyn Fn(usize) + Sync)>,
-    ) -> Features {
-        check_index(points, index).expect("compute_at: the index must be built over the points");
-        self.run(points, index, centres.to_vec(), progress)
+    ) -> Result<Features> {
+        check_index(points, index)?;
+        Ok(self.run(points, index, centres.to_vec(), progress))
     }
 
     fn scratch(&self) -> Scratch {

@@ -366,7 +366,12 @@ fn positions_and_indices_agree_and_scales_concatenate() {
         .unwrap();
     let index = KdIndex::new(&cloud.positions).unwrap();
     let at: Vec<[f32; 3]> = idx.iter().map(|&i| cloud.positions[i]).collect();
-    let b = engine.compute_at(&cloud.positions, &index, &at);
+    let b = engine.compute_at(&cloud.positions, &index, &at).unwrap();
+    // An index over other points is an error, not a panic.
+    let err = engine
+        .compute_at(&cloud.positions[1..], &index, &at)
+        .unwrap_err();
+    assert_eq!(err.kind(), crate::error::Kind::Recipe);
     assert_eq!(a.values, b.values);
     assert_eq!(a.coefficients, b.coefficients);
     assert_eq!(a.indices.as_deref(), Some(&idx[..]));

@@ -428,7 +428,7 @@ fn write_features_in(
                         "build the index over the same points",
                     ));
                 }
-                engine.compute_at_with(points, index, &at[start..end], progress)
+                engine.compute_at_with(points, index, &at[start..end], progress)?
             }
         };
         writer.push(&chunk)?;
