@@ -65,6 +65,10 @@ pub struct AlignArgs {
     /// Dotted path to the truth object inside the --truth file, e.g. `depot.station2_to_station1`.
     #[arg(long, value_name = "PATH", requires = "truth")]
     pub truth_key: Option<String>,
+    /// Version of the harmonic descriptors (1: the original definition, the default here;
+    /// 2: degrees l ≥ 1 fade out at the centre).
+    #[arg(long, value_name = "V", default_value_t = AlignParams::default().descriptor_version)]
+    pub descriptor_version: u32,
 }
 
 /// `--method` values.
@@ -194,6 +198,7 @@ fn params(args: &AlignArgs) -> AlignParams {
         voxel: args.voxel,
         radius: args.radius,
         seed: args.seed,
+        descriptor_version: args.descriptor_version,
         ..AlignParams::default()
     }
 }
