@@ -78,7 +78,7 @@ fn npy_with_sidecar_and_suggested_radius() {
     assert_eq!(side["columns"].as_array().unwrap().len(), cols);
     assert!(side["columns"][3].as_str().unwrap().ends_with("_count"));
     let meta = &side["metadata"];
-    assert_eq!(meta["recipe"]["version"], 1);
+    assert_eq!(meta["recipe"]["version"], 2);
     assert_eq!(meta["recipe"]["degree"], 4);
     assert_eq!(meta["radius_suggested"], true);
     let (cloud, _) = read_cloud(&input).unwrap();

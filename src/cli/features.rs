@@ -50,6 +50,10 @@ pub struct FeaturesArgs {
     /// Number of radial shells N.
     #[arg(long, default_value_t = equiscan::descriptor::DEFAULT_SHELLS, value_name = "N")]
     pub shells: usize,
+    /// Descriptor version (1: the original definition; 2: degrees l ≥ 1 fade out at the
+    /// centre). The output's recipe records it.
+    #[arg(long, value_name = "V", default_value_t = equiscan::descriptor::RECIPE_VERSION)]
+    pub descriptor_version: u32,
     /// Keep only the K nearest neighbours within the support radius (default: all).
     #[arg(long, value_name = "K")]
     pub max_neighbours: Option<usize>,
@@ -220,6 +224,7 @@ fn print_summary(c: &CommonArgs, s: &Summary) {
 fn recipe(args: &FeaturesArgs, radii: Vec<f32>) -> Result<Recipe> {
     Recipe::builder()
         .radii(radii)
+        .version(args.descriptor_version)
         .degree(args.degree)
         .shells(args.shells)
         .max_neighbours(args.max_neighbours)
