@@ -80,6 +80,10 @@ pub struct AlignArgs {
     /// Run even when the estimate exceeds --max-memory.
     #[arg(long)]
     pub force: bool,
+    /// Version of the harmonic descriptors (1: the original definition, the default here;
+    /// 2: degrees l ≥ 1 fade out at the centre).
+    #[arg(long, value_name = "V", default_value_t = AlignParams::default().descriptor_version)]
+    pub descriptor_version: u32,
 }
 
 /// `--method` values.
@@ -192,6 +196,7 @@ pub fn run(args: &AlignArgs) -> Result<u8> {
         voxel: args.voxel,
         radius: args.radius,
         seed: args.seed,
+        descriptor_version: args.descriptor_version,
         ..AlignParams::default()
     };
     if let (Some(v), false) = (args.voxel, args.force) {
