@@ -223,13 +223,14 @@ fn outputs_that_would_replace_an_input_or_cannot_be_written_are_refused_before_r
     fails_with(
         &with(&["--report", "./source.ply"]),
         dir.path(),
-        &["--report", "input"],
+        &["same file as the input"],
     );
     fails_with(
         &with(&["--picture", "target.ply"]),
         dir.path(),
-        &["--picture"],
+        &["target.ply", "input"],
     );
+    std::fs::create_dir(dir.path().join("sub")).unwrap();
     fails_with(
         &with(&["--write", "sub/../source.ply"]),
         dir.path(),
@@ -252,12 +253,12 @@ fn outputs_that_would_replace_an_input_or_cannot_be_written_are_refused_before_r
     fails_with(
         &with(&["--voxel", "-1"]),
         dir.path(),
-        &["--voxel -1", "positive"],
+        &["--voxel -1", "greater than 0"],
     );
     fails_with(
         &with(&["--voxel=0"]),
         dir.path(),
-        &["--voxel 0", "positive"],
+        &["--voxel 0", "greater than 0"],
     );
     // The truth file and key are checked before any scan is read: a malformed scan is not
     // what the error names.
@@ -278,9 +279,9 @@ fn outputs_that_would_replace_an_input_or_cannot_be_written_are_refused_before_r
     );
     // A runaway voxel size is refused with its cost and the ways on.
     fails_with(
-        &with(&["--voxel", "0.0001", "--max-memory", "0.001", "-q"]),
+        &with(&["--voxel", "0.0001", "--max-memory", "1M", "-q"]),
         dir.path(),
-        &["keypoints", "MB of memory", "--force", "--max-memory"],
+        &["keypoints", "of memory", "--force", "--max-memory"],
     );
 }
 

@@ -530,8 +530,12 @@ impl PairReport {
                 r.translation[0], r.translation[1], r.translation[2]
             ),
             format!(
-                "surface gap (RMS) {:.4} {u}, coverage {:.0} %, {} of {} matched pairs agree",
-                f.surface_gap_rms,
+                "surface gap (RMS) {}, coverage {:.0} %, {} of {} matched pairs agree",
+                if f.surface_gap_rms.is_finite() {
+                    format!("{:.4} {u}", f.surface_gap_rms)
+                } else {
+                    "not measured (no SOURCE point near TARGET)".to_string()
+                },
                 100.0 * f.coverage,
                 f.agreeing_pairs,
                 f.matched_pairs
@@ -661,9 +665,13 @@ impl MultiReport {
                 )),
             }
         }
+        let unit = r
+            .pairs
+            .first()
+            .map_or("units", |p| p.settings.units.label());
         for l in &r.loops {
             s.push_str(&format!(
-                "loop {:?}: {:.4} deg, {:.4}\n",
+                "loop {:?}: {:.4} deg, {:.4} {unit}\n",
                 l.cycle, l.rotation_deg, l.translation
             ));
         }

@@ -10,13 +10,15 @@ use std::io::Write;
 use std::path::{Path, PathBuf};
 use std::time::Instant;
 
-use super::align_checks::{Output, busy, check_cost, check_outputs, occupied_voxels};
+use super::align_checks::{busy, check_cost, occupied_voxels};
+use super::common::{CommonArgs, Size, default_memory_budget, print_stdout};
 use equiscan::align::export::{MoveRecord, write_moved};
 use equiscan::align::report::{
     Input, MultiReport, PairReport, RunContext, Timing, Units, fingerprint, write_pair_picture,
 };
 use equiscan::align::truth::{TruthCheck, read_truth};
 use equiscan::align::{AlignParams, Method, align_many, align_pair};
+use equiscan::io::guard::{check_extension, check_outputs};
 use equiscan::io::{FileInfo, read_cloud, write_atomic};
 use equiscan::{Cloud, Error, Result};
 use serde::Serialize;
@@ -54,15 +56,6 @@ pub struct AlignArgs {
     /// Draw SOURCE and TARGET before and after, three views each, as a PNG; two scans only.
     #[arg(long, value_name = "FILE")]
     pub picture: Option<PathBuf>,
-    /// Print the JSON report on standard output instead of the summary (also with --quiet).
-    #[arg(long)]
-    pub json: bool,
-    /// Print nothing but the JSON asked for (errors still go to standard error).
-    #[arg(long, short = 'q')]
-    pub quiet: bool,
-    /// Worker threads (default: all cores); the result is the same for any number.
-    #[arg(long, value_name = "N")]
-    pub threads: Option<usize>,
     /// Seed of every random choice; the same seed gives the same result.
     #[arg(long, default_value_t = 1)]
     pub seed: u64,
@@ -74,9 +67,10 @@ pub struct AlignArgs {
     /// `depot.station2_to_station1` or `parts.0.pose`.
     #[arg(long, value_name = "PATH", requires = "truth")]
     pub truth_key: Option<String>,
-    /// Memory budget, GB, for the estimate made before the heavy work.
-    #[arg(long, value_name = "GB", default_value_t = 4.0)]
-    pub max_memory: f64,
+    /// Memory the registration may use, e.g. 2G or 500M, checked by an estimate before the
+    /// heavy work when --voxel is given (default: half of the machine's memory).
+    #[arg(long, value_name = "SIZE")]
+    pub max_memory: Option<Size>,
     /// Run even when the estimate exceeds --max-memory.
     #[arg(long)]
     pub force: bool,
@@ -84,6 +78,9 @@ pub struct AlignArgs {
     /// 2: degrees l ≥ 1 fade out at the centre).
     #[arg(long, value_name = "V", default_value_t = AlignParams::default().descriptor_version)]
     pub descriptor_version: u32,
+    /// `-q`, `--json` (the report on one line, printed also with -q), `--threads`.
+    #[command(flatten)]
+    pub common: CommonArgs,
 }
 
 /// `--method` values.
@@ -108,12 +105,12 @@ pub enum UnitsArg {
     UsFt,
 }
 
-fn positive(v: Option<f64>, option: &str, what: &str) -> Result<()> {
+fn positive(v: Option<f64>, option: &str, example: &str) -> Result<()> {
     match v {
         Some(x) if !(x > 0.0 && x.is_finite()) => Err(Error::invalid(
-            format!("{option} {x}: the {what} must be a positive number of file units"),
+            format!("{option} {x} is not a size greater than 0"),
             format!(
-                "give a value above 0, or leave {option} out to choose it from the point spacing"
+                "give a size such as {option} {example} (file units), or leave it out to choose it from the point spacing"
             ),
         )),
         _ => Ok(()),
@@ -122,8 +119,8 @@ fn positive(v: Option<f64>, option: &str, what: &str) -> Result<()> {
 
 /// Runs `align`; returns the exit code.
 pub fn run(args: &AlignArgs) -> Result<u8> {
-    positive(args.voxel, "--voxel", "voxel size")?;
-    positive(args.radius, "--radius", "support radius")?;
+    positive(args.voxel, "--voxel", "0.05")?;
+    positive(args.radius, "--radius", "0.5")?;
     if args.scans.len() > 2
         && (args.write.is_some() || args.picture.is_some() || args.truth.is_some())
     {
@@ -132,51 +129,32 @@ pub fn run(args: &AlignArgs) -> Result<u8> {
             "give SOURCE and TARGET only, or drop those options",
         ));
     }
-    if let Some(n) = args.threads {
-        let _ = rayon::ThreadPoolBuilder::new()
-            .num_threads(n.max(1))
-            .build_global();
-    }
     let mut inputs: Vec<&Path> = args.scans.iter().map(PathBuf::as_path).collect();
     inputs.extend(args.truth.as_deref());
-    let outputs = [
-        (args.report.as_deref(), "--report", &[][..], ""),
-        (
-            args.write.as_deref(),
-            "--write",
-            &["las", "laz", "ply"][..],
-            "name the output .las, .laz or .ply",
-        ),
-        (
-            args.picture.as_deref(),
-            "--picture",
-            &["png"][..],
-            "pictures are PNG: name the file .png",
-        ),
-    ];
-    let outputs: Vec<Output<'_>> = outputs
+    let outputs: Vec<&Path> = [&args.report, &args.write, &args.picture]
         .into_iter()
-        .filter_map(|(p, option, extensions, advice)| {
-            p.map(|path| Output {
-                option,
-                path,
-                extensions,
-                advice,
-            })
-        })
+        .filter_map(|o| o.as_deref())
         .collect();
     check_outputs(&inputs, &outputs)?;
+    if let Some(w) = &args.write {
+        check_extension(w, &["las", "laz", "ply"], "a LAS, LAZ or PLY point cloud")?;
+    }
+    if let Some(pic) = &args.picture {
+        check_extension(pic, &["png"], "a PNG picture")?;
+    }
+    let pool = args.common.pool()?;
+    pool.install(|| registered(args))
+}
+
+/// The work after the checks: read, estimate, register, write, print.
+fn registered(args: &AlignArgs) -> Result<u8> {
+    let c = &args.common;
     let truth = match &args.truth {
         Some(path) => Some(read_truth(path, args.truth_key.as_deref())?),
         None => None,
     };
-    let say = |m: &str| {
-        if !args.quiet {
-            eprintln!("{m}");
-        }
-    };
     let t = Instant::now();
-    let read: Vec<(Cloud, FileInfo)> = busy(args.quiet, "reading the scans", || {
+    let read: Vec<(Cloud, FileInfo)> = busy(c.quiet, "reading the scans", || {
         args.scans
             .iter()
             .map(|p| read_cloud(p))
@@ -200,8 +178,9 @@ pub fn run(args: &AlignArgs) -> Result<u8> {
         ..AlignParams::default()
     };
     if let (Some(v), false) = (args.voxel, args.force) {
-        let keypoints = read.iter().map(|(c, _)| occupied_voxels(c, v)).sum();
-        check_cost(keypoints, v, args.max_memory)?;
+        let keypoints = read.iter().map(|(cl, _)| occupied_voxels(cl, v)).sum();
+        let budget = args.max_memory.map_or_else(default_memory_budget, |s| s.0);
+        check_cost(keypoints, v, budget)?;
     }
     let ctx = context(args, &read);
     let inputs: Vec<Input<'_>> = args
@@ -219,13 +198,13 @@ pub fn run(args: &AlignArgs) -> Result<u8> {
     let stages = "registering (keypoints, descriptors, matching, poses, refinement)";
     if read.len() > 2 {
         let clouds: Vec<Cloud> = read.iter().map(|(c, _)| c.clone()).collect();
-        let multi = busy(args.quiet, stages, || align_many(&clouds, &p))?;
+        let multi = busy(c.quiet, stages, || align_many(&clouds, &p))?;
         let report = MultiReport::new(&inputs, p.method, &multi, &ctx);
         finish(args, &report, &report.summary())?;
         return Ok(if report.is_confident() { 0 } else { 1 });
     }
     let (source, target) = (inputs[0], inputs[1]);
-    let a = busy(args.quiet, stages, || {
+    let a = busy(c.quiet, stages, || {
         align_pair(source.cloud, target.cloud, &p)
     })?;
     let check = truth.map(|t| TruthCheck::new(&a.transform, &t, &source.cloud.centroid()));
@@ -253,7 +232,7 @@ pub fn run(args: &AlignArgs) -> Result<u8> {
                 &a.transform,
                 &record,
             )?;
-            say(&format!("wrote {}", out.display()));
+            c.wrote(out);
         } else {
             eprintln!(
                 "{}: not written: no confident alignment; add --write-anyway to write SOURCE moved by the best pose found (the verdict is recorded in the file)",
@@ -263,7 +242,7 @@ pub fn run(args: &AlignArgs) -> Result<u8> {
     }
     if let Some(pic) = &args.picture {
         write_pair_picture(pic, source, target, &report, &a.transform)?;
-        say(&format!("wrote {}", pic.display()));
+        c.wrote(pic);
     }
     finish(args, &report, &report.summary())?;
     Ok(if report.is_confident() { 0 } else { 1 })
@@ -293,23 +272,21 @@ fn context(args: &AlignArgs, read: &[(Cloud, FileInfo)]) -> RunContext {
 }
 
 fn finish<T: Serialize>(args: &AlignArgs, report: &T, summary: &str) -> Result<()> {
-    let json = serde_json::to_string_pretty(report)
-        .map_err(|e| Error::invalid(format!("report: {e}"), "report this as a bug"))?;
+    let c = &args.common;
     if let Some(path) = &args.report {
+        let json = serde_json::to_string_pretty(report)
+            .map_err(|e| Error::invalid(format!("report: {e}"), "report this as a bug"))?;
         write_atomic(path, |w| {
             w.write_all(json.as_bytes())
                 .and_then(|_| w.write_all(b"\n"))
                 .map_err(|e| Error::io(path, &e))
         })?;
-        if !args.quiet {
-            eprintln!("wrote {}", path.display());
-        }
+        c.wrote(path);
     }
-    let mut out = std::io::stdout().lock();
-    if args.json {
-        let _ = writeln!(out, "{json}");
-    } else if !args.quiet {
-        let _ = writeln!(out, "{summary}");
+    if c.json {
+        c.print_json(report)?;
+    } else if c.chatty() {
+        print_stdout(&format!("{summary}\n"));
     }
     Ok(())
 }
