@@ -5,7 +5,7 @@ use rayon::prelude::*;
 use crate::cloud::Cloud;
 use crate::error::{Error, Result};
 use crate::so3::sh::num_coeffs;
-use crate::spatial::{KdIndex, voxel_downsample};
+use crate::spatial::{CellGrid, GridQuery, KdIndex, voxel_downsample};
 
 use super::flags;
 use super::invariants::InvariantPlan;
@@ -114,11 +114,65 @@ pub struct Engine {
     /// `1/ρ₀ = 2N` for a version-2 recipe (the fade of degrees `l ≥ 1` at the centre); `None`
     /// for version 1.
     fade: Option<f32>,
+    /// Neighbours from the k-d tree, centres in the order given (the engine before the cell
+    /// grid; for comparison, same bytes).
+    tree_only: bool,
 }
+
+/// Where the neighbours of a centre come from: the cell grid (built per run with cells of the
+/// query radius), or the k-d tree when the grid would have too many cells along an axis.
+enum Search<'a> {
+    Grid(&'a CellGrid),
+    Tree(&'a KdIndex),
+}
+
+/// The output buffers of a run, written row by row from worker threads (see [`Engine::run`]).
+struct RowsOut {
+    values: *mut f32,
+    counts: *mut u32,
+    flags: *mut u8,
+    coeffs: *mut f32,
+}
+
+impl RowsOut {
+    /// The output slices of row `i` (`nc` invariants, `ns` counts and flags, `ns·kc`
+    /// coefficients when kept).
+    ///
+    /// # Safety
+    /// `i` must be below the number of rows the buffers were made for, with these same `nc`,
+    /// `ns` and `kc`, the buffers must be alive, and no other slice of row `i` may exist.
+    // The slices come from raw pointers, not from `&self`; exclusivity is the caller's
+    // contract above.
+    #[allow(clippy::type_complexity, clippy::mut_from_ref)]
+    unsafe fn row(
+        &self,
+        i: usize,
+        nc: usize,
+        ns: usize,
+        kc: Option<usize>,
+    ) -> (&mut [f32], &mut [u32], &mut [u8], Option<&mut [f32]>) {
+        // SAFETY: guaranteed by the caller (see above).
+        unsafe {
+            (
+                std::slice::from_raw_parts_mut(self.values.add(i * nc), nc),
+                std::slice::from_raw_parts_mut(self.counts.add(i * ns), ns),
+                std::slice::from_raw_parts_mut(self.flags.add(i * ns), ns),
+                kc.map(|kc| std::slice::from_raw_parts_mut(self.coeffs.add(i * ns * kc), ns * kc)),
+            )
+        }
+    }
+}
+
+// SAFETY: the pointers are only dereferenced for disjoint rows (a permutation split into
+// disjoint chunks), while the buffers they point into are alive and not otherwise borrowed.
+unsafe impl Sync for RowsOut {}
+unsafe impl Send for RowsOut {}
 
 /// Scratch space of one worker, reused for every centre of its tasks.
 struct Scratch {
     ids: Vec<u32>,
+    /// The grid rows around the last centre's cell.
+    query: GridQuery,
     /// Bitmap for [`sort_distinct`].
     bits: Vec<u64>,
     /// Offsets `q − p` and squared distances of the gathered neighbours (`0 < |q − p| ≤ r_max`),
@@ -165,6 +219,7 @@ impl Engine {
         let fade = (recipe.version() >= 2).then(|| 2.0 * recipe.shells() as f32);
         Engine {
             fade,
+            tree_only: false,
             columns: recipe.column_names(),
             recipe,
             plan,
@@ -176,6 +231,14 @@ impl Engine {
     /// (the two kernels agree to a few f32 rounding steps; this one is for comparison).
     pub fn portable(mut self) -> Engine {
         self.kernel = kernel::Kernel::Portable;
+        self
+    }
+
+    /// The same engine taking neighbours from the k-d tree and visiting centres in the order
+    /// given, as before the cell grid (the output bytes are the same; this one is for
+    /// comparison).
+    pub fn tree_search(mut self) -> Engine {
+        self.tree_only = true;
         self
     }
 
@@ -273,6 +336,7 @@ impl Engine {
         let v = || Vec::with_capacity(256);
         Scratch {
             ids: Vec::with_capacity(256),
+            query: GridQuery::default(),
             bits: Vec::new(),
             gx: v(),
             gy: v(),
@@ -316,48 +380,42 @@ impl Engine {
         } else {
             Vec::new()
         };
-        {
-            // Split every output into per-chunk slices, then hand the chunks to the pool.
-            let mut v_it = values.chunks_mut(CHUNK * nc.max(1));
-            let mut c_it = counts.chunks_mut(CHUNK * ns);
-            let mut f_it = flag_bits.chunks_mut(CHUNK * ns);
-            let mut k_it = coeffs.chunks_mut(CHUNK * ns * kc);
-            let mut tasks = Vec::with_capacity(rows.div_ceil(CHUNK));
-            for p in positions.chunks(CHUNK) {
-                let v = if nc > 0 {
-                    v_it.next().unwrap_or_default()
-                } else {
-                    &mut [][..]
-                };
-                let c = c_it.next().expect("one count chunk per centre chunk");
-                let f = f_it.next().expect("one flag chunk per centre chunk");
-                let k = if keep { k_it.next() } else { None };
-                tasks.push((p, v, c, f, k));
-            }
-            tasks.into_par_iter().for_each_init(
-                || self.scratch(),
-                |s, (p, v, c, f, mut k)| {
-                    for (i, centre) in p.iter().enumerate() {
-                        let kc_row = k
-                            .as_deref_mut()
-                            .map(|k| &mut k[i * ns * kc..(i + 1) * ns * kc]);
-                        self.centre(
-                            points,
-                            index,
-                            *centre,
-                            s,
-                            &mut v[i * nc..(i + 1) * nc],
-                            &mut c[i * ns..(i + 1) * ns],
-                            &mut f[i * ns..(i + 1) * ns],
-                            kc_row,
-                        );
-                    }
-                    if let Some(cb) = progress {
-                        cb(p.len());
-                    }
-                },
-            );
+        let r_max = self.recipe.radii().iter().copied().fold(0.0f32, f32::max);
+        let grid = (rows > 0 && !self.tree_only)
+            .then(|| CellGrid::new(points, r_max * QUERY_SLACK).ok())
+            .flatten();
+        let search = match &grid {
+            Some(g) => Search::Grid(g),
+            None => Search::Tree(index),
+        };
+        // Centres are visited in the grid's cell order (ties by row), so that consecutive
+        // centres share their cells' points in cache; each row is written where it belongs.
+        let mut visit: Vec<u32> = (0..rows as u32).collect();
+        if let Some(g) = &grid {
+            let keys: Vec<u64> = positions.iter().map(|p| g.sort_key(*p)).collect();
+            visit.sort_unstable_by_key(|&i| (keys[i as usize], i));
         }
+        let out = RowsOut {
+            values: values.as_mut_ptr(),
+            counts: counts.as_mut_ptr(),
+            flags: flag_bits.as_mut_ptr(),
+            coeffs: coeffs.as_mut_ptr(),
+        };
+        visit.par_chunks(CHUNK).for_each_init(
+            || self.scratch(),
+            |s, chunk| {
+                for &i in chunk {
+                    let i = i as usize;
+                    // SAFETY: `visit` holds every row exactly once and the chunks are
+                    // disjoint, so no two writers share a row.
+                    let (v, c, f, k) = unsafe { out.row(i, nc, ns, keep.then_some(kc)) };
+                    self.centre(points, &search, positions[i], s, v, c, f, k);
+                }
+                if let Some(cb) = progress {
+                    cb(chunk.len());
+                }
+            },
+        );
         Features {
             recipe: self.recipe.clone(),
             positions,
@@ -375,7 +433,7 @@ impl Engine {
     fn centre(
         &self,
         points: &[[f32; 3]],
-        index: &KdIndex,
+        search: &Search,
         p: [f32; 3],
         s: &mut Scratch,
         values: &mut [f32],
@@ -386,8 +444,13 @@ impl Engine {
         let radii = self.recipe.radii();
         let r_max = radii.iter().copied().fold(0.0f32, f32::max);
         s.ids.clear();
-        let ids = &mut s.ids;
-        index.for_each_within(p, r_max * QUERY_SLACK, |i, _| ids.push(i as u32));
+        match search {
+            Search::Grid(g) => g.within(p, r_max * QUERY_SLACK, &mut s.query, &mut s.ids),
+            Search::Tree(t) => {
+                let ids = &mut s.ids;
+                t.for_each_within(p, r_max * QUERY_SLACK, |i, _| ids.push(i as u32));
+            }
+        }
         sort_distinct(&mut s.ids, &mut s.bits);
         // Offsets of the neighbours with 0 < |d| ≤ r_max, ascending index; coincident points
         // are only counted.

@@ -203,9 +203,13 @@ fn directions_impl(
     let jp = d2.len();
     debug_assert!(jp.is_multiple_of(LANES));
     let nk = num_coeffs(l_max);
-    // Every value is overwritten below: grow the buffers without clearing them.
+    // Every value in use is overwritten below. The harmonic table only grows (rows of stride
+    // `jp`; values beyond `nk·jp` are stale and never read), so a centre with more neighbours
+    // than the last does not pay for zero-filling it.
     rho.resize(jp, 0.0);
-    y.resize(nk * jp, 0.0);
+    if y.len() < nk * jp {
+        y.resize(nk * jp, 0.0);
+    }
     let mut sh = [[0.0f32; LANES]; 25];
     let mut row = vec![0.0f32; if l_max > 4 { nk } else { 0 }];
     for (b, (((x8, y8), z8), q8)) in dx

@@ -1,14 +1,17 @@
-//! Neighbourhoods: k-d tree queries, voxel downsampling, normals, point-spacing estimate.
+//! Neighbourhoods: k-d tree queries (k nearest, radius), a cell grid for fixed-radius queries,
+//! voxel downsampling, normals, point-spacing estimate.
 //!
 //! All coordinates are the cloud's f32 local positions (file units about the cloud's origin).
 //! Radii are plain distances here; the squared distances that the k-d tree works with stay
 //! inside [`KdIndex`]. Nothing here knows about harmonics.
 
+mod grid;
 mod index;
 mod normals;
 mod spacing;
 mod voxel;
 
+pub use grid::{CellGrid, GridQuery, MAX_CELLS_PER_AXIS};
 pub use index::KdIndex;
 pub use normals::estimate_normals;
 pub use spacing::{

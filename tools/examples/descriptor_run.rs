@@ -1,13 +1,17 @@
 //! Times the descriptor engine on a synthetic scan-like scene and reports the figures used in
-//! the performance notes (run under `/usr/bin/time -v` for the peak memory).
+//! the performance notes (run under `/usr/bin/time -v` for the peak memory): the bare
+//! fixed-radius search with the k-d tree and with the cell grid over the same centres, then the
+//! engine (cell grid, centres in grid order) and the engine as it was before the grid (k-d
+//! tree, centres in index order), with the checksum of each output (they must agree).
 //!
 //! `cargo run --release --example descriptor_run -- [POINTS] [THREADS] [--search-only]
-//! [--write SCENE.ply]` (`--write` saves the scene, e.g. for the numpy reference's timing).
+//! [--radius-spacings K] [--write SCENE.ply]` (`--write` saves the scene, e.g. for the numpy
+//! reference's timing; `K` sets the support radius to K × the measured spacing, default 5).
 
 use std::time::Instant;
 
 use equiscan::descriptor::{Centres, Engine, Recipe};
-use equiscan::spatial::{KdIndex, estimate_spacing_with, suggested_support_radius};
+use equiscan::spatial::{CellGrid, GridQuery, KdIndex, estimate_spacing_with};
 
 #[path = "../bench/scene.rs"]
 mod scene;
@@ -47,9 +51,16 @@ fn main() {
     let index = KdIndex::new(&pts).unwrap();
     let t_tree = t0.elapsed().as_secs_f64();
     let spacing = estimate_spacing_with(&pts, &index).unwrap();
-    let r = suggested_support_radius(spacing);
+    let k: f32 = args
+        .iter()
+        .position(|a| a == "--radius-spacings")
+        .and_then(|i| args.get(i + 1))
+        .and_then(|a| a.parse().ok())
+        .unwrap_or(5.0);
+    let r = k * spacing;
     let recipe = Recipe::builder().radius(r).build().unwrap();
-    let engine = Engine::new(recipe);
+    let engine = Engine::new(recipe.clone());
+    let engine_tree = Engine::new(recipe).tree_search();
     use rayon::prelude::*;
     let t1 = Instant::now();
     let c1 = cpu_seconds();
@@ -74,36 +85,63 @@ fn main() {
         n as f64 / t_search,
         n as f64 / c_search
     );
+    let c1 = cpu_seconds();
+    let grid = CellGrid::new(&pts, r).unwrap();
+    let order = grid.order().to_vec();
+    let total_grid: u64 = order
+        .par_chunks(256)
+        .map_init(
+            || (GridQuery::default(), Vec::new()),
+            |(q, ids), c| {
+                let mut k = 0u64;
+                for &i in c {
+                    ids.clear();
+                    grid.within(pts[i as usize], r, q, ids);
+                    k += ids.len() as u64;
+                }
+                k
+            },
+        )
+        .sum();
+    let c_grid = cpu_seconds() - c1;
+    println!(
+        "bare grid search (build included), grid order: {c_grid:.2} s cpu, {:.0} centres per cpu-s, mean hits {:.1} ({:.2}x the k-d tree's speed)",
+        n as f64 / c_grid,
+        total_grid as f64 / n as f64,
+        c_search / c_grid
+    );
     if search_only {
         return;
     }
-    let t2 = Instant::now();
-    let c2 = cpu_seconds();
-    let f = engine
-        .compute_with_index(&pts, &index, &Centres::All, None)
-        .unwrap();
-    let out_bytes = f.values.len() * 4 + f.counts.len() * 4 + f.flags.len() + f.len() * (12 + 8);
-    let t_all = t2.elapsed().as_secs_f64();
-    let c_all = cpu_seconds() - c2;
-    println!(
-        "descriptors: {t_all:.3} s wall, {c_all:.2} s cpu, {:.0} centres/s, {:.0} centres per cpu-s, {} columns, search share {:.0} % (cpu)",
-        n as f64 / t_all,
-        n as f64 / c_all,
-        f.columns.len(),
-        100.0 * c_search / c_all
-    );
-    // FNV-1a over the output bytes: equal checksums for any thread count (determinism).
-    let mut h = 0xcbf2_9ce4_8422_2325u64;
-    let bytes = f
-        .values
-        .iter()
-        .flat_map(|v| v.to_le_bytes())
-        .chain(f.counts.iter().flat_map(|v| v.to_le_bytes()))
-        .chain(f.flags.iter().copied());
-    for b in bytes {
-        h = (h ^ b as u64).wrapping_mul(0x0100_0000_01b3);
+    let mut out_bytes = 0;
+    for (name, eng) in [("grid", &engine), ("k-d tree", &engine_tree)] {
+        let t2 = Instant::now();
+        let c2 = cpu_seconds();
+        let f = eng
+            .compute_with_index(&pts, &index, &Centres::All, None)
+            .unwrap();
+        out_bytes = f.values.len() * 4 + f.counts.len() * 4 + f.flags.len() + f.len() * (12 + 8);
+        let t_all = t2.elapsed().as_secs_f64();
+        let c_all = cpu_seconds() - c2;
+        println!(
+            "descriptors ({name}): {t_all:.3} s wall, {c_all:.2} s cpu, {:.0} centres/s, {:.0} centres per cpu-s, {} columns",
+            n as f64 / t_all,
+            n as f64 / c_all,
+            f.columns.len(),
+        );
+        // FNV-1a over the output bytes: equal checksums for any thread count (determinism).
+        let mut h = 0xcbf2_9ce4_8422_2325u64;
+        let bytes = f
+            .values
+            .iter()
+            .flat_map(|v| v.to_le_bytes())
+            .chain(f.counts.iter().flat_map(|v| v.to_le_bytes()))
+            .chain(f.flags.iter().copied());
+        for b in bytes {
+            h = (h ^ b as u64).wrapping_mul(0x0100_0000_01b3);
+        }
+        println!("output checksum ({name}) {h:016x}");
     }
-    println!("output checksum {h:016x}");
     println!(
         "memory: cloud {:.0} MB, output {:.0} MB",
         (pts.len() * 12) as f64 / 1e6,
