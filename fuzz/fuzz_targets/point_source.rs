@@ -18,6 +18,10 @@ fuzz_target!(|data: &[u8]| {
     match (whole, streamed) {
         (Ok((a, _)), Ok(b)) => assert_eq!(format!("{a:?}"), format!("{b:?}")),
         (Err(_), Err(_)) => {}
-        (a, b) => panic!("read_cloud and the point source disagree: {:?} / {:?}", a.err(), b.err()),
+        (a, b) => panic!(
+            "read_cloud and the point source disagree: {:?} / {:?}",
+            a.err(),
+            b.err()
+        ),
     }
 });

@@ -15,7 +15,10 @@ fuzz_target!(|data: &[u8]| {
         Ok((cloud, _)) => cloud.validate().unwrap(),
         Err(e) => {
             let m = e.to_string();
-            assert!(!m.contains('\n') && m.starts_with(&path.display().to_string()), "{m}");
+            assert!(
+                !m.contains('\n') && m.starts_with(&path.display().to_string()),
+                "{m}"
+            );
         }
     }
 });
