@@ -41,8 +41,8 @@ fn features_computes_both_versions_and_records_which() {
     run(&[], "v2.npy");
     run(&["--descriptor-version", "1"], "v1.npy");
     run(&["--descriptor-version", "2"], "v2b.npy");
-    assert_eq!(sidecar_version(dir.path(), "v2.json"), 2);
-    assert_eq!(sidecar_version(dir.path(), "v1.json"), 1);
+    assert_eq!(sidecar_version(dir.path(), "v2.npy.json"), 2);
+    assert_eq!(sidecar_version(dir.path(), "v1.npy.json"), 1);
     let read = |n: &str| std::fs::read(dir.path().join(n)).unwrap();
     assert_eq!(read("v2.npy"), read("v2b.npy"));
     // Same columns, different values (degrees l ≥ 1 fade at the centre in version 2).

@@ -349,3 +349,25 @@ fn point_format_99_is_named_as_stored() {
         "LAS point format 99 is not read here",
     );
 }
+
+/// Found by tests/io_fuzz.rs: a LAZ record (LASzip VLR) with a huge fixed chunk size made the
+/// decoder allocate 130 GB for the last chunk and abort (0xFFFFFFFF itself means "variable-size
+/// chunks", from memory, so 0x7FFFFFFF is used here). The VLR's data follows its
+/// 54-byte header (user id "laszip encoded" at +2); the chunk size is the u32 at data + 12
+/// (compressor, coder, version, revision, options before it; LASzip layout, from memory).
+#[test]
+fn laz_chunk_size_beyond_memory_is_refused() {
+    let d = Dir::new();
+    let mut b = depot();
+    let at = b
+        .windows(14)
+        .position(|w| w == b"laszip encoded")
+        .expect("LASzip VLR");
+    let data = at - 2 + 54;
+    assert_eq!(u32_at(&b, data + 12), 50_000, "the default chunk size");
+    b[data + 12..data + 16].copy_from_slice(&0x7FFF_FFFFu32.to_le_bytes());
+    refused(
+        &d.file("chunk.laz", &b),
+        "declares chunks of 2147483647 points",
+    );
+}

@@ -31,9 +31,12 @@ pub struct FeaturesArgs {
     /// folder, or with several inputs a folder (one `<input name>.<format>` per input).
     #[arg(short, long, value_name = "OUT")]
     pub output: PathBuf,
-    /// Output format, overriding the extension (needed for a folder; default there: npy).
-    #[arg(long, value_enum)]
-    pub format: Option<FormatArg>,
+    /// Output format, overriding the extension (needed for a folder; default there: npy):
+    /// npy (float32 matrix) or csv, each with its JSON sidecar `<file>.json`; ply (the centres
+    /// with the columns as properties); las or laz (LAS 1.4 with Extra Bytes, at most 341
+    /// columns).
+    #[arg(long, value_name = "FORMAT", value_parser = str::parse::<Format>)]
+    pub format: Option<Format>,
     /// Support radius in file units; repeat or give a comma list for several scales. Left out:
     /// 5 × the measured point spacing, rounded to two significant digits, printed.
     #[arg(
@@ -89,33 +92,6 @@ pub struct FeaturesArgs {
     pub common: CommonArgs,
 }
 
-/// Output formats on the command line.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
-pub enum FormatArg {
-    /// NumPy float32 matrix plus a JSON sidecar.
-    Npy,
-    /// Binary PLY with the columns as vertex properties.
-    Ply,
-    /// Comma-separated values plus a JSON sidecar.
-    Csv,
-    /// LAS 1.4 with Extra Bytes.
-    Las,
-    /// Compressed LAS 1.4 with Extra Bytes.
-    Laz,
-}
-
-impl FormatArg {
-    fn format(self) -> Format {
-        match self {
-            FormatArg::Npy => Format::Npy,
-            FormatArg::Ply => Format::Ply,
-            FormatArg::Csv => Format::Csv,
-            FormatArg::Las => Format::Las,
-            FormatArg::Laz => Format::Laz,
-        }
-    }
-}
-
 /// The JSON summary of one input.
 #[derive(Debug, Serialize)]
 pub struct Summary {
@@ -165,7 +141,7 @@ pub fn run(args: &FeaturesArgs) -> Result<u8> {
     let jobs = plan(
         &args.inputs,
         &args.output,
-        args.format.map(FormatArg::format),
+        args.format,
         args.keypoints.as_deref(),
     )?;
     let pool = c.pool()?;

@@ -85,6 +85,8 @@ fn f64_at(b: &[u8], o: usize) -> f64 {
     f64::from_le_bytes(b[o..o + 8].try_into().unwrap())
 }
 
+/// Largest decoded size of one LAZ chunk accepted, bytes.
+const MAX_CHUNK_BYTES: u64 = 1 << 28;
 /// Largest scale factor accepted, file units per stored step: above it a 32-bit coordinate
 /// no longer describes a scan (common practice is 0.01 to 0.0001).
 const MAX_SCALE: f64 = 1e4;
@@ -388,6 +390,29 @@ fn check_laz_chunks(
         return Err(bad(
             path,
             format!("the LAZ chunk table lists {bytes} compressed bytes, more than the file holds"),
+        ));
+    }
+    // The decoder allocates a whole chunk's points at once (for the last fixed-size chunk, as
+    // many as the record says): a chunk size no real file uses (LASzip writes 50 000 points,
+    // from memory) would make it allocate what the damaged record says.
+    let largest = if vlr.uses_variable_size_chunks() {
+        table
+            .as_ref()
+            .iter()
+            .map(|c| c.point_count)
+            .max()
+            .unwrap_or(0)
+    } else {
+        vlr.chunk_size() as u64
+    };
+    if largest.saturating_mul(record_len) > MAX_CHUNK_BYTES {
+        return Err(bad(
+            path,
+            format!(
+                "the LAZ data declares chunks of {largest} points ({} bytes decoded), more than {} MiB",
+                largest.saturating_mul(record_len),
+                MAX_CHUNK_BYTES >> 20
+            ),
         ));
     }
     // With fixed-size chunks every entry counts a full chunk, so this is an upper bound.

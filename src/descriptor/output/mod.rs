@@ -97,6 +97,17 @@ impl Format {
     }
 }
 
+impl std::str::FromStr for Format {
+    type Err = String;
+
+    /// `npy`, `ply`, `csv`, `las` or `laz`, without case.
+    fn from_str(s: &str) -> std::result::Result<Format, String> {
+        Format::from_path(Path::new(&format!("x.{s}"))).ok_or_else(|| {
+            format!("{s} is not a feature-file format; give npy, ply, csv, las or laz")
+        })
+    }
+}
+
 /// The centres to compute, in row order.
 #[derive(Debug, Clone, PartialEq)]
 pub enum CentreList {
