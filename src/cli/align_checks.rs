@@ -41,7 +41,8 @@ pub fn check_cost(keypoints: usize, voxel: f64, budget: u64) -> Result<()> {
 }
 
 /// Runs `work`, showing that `what` is under way on standard error: a spinner with the
-/// elapsed time on a terminal, otherwise a line every 5 seconds; nothing when `quiet`.
+/// elapsed time on a terminal, otherwise a line every 5 seconds (from 5 s on); nothing when
+/// `quiet`.
 pub fn busy<T>(quiet: bool, what: &str, work: impl FnOnce() -> T) -> T {
     use std::io::IsTerminal;
     use std::sync::mpsc;
@@ -56,7 +57,8 @@ pub fn busy<T>(quiet: bool, what: &str, work: impl FnOnce() -> T) -> T {
         bar.finish_and_clear();
         return out;
     }
-    eprintln!("align: {what}");
+    // Plain mode: the first line after 5 s, so a quick run or an early error prints nothing
+    // but its own lines.
     let (done, wait) = mpsc::channel::<()>();
     let start = Instant::now();
     let label = what.to_string();
