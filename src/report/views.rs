@@ -466,18 +466,28 @@ fn draw_header(canvas: &mut Canvas, text: &FigureText) -> i64 {
     y + 6
 }
 
-const FOOTER_HEIGHT: i64 = 70;
+/// Footer height: the legend row and two lines for the caution (it is never cut).
+const FOOTER_HEIGHT: i64 = 92;
 /// Footer height of the single-cloud picture: taller with a colour bar and its tick labels.
 fn cloud_footer_height(colour_bar: bool) -> i64 {
-    if colour_bar { 100 } else { FOOTER_HEIGHT }
+    if colour_bar {
+        FOOTER_HEIGHT + 30
+    } else {
+        FOOTER_HEIGHT
+    }
 }
 
-/// Draws the footer caution line along the bottom edge.
-/// `reserved` pixels at the right end are kept free.
+/// Draws the footer caution along the bottom edge, wrapped onto at most two lines (the last
+/// line ends at the bottom margin). `reserved` pixels at the right end are kept free.
 fn draw_footer_line(canvas: &mut Canvas, footer: &str, reserved: i64) {
-    let y = canvas.height() as i64 - MARGIN - Canvas::text_height(2) as i64;
+    let bottom = canvas.height() as i64 - MARGIN - Canvas::text_height(2) as i64;
     let usable = canvas.width() as i64 - 2 * MARGIN - reserved;
-    canvas.text(MARGIN, y, &fit_text(footer, 2, usable), 2, SOFT_INK);
+    let lines = wrap_words(footer, 2, usable, 2);
+    let pitch = Canvas::line_height(2) as i64 + 2;
+    let top = bottom - (lines.len() as i64 - 1) * pitch;
+    for (i, line) in lines.iter().enumerate() {
+        canvas.text(MARGIN, top + i as i64 * pitch, line, 2, SOFT_INK);
+    }
 }
 
 /// Draws the depth-shading note after the legend when it fits on that row, otherwise at the
