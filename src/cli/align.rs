@@ -103,10 +103,10 @@ pub struct PairReport {
     pub target: ScanEntry,
     /// `equivariant` or `fpfh`.
     pub method: String,
-    /// `confident` or `not_found`.
+    /// `confident`, `ambiguous` or `not_found`.
     pub verdict: String,
     /// Why nothing confident was found (`too_few_distinctive_points`, `too_little_overlap`,
-    /// `ambiguous_symmetric_shape`).
+    /// `ambiguous_symmetric_shape`, `weakly_constrained`).
     pub reason: Option<Reason>,
     /// The reason in words.
     pub reason_text: Option<String>,
@@ -138,6 +138,10 @@ pub struct PairReport {
     pub inlier_threshold: f64,
     /// Keypoints in SOURCE and TARGET.
     pub keypoints: [usize; 2],
+    /// Distinct refined poses, best first (the first is the answer).
+    pub candidates: Vec<equiscan::align::Candidate>,
+    /// Constraint analysis of the final fit (condition figure, weakly constrained directions).
+    pub constraint: equiscan::align::Constraint,
     /// Seconds per stage (reading the files included).
     pub timings: Vec<Timing>,
     /// Errors against the --truth transform, when given.
@@ -305,6 +309,7 @@ fn pair_report(
 ) -> PairReport {
     let (verdict, reason) = match a.verdict {
         Verdict::Confident => ("confident", None),
+        Verdict::Ambiguous(r) => ("ambiguous", Some(r)),
         Verdict::NotFound(r) => ("not_found", Some(r)),
     };
     let t = &a.transform;
@@ -335,6 +340,8 @@ fn pair_report(
         support_radius: a.radius,
         inlier_threshold: a.inlier_threshold,
         keypoints: a.keypoints,
+        candidates: a.candidates.clone(),
+        constraint: a.constraint.clone(),
         timings: a
             .timings
             .iter()
