@@ -6,7 +6,10 @@
 //! precision. Optional per-point attributes are `None` when the source did not carry them and
 //! otherwise have exactly one entry per point.
 
+use nalgebra::Vector3;
+
 use crate::error::{Error, Result};
+use crate::geometry::{Rigid, to_f32, vec3};
 
 /// A point cloud: f64 origin plus f32 local positions and optional scanner attributes.
 #[derive(Debug, Clone, Default, PartialEq)]
@@ -99,6 +102,36 @@ impl Cloud {
             std::array::from_fn(|k| self.origin[k] + lo[k] as f64),
             std::array::from_fn(|k| self.origin[k] + hi[k] as f64),
         ))
+    }
+
+    /// Mean of the points in global coordinates (f64; the origin when the cloud is empty).
+    pub fn centroid(&self) -> Vector3<f64> {
+        let mut s = Vector3::zeros();
+        for p in &self.positions {
+            s += vec3(*p);
+        }
+        s / self.len().max(1) as f64 + Vector3::from(self.origin)
+    }
+
+    /// The cloud moved by `tf` (acting on global coordinates), every attribute kept. The new
+    /// origin is the moved origin rounded to whole units (so that offsets stay small and the
+    /// origin a round number); positions are re-expressed about it in f64 and rounded to f32
+    /// once; normals are turned by the rotation.
+    pub fn transformed(&self, tf: &Rigid) -> Cloud {
+        let o = Vector3::from(self.origin);
+        let new_o = tf.apply(&o).map(|v| v.round());
+        let shift = tf.apply(&o) - new_o;
+        let mut out = self.clone();
+        out.origin = [new_o.x, new_o.y, new_o.z];
+        out.positions = self
+            .positions
+            .iter()
+            .map(|p| to_f32(&(tf.rotate(&vec3(*p)) + shift)))
+            .collect();
+        if let Some(n) = &self.normals {
+            out.normals = Some(n.iter().map(|d| to_f32(&tf.rotate(&vec3(*d)))).collect());
+        }
+        out
     }
 
     /// Names of the optional attributes that are present, in a fixed order.
@@ -201,6 +234,36 @@ mod tests {
                 assert!((g[k] - p[k]).abs() < 1e-3, "{g:?} vs {p:?}");
             }
         }
+    }
+
+    /// A quarter turn about z then a shift: every point's global coordinate moves exactly as
+    /// the transform says, normals turn, attributes stay, and the centroid follows.
+    #[test]
+    fn transformed_moves_points_normals_and_centroid() {
+        let mut c = Cloud::new(
+            [1000.4, -20.0, 3.0],
+            vec![[0.0, 0.0, 0.0], [1.0, 0.0, 0.0], [0.0, 2.0, 0.5]],
+        );
+        c.normals = Some(vec![[1.0, 0.0, 0.0]; 3]);
+        c.intensity = Some(vec![1.0, 2.0, 3.0]);
+        let quarter = nalgebra::Matrix3::new(0.0, -1.0, 0.0, 1.0, 0.0, 0.0, 0.0, 0.0, 1.0);
+        let tf = Rigid::new(quarter, Vector3::new(5.0, 6.0, 7.0));
+        let m = c.transformed(&tf);
+        assert_eq!(m.origin.map(|v| v.fract()), [0.0; 3]);
+        for i in 0..c.len() {
+            let want = tf.apply(&Vector3::from(c.global(i)));
+            let got = Vector3::from(m.global(i));
+            assert!((want - got).norm() < 1e-5, "{want} vs {got}");
+        }
+        assert_eq!(m.normals.as_ref().unwrap()[0], [0.0, 1.0, 0.0]);
+        assert_eq!(m.intensity, c.intensity);
+        assert!((m.centroid() - tf.apply(&c.centroid())).norm() < 1e-5);
+        let mean = (Vector3::new(0.0, 0.0, 0.0)
+            + Vector3::new(1.0, 0.0, 0.0)
+            + Vector3::new(0.0, 2.0, 0.5))
+            / 3.0
+            + Vector3::from(c.origin);
+        assert!((c.centroid() - mean).norm() < 1e-12);
     }
 
     #[test]

@@ -28,6 +28,7 @@ pub mod align;
 pub mod cloud;
 pub mod descriptor;
 pub mod error;
+pub mod geometry;
 pub mod io;
 pub mod report;
 pub mod so3;

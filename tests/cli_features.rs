@@ -72,12 +72,13 @@ fn npy_with_sidecar_and_suggested_radius() {
     // x/y/z local, count, flags, 30 norms, 105 power-spectrum values
     assert_eq!(cols, 3 + 2 + 30 + 105);
     let side: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(dir.path().join("f.json")).unwrap()).unwrap();
+        serde_json::from_str(&std::fs::read_to_string(dir.path().join("f.npy.json")).unwrap())
+            .unwrap();
     assert_eq!(side["rows"], 600);
     assert_eq!(side["columns"].as_array().unwrap().len(), cols);
     assert!(side["columns"][3].as_str().unwrap().ends_with("_count"));
     let meta = &side["metadata"];
-    assert_eq!(meta["recipe"]["version"], 1);
+    assert_eq!(meta["recipe"]["version"], 2);
     assert_eq!(meta["recipe"]["degree"], 4);
     assert_eq!(meta["radius_suggested"], true);
     let (cloud, _) = read_cloud(&input).unwrap();
@@ -136,7 +137,8 @@ fn ply_csv_las_outputs_and_json_summary() {
         lines.len() - 1
     );
     let side: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(dir.path().join("f.json")).unwrap()).unwrap();
+        serde_json::from_str(&std::fs::read_to_string(dir.path().join("f.csv.json")).unwrap())
+            .unwrap();
     assert_eq!(side["metadata"]["centres"]["kind"], "voxel");
     assert_eq!(
         side["metadata"]["centre_indices"].as_array().unwrap().len(),
@@ -298,9 +300,273 @@ fn bad_input_exits_2_with_one_line_and_no_output() {
         assert_eq!(out.status.code(), Some(2), "{args:?}: {stderr}");
         assert!(stderr.contains(want), "{args:?}: {stderr}");
         assert_eq!(stderr.trim_end().lines().count(), 1, "{args:?}: {stderr}");
-        assert!(!dir.path().join("x.npy").exists() && !dir.path().join("x.json").exists());
+        assert!(!dir.path().join("x.npy").exists() && !dir.path().join("x.npy.json").exists());
     }
     // clap's own usage errors exit 2 too
     let out = equiscan(&["features", "scan.ply"], dir.path());
     assert_eq!(out.status.code(), Some(2));
+}
+
+fn one_line_error(out: &Output, want: &str) {
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(2), "{stderr}");
+    assert!(stderr.contains(want), "wanted {want:?} in {stderr}");
+    assert_eq!(stderr.trim_end().lines().count(), 1, "{stderr}");
+}
+
+#[test]
+fn outputs_never_replace_inputs() {
+    let dir = tempfile::tempdir().unwrap();
+    small_cloud(dir.path(), "a.ply", 11);
+    std::fs::create_dir(dir.path().join("sub")).unwrap();
+    let before = std::fs::read(dir.path().join("a.ply")).unwrap();
+    let mut cases: Vec<Vec<&str>> = vec![
+        vec!["features", "a.ply", "-o", "a.ply", "-r", "0.5"],
+        vec!["features", "a.ply", "-o", "sub/../a.ply", "-r", "0.5"],
+        vec![
+            "features", "a.ply", "-o", ".", "--format", "ply", "-r", "0.5",
+        ],
+    ];
+    #[cfg(unix)]
+    {
+        std::os::unix::fs::symlink(dir.path().join("a.ply"), dir.path().join("link.ply")).unwrap();
+        cases.push(vec!["features", "a.ply", "-o", "link.ply", "-r", "0.5"]);
+    }
+    for args in &cases {
+        let out = equiscan(args, dir.path());
+        one_line_error(&out, "is the same file as the input");
+        assert_eq!(
+            std::fs::read(dir.path().join("a.ply")).unwrap(),
+            before,
+            "{args:?}"
+        );
+    }
+    // Two LAZ tiles written into their own folder (the README's old example did this).
+    for n in ["n1", "n2"] {
+        let out = equiscan(
+            &[
+                "features",
+                "a.ply",
+                "-o",
+                &format!("{n}.laz"),
+                "-r",
+                "0.5",
+                "-q",
+            ],
+            dir.path(),
+        );
+        assert!(out.status.success());
+    }
+    let tiles = std::fs::read(dir.path().join("n1.laz")).unwrap();
+    let out = equiscan(
+        &[
+            "features", "n1.laz", "n2.laz", "-o", ".", "--format", "laz", "-r", "0.5",
+        ],
+        dir.path(),
+    );
+    one_line_error(&out, "n1.laz: is the same file as the input n1.laz");
+    assert_eq!(std::fs::read(dir.path().join("n1.laz")).unwrap(), tiles);
+}
+
+#[test]
+fn output_folders_and_names_are_checked_before_reading() {
+    let dir = tempfile::tempdir().unwrap();
+    small_cloud(dir.path(), "a.ply", 12);
+    small_cloud(dir.path(), "b.ply", 13);
+    // A broken input: if it were read first, its error would be the one printed.
+    std::fs::write(dir.path().join("broken.ply"), b"ply\nformat ascii 1.0\n").unwrap();
+    let out = equiscan(
+        &[
+            "features",
+            "broken.ply",
+            "-o",
+            "no/such/dir/x.npy",
+            "-r",
+            "1",
+        ],
+        dir.path(),
+    );
+    one_line_error(
+        &out,
+        "no/such/dir: the folder does not exist; create the folder first",
+    );
+    let out = equiscan(
+        &["features", "a.ply", "b.ply", "-o", "no/such/dir", "-r", "1"],
+        dir.path(),
+    );
+    one_line_error(&out, "no/such: the folder does not exist");
+    let out = equiscan(
+        &["features", "a.ply", "b.ply", "-o", "x.npy", "-r", "1"],
+        dir.path(),
+    );
+    one_line_error(
+        &out,
+        "x.npy: names a file, but 2 inputs need an output folder",
+    );
+    assert!(!dir.path().join("x.npy").exists());
+}
+
+#[test]
+fn npy_and_csv_of_one_name_keep_their_own_sidecars() {
+    let dir = tempfile::tempdir().unwrap();
+    small_cloud(dir.path(), "a.ply", 14);
+    for (f, r) in [("x.npy", "0.5"), ("x.csv", "0.7")] {
+        let out = equiscan(&["features", "a.ply", "-o", f, "-r", r], dir.path());
+        assert!(
+            out.status.success(),
+            "{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+        let stderr = String::from_utf8_lossy(&out.stderr);
+        assert!(stderr.contains(&format!("wrote {f}\n")), "{stderr}");
+        assert!(stderr.contains(&format!("wrote {f}.json\n")), "{stderr}");
+    }
+    for (f, r) in [("x.npy", 0.5), ("x.csv", 0.7)] {
+        let side = dir.path().join(format!("{f}.json"));
+        let doc = equiscan::descriptor::output::verify(&side).unwrap();
+        assert_eq!(doc.file, f);
+        assert_eq!(doc.metadata.recipe.radii(), [r as f32]);
+    }
+    assert!(!dir.path().join("x.json").exists());
+}
+
+#[test]
+fn runaway_runs_are_refused_with_their_cost() {
+    let dir = tempfile::tempdir().unwrap();
+    small_cloud(dir.path(), "a.ply", 15);
+    let out = equiscan(
+        &[
+            "features",
+            "a.ply",
+            "-o",
+            "x.npy",
+            "-r",
+            "0.5",
+            "--max-memory",
+            "1K",
+        ],
+        dir.path(),
+    );
+    one_line_error(
+        &out,
+        "this run would need more memory than allowed (1.0 KiB): 600 centres × about",
+    );
+    assert!(String::from_utf8_lossy(&out.stderr).contains("--force"));
+    assert!(!dir.path().join("x.npy").exists());
+    // A radius larger than the cloud is a warning, and --force runs past the budget.
+    let out = equiscan(
+        &[
+            "features",
+            "a.ply",
+            "-o",
+            "x.npy",
+            "-r",
+            "1000",
+            "--max-memory",
+            "1K",
+            "--force",
+        ],
+        dir.path(),
+    );
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert!(out.status.success(), "{stderr}");
+    assert!(
+        stderr.contains("the support radius 1000 is larger than the whole cloud"),
+        "{stderr}"
+    );
+    let out = equiscan(
+        &[
+            "features",
+            "a.ply",
+            "-o",
+            "x.npy",
+            "-r",
+            "0.5",
+            "--max-memory",
+            "lots",
+        ],
+        dir.path(),
+    );
+    assert_eq!(out.status.code(), Some(2));
+}
+
+#[test]
+fn too_many_columns_for_las_are_refused_with_advice() {
+    let dir = tempfile::tempdir().unwrap();
+    small_cloud(dir.path(), "a.ply", 16);
+    // L = 8, N = 8: 72 norms + 324 power-spectrum values + count + flags = 398 > 341.
+    let out = equiscan(
+        &[
+            "features", "a.ply", "-o", "x.las", "-r", "0.5", "--degree", "8", "--shells", "8",
+        ],
+        dir.path(),
+    );
+    one_line_error(&out, "398 feature columns are more than the 341");
+    assert!(String::from_utf8_lossy(&out.stderr).contains("write NPY or CSV"));
+    assert!(!dir.path().join("x.las").exists());
+}
+
+#[test]
+fn messages_count_in_words() {
+    let dir = tempfile::tempdir().unwrap();
+    let input = small_cloud(dir.path(), "a.ply", 17);
+    let (cloud, _) = read_cloud(&input).unwrap();
+    let kp = Cloud::from_global(&[cloud.global(3)]);
+    write_ply(&dir.path().join("kp.ply"), &kp, &[]).unwrap();
+    let out = equiscan(
+        &[
+            "features",
+            "a.ply",
+            "--keypoints",
+            "kp.ply",
+            "-o",
+            "k.csv",
+            "-r",
+            "0.5",
+        ],
+        dir.path(),
+    );
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert!(out.status.success(), "{stderr}");
+    assert!(
+        stderr.contains("a.ply: 1 centre of 600 points, 140 columns"),
+        "{stderr}"
+    );
+    assert!(
+        !stderr.contains("NaN") && !stderr.contains("-0.0"),
+        "{stderr}"
+    );
+}
+
+#[test]
+fn las_column_limit_matches_laspy() {
+    // laspy 2.7.0 writes and reads back at most 341 float32 extra dimensions and refuses 342
+    // (tests/data/las/extra_bytes_limit_laspy.json, made by
+    // tools/fixtures/las_extra_bytes_limit.py): the Extra Bytes VLR's u16 length holds 341
+    // descriptions of 192 bytes (LAS 1.4 R15).
+    let fixture: serde_json::Value = serde_json::from_str(
+        &std::fs::read_to_string("tests/data/las/extra_bytes_limit_laspy.json").unwrap(),
+    )
+    .unwrap();
+    let laspy_max = fixture["largest_float32_extra_dims_round_trip"]
+        .as_u64()
+        .unwrap() as usize;
+    assert_eq!(equiscan::io::MAX_LAS_COLUMNS, laspy_max);
+    let dir = tempfile::tempdir().unwrap();
+    let cloud = Cloud::from_global(&[[1.0, 2.0, 3.0], [4.0, 5.0, 6.0]]);
+    let names: Vec<String> = (0..=laspy_max).map(|i| format!("c{i}")).collect();
+    let values = [0.5f32, -1.5];
+    let cols: Vec<Column<'_>> = names.iter().map(|n| Column::new(n, &values)).collect();
+    let path = dir.path().join("eb.las");
+    let err = equiscan::io::write_las(&path, &cloud, &cols)
+        .unwrap_err()
+        .to_string();
+    assert!(
+        err.contains("342 feature columns are more than the 341"),
+        "{err}"
+    );
+    equiscan::io::write_las(&path, &cloud, &cols[..laspy_max]).unwrap();
+    let (_, info) = read_cloud(&path).unwrap();
+    assert_eq!(info.other_fields.len(), laspy_max);
+    assert_eq!(info.other_fields[340], "c340");
 }

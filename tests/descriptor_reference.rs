@@ -2,8 +2,9 @@
 //!
 //! Source of the fixture: tools/fixtures/descriptor_reference.py (numpy, scipy.spatial.cKDTree,
 //! scipy.special.sph_harm_y converted to the crate's real harmonics, Clebsch–Gordan by Racah's
-//! formula) run on the Stanford bunny (tests/data/bunny), versions recorded in
-//! tests/data/descriptor/bunny_reference.json. No Python is needed to run this test.
+//! formula) run on the Stanford bunny (tests/data/bunny), library versions recorded in the JSON
+//! beside each fixture: tests/data/descriptor/bunny_reference.* (descriptor version 1) and
+//! bunny_reference_v2.* (version 2). No Python is needed to run this test.
 
 use std::path::Path;
 
@@ -35,11 +36,20 @@ fn read_npy_f64(path: &Path) -> (usize, usize, Vec<f64>) {
 
 #[test]
 fn bunny_matches_the_numpy_scipy_reference() {
-    let meta: serde_json::Value = serde_json::from_str(
-        &std::fs::read_to_string(data("tests/data/descriptor/bunny_reference.json")).unwrap(),
-    )
-    .unwrap();
-    let (rows, cols, reference) = read_npy_f64(&data("tests/data/descriptor/bunny_reference.npy"));
+    check("tests/data/descriptor/bunny_reference", 1);
+}
+
+#[test]
+fn bunny_matches_the_numpy_scipy_reference_in_version_2() {
+    check("tests/data/descriptor/bunny_reference_v2", 2);
+}
+
+fn check(prefix: &str, version: u32) {
+    let meta: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(data(&format!("{prefix}.json"))).unwrap())
+            .unwrap();
+    assert_eq!(meta["recipe"]["version"].as_u64(), Some(version as u64));
+    let (rows, cols, reference) = read_npy_f64(&data(&format!("{prefix}.npy")));
     let names: Vec<&str> = meta["columns"]
         .as_array()
         .unwrap()
@@ -57,6 +67,7 @@ fn bunny_matches_the_numpy_scipy_reference() {
 
     let (cloud, _) = equiscan::io::read_cloud(&data("tests/data/bunny/bunny.ply")).unwrap();
     let recipe = Recipe::builder()
+        .version(version)
         .radii([1.5, 0.75])
         .degree(4)
         .shells(6)
@@ -120,5 +131,8 @@ fn bunny_matches_the_numpy_scipy_reference() {
         worst.0,
         worst.1
     );
-    eprintln!("worst relative difference {:e} in {}", worst.0, worst.1);
+    eprintln!(
+        "version {version}: worst relative difference {:e} in {}",
+        worst.0, worst.1
+    );
 }

@@ -143,12 +143,12 @@ fn truncated_point_data_and_counts_larger_than_the_data() {
     body.extend_from_slice(&[0u8; 12 * 3 + 5]);
     check(
         &d.file("huge.ply", &body),
-        "3 of 4000000000 vertices present",
+        "declares 4000000000 vertex records, which need at least 48000000000 bytes, but the data holds 41",
     );
     let ascii = b"ply\nformat ascii 1.0\nelement vertex 3\nproperty float x\nproperty float y\nproperty float z\nend_header\n1 2 3\n4 5\n";
     check(
         &d.file("short_ascii.ply", ascii),
-        "the file ends early: vertex 1 of 3",
+        "declares 3 vertex records, which need at least 18 bytes, but the data holds 10",
     );
 }
 

@@ -117,7 +117,7 @@ fn depot_scans(out: &Path) -> AnyResult<report::DepotTruth> {
         range_sigma: 0.003,
         line_period: 1.0 / 40.0,
     };
-    let scene_to_project = Pose::shift(V3::from(PROJECT_ORIGIN));
+    let scene_to_project = Pose::translation(V3::from(PROJECT_ORIGIN));
     let ground = |x: f64, y: f64| depot::ground_z(x, y);
 
     // Station 1: levelled, heading 23°, coordinates written in the project frame.
@@ -144,7 +144,7 @@ fn depot_scans(out: &Path) -> AnyResult<report::DepotTruth> {
         start_time: 304_480.0,
     };
 
-    let to_file1 = s1_pose.then(&scene_to_project);
+    let to_file1 = scene_to_project.compose(&s1_pose);
     let returns1 = tls::scan(&scene, &station1, &settings);
     let pts1: Vec<output::LasPoint> = returns1.iter().map(|r| las_point(r, &to_file1)).collect();
     let file1 = "depot_station1.laz";
@@ -154,16 +154,16 @@ fn depot_scans(out: &Path) -> AnyResult<report::DepotTruth> {
     let returns2 = tls::scan(&scene, &station2, &settings);
     let pts2: Vec<output::LasPoint> = returns2
         .iter()
-        .map(|r| las_point(r, &Pose::shift(V3::zeros())))
+        .map(|r| las_point(r, &Pose::translation(V3::zeros())))
         .collect();
     let file2 = "depot_station2.laz";
     output::write_laz(&out.join(file2), &pts2, [0.0; 3], 2)?;
     eprintln!("{file2}: {} points", pts2.len());
 
     // Station 2 file -> scene -> project (= station 1 file).
-    let truth_pose = s2_pose.then(&scene_to_project);
-    let c1 = scene_to_project.apply(&s1_pose.shift);
-    let c2 = truth_pose.shift;
+    let truth_pose = scene_to_project.compose(&s2_pose);
+    let c1 = scene_to_project.apply(&s1_pose.translation);
+    let c2 = truth_pose.translation;
     let (lo1, hi1) = bounds(&pts1);
     let (lo2, hi2) = bounds(&pts2);
     Ok(report::DepotTruth {
@@ -206,7 +206,7 @@ fn depot_scans(out: &Path) -> AnyResult<report::DepotTruth> {
             bounds_min: lo2,
             bounds_max: hi2,
         },
-        station2_to_station1: report::Rigid::from_pose(&truth_pose),
+        station2_to_station1: report::TransformRecord::from_pose(&truth_pose),
         station_distance_m: (c2 - c1).norm(),
     })
 }
@@ -316,7 +316,7 @@ fn part_scans(out: &Path) -> AnyResult<(Vec<report::PartTruth>, report::DefectTr
                 ),
                 location_canonical: [at.x, at.y, at.z],
                 location_in_scan: [where_scan.x, where_scan.y, where_scan.z],
-                pose: report::Rigid::from_pose(&pose),
+                pose: report::TransformRecord::from_pose(&pose),
             });
         }
         truths.push(report::PartTruth {
@@ -326,7 +326,7 @@ fn part_scans(out: &Path) -> AnyResult<(Vec<report::PartTruth>, report::DefectTr
             reference_points: pts.len(),
             scan_file,
             scan_points: scan.len(),
-            pose: report::Rigid::from_pose(&pose),
+            pose: report::TransformRecord::from_pose(&pose),
             symmetry: symmetry(part.name),
         });
     }
@@ -343,7 +343,7 @@ fn visible_bolt_hole(pose: &Pose, sensor: &sensor::Sensor) -> (usize, V3) {
         let front = parts::flange_hole_centre(k);
         for (at, normal) in [(front, V3::z()), (V3::new(front.x, front.y, 0.0), -V3::z())] {
             let p = pose.apply(&at);
-            let n = pose.apply_dir(&normal);
+            let n = pose.rotate(&normal);
             let d = p.normalize();
             let to_proj = (V3::new(sensor.baseline, 0.0, 0.0) - p).normalize();
             let score = (-n.dot(&d)).min(n.dot(&to_proj));

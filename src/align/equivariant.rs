@@ -31,6 +31,8 @@ pub struct EquivariantRecipe {
     pub degree: usize,
     /// Radial shells `N`.
     pub shells: usize,
+    /// Descriptor version ([`crate::descriptor::RECIPE_VERSION`] by default).
+    pub version: u32,
 }
 
 /// Invariant rows and coefficient blocks at the keypoints of one cloud.
@@ -53,6 +55,7 @@ pub fn describe(
     recipe: &EquivariantRecipe,
 ) -> Result<EquivariantFeatures> {
     let r = Recipe::builder()
+        .version(recipe.version)
         .radii(recipe.radii.iter().copied())
         .degree(recipe.degree)
         .shells(recipe.shells)
@@ -174,6 +177,7 @@ mod tests {
             radii: vec![0.4],
             degree: 4,
             shells: 4,
+            version: crate::descriptor::RECIPE_VERSION,
         };
         let ia = KdIndex::new(&pts).unwrap();
         let ib = KdIndex::new(&moved).unwrap();

@@ -34,6 +34,7 @@ pub mod candidates;
 pub mod consensus;
 pub mod constraint;
 pub mod equivariant;
+pub mod export;
 pub mod fpfh;
 pub mod icp;
 pub mod matching;
@@ -41,8 +42,13 @@ pub mod multi;
 pub mod pipeline;
 pub mod prep;
 pub mod quality;
+pub mod report;
 pub mod residual;
-pub mod rigid;
+pub mod truth;
+
+/// The rigid-transform type and closed-form fits live in [`crate::geometry`]; this path is
+/// kept so that `align::rigid::…` and `align::Rigid` keep working.
+pub use crate::geometry::rigid;
 
 pub use candidates::Candidate;
 pub use constraint::{Constraint, Motion, WeakDirection};

@@ -87,7 +87,7 @@ pub fn align_many(clouds: &[Cloud], params: &AlignParams) -> Result<MultiAlignme
         .collect();
     let (tree, rest) = spanning_tree(n, &edges);
     let poses = compose_poses(n, &tree);
-    let centroids: Vec<Vector3<f64>> = clouds.iter().map(centroid).collect();
+    let centroids: Vec<Vector3<f64>> = clouds.iter().map(Cloud::centroid).collect();
     let loops = rest
         .iter()
         .filter_map(|&(i, j, _, t)| {
@@ -186,14 +186,6 @@ fn tree_path(n: usize, tree: &[Edge], from: usize, to: usize) -> Vec<usize> {
     }
     path.reverse();
     path
-}
-
-fn centroid(c: &Cloud) -> Vector3<f64> {
-    let mut s = Vector3::zeros();
-    for p in &c.positions {
-        s += Vector3::new(p[0] as f64, p[1] as f64, p[2] as f64);
-    }
-    s / c.len().max(1) as f64 + Vector3::from(c.origin)
 }
 
 #[cfg(test)]

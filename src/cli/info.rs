@@ -4,13 +4,15 @@
 //! most 10 000 points; the suggested support radius is 5 × the spacing, common practice for
 //! local descriptors (about 60–100 neighbours on a scanned surface). Both are in file units.
 
-use std::io::Write;
 use std::path::{Path, PathBuf};
 
+use equiscan::Result;
+use equiscan::descriptor::suggested_radius;
 use equiscan::io::{Bounds, FileInfo, read_cloud};
-use equiscan::spatial::{estimate_spacing, suggested_support_radius};
-use equiscan::{Error, Result};
+use equiscan::spatial::estimate_spacing;
 use serde::Serialize;
+
+use super::common::{CommonArgs, print_stdout};
 
 /// Arguments of `equiscan info`.
 #[derive(Debug, clap::Args)]
@@ -18,9 +20,9 @@ pub struct InfoArgs {
     /// LAS, LAZ or PLY files (the format is recognised from the content).
     #[arg(required = true, value_name = "FILE")]
     pub files: Vec<PathBuf>,
-    /// Print one JSON object per file, one per line, instead of text.
-    #[arg(long)]
-    pub json: bool,
+    /// `-q`, `--json` (one object per file, one per line), `--threads`.
+    #[command(flatten)]
+    pub common: CommonArgs,
 }
 
 /// What `info` reports for one file.
@@ -36,7 +38,8 @@ pub struct InfoReport {
     /// Median nearest-neighbour distance, file units; `None` with fewer than two distinct
     /// points.
     pub point_spacing: Option<f32>,
-    /// 5 × point spacing, file units.
+    /// 5 × point spacing rounded to two significant digits, file units
+    /// ([`suggested_radius`], the radius `features` uses when none is given).
     pub suggested_support_radius: Option<f32>,
 }
 
@@ -50,7 +53,7 @@ pub fn inspect(path: &Path) -> Result<InfoReport> {
         points_read: cloud.len(),
         bounds,
         point_spacing,
-        suggested_support_radius: point_spacing.map(suggested_support_radius),
+        suggested_support_radius: point_spacing.map(suggested_radius),
     })
 }
 
@@ -62,6 +65,48 @@ fn decimals(info: &FileInfo) -> usize {
             (-finest.log10()).ceil().clamp(0.0, 9.0) as usize
         })
         .unwrap_or(6)
+}
+
+/// `v` with `d` decimals, never `-0.000` (a value that rounds to zero prints unsigned).
+fn fixed(v: f64, d: usize) -> String {
+    let t = format!("{v:.d$}");
+    match t.strip_prefix('-') {
+        Some(rest) if rest.chars().all(|c| c == '0' || c == '.') => rest.to_string(),
+        _ => t,
+    }
+}
+
+/// Width of the text report; longer lists of names wrap.
+const WRAP: usize = 100;
+
+/// `names` joined by `, `, wrapped so that no line (after the 18-column label) passes
+/// `width`; continuation lines start with `indent`. `none` when empty.
+fn wrap(names: &[String], width: usize, indent: &str) -> String {
+    if names.is_empty() {
+        return "none".to_string();
+    }
+    let mut out = String::new();
+    let mut col = indent.len();
+    for (k, n) in names.iter().enumerate() {
+        let piece = if k + 1 < names.len() {
+            format!("{n},")
+        } else {
+            n.clone()
+        };
+        if k > 0 {
+            if col + 1 + piece.len() > width {
+                out.push('\n');
+                out.push_str(indent);
+                col = indent.len();
+            } else {
+                out.push(' ');
+                col += 1;
+            }
+        }
+        out.push_str(&piece);
+        col += piece.len();
+    }
+    out
 }
 
 /// Human-readable text for one report.
@@ -87,17 +132,11 @@ pub fn render(r: &InfoReport) -> String {
         for (k, axis) in ["x", "y", "z"].iter().enumerate() {
             line(
                 if k == 0 { "bounds" } else { "" },
-                format!("{axis} {:.d$} .. {:.d$}", b.min[k], b.max[k]),
+                format!("{axis} {} .. {}", fixed(b.min[k], d), fixed(b.max[k], d)),
             );
         }
     }
-    let list = |v: &[String]| {
-        if v.is_empty() {
-            "none".to_string()
-        } else {
-            v.join(", ")
-        }
-    };
+    let list = |v: &[String]| wrap(v, WRAP, &" ".repeat(18));
     line("attributes", list(&f.attributes));
     if !f.other_fields.is_empty() {
         line("other fields", list(&f.other_fields));
@@ -122,7 +161,7 @@ pub fn render(r: &InfoReport) -> String {
             );
             line(
                 "support radius",
-                format!("{rad:.4} suggested (5 × point spacing)"),
+                format!("{rad} suggested (5 × point spacing, two significant digits)"),
             );
         }
         _ => line(
@@ -136,32 +175,23 @@ pub fn render(r: &InfoReport) -> String {
 /// Runs `info` on every file; a failing file prints its one-line error on stderr and the run
 /// goes on. Exit code 0 when every file was read, 2 otherwise.
 pub fn run(args: &InfoArgs) -> Result<u8> {
+    let c = &args.common;
+    let pool = c.pool()?;
     let mut code = 0;
-    let stdout = std::io::stdout();
     for (i, path) in args.files.iter().enumerate() {
-        match inspect(path) {
+        match pool.install(|| inspect(path)) {
             Ok(r) => {
-                let text = if args.json {
-                    let mut t = serde_json::to_string(&r).map_err(|e| {
-                        Error::invalid(
-                            format!("cannot encode the report: {e}"),
-                            "report this as a bug",
-                        )
-                    })?;
-                    t.push('\n');
-                    t
-                } else if i > 0 {
-                    format!("\n{}", render(&r))
-                } else {
-                    render(&r)
-                };
-                let mut out = stdout.lock();
                 // A closed pipe (e.g. `| head`) ends the run quietly.
-                if out
-                    .write_all(text.as_bytes())
-                    .and_then(|_| out.flush())
-                    .is_err()
-                {
+                let open = if c.json {
+                    c.print_json(&r)?
+                } else if c.quiet {
+                    true
+                } else if i > 0 {
+                    print_stdout(&format!("\n{}", render(&r)))
+                } else {
+                    print_stdout(&render(&r))
+                };
+                if !open {
                     return Ok(code);
                 }
             }
@@ -172,4 +202,28 @@ pub fn run(args: &InfoArgs) -> Result<u8> {
         }
     }
     Ok(code)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn no_negative_zero() {
+        assert_eq!(fixed(-0.0, 3), "0.000");
+        assert_eq!(fixed(-0.0001, 3), "0.000");
+        assert_eq!(fixed(-0.002, 3), "-0.002");
+        assert_eq!(fixed(12.5, 1), "12.5");
+    }
+
+    #[test]
+    fn long_lists_wrap() {
+        let names: Vec<String> = (0..60).map(|i| format!("r1p5_norm_l{i}_n0")).collect();
+        let text = wrap(&names, WRAP, "    ");
+        assert!(text.lines().count() > 5, "{text}");
+        assert!(text.lines().all(|l| l.len() <= WRAP), "{text}");
+        assert_eq!(text.matches("r1p5_norm").count(), 60);
+        assert_eq!(wrap(&[], WRAP, ""), "none");
+        assert_eq!(wrap(&["a".into(), "b".into()], WRAP, ""), "a, b");
+    }
 }

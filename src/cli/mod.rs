@@ -2,9 +2,13 @@
 //!
 //! Each subcommand has a `#[derive(clap::Args)]` struct and a `run(&Args) -> Result<u8>`
 //! returning the exit code (0 done, 1 ran but found no confident result, 2 error). To add a
-//! subcommand: a module here, a variant in [`Command`], a line in [`Command::run`].
+//! subcommand: a module here, a variant in [`Command`], a line in [`Command::run`]; flatten
+//! [`common::CommonArgs`] into its arguments (`-q`, `--json`, `--threads`) and check its outputs
+//! with `equiscan::io::guard::check_outputs` before reading any point.
 
 pub mod align;
+pub mod align_checks;
+pub mod common;
 pub mod features;
 pub mod info;
 

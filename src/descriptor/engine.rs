@@ -95,12 +95,13 @@ impl Features {
 /// The descriptor engine: a validated [`Recipe`] with its precomputed constants, shared by all
 /// worker threads. Build once, then compute any number of times.
 ///
-/// Conventions (see the crate's design, "the descriptor, exactly", version 1): neighbours of a
+/// Conventions (see the crate's design, "the descriptor, exactly", versions 1 and 2): neighbours of a
 /// centre `p` are the points with `0 < |q − p| ≤ r`, distances computed in f32 on local
 /// positions; `W = 1 + Σ f_c(ρ) + (points coinciding with p, other than the centre)`, where a
 /// centre position that coincides with one or more cloud points is taken to be one of them (so
 /// a cloud point used as centre and the same position given as [`Engine::compute_at`] agree);
-/// `c_nlm = Σ g_n f_c Y_lm / W`. Neighbours are put in ascending point index before anything is
+/// `c_nlm = Σ g_n f_c h_l Y_lm / W` (`h_l` the version-2 fade of degrees `l ≥ 1`, 1 in
+/// version 1). Neighbours are put in ascending point index before anything is
 /// summed, and every sum runs in an order fixed by that list alone (the harmonic sums in eight
 /// lanes of neighbours `j ≡ i (mod 8)`, then the lanes in a fixed tree), so the result does not
 /// depend on the tree's visiting order or on the number of threads.
@@ -110,6 +111,9 @@ pub struct Engine {
     columns: Vec<String>,
     plan: InvariantPlan,
     kernel: kernel::Kernel,
+    /// `1/ρ₀ = 2N` for a version-2 recipe (the fade of degrees `l ≥ 1` at the centre); `None`
+    /// for version 1.
+    fade: Option<f32>,
 }
 
 /// Scratch space of one worker, reused for every centre of its tasks.
@@ -158,7 +162,9 @@ impl Engine {
     /// Builds the engine (coupling table, column layout) for a recipe.
     pub fn new(recipe: Recipe) -> Engine {
         let plan = InvariantPlan::new(recipe.shells(), recipe.degree(), recipe.invariants());
+        let fade = (recipe.version() >= 2).then(|| 2.0 * recipe.shells() as f32);
         Engine {
+            fade,
             columns: recipe.column_names(),
             recipe,
             plan,
@@ -235,21 +241,21 @@ impl Engine {
     /// over `points`. Centres need not be points of the cloud. This is the entry point for
     /// registration: keep the coefficients in the recipe to get the equivariant part.
     ///
-    /// # Panics
+    /// # Errors
     /// If `index` was not built over `points` (different lengths).
     pub fn compute_at(
         &self,
         points: &[[f32; 3]],
         index: &KdIndex,
         centres: &[[f32; 3]],
-    ) -> Features {
+    ) -> Result<Features> {
         self.compute_at_with(points, index, centres, None)
     }
 
     /// [`Engine::compute_at`] with a progress callback, called with the number of centres
     /// finished after each chunk of work (from worker threads).
     ///
-    /// # Panics
+    /// # Errors
     /// If `index` was not built over `points` (different lengths).
     pub fn compute_at_with(
         &self,
@@ -257,9 +263,9 @@ impl Engine {
         index: &KdIndex,
         centres: &[[f32; 3]],
         progress: Option<&(dyn Fn(usize) + Sync)>,
-    ) -> Features {
-        check_index(points, index).expect("compute_at: the index must be built over the points");
-        self.run(points, index, centres.to_vec(), progress)
+    ) -> Result<Features> {
+        check_index(points, index)?;
+        Ok(self.run(points, index, centres.to_vec(), progress))
     }
 
     fn scratch(&self) -> Scratch {
@@ -515,6 +521,7 @@ impl Engine {
             self.kernel,
             l_max,
             1.0 / r,
+            self.fade,
             dx,
             dy,
             dz,

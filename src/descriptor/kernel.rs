@@ -130,16 +130,31 @@ const INV_E: f32 = 0.367_879_44;
 /// Neighbours are processed in lanes of this many; buffers are padded to a multiple of it.
 pub(crate) const LANES: usize = 8;
 
+/// The version-2 fade `h = 1 − exp(−s²)` at `s = ρ/ρ₀`: below `s² = 1/64` the cubic Taylor
+/// polynomial `x − x²/2 + x³/6` (`x = s²`, relative error below 2e-7), which keeps the relative
+/// accuracy that `1 − exp(−x)` loses to cancellation near the centre; above it, the
+/// difference itself (absolute error about 1e-7).
+#[inline(always)]
+pub(crate) fn fade_factor(s: f32) -> f32 {
+    let x = s * s;
+    let series = x * (1.0 - x * (0.5 - x * (1.0 / 6.0)));
+    let direct = 1.0 - exp(-x);
+    if x < 1.0 / 64.0 { series } else { direct }
+}
+
 /// Per-neighbour pass over `J = d2.len()` neighbours (a multiple of [`LANES`]), given their
 /// offsets `dx, dy, dz` and squared distances `d2 > 0`: `rho[j] = min(|d_j|/r, 1)` (with
 /// `inv_r = 1/r`) and the harmonics of `d_j/|d_j|`, structure of arrays, `y[k·J + j]` for the
-/// flat index `k < (L+1)²`. Plain IEEE square roots, divisions and products (no fusing), so the
-/// values are bit-identical on every kernel and to the one-direction functions of so3.
+/// flat index `k < (L+1)²`. With `fade = Some(1/ρ₀)` (version 2) the harmonics of degree
+/// `l ≥ 1` are multiplied by [`fade_factor`]`(ρ/ρ₀)`, so the projection applies the fade to
+/// them alone. Plain IEEE square roots, divisions and products (no fusing), so the values are
+/// bit-identical on every kernel and to the one-direction functions of so3.
 #[allow(clippy::too_many_arguments)]
 pub(crate) fn directions(
     k: Kernel,
     l_max: usize,
     inv_r: f32,
+    fade: Option<f32>,
     dx: &[f32],
     dy: &[f32],
     dz: &[f32],
@@ -148,10 +163,10 @@ pub(crate) fn directions(
     y: &mut Vec<f32>,
 ) {
     match k {
-        Kernel::Portable => directions_impl(l_max, inv_r, dx, dy, dz, d2, rho, y),
+        Kernel::Portable => directions_impl(l_max, inv_r, fade, dx, dy, dz, d2, rho, y),
         #[cfg(target_arch = "x86_64")]
         // SAFETY: `Avx2Fma` is only chosen after the processor reported AVX2 and FMA.
-        Kernel::Avx2Fma => unsafe { directions_avx2(l_max, inv_r, dx, dy, dz, d2, rho, y) },
+        Kernel::Avx2Fma => unsafe { directions_avx2(l_max, inv_r, fade, dx, dy, dz, d2, rho, y) },
     }
 }
 
@@ -161,6 +176,7 @@ pub(crate) fn directions(
 fn directions_avx2(
     l_max: usize,
     inv_r: f32,
+    fade: Option<f32>,
     dx: &[f32],
     dy: &[f32],
     dz: &[f32],
@@ -168,7 +184,7 @@ fn directions_avx2(
     rho: &mut Vec<f32>,
     y: &mut Vec<f32>,
 ) {
-    directions_impl(l_max, inv_r, dx, dy, dz, d2, rho, y)
+    directions_impl(l_max, inv_r, fade, dx, dy, dz, d2, rho, y)
 }
 
 #[inline(always)]
@@ -176,6 +192,7 @@ fn directions_avx2(
 fn directions_impl(
     l_max: usize,
     inv_r: f32,
+    fade: Option<f32>,
     dx: &[f32],
     dy: &[f32],
     dz: &[f32],
@@ -211,14 +228,24 @@ fn directions_impl(
         }
         if l_max <= 4 {
             real_sh_lanes8_f32(l_max, u[0], u[1], u[2], &mut sh);
+            if let Some(inv_rho0) = fade {
+                let h: [f32; LANES] = std::array::from_fn(|i| fade_factor(r8[i] * inv_rho0));
+                for v in sh[1..nk].iter_mut() {
+                    for i in 0..LANES {
+                        v[i] *= h[i];
+                    }
+                }
+            }
             for (kk, v) in sh[..nk].iter().enumerate() {
                 y[kk * jp + j0..kk * jp + j0 + LANES].copy_from_slice(v);
             }
         } else {
             for i in 0..LANES {
                 real_sh_f32(l_max, [u[0][i], u[1][i], u[2][i]], &mut row);
-                for (kk, &v) in row.iter().enumerate() {
-                    y[kk * jp + j0 + i] = v;
+                let h = fade.map_or(1.0, |inv_rho0| fade_factor(r8[i] * inv_rho0));
+                y[j0 + i] = row[0];
+                for (kk, &v) in row.iter().enumerate().skip(1) {
+                    y[kk * jp + j0 + i] = if fade.is_some() { v * h } else { v };
                 }
             }
         }
@@ -357,6 +384,32 @@ mod tests {
     }
 
     #[test]
+    fn fade_matches_expm1_in_f64() {
+        // Reference: f64 `exp_m1` of the standard library (libm), common practice.
+        let mut worst_rel = 0.0f64;
+        let mut worst_abs = 0.0f64;
+        for i in 0..=20_000 {
+            let s = 5.0 * (i as f32 / 20_000.0).powi(3);
+            let want = -(-(s as f64) * s as f64).exp_m1();
+            let got = fade_factor(s) as f64;
+            worst_abs = worst_abs.max((got - want).abs());
+            if want > 0.0 {
+                worst_rel = worst_rel.max((got - want).abs() / want);
+            }
+        }
+        assert!(worst_abs < 2e-7, "absolute {worst_abs:e}");
+        // Relative accuracy near the centre, where 1 − e^−x would cancel.
+        for s in [1e-6f32, 1e-4, 1e-2, 0.1] {
+            let want = -(-(s as f64) * s as f64).exp_m1();
+            let e = (fade_factor(s) as f64 - want).abs() / want;
+            assert!(e < 1e-6, "s {s}: relative {e:e}");
+        }
+        assert_eq!(fade_factor(0.0), 0.0);
+        assert_eq!(fade_factor(10.0), 1.0);
+        assert!(worst_rel < 1e-5, "relative {worst_rel:e}");
+    }
+
+    #[test]
     fn directions_match_the_one_direction_harmonics() {
         for l_max in [0usize, 2, 4, 5] {
             let nk = num_coeffs(l_max);
@@ -378,8 +431,23 @@ mod tests {
                 .collect();
             for k in [Kernel::Portable, Kernel::detect()] {
                 let (mut rho, mut y) = (Vec::new(), Vec::new());
-                directions(k, l_max, 0.5, &dx, &dy, &dz, &d2, &mut rho, &mut y);
+                directions(k, l_max, 0.5, None, &dx, &dy, &dz, &d2, &mut rho, &mut y);
                 let mut row = vec![0.0f32; nk];
+                let (mut rho2, mut y2) = (Vec::new(), Vec::new());
+                let fade = 12.0;
+                directions(
+                    k,
+                    l_max,
+                    0.5,
+                    Some(fade),
+                    &dx,
+                    &dy,
+                    &dz,
+                    &d2,
+                    &mut rho2,
+                    &mut y2,
+                );
+                assert_eq!(rho2, rho);
                 for j in 0..jp {
                     let dist = d2[j].sqrt();
                     assert_eq!(rho[j], (dist * 0.5).min(1.0));
@@ -389,8 +457,11 @@ mod tests {
                         [d[j][0] * inv, d[j][1] * inv, d[j][2] * inv],
                         &mut row,
                     );
+                    let h = fade_factor(rho[j] * fade);
                     for c in 0..nk {
                         assert_eq!(y[c * jp + j], row[c], "{k:?} L {l_max} j {j} k {c}");
+                        let faded = if c == 0 { row[c] } else { row[c] * h };
+                        assert_eq!(y2[c * jp + j], faded, "{k:?} L {l_max} j {j} k {c}");
                     }
                 }
             }

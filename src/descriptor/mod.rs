@@ -3,13 +3,18 @@
 //! A [`Recipe`] holds the parameters (support radii, maximum degree `L`, shells `N`, optional
 //! neighbour cap `K`, which invariants); an [`Engine`] built from it computes, for each centre
 //! `p` and each support radius `r`, the coefficients (design, "the descriptor, exactly",
-//! version 1)
+//! version 2, the default)
 //!
-//! `c_nlm(p) = Σ_q g_n(ρ_q) f_c(ρ_q) Y_lm(u_q) / W`, `W = 1 + Σ_q f_c(ρ_q) + coincident points`,
+//! `c_nlm(p) = Σ_q g_n(ρ_q) f_c(ρ_q) h_l(ρ_q) Y_lm(u_q) / W`, `W = 1 + Σ_q f_c(ρ_q) + coincident points`,
 //!
 //! over the neighbours `0 < |q − p| ≤ r`, with `ρ = |q − p|/r`, `u = (q − p)/|q − p|`, Gaussian
-//! shells `g_n` ([`radial`]), cutoff `f_c(ρ) = ½(1 + cos πρ)`, and the orthonormal real harmonics
-//! of [`crate::so3::sh`] (no Condon–Shortley phase, index `l² + l + m`). Lengths are in the
+//! shells `g_n` ([`radial`]), cutoff `f_c(ρ) = ½(1 + cos πρ)`, the orthonormal real harmonics
+//! of [`crate::so3::sh`] (no Condon–Shortley phase, index `l² + l + m`), and the fade at the
+//! centre `h_0 = 1`, `h_l(ρ) = 1 − exp(−(ρ/ρ₀)²)` for `l ≥ 1`, `ρ₀ = 1/(2N)`: a neighbour
+//! close to the centre, whose direction is set by rounding, fades out of every degree `l ≥ 1`,
+//! so the descriptor is continuous in the points. Version 1 (`h_l = 1` for every `l`, the
+//! original definition) stays computable ([`RecipeBuilder::version`]); column names are the
+//! same in both versions, the recipe records which one a file holds. Lengths are in the
 //! cloud's file units; all arithmetic is f32 on local positions, summed in an order fixed by the
 //! ascending neighbour indices (eight lanes of neighbours, then the lanes in a fixed tree), with
 //! invariants formed in f64 from the f32 coefficients.
@@ -31,14 +36,17 @@
 mod engine;
 mod invariants;
 mod kernel;
+pub mod output;
 pub mod radial;
 mod recipe;
+mod support;
 
 pub use engine::{Centres, Engine, Features};
 pub use recipe::{
-    DEFAULT_DEGREE, DEFAULT_SHELLS, Invariants, MAX_DEGREE, MAX_SHELLS, RECIPE_VERSION, Recipe,
-    RecipeBuilder, bispectrum_triples,
+    DEFAULT_DEGREE, DEFAULT_SHELLS, Invariants, MAX_DEGREE, MAX_SHELLS, OLDEST_RECIPE_VERSION,
+    RECIPE_VERSION, Recipe, RecipeBuilder, bispectrum_triples,
 };
+pub use support::{round_2_significant, suggested_radius};
 
 /// Per-centre, per-scale flag bits ([`Features::flags`]). A flagged row is still well defined
 /// (finite, no NaN); the flags say how far to trust it.

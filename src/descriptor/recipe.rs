@@ -4,8 +4,12 @@ use serde::{Deserialize, Serialize};
 
 use crate::error::{Error, Result};
 
-/// The recipe version this code computes (the descriptor of the design, version 1).
-pub const RECIPE_VERSION: u32 = 1;
+/// The default recipe version (the descriptor of the design, version 2: terms of degree
+/// `l ≥ 1` fade out at the centre). [`OLDEST_RECIPE_VERSION`] up to this one are computable.
+pub const RECIPE_VERSION: u32 = 2;
+
+/// The oldest recipe version still computed (version 1: no fade at the centre).
+pub const OLDEST_RECIPE_VERSION: u32 = 1;
 
 /// Largest maximum degree `L` accepted.
 pub const MAX_DEGREE: usize = 12;
@@ -74,14 +78,16 @@ impl Invariants {
     }
 }
 
-/// The descriptor's parameters (design "the descriptor, exactly", version 1).
+/// The descriptor's parameters (design "the descriptor, exactly", versions 1 and 2).
 ///
 /// Lengths (`radii`) are in the cloud's file units (usually metres). A recipe only exists in a
 /// validated state: build it with [`RecipeBuilder::build`] or deserialise it from JSON (which
-/// validates too). Its JSON form carries `"version": 1`.
+/// validates too). Its JSON form carries the version (`"version": 2` by default). Column names
+/// do not depend on the version: a file's recipe (sidecar or header) says which one it holds.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(try_from = "RecipeBuilderJson", into = "RecipeBuilderJson")]
 pub struct Recipe {
+    version: u32,
     radii: Vec<f32>,
     degree: usize,
     shells: usize,
@@ -90,10 +96,12 @@ pub struct Recipe {
     keep_coefficients: bool,
 }
 
-/// Builder for [`Recipe`]: defaults `L = 4`, `N = 6`, no neighbour cap, norms + power spectrum,
-/// no coefficients. At least one support radius must be given.
+/// Builder for [`Recipe`]: defaults version [`RECIPE_VERSION`], `L = 4`, `N = 6`, no neighbour
+/// cap, norms + power spectrum, no coefficients. At least one support radius must be given.
 #[derive(Debug, Clone, PartialEq)]
 pub struct RecipeBuilder {
+    /// Descriptor version, [`OLDEST_RECIPE_VERSION`]`..=`[`RECIPE_VERSION`].
+    pub version: u32,
     /// Support radii `r`, one scale each (file units).
     pub radii: Vec<f32>,
     /// Maximum degree `L`.
@@ -111,6 +119,7 @@ pub struct RecipeBuilder {
 impl Default for RecipeBuilder {
     fn default() -> Self {
         RecipeBuilder {
+            version: RECIPE_VERSION,
             radii: Vec::new(),
             degree: DEFAULT_DEGREE,
             shells: DEFAULT_SHELLS,
@@ -122,6 +131,13 @@ impl Default for RecipeBuilder {
 }
 
 impl RecipeBuilder {
+    /// Sets the descriptor version (1: the original definition; 2, the default: terms of
+    /// degree `l ≥ 1` fade out at the centre).
+    pub fn version(mut self, v: u32) -> Self {
+        self.version = v;
+        self
+    }
+
     /// Adds a support radius (one more scale).
     pub fn radius(mut self, r: f32) -> Self {
         self.radii.push(r);
@@ -166,6 +182,12 @@ impl RecipeBuilder {
 
     /// Validates the parameters and builds the recipe.
     pub fn build(self) -> Result<Recipe> {
+        if !(OLDEST_RECIPE_VERSION..=RECIPE_VERSION).contains(&self.version) {
+            return Err(Error::invalid(
+                format!("descriptor version {} is not known", self.version),
+                format!("choose a version from {OLDEST_RECIPE_VERSION} to {RECIPE_VERSION}"),
+            ));
+        }
         if self.radii.is_empty() {
             return Err(Error::invalid(
                 "no support radius given",
@@ -211,6 +233,7 @@ impl RecipeBuilder {
             ));
         }
         Ok(Recipe {
+            version: self.version,
             radii: self.radii,
             degree: self.degree,
             shells: self.shells,
@@ -237,13 +260,8 @@ struct RecipeBuilderJson {
 impl TryFrom<RecipeBuilderJson> for Recipe {
     type Error = Error;
     fn try_from(j: RecipeBuilderJson) -> Result<Recipe> {
-        if j.version != RECIPE_VERSION {
-            return Err(Error::invalid(
-                format!("recipe version {} is not known", j.version),
-                format!("use a recipe of version {RECIPE_VERSION}"),
-            ));
-        }
         RecipeBuilder {
+            version: j.version,
             radii: j.radii,
             degree: j.degree,
             shells: j.shells,
@@ -258,7 +276,7 @@ impl TryFrom<RecipeBuilderJson> for Recipe {
 impl From<Recipe> for RecipeBuilderJson {
     fn from(r: Recipe) -> Self {
         RecipeBuilderJson {
-            version: RECIPE_VERSION,
+            version: r.version,
             radii: r.radii,
             degree: r.degree,
             shells: r.shells,
@@ -275,9 +293,9 @@ impl Recipe {
         RecipeBuilder::default()
     }
 
-    /// The recipe's version (always [`RECIPE_VERSION`]).
+    /// The recipe's descriptor version ([`OLDEST_RECIPE_VERSION`]`..=`[`RECIPE_VERSION`]).
     pub fn version(&self) -> u32 {
-        RECIPE_VERSION
+        self.version
     }
 
     /// Support radii, one per scale, in the order given (file units).
@@ -320,7 +338,7 @@ impl Recipe {
         self.shells * (self.degree + 1) * (self.degree + 1)
     }
 
-    /// The recipe as pretty JSON (with `"version": 1`).
+    /// The recipe as pretty JSON (with its `"version"`).
     pub fn to_json(&self) -> String {
         serde_json::to_string_pretty(self).expect("a recipe always serialises")
     }
@@ -504,6 +522,10 @@ mod tests {
             (Recipe::builder().radius(1.0).degree(13), "above 12"),
             (Recipe::builder().radius(1.0).shells(0), "outside 1..=32"),
             (
+                Recipe::builder().radius(1.0).version(3),
+                "version 3 is not known",
+            ),
+            (
                 Recipe::builder().radius(1.0).max_neighbours(Some(0)),
                 "cap of 0",
             ),
@@ -530,15 +552,29 @@ mod tests {
             .build()
             .unwrap();
         let j = r.to_json();
-        assert!(j.contains("\"version\": 1"), "{j}");
+        assert_eq!(r.version(), 2);
+        assert!(j.contains("\"version\": 2"), "{j}");
         assert_eq!(Recipe::from_json(&j).unwrap(), r);
-        let v2 = j.replace("\"version\": 1", "\"version\": 2");
-        assert!(
-            Recipe::from_json(&v2)
-                .unwrap_err()
-                .to_string()
-                .contains("version 2")
+        let v1 = j.replace("\"version\": 2", "\"version\": 1");
+        let r1 = Recipe::from_json(&v1).unwrap();
+        assert_eq!(r1.version(), 1);
+        assert_eq!(r1.column_names(), r.column_names());
+        assert!(r1.to_json().contains("\"version\": 1"));
+        assert_eq!(
+            r1,
+            Recipe::builder()
+                .version(1)
+                .radii([0.25, 0.5])
+                .max_neighbours(Some(50))
+                .keep_coefficients(true)
+                .build()
+                .unwrap()
         );
+        for bad in [0, 3] {
+            let v = j.replace("\"version\": 2", &format!("\"version\": {bad}"));
+            let e = Recipe::from_json(&v).unwrap_err().to_string();
+            assert!(e.contains(&format!("version {bad}")), "{e}");
+        }
         let bad = j.replace("0.25", "-0.25");
         assert!(Recipe::from_json(&bad).is_err());
     }

@@ -65,7 +65,12 @@ fn worst_column_error(a: &[f32], b: &[f32], cols: usize) -> f64 {
 }
 
 fn all_invariants_recipe(r: f32) -> Recipe {
+    all_invariants_recipe_v(r, crate::descriptor::RECIPE_VERSION)
+}
+
+fn all_invariants_recipe_v(r: f32, version: u32) -> Recipe {
     Recipe::builder()
+        .version(version)
         .radius(r)
         .invariants(Invariants::parse("norms,power,bispectrum").unwrap())
         .keep_coefficients(true)
@@ -89,9 +94,15 @@ fn rotated_coefficients(f: &Features, r: &Matrix3<f64>) -> Vec<f32> {
 #[test]
 fn bunny_invariants_and_coefficients_under_random_rigid_motions() {
     // Source: Stanford bunny (tests/data/bunny). Seeded rotations from so3::rotation.
+    for version in [1, 2] {
+        bunny_rigid_motions(version);
+    }
+}
+
+fn bunny_rigid_motions(version: u32) {
     let cloud = bunny();
     let r = bunny_radius(&cloud);
-    let engine = Engine::new(all_invariants_recipe(r));
+    let engine = Engine::new(all_invariants_recipe_v(r, version));
     let base = engine.compute(&cloud, &Centres::All).unwrap();
     let mean_count = base.counts.iter().sum::<u32>() as f64 / base.len() as f64;
     assert!(
@@ -116,13 +127,13 @@ fn bunny_invariants_and_coefficients_under_random_rigid_motions() {
         let e = worst_column_error(&base.values, &other.values, cols);
         assert!(
             e < 1e-4,
-            "seed {seed} trial {trial}: invariants differ by {e:e}"
+            "version {version}, seed {seed} trial {trial}: invariants differ by {e:e}"
         );
         let want = rotated_coefficients(&base, &rot);
         let e = worst_column_error(&want, other.coefficients.as_ref().unwrap(), kc);
         assert!(
             e < 1e-4,
-            "seed {seed} trial {trial}: coefficients differ by {e:e}"
+            "version {version}, seed {seed} trial {trial}: coefficients differ by {e:e}"
         );
     }
 }
@@ -134,9 +145,15 @@ fn bunny_quarter_turns_are_exact_or_nearly() {
     // too, so the invariants must be bit-identical; about other axes only the f32 rounding of
     // the harmonic polynomials differs, so they agree to 1e-5 of each column's largest value
     // (ten times tighter than a general rotation, whose moved copy is rounded).
+    for version in [1, 2] {
+        bunny_quarter_turns(version);
+    }
+}
+
+fn bunny_quarter_turns(version: u32) {
     let cloud = bunny();
     let r = bunny_radius(&cloud);
-    let engine = Engine::new(all_invariants_recipe(r));
+    let engine = Engine::new(all_invariants_recipe_v(r, version));
     let base = engine.compute(&cloud, &Centres::All).unwrap();
     let turns = [
         (
@@ -163,22 +180,169 @@ fn bunny_quarter_turns_are_exact_or_nearly() {
             .unwrap();
         assert_eq!(base.counts, other.counts);
         if about_z {
-            assert_eq!(base.values, other.values, "{rot}");
+            assert_eq!(base.values, other.values, "version {version}, {rot}");
         }
         let e = worst_column_error(&base.values, &other.values, base.columns.len());
-        assert!(e < 1e-5, "{rot}: invariants differ by {e:e}");
+        assert!(
+            e < 1e-5,
+            "version {version}, {rot}: invariants differ by {e:e}"
+        );
         let want = rotated_coefficients(&base, &rot);
         let e = worst_column_error(
             &want,
             other.coefficients.as_ref().unwrap(),
             num_coeffs(4) * 6,
         );
-        assert!(e < 1e-5, "{rot}: coefficients differ by {e:e}");
+        assert!(
+            e < 1e-5,
+            "version {version}, {rot}: coefficients differ by {e:e}"
+        );
     }
 }
 
-/// `c_nlm` from the definition, in f64, for one centre and explicit neighbour offsets.
-fn by_hand(offsets: &[[f64; 3]], coincident: usize, r: f64, n_sh: usize, l_max: usize) -> Vec<f64> {
+/// Largest change of each column between successive rows of `rows` (row length `cols`).
+fn largest_steps(rows: &[Vec<f32>]) -> Vec<f64> {
+    let cols = rows[0].len();
+    (0..cols)
+        .map(|c| {
+            rows.windows(2)
+                .map(|w| (w[1][c] as f64 - w[0][c] as f64).abs())
+                .fold(0.0, f64::max)
+        })
+        .collect()
+}
+
+#[test]
+fn a_neighbour_moved_through_the_centre_changes_every_column_continuously() {
+    // Seeded neighbourhood of 60 points around a centre at the origin; one more point moves
+    // along a straight line through the centre, from −0.02 r to 0.02 r (never exactly on it).
+    // A continuous column with a bounded gradient changes ten times less per step when the
+    // step is ten times shorter; a jump does not shrink. Version 2 must be continuous in every
+    // invariant and coefficient; version 1 jumps in degree 1 (the neighbour's direction flips
+    // while its first-shell weight stays near g_0(0) = 0.88).
+    let seed = 2_026_120_211u64;
+    eprintln!("seed {seed}");
+    let mut rng = SplitMix64::new(seed);
+    let mut pts: Vec<[f32; 3]> = vec![[0.0; 3]];
+    for _ in 0..60 {
+        let u = rng.unit_vector();
+        let r = rng.uniform(0.1, 0.95);
+        pts.push([(u[0] * r) as f32, (u[1] * r) as f32, (u[2] * r) as f32]);
+    }
+    let dir = rng.unit_vector();
+    let half = 0.02f64;
+    let path = |steps: usize| -> Vec<[f32; 3]> {
+        let dt = 2.0 * half / steps as f64;
+        (0..steps)
+            .map(|k| {
+                let t = -half + (k as f64 + 0.5) * dt;
+                dir.map(|v| (v * t) as f32)
+            })
+            .collect()
+    };
+    let measure = |version: u32, steps: usize| -> Vec<f64> {
+        let engine = Engine::new(
+            Recipe::builder()
+                .version(version)
+                .radius(1.0)
+                .invariants(Invariants::parse("norms,power,bispectrum").unwrap())
+                .keep_coefficients(true)
+                .build()
+                .unwrap(),
+        );
+        let rows: Vec<Vec<f32>> = path(steps)
+            .into_iter()
+            .map(|q| {
+                let mut p = pts.clone();
+                p.push(q);
+                let f = coefficients_at(&p, 0, engine.recipe().clone());
+                let mut row = f.values.clone();
+                row.extend_from_slice(f.coefficients_of(0, 0).unwrap());
+                row
+            })
+            .collect();
+        largest_steps(&rows)
+    };
+    for version in [2, 1] {
+        let (coarse, fine) = (measure(version, 20), measure(version, 200));
+        let mut worst = (0.0f64, 0);
+        for (c, (&a, &b)) in coarse.iter().zip(&fine).enumerate() {
+            // Ratio of the largest fine step to the largest coarse step (1e-7: f32 noise).
+            let ratio = (b - 1e-7).max(0.0) / a.max(1e-12);
+            if ratio > worst.0 {
+                worst = (ratio, c);
+            }
+        }
+        eprintln!(
+            "version {version}: largest fine/coarse step ratio {:.3} (column {})",
+            worst.0, worst.1
+        );
+        if version == 2 {
+            assert!(
+                worst.0 < 0.2,
+                "seed {seed}: column {} jumps (fine/coarse step ratio {:.3})",
+                worst.1,
+                worst.0
+            );
+        } else {
+            assert!(
+                worst.0 > 0.5,
+                "seed {seed}: version 1 should jump at the centre"
+            );
+        }
+    }
+}
+
+#[test]
+fn bunny_with_near_coincident_points_is_invariant_in_version_2() {
+    // Source: Stanford bunny (tests/data/bunny). Every 7th point gets a twin within 1e-3 of
+    // the support radius (seeded offsets); the cloud is then rotated (seeded) and stored in
+    // f32 again, so the twins' directions are set by rounding. Version 2 fades them out of
+    // the degrees l ≥ 1; its invariants agree to 1e-4 of each column's largest value.
+    let seed = 20_261_203u64;
+    let mut rng = SplitMix64::new(seed);
+    let cloud = bunny();
+    let r = bunny_radius(&cloud);
+    let mut pts = cloud.positions.clone();
+    for p in cloud.positions.iter().step_by(7) {
+        let u = rng.unit_vector();
+        let d = rng.uniform(0.05, 1.0) * 1e-3 * r as f64;
+        pts.push(std::array::from_fn(|k| (p[k] as f64 + u[k] * d) as f32));
+    }
+    let rot = random_rotation(&mut rng);
+    let turned = moved(&pts, &rot, [0.0; 3]);
+    let mut worst = [0.0f64; 2];
+    for version in [1u32, 2] {
+        let engine = Engine::new(all_invariants_recipe_v(r, version));
+        let a = engine
+            .compute(&Cloud::new([0.0; 3], pts.clone()), &Centres::All)
+            .unwrap();
+        let b = engine
+            .compute(&Cloud::new([0.0; 3], turned.clone()), &Centres::All)
+            .unwrap();
+        worst[version as usize - 1] = worst_column_error(&a.values, &b.values, a.columns.len());
+    }
+    eprintln!(
+        "seed {seed}: worst invariant difference, version 1 {:e}, version 2 {:e}",
+        worst[0], worst[1]
+    );
+    assert!(
+        worst[1] < 1e-4,
+        "seed {seed}: version 2 invariants differ by {:e}",
+        worst[1]
+    );
+}
+
+/// `c_nlm` from the definition (design, versions 1 and 2), in f64, for one centre and explicit
+/// neighbour offsets.
+fn by_hand(
+    offsets: &[[f64; 3]],
+    coincident: usize,
+    r: f64,
+    n_sh: usize,
+    l_max: usize,
+    version: u32,
+) -> Vec<f64> {
     let nk = num_coeffs(l_max);
     let mut c = vec![0.0; n_sh * nk];
     let mut w = 1.0 + coincident as f64;
@@ -189,6 +353,15 @@ fn by_hand(offsets: &[[f64; 3]], coincident: usize, r: f64, n_sh: usize, l_max: 
         let fc = 0.5 * (1.0 + (std::f64::consts::PI * rho).cos());
         w += fc;
         real_sh_f64(l_max, d.map(|v| v / dist), &mut y);
+        // Version 2: degrees l ≥ 1 fade as 1 − exp(−(ρ/ρ₀)²), ρ₀ = 1/(2N).
+        let h = if version >= 2 {
+            -(-(rho * 2.0 * n_sh as f64).powi(2)).exp_m1()
+        } else {
+            1.0
+        };
+        for v in &mut y[1..] {
+            *v *= h;
+        }
         for n in 0..n_sh {
             let mu = (n as f64 + 0.5) / n_sh as f64;
             let s = 1.0 / n_sh as f64;
@@ -219,8 +392,9 @@ fn assert_close(got: &[f32], want: &[f64], tol: f64) {
 
 #[test]
 fn hand_computed_neighbourhoods_and_degenerate_cases() {
-    let recipe = |k: Option<usize>| {
+    let recipe = |k: Option<usize>, version: u32| {
         Recipe::builder()
+            .version(version)
             .radius(1.0)
             .degree(3)
             .shells(4)
@@ -295,14 +469,14 @@ fn hand_computed_neighbourhoods_and_degenerate_cases() {
             flags: flags::PLANAR | flags::LINEAR,
         },
     ];
-    for case in &cases {
+    for (case, version) in cases.iter().flat_map(|c| [(c, 1), (c, 2)]) {
         let centre = match case.name {
             "coplanar grid" => 12,
             "collinear" => 3,
             _ => 0,
         };
-        let f = coefficients_at(&case.points, centre, recipe(None));
-        let want = by_hand(&case.offsets, case.coincident, 1.0, 4, 3);
+        let f = coefficients_at(&case.points, centre, recipe(None, version));
+        let want = by_hand(&case.offsets, case.coincident, 1.0, 4, 3, version);
         assert_close(f.coefficients_of(0, 0).unwrap(), &want, 1e-6);
         assert!(f.values.iter().all(|v| v.is_finite()), "{}", case.name);
         assert_eq!(f.count(0, 0) as usize, case.offsets.len(), "{}", case.name);
@@ -331,23 +505,27 @@ fn cap_keeps_the_nearest_with_ties_by_index() {
         [-0.5, 0.0, 0.0],
         [0.0, -0.3, 0.0],
     ];
-    let rec = Recipe::builder()
-        .radius(1.0)
-        .max_neighbours(Some(3))
-        .keep_coefficients(true)
-        .build()
-        .unwrap();
-    let f = coefficients_at(&pts, 0, rec);
-    assert_eq!(f.count(0, 0), 3);
-    assert_eq!(f.flag(0, 0) & flags::CAPPED, flags::CAPPED);
-    let want = by_hand(
-        &[[0.5, 0.0, 0.0], [0.0, 0.5, 0.0], [0.0, -0.3, 0.0]],
-        0,
-        1.0,
-        6,
-        4,
-    );
-    assert_close(f.coefficients_of(0, 0).unwrap(), &want, 1e-6);
+    for version in [1, 2] {
+        let rec = Recipe::builder()
+            .version(version)
+            .radius(1.0)
+            .max_neighbours(Some(3))
+            .keep_coefficients(true)
+            .build()
+            .unwrap();
+        let f = coefficients_at(&pts, 0, rec);
+        assert_eq!(f.count(0, 0), 3);
+        assert_eq!(f.flag(0, 0) & flags::CAPPED, flags::CAPPED);
+        let want = by_hand(
+            &[[0.5, 0.0, 0.0], [0.0, 0.5, 0.0], [0.0, -0.3, 0.0]],
+            0,
+            1.0,
+            6,
+            4,
+            version,
+        );
+        assert_close(f.coefficients_of(0, 0).unwrap(), &want, 1e-6);
+    }
 }
 
 #[test]
@@ -366,7 +544,12 @@ fn positions_and_indices_agree_and_scales_concatenate() {
         .unwrap();
     let index = KdIndex::new(&cloud.positions).unwrap();
     let at: Vec<[f32; 3]> = idx.iter().map(|&i| cloud.positions[i]).collect();
-    let b = engine.compute_at(&cloud.positions, &index, &at);
+    let b = engine.compute_at(&cloud.positions, &index, &at).unwrap();
+    // An index over other points is an error, not a panic.
+    let err = engine
+        .compute_at(&cloud.positions[1..], &index, &at)
+        .unwrap_err();
+    assert_eq!(err.kind(), crate::error::Kind::Recipe);
     assert_eq!(a.values, b.values);
     assert_eq!(a.coefficients, b.coefficients);
     assert_eq!(a.indices.as_deref(), Some(&idx[..]));
@@ -467,8 +650,9 @@ fn high_degree_and_many_shells_match_the_definition() {
         .map(|q| q.map(|v| v as f64))
         .filter(|d| d.iter().map(|v| v * v).sum::<f64>() <= 1.0)
         .collect();
-    for (l_max, n_sh) in [(12, 10), (5, 32), (0, 1)] {
+    for (l_max, n_sh, version) in [(12, 10, 2), (5, 32, 2), (0, 1, 2), (12, 10, 1), (5, 32, 1)] {
         let rec = Recipe::builder()
+            .version(version)
             .radius(1.0)
             .degree(l_max)
             .shells(n_sh)
@@ -477,7 +661,7 @@ fn high_degree_and_many_shells_match_the_definition() {
             .unwrap();
         let f = coefficients_at(&pts, 0, rec);
         assert_eq!(f.count(0, 0) as usize, offsets.len());
-        let want = by_hand(&offsets, 0, 1.0, n_sh, l_max);
+        let want = by_hand(&offsets, 0, 1.0, n_sh, l_max, version);
         assert_close(f.coefficients_of(0, 0).unwrap(), &want, 2e-6);
     }
 }

@@ -4,32 +4,97 @@
 //! target name, and an existing file at the target is replaced only once the new content is
 //! complete. The temporary file lives in the target's folder (a rename across file systems
 //! would not be atomic) and is removed when writing fails.
+//!
+//! Temporary files are named `.NAME.PID.N.equiscan-tmp` (`N` counts within the process), so
+//! that a later run recognises its own stale ones: before the first temporary file in a folder,
+//! [`TempFile::create`] removes every `*.equiscan-tmp` there whose process is gone (Linux:
+//! no `/proc/PID`). Live temporary paths are kept in a process-wide registry;
+//! [`remove_live_temp_files`] deletes them, for a signal handler that then exits.
 
+use std::collections::HashSet;
 use std::fs::{self, File};
 use std::io::{BufWriter, Write};
 use std::path::{Path, PathBuf};
 use std::sync::atomic::{AtomicU64, Ordering};
+use std::sync::{Mutex, MutexGuard};
 
 use crate::error::{Error, Result};
 
 /// Buffer size of the writer handed to the closure, bytes.
 const BUFFER: usize = 1 << 20;
 
-/// Removes the temporary file on drop unless `keep` was called.
-struct TempGuard {
-    path: PathBuf,
-    armed: bool,
+/// Suffix of every temporary file the library writes.
+pub const TEMP_SUFFIX: &str = ".equiscan-tmp";
+
+/// Temporary files of this process not yet renamed or removed.
+static LIVE: Mutex<Vec<PathBuf>> = Mutex::new(Vec::new());
+/// Folders already swept for stale temporary files by this process.
+static SWEPT: Mutex<Option<HashSet<PathBuf>>> = Mutex::new(None);
+
+fn lock<T>(m: &Mutex<T>) -> MutexGuard<'_, T> {
+    m.lock().unwrap_or_else(|e| e.into_inner())
 }
 
-impl Drop for TempGuard {
-    fn drop(&mut self) {
-        if self.armed {
-            let _ = fs::remove_file(&self.path);
-        }
+/// Removes every temporary file this process is still writing; returns how many were removed.
+/// Meant for a SIGINT/SIGTERM handler that exits right after (writers still running may fail).
+pub fn remove_live_temp_files() -> usize {
+    let mut live = lock(&LIVE);
+    let n = live.iter().filter(|p| fs::remove_file(p).is_ok()).count();
+    live.clear();
+    n
+}
+
+fn unregister(path: &Path) {
+    let mut live = lock(&LIVE);
+    if let Some(k) = live.iter().position(|p| p == path) {
+        live.swap_remove(k);
     }
 }
 
-/// A temporary path in the folder of `path`: `.NAME.PID.N.tmp`.
+/// The process id encoded in a temporary file name of ours, if `name` is one.
+pub fn temp_owner(name: &str) -> Option<u32> {
+    let stem = name.strip_prefix('.')?.strip_suffix(TEMP_SUFFIX)?;
+    let mut parts = stem.rsplitn(3, '.');
+    let _counter: u64 = parts.next()?.parse().ok()?;
+    let pid: u32 = parts.next()?.parse().ok()?;
+    parts.next().filter(|n| !n.is_empty())?;
+    Some(pid)
+}
+
+/// True when process `pid` is known to be gone (Linux: `/proc` is mounted and has no entry for
+/// it). Where that cannot be told, the process is taken to be alive and its files kept.
+fn process_gone(pid: u32) -> bool {
+    Path::new("/proc/self").exists() && !Path::new(&format!("/proc/{pid}")).exists()
+}
+
+/// Removes the stale temporary files of dead equiscan processes in `dir`; returns their
+/// number. Errors (unreadable folder, a file removed meanwhile) are ignored.
+pub fn remove_stale_temp_files(dir: &Path) -> usize {
+    let Ok(entries) = fs::read_dir(dir) else {
+        return 0;
+    };
+    let me = std::process::id();
+    entries
+        .flatten()
+        .filter(|e| {
+            e.file_name()
+                .to_str()
+                .and_then(temp_owner)
+                .is_some_and(|pid| pid != me && process_gone(pid))
+        })
+        .filter(|e| fs::remove_file(e.path()).is_ok())
+        .count()
+}
+
+fn sweep_once(dir: &Path) {
+    let key = fs::canonicalize(dir).unwrap_or_else(|_| dir.to_path_buf());
+    let first = lock(&SWEPT).get_or_insert_with(HashSet::new).insert(key);
+    if first {
+        remove_stale_temp_files(dir);
+    }
+}
+
+/// A temporary path in the folder of `path`: `.NAME.PID.N.equiscan-tmp`.
 fn temp_path_for(path: &Path) -> Result<PathBuf> {
     static COUNTER: AtomicU64 = AtomicU64::new(0);
     let name = path.file_name().ok_or_else(|| {
@@ -41,15 +106,128 @@ fn temp_path_for(path: &Path) -> Result<PathBuf> {
     })?;
     let n = COUNTER.fetch_add(1, Ordering::Relaxed);
     let tmp_name = format!(
-        ".{}.{}.{}.tmp",
+        ".{}.{}.{}{TEMP_SUFFIX}",
         name.to_string_lossy(),
         std::process::id(),
         n
     );
-    Ok(match path.parent() {
-        Some(dir) if !dir.as_os_str().is_empty() => dir.join(tmp_name),
-        _ => PathBuf::from(tmp_name),
-    })
+    Ok(super::guard::folder_of(path).join(tmp_name))
+}
+
+/// A file being written under a temporary name beside its target; removed on drop unless
+/// committed. Registered for [`remove_live_temp_files`] while it exists.
+#[derive(Debug)]
+pub struct TempFile {
+    target: PathBuf,
+    tmp: PathBuf,
+    writer: Option<BufWriter<File>>,
+}
+
+impl TempFile {
+    /// Creates the temporary file for `target` (after sweeping the folder's stale ones once
+    /// per process). `target` must not be a folder.
+    pub fn create(target: &Path) -> Result<TempFile> {
+        if target.is_dir() {
+            return Err(Error::file(
+                target,
+                "is a folder",
+                "give the path of a file to write",
+            ));
+        }
+        let tmp = temp_path_for(target)?;
+        sweep_once(&super::guard::folder_of(target));
+        // Created and registered under the lock, so a signal handler sees every file created.
+        let file = {
+            let mut live = lock(&LIVE);
+            // Readable too: the LAS writer patches its header after the points.
+            let file = fs::OpenOptions::new()
+                .read(true)
+                .write(true)
+                .create(true)
+                .truncate(true)
+                .open(&tmp)
+                .map_err(|e| Error::io(target, &e))?;
+            live.push(tmp.clone());
+            file
+        };
+        Ok(TempFile {
+            target: target.to_path_buf(),
+            tmp,
+            writer: Some(BufWriter::with_capacity(BUFFER, file)),
+        })
+    }
+
+    /// The target path.
+    pub fn target(&self) -> &Path {
+        &self.target
+    }
+
+    /// The temporary path.
+    pub fn temp_path(&self) -> &Path {
+        &self.tmp
+    }
+
+    /// The buffered writer.
+    pub fn writer(&mut self) -> &mut BufWriter<File> {
+        self.writer
+            .as_mut()
+            .expect("the writer exists until finish")
+    }
+
+    /// Flushes and syncs the content; the file stays under its temporary name until
+    /// [`Finished::commit`].
+    pub fn finish(mut self) -> Result<Finished> {
+        let w = self.writer.take().expect("the writer exists until finish");
+        let file = w
+            .into_inner()
+            .map_err(|e| Error::io(&self.target, e.error()))?;
+        file.sync_all().map_err(|e| Error::io(&self.target, &e))?;
+        drop(file);
+        Ok(Finished {
+            target: std::mem::take(&mut self.target),
+            tmp: std::mem::take(&mut self.tmp),
+        })
+    }
+}
+
+impl Drop for TempFile {
+    fn drop(&mut self) {
+        if !self.tmp.as_os_str().is_empty() {
+            self.writer.take();
+            let _ = fs::remove_file(&self.tmp);
+            unregister(&self.tmp);
+        }
+    }
+}
+
+/// A complete, synced temporary file waiting to be renamed onto its target; removed on drop
+/// unless committed.
+#[derive(Debug)]
+pub struct Finished {
+    target: PathBuf,
+    tmp: PathBuf,
+}
+
+impl Finished {
+    /// Renames the file onto its target (replacing an existing file at once).
+    pub fn commit(mut self) -> Result<()> {
+        let tmp = std::mem::take(&mut self.tmp);
+        let res = fs::rename(&tmp, &self.target).map_err(|e| Error::io(&self.target, &e));
+        if res.is_err() {
+            let _ = fs::remove_file(&tmp);
+        }
+        unregister(&tmp);
+        res
+    }
+}
+
+impl Drop for Finished {
+    fn drop(&mut self) {
+        if !self.tmp.as_os_str().is_empty() {
+            let _ = fs::remove_file(&self.tmp);
+            unregister(&self.tmp);
+        }
+    }
 }
 
 /// Writes `path` atomically: `body` fills a buffered temporary file in the same folder, which
@@ -60,27 +238,9 @@ pub fn write_atomic<F>(path: &Path, body: F) -> Result<()>
 where
     F: FnOnce(&mut BufWriter<File>) -> Result<()>,
 {
-    if path.is_dir() {
-        return Err(Error::file(
-            path,
-            "is a folder",
-            "give the path of a file to write",
-        ));
-    }
-    let tmp = temp_path_for(path)?;
-    let file = File::create(&tmp).map_err(|e| Error::io(path, &e))?;
-    let mut guard = TempGuard {
-        path: tmp.clone(),
-        armed: true,
-    };
-    let mut w = BufWriter::with_capacity(BUFFER, file);
-    body(&mut w)?;
-    let file = w.into_inner().map_err(|e| Error::io(path, e.error()))?;
-    file.sync_all().map_err(|e| Error::io(path, &e))?;
-    drop(file);
-    fs::rename(&tmp, path).map_err(|e| Error::io(path, &e))?;
-    guard.armed = false;
-    Ok(())
+    let mut t = TempFile::create(path)?;
+    body(t.writer())?;
+    t.finish()?.commit()
 }
 
 /// Convenience: `write_all` with the error naming `path`.
@@ -91,6 +251,15 @@ pub(crate) fn put(w: &mut impl Write, path: &Path, bytes: &[u8]) -> Result<()> {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    fn names(dir: &Path) -> Vec<String> {
+        let mut v: Vec<String> = fs::read_dir(dir)
+            .unwrap()
+            .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+            .collect();
+        v.sort();
+        v
+    }
 
     #[test]
     fn success_renames_and_failure_leaves_nothing() {
@@ -107,11 +276,7 @@ mod tests {
         assert!(err.to_string().contains("stopped on purpose"));
         // The old content is untouched and no temporary file is left behind.
         assert_eq!(fs::read(&target).unwrap(), b"first");
-        let names: Vec<_> = fs::read_dir(dir.path())
-            .unwrap()
-            .map(|e| e.unwrap().file_name())
-            .collect();
-        assert_eq!(names.len(), 1, "{names:?}");
+        assert_eq!(names(dir.path()), ["out.bin"]);
     }
 
     #[test]
@@ -119,5 +284,46 @@ mod tests {
         let dir = tempfile::tempdir().unwrap();
         let err = write_atomic(dir.path(), |_| Ok(())).unwrap_err();
         assert!(err.to_string().contains("is a folder"));
+    }
+
+    #[test]
+    fn temp_names_are_recognised() {
+        let t = temp_path_for(Path::new("a/b.x.npy")).unwrap();
+        let name = t.file_name().unwrap().to_str().unwrap();
+        assert_eq!(temp_owner(name), Some(std::process::id()));
+        assert_eq!(temp_owner(".b.npy.12.3.tmp"), None);
+        assert_eq!(temp_owner("b.npy"), None);
+        assert_eq!(temp_owner("..12.3.equiscan-tmp"), None);
+    }
+
+    #[test]
+    fn stale_files_of_dead_processes_are_removed() {
+        if !Path::new("/proc/self").exists() {
+            return;
+        }
+        let dir = tempfile::tempdir().unwrap();
+        // No process has the pid u32::MAX - 1 (Linux caps pids at 2^22).
+        let dead = dir
+            .path()
+            .join(format!(".x.npy.{}.0{TEMP_SUFFIX}", u32::MAX - 1));
+        let alive = dir.path().join(format!(".x.npy.1.0{TEMP_SUFFIX}"));
+        let foreign = dir.path().join(".x.npy.99999999.0.tmp");
+        for p in [&dead, &alive, &foreign] {
+            fs::write(p, b"left over").unwrap();
+        }
+        assert_eq!(remove_stale_temp_files(dir.path()), 1);
+        assert!(!dead.exists() && alive.exists() && foreign.exists());
+    }
+
+    #[test]
+    fn live_files_are_registered_until_committed() {
+        let dir = tempfile::tempdir().unwrap();
+        let target = dir.path().join("y.bin");
+        let t = TempFile::create(&target).unwrap();
+        let tmp = t.temp_path().to_path_buf();
+        assert!(lock(&LIVE).contains(&tmp));
+        t.finish().unwrap().commit().unwrap();
+        assert!(!lock(&LIVE).contains(&tmp));
+        assert!(target.exists() && !tmp.exists());
     }
 }

@@ -20,14 +20,13 @@
 //! files written with it to the same values (tests/io_las_spec.rs).
 
 use std::io::{BufWriter, Read, Seek, SeekFrom, Write};
-use std::path::Path;
+use std::path::{Path, PathBuf};
 
 use las::{Builder, Color, PointDataBuilder, Transform, Vector, Version, Vlr};
 
 use crate::cloud::Cloud;
 use crate::error::{Error, Result};
 
-use super::atomic::write_atomic;
 use super::{Bounds, Column, FileInfo, check_columns, open_input};
 
 /// Points per `fill_points` call for LAS; LAZ uses more so that parallel decompression has
@@ -46,7 +45,11 @@ fn bad(path: &Path, what: impl Into<String>) -> Error {
 }
 
 fn las_err(path: &Path, e: las::Error) -> Error {
-    // An I/O error anywhere in the chain (also inside LAZ decompression) names its kind.
+    // An I/O error anywhere in the chain (also inside LAZ decompression) names its kind. The
+    // `las` crate's `Io` variant is transparent: its source is the I/O error's own source.
+    if let las::Error::Io(io) = &e {
+        return Error::io(path, io);
+    }
     let mut source: Option<&(dyn std::error::Error + 'static)> = Some(&e);
     while let Some(s) = source {
         if let Some(io) = s.downcast_ref::<std::io::Error>() {
@@ -81,6 +84,14 @@ fn u64_at(b: &[u8], o: usize) -> u64 {
 fn f64_at(b: &[u8], o: usize) -> f64 {
     f64::from_le_bytes(b[o..o + 8].try_into().unwrap())
 }
+
+/// Largest decoded size of one LAZ chunk accepted, bytes.
+const MAX_CHUNK_BYTES: u64 = 1 << 28;
+/// Largest scale factor accepted, file units per stored step: above it a 32-bit coordinate
+/// no longer describes a scan (common practice is 0.01 to 0.0001).
+const MAX_SCALE: f64 = 1e4;
+/// Largest offset accepted, file units (far beyond any planetary coordinate system).
+const MAX_OFFSET: f64 = 1e12;
 
 /// Base record length of point formats 0–10 (LAS 1.4 R15, Tables 7–17).
 const BASE_LEN: [u16; 11] = [20, 28, 26, 34, 57, 63, 30, 36, 38, 59, 67];
@@ -141,9 +152,11 @@ fn check_header(path: &Path, file: &mut std::fs::File, len: u64) -> Result<RawHe
     let compressed = raw_format & 0xC0 != 0;
     let format = raw_format & 0x3F;
     if format > 10 {
+        // Name the byte as stored: bits 6 and 7 mark LAZ compression, so 99 would otherwise
+        // be reported as 35.
         return Err(Error::file(
             path,
-            format!("LAS point format {format} is not read here (0 to 10 are)"),
+            format!("LAS point format {raw_format} is not read here (0 to 10 are, LAZ adds 128)"),
             "convert the file to a standard point format",
         ));
     }
@@ -158,16 +171,44 @@ fn check_header(path: &Path, file: &mut std::fs::File, len: u64) -> Result<RawHe
     }
     let count = if minor >= 4 && header_size >= 375 && b.len() >= 255 {
         let c = u64_at(&b, 247);
+        // LAS 1.4 R15, Table 3: the legacy count (byte 107) is zero or equals the 64-bit
+        // count (byte 247). Two different non-zero counts cannot both be right.
+        if c != 0 && legacy_count != 0 && c != legacy_count {
+            return Err(bad(
+                path,
+                format!(
+                    "the header's two point counts disagree ({legacy_count} in the legacy field, {c} in the 64-bit field)"
+                ),
+            ));
+        }
         if c == 0 { legacy_count } else { c }
     } else {
         legacy_count
     };
+    // Scale factors at bytes 131, 139, 147 and offsets at 155, 163, 171 (Table 3).
     for (k, o) in [131usize, 139, 147].into_iter().enumerate() {
         let s = f64_at(&b, o);
-        if !s.is_finite() || s == 0.0 {
+        if !s.is_finite() || s == 0.0 || s.abs() > MAX_SCALE {
             return Err(bad(
                 path,
-                format!("the {} scale factor is {s}", ["x", "y", "z"][k]),
+                format!(
+                    "the {} scale factor is {} (expected a finite step between 0 and {MAX_SCALE:e} file units; 0.001 to 0.01 is common practice)",
+                    ["x", "y", "z"][k],
+                    super::compact(s)
+                ),
+            ));
+        }
+    }
+    for (k, o) in [155usize, 163, 171].into_iter().enumerate() {
+        let v = f64_at(&b, o);
+        if !v.is_finite() || v.abs() > MAX_OFFSET {
+            return Err(bad(
+                path,
+                format!(
+                    "the {} offset is {} (expected a finite value within {MAX_OFFSET:e})",
+                    ["x", "y", "z"][k],
+                    super::compact(v)
+                ),
             ));
         }
     }
@@ -191,6 +232,127 @@ fn check_header(path: &Path, file: &mut std::fs::File, len: u64) -> Result<RawHe
         version: (major, minor),
         offset_to_points,
     })
+}
+
+/// Checks where the LAZ chunk table lies and how many entries it claims, before the `laz`
+/// crate reads it: the 8 bytes at the start of the point data give its offset (LASzip
+/// convention, from memory: an offset not past that position means "look in the file's last 8
+/// bytes"), the table starts with a version (u32) and a chunk count (u32). Every chunk takes at
+/// least one byte of compressed data, so the count cannot exceed the bytes between the points'
+/// start and the table; a larger count would make the decoder allocate for it.
+fn check_laz_table_location(
+    path: &Path,
+    file: &mut std::fs::File,
+    len: u64,
+    offset_to_points: u64,
+) -> Result<()> {
+    let mut at = |pos: u64, buf: &mut [u8]| -> Result<()> {
+        file.seek(SeekFrom::Start(pos))
+            .and_then(|_| file.read_exact(buf))
+            .map_err(|e| Error::io(path, &e))
+    };
+    if offset_to_points + 8 > len {
+        return Err(bad(
+            path,
+            "the LAZ point data is truncated before its chunk table offset",
+        ));
+    }
+    let mut w = [0u8; 8];
+    at(offset_to_points, &mut w)?;
+    let mut table = i64::from_le_bytes(w);
+    if table <= offset_to_points as i64 {
+        at(len - 8, &mut w)?;
+        let end = i64::from_le_bytes(w);
+        if end <= offset_to_points as i64 {
+            return Err(bad(
+                path,
+                format!(
+                    "the LAZ chunk table offset is {} and the file's last 8 bytes give none either (damaged or cut file)",
+                    table
+                ),
+            ));
+        }
+        table = end;
+    }
+    let table = table as u64;
+    if table.saturating_add(8) > len {
+        return Err(bad(
+            path,
+            format!("the LAZ chunk table offset {table} lies outside the {len}-byte file"),
+        ));
+    }
+    at(table, &mut w)?;
+    let chunks = u32_at(&w, 4) as u64;
+    let data = table - offset_to_points - 8;
+    if chunks > data {
+        return Err(bad(
+            path,
+            format!(
+                "the LAZ chunk table lists {chunks} chunks, more than its {data} bytes of compressed data can hold"
+            ),
+        ));
+    }
+    file.seek(SeekFrom::Start(0))
+        .map_err(|e| Error::io(path, &e))?;
+    Ok(())
+}
+
+/// Bytes per value of Extra Bytes data types 1–10 (LAS 1.4 R15, Table 25, from memory:
+/// u8, i8, u16, i16, u32, i32, u64, i64, f32, f64); types 11–20 and 21–30 are the deprecated
+/// two- and three-value arrays of the same.
+fn extra_bytes_type_size(t: u8, options: u8) -> Option<u64> {
+    const SIZE: [u64; 10] = [1, 1, 2, 2, 4, 4, 8, 8, 4, 8];
+    match t {
+        0 => Some(options as u64),
+        1..=10 => Some(SIZE[t as usize - 1]),
+        11..=20 => Some(2 * SIZE[t as usize - 11]),
+        21..=30 => Some(3 * SIZE[t as usize - 21]),
+        _ => None,
+    }
+}
+
+/// Refuses an Extra Bytes record that cannot describe the records' extra bytes: a length that
+/// is not a whole number of 192-byte descriptors, an undefined data type, or more bytes
+/// described than each point record carries.
+fn check_extra_bytes(path: &Path, header: &las::Header) -> Result<()> {
+    let carried = header.point_format().extra_bytes as u64;
+    for v in header.all_vlrs().filter(|v| is_extra_bytes_vlr(v)) {
+        if v.data.len() % EXTRA_BYTES_DESCRIPTOR != 0 {
+            return Err(bad(
+                path,
+                format!(
+                    "the Extra Bytes record holds {} bytes, not a whole number of {EXTRA_BYTES_DESCRIPTOR}-byte descriptors",
+                    v.data.len()
+                ),
+            ));
+        }
+        let mut described = 0u64;
+        for (d, name) in v
+            .data
+            .chunks_exact(EXTRA_BYTES_DESCRIPTOR)
+            .zip(extra_bytes_names(v))
+        {
+            let Some(size) = extra_bytes_type_size(d[2], d[3]) else {
+                return Err(bad(
+                    path,
+                    format!(
+                        "Extra Bytes field {name:?} has data type {} (0 to 30 are defined)",
+                        d[2]
+                    ),
+                ));
+            };
+            described += size;
+        }
+        if described > carried {
+            return Err(bad(
+                path,
+                format!(
+                    "the Extra Bytes record describes {described} bytes per point but the records carry {carried}"
+                ),
+            ));
+        }
+    }
+    Ok(())
 }
 
 /// Refuses a LAZ file whose chunk table holds fewer points than the header declares (the
@@ -228,6 +390,29 @@ fn check_laz_chunks(
         return Err(bad(
             path,
             format!("the LAZ chunk table lists {bytes} compressed bytes, more than the file holds"),
+        ));
+    }
+    // The decoder allocates a whole chunk's points at once (for the last fixed-size chunk, as
+    // many as the record says): a chunk size no real file uses (LASzip writes 50 000 points,
+    // from memory) would make it allocate what the damaged record says.
+    let largest = if vlr.uses_variable_size_chunks() {
+        table
+            .as_ref()
+            .iter()
+            .map(|c| c.point_count)
+            .max()
+            .unwrap_or(0)
+    } else {
+        vlr.chunk_size() as u64
+    };
+    if largest.saturating_mul(record_len) > MAX_CHUNK_BYTES {
+        return Err(bad(
+            path,
+            format!(
+                "the LAZ data declares chunks of {largest} points ({} bytes decoded), more than {} MiB",
+                largest.saturating_mul(record_len),
+                MAX_CHUNK_BYTES >> 20
+            ),
         ));
     }
     // With fixed-size chunks every entry counts a full chunk, so this is an upper bound.
@@ -294,123 +479,280 @@ fn crs_text(header: &las::Header) -> Option<String> {
     }
 }
 
+/// A LAS or LAZ file opened for reading: header checked and summarised; points are then
+/// decoded in chunks with [`LasReader::read_into`].
+pub(crate) struct LasReader {
+    path: PathBuf,
+    reader: las::Reader,
+    pd: las::PointData,
+    layout: Layout,
+    transforms: [Transform; 3],
+    compressed: bool,
+    n: u64,
+    done: u64,
+    bounds: Bounds,
+    header_origin_ok: bool,
+    origin: Option<[f64; 3]>,
+    has_color: bool,
+    has_gps: bool,
+    info: FileInfo,
+}
+
+impl LasReader {
+    /// Opens `path` (the caller has seen the `LASF` signature) and checks everything the
+    /// decoder will rely on before it reads anything.
+    pub(crate) fn open(path: &Path) -> Result<LasReader> {
+        let (mut file, len) = open_input(path)?;
+        let raw = check_header(path, &mut file, len)?;
+        if raw.compressed {
+            check_laz_table_location(path, &mut file, len, raw.offset_to_points)?;
+        }
+        let reader = guard(path, raw.compressed, || {
+            las::Reader::new(std::io::BufReader::with_capacity(1 << 20, file))
+                .map_err(|e| las_err(path, e))
+        })?;
+        let header = reader.header().clone();
+        check_extra_bytes(path, &header)?;
+        if raw.compressed {
+            check_laz_chunks(path, &header, raw.offset_to_points, len)?;
+        }
+        let fmt = *header.point_format();
+        let n = header.number_of_points();
+        let t = *header.transforms();
+        let hb = header.bounds();
+
+        let mut info = FileInfo::new(
+            path,
+            if raw.compressed { "LAZ" } else { "LAS" },
+            format!("{}.{}", raw.version.0, raw.version.1),
+        );
+        info.point_count = n;
+        info.point_format = Some(raw.format);
+        info.record_length = Some(fmt.len());
+        info.scale = Some([t.x.scale, t.y.scale, t.z.scale]);
+        info.offset = Some([t.x.offset, t.y.offset, t.z.offset]);
+        let bounds = Bounds {
+            min: [hb.min.x, hb.min.y, hb.min.z],
+            max: [hb.max.x, hb.max.y, hb.max.z],
+        };
+        // Non-finite header bounds are informational only: kept out of the summary, and the
+        // origin then comes from the first point.
+        let finite = bounds.min.iter().chain(&bounds.max).all(|v| v.is_finite());
+        info.header_bounds = finite.then_some(bounds);
+        info.crs = crs_text(&header);
+        info.crs_records = header.all_vlrs().filter(|v| v.is_crs()).cloned().collect();
+        let described: Vec<String> = header
+            .all_vlrs()
+            .filter(|v| is_extra_bytes_vlr(v))
+            .flat_map(extra_bytes_names)
+            .collect();
+        info.other_fields = described;
+        if fmt.extra_bytes > 0 && info.other_fields.is_empty() {
+            info.other_fields
+                .push(format!("{} undescribed extra bytes", fmt.extra_bytes));
+        }
+        let header_origin_ok = (0..3).all(|k| {
+            bounds.min[k].is_finite() && bounds.max[k].is_finite() && bounds.min[k] <= bounds.max[k]
+        });
+        let mut me = LasReader {
+            path: path.to_path_buf(),
+            pd: PointDataBuilder::new().for_header(&header).build(),
+            reader,
+            layout: Layout::new(raw.format, fmt.len() as usize),
+            transforms: [t.x, t.y, t.z],
+            compressed: raw.compressed,
+            n,
+            done: 0,
+            bounds,
+            header_origin_ok,
+            origin: None,
+            has_color: fmt.has_color,
+            has_gps: fmt.has_gps_time,
+            info,
+        };
+        me.info.attributes = me
+            .empty_cloud(0)
+            .attribute_names()
+            .into_iter()
+            .map(String::from)
+            .collect();
+        Ok(me)
+    }
+
+    /// The header summary.
+    pub(crate) fn info(&self) -> &FileInfo {
+        &self.info
+    }
+
+    /// Points not read yet.
+    pub(crate) fn remaining(&self) -> u64 {
+        self.n - self.done
+    }
+
+    /// Points decoded per call to the `las` crate: LAZ uses more so that parallel
+    /// decompression has several compressed chunks to share between threads.
+    pub(crate) fn natural_chunk(&self) -> u64 {
+        if self.compressed {
+            CHUNK_LAZ
+        } else {
+            CHUNK_LAS
+        }
+    }
+
+    /// An empty cloud with this file's attributes and room for `reserve` points (for LAZ
+    /// never more than a chunk ahead of the data; for LAS the file size proved they exist).
+    pub(crate) fn empty_cloud(&self, reserve: u64) -> Cloud {
+        let cap = if self.compressed {
+            reserve.min(self.remaining()).min(CHUNK_LAZ)
+        } else {
+            reserve.min(self.remaining())
+        } as usize;
+        let mut c = Cloud::new([0.0; 3], Vec::with_capacity(cap));
+        c.intensity = Some(Vec::with_capacity(cap));
+        c.classification = Some(Vec::with_capacity(cap));
+        c.return_number = Some(Vec::with_capacity(cap));
+        c.color = self.has_color.then(|| Vec::with_capacity(cap));
+        c.gps_time = self.has_gps.then(|| Vec::with_capacity(cap));
+        c
+    }
+
+    /// Appends up to `max` points to `out` (a cloud from [`LasReader::empty_cloud`]) and sets
+    /// its origin; returns how many were read (0 at the end).
+    pub(crate) fn read_into(&mut self, out: &mut Cloud, max: usize) -> Result<usize> {
+        let end = self.done + (max as u64).min(self.remaining());
+        let start = self.done;
+        let path = self.path.clone();
+        while self.done < end {
+            let want = self.natural_chunk().min(end - self.done);
+            let (reader, pd) = (&mut self.reader, &mut self.pd);
+            let compressed = self.compressed;
+            let got = guard(&path, compressed, || {
+                reader.fill_points(want, pd).map_err(|e| {
+                    if compressed {
+                        laz_data_err(&path, e)
+                    } else {
+                        las_err(&path, e)
+                    }
+                })
+            })?;
+            if got == 0 {
+                return Err(Error::file(
+                    &path,
+                    format!(
+                        "the point data ends after {} of {} points (truncated)",
+                        self.done, self.n
+                    ),
+                    "copy or export the file again",
+                ));
+            }
+            let bounds = self.bounds;
+            let ok = self.header_origin_ok;
+            let pd = &self.pd;
+            let o = *self.origin.get_or_insert_with(|| {
+                let first = [
+                    pd.x().next().unwrap_or(0.0),
+                    pd.y().next().unwrap_or(0.0),
+                    pd.z().next().unwrap_or(0.0),
+                ];
+                let inside = (0..3)
+                    .all(|k| first[k] >= bounds.min[k] - 1.0 && first[k] <= bounds.max[k] + 1.0);
+                if ok && inside {
+                    std::array::from_fn(|k| ((bounds.min[k] + bounds.max[k]) * 0.5).round())
+                } else {
+                    first.map(f64::round)
+                }
+            });
+            let Cloud {
+                positions,
+                intensity,
+                classification,
+                return_number,
+                color,
+                gps_time,
+                ..
+            } = out;
+            let (Some(intensity), Some(classification), Some(return_number)) = (
+                intensity.as_mut(),
+                classification.as_mut(),
+                return_number.as_mut(),
+            ) else {
+                return Err(Error::internal(
+                    "LasReader::read_into was given a cloud without its attributes",
+                    "make the cloud with empty_cloud",
+                ));
+            };
+            decode_records(
+                self.pd.raw_bytes(),
+                &self.layout,
+                self.transforms,
+                o,
+                &mut Columns {
+                    positions,
+                    intensity,
+                    classification,
+                    return_number,
+                    color: color.as_mut(),
+                    gps: gps_time.as_mut(),
+                },
+            );
+            self.done += got;
+        }
+        out.origin = self.origin.unwrap_or([0.0; 3]);
+        Ok((self.done - start) as usize)
+    }
+}
+
 /// Reads a LAS or LAZ file (the caller has seen the `LASF` signature).
 pub(crate) fn read_las(path: &Path) -> Result<(Cloud, FileInfo)> {
-    let (mut file, len) = open_input(path)?;
-    let raw = check_header(path, &mut file, len)?;
-    let mut reader = las::Reader::new(std::io::BufReader::with_capacity(1 << 20, file))
-        .map_err(|e| las_err(path, e))?;
-    let header = reader.header().clone();
-    if raw.compressed {
-        check_laz_chunks(path, &header, raw.offset_to_points, len)?;
-    }
-    let fmt = *header.point_format();
-    let n = header.number_of_points();
-    let t = *header.transforms();
-    let hb = header.bounds();
+    let mut r = LasReader::open(path)?;
+    let mut cloud = r.empty_cloud(u64::MAX);
+    let n = r.remaining().min(usize::MAX as u64) as usize;
+    r.read_into(&mut cloud, n)?;
+    super::check_extent(path, &cloud)?;
+    Ok((cloud, r.info().clone()))
+}
 
-    let mut info = FileInfo::new(
-        path,
-        if raw.compressed { "LAZ" } else { "LAS" },
-        format!("{}.{}", raw.version.0, raw.version.1),
-    );
-    info.point_count = n;
-    info.point_format = Some(raw.format);
-    info.record_length = Some(fmt.len());
-    info.scale = Some([t.x.scale, t.y.scale, t.z.scale]);
-    info.offset = Some([t.x.offset, t.y.offset, t.z.offset]);
-    let bounds = Bounds {
-        min: [hb.min.x, hb.min.y, hb.min.z],
-        max: [hb.max.x, hb.max.y, hb.max.z],
-    };
-    info.header_bounds = Some(bounds);
-    info.crs = crs_text(&header);
-    info.crs_records = header.all_vlrs().filter(|v| v.is_crs()).cloned().collect();
-    let described: Vec<String> = header
-        .all_vlrs()
-        .filter(|v| is_extra_bytes_vlr(v))
-        .flat_map(extra_bytes_names)
-        .collect();
-    info.other_fields = described;
-    if fmt.extra_bytes > 0 && info.other_fields.is_empty() {
-        info.other_fields
-            .push(format!("{} undescribed extra bytes", fmt.extra_bytes));
-    }
-
-    let header_origin_ok = (0..3).all(|k| {
-        bounds.min[k].is_finite() && bounds.max[k].is_finite() && bounds.min[k] <= bounds.max[k]
-    });
-    // Decided at the first chunk: the centre of the header bounds when they hold the first
-    // point (within a unit), else that point rounded (bounds missing or wrong).
-    let mut origin: Option<[f64; 3]> = None;
-
-    // Reserve for every point only when the file size has proven they exist (uncompressed);
-    // for LAZ never more than a chunk ahead of the data.
-    let chunk = if raw.compressed { CHUNK_LAZ } else { CHUNK_LAS };
-    let reserve = if raw.compressed { n.min(chunk) } else { n } as usize;
-    let layout = Layout::new(raw.format, fmt.len() as usize);
-    let mut cloud = Cloud::new([0.0; 3], Vec::with_capacity(reserve));
-    let mut intensity = Vec::with_capacity(reserve);
-    let mut classification = Vec::with_capacity(reserve);
-    let mut return_number = Vec::with_capacity(reserve);
-    let mut color = fmt.has_color.then(|| Vec::with_capacity(reserve));
-    let mut gps = fmt.has_gps_time.then(|| Vec::with_capacity(reserve));
-
-    let mut pd = PointDataBuilder::new().for_header(&header).build();
-    let mut done = 0u64;
-    while done < n {
-        let got = reader
-            .fill_points(chunk.min(n - done), &mut pd)
-            .map_err(|e| las_err(path, e))?;
-        if got == 0 {
-            return Err(Error::file(
-                path,
-                format!("the point data ends after {done} of {n} points (truncated)"),
-                "copy or export the file again",
-            ));
-        }
-        let o = *origin.get_or_insert_with(|| {
-            let first = [
-                pd.x().next().unwrap_or(0.0),
-                pd.y().next().unwrap_or(0.0),
-                pd.z().next().unwrap_or(0.0),
-            ];
-            let inside =
-                (0..3).all(|k| first[k] >= bounds.min[k] - 1.0 && first[k] <= bounds.max[k] + 1.0);
-            if header_origin_ok && inside {
-                std::array::from_fn(|k| ((bounds.min[k] + bounds.max[k]) * 0.5).round())
+/// Runs a call into the `las`/`laz` decoders, turning a panic inside them into the one-line
+/// error of a corrupt file. This is the last resort: everything the decoders read is checked
+/// first ([`check_header`], [`check_laz_table_location`], [`check_laz_chunks`]).
+fn guard<T>(path: &Path, compressed: bool, f: impl FnOnce() -> Result<T>) -> Result<T> {
+    super::quiet_panics::run(f).unwrap_or_else(|| {
+        Err(Error::file(
+            path,
+            if compressed {
+                "corrupt compressed data (the LAZ decoder gave up on it)"
             } else {
-                first.map(f64::round)
-            }
-        });
-        decode_records(
-            pd.raw_bytes(),
-            &layout,
-            [t.x, t.y, t.z],
-            o,
-            &mut Columns {
-                positions: &mut cloud.positions,
-                intensity: &mut intensity,
-                classification: &mut classification,
-                return_number: &mut return_number,
-                color: color.as_mut(),
-                gps: gps.as_mut(),
+                "corrupt point data (the LAS decoder gave up on it)"
             },
-        );
-        done += got;
+            "copy or export the file again",
+        ))
+    })
+}
+
+/// A decoding error inside LAZ point data: the chunk table was checked against the file, so an
+/// early end inside a chunk means damaged compressed bytes rather than a cut file.
+fn laz_data_err(path: &Path, e: las::Error) -> Error {
+    let mapped = las_err(path, e);
+    let corrupt = match &mapped {
+        Error::File { source, .. } => source
+            .as_ref()
+            .and_then(|s| s.downcast_ref::<std::io::Error>())
+            .is_some_and(|io| {
+                matches!(
+                    io.kind(),
+                    std::io::ErrorKind::UnexpectedEof | std::io::ErrorKind::InvalidData
+                )
+            }),
+        Error::Invalid { .. } => false,
+    };
+    if corrupt {
+        bad(
+            path,
+            "corrupt compressed data (a LAZ chunk does not decode; damaged bytes or a cut file)",
+        )
+    } else {
+        mapped
     }
-    cloud.origin = origin.unwrap_or([0.0; 3]);
-    cloud.intensity = Some(intensity);
-    cloud.classification = Some(classification);
-    cloud.return_number = Some(return_number);
-    cloud.color = color;
-    cloud.gps_time = gps;
-    info.attributes = cloud
-        .attribute_names()
-        .into_iter()
-        .map(String::from)
-        .collect();
-    Ok((cloud, info))
 }
 
 /// Byte offsets inside a point record (LAS 1.4 R15, Tables 7–17).
@@ -516,6 +858,7 @@ pub struct LasOptions {
     /// Offsets x, y, z, file units.
     pub offset: Option<[f64; 3]>,
     crs_records: Vec<Vlr>,
+    own_records: Vec<Vlr>,
 }
 
 impl LasOptions {
@@ -528,29 +871,72 @@ impl LasOptions {
             scale: info.scale,
             offset: info.offset,
             crs_records: info.crs_records.clone(),
+            own_records: Vec::new(),
+        }
+    }
+
+    /// The same layout with the CRS records of `info` instead (an output moved into another
+    /// file's frame takes that file's reference system).
+    pub fn with_crs_of(mut self, info: &FileInfo) -> Self {
+        self.crs_records = info.crs_records.clone();
+        self
+    }
+
+    /// Adds a variable-length record of our own to the header: `user_id` (at most 16 bytes),
+    /// `record_id`, a description (at most 32 bytes) and the payload.
+    pub fn with_record(
+        mut self,
+        user_id: &str,
+        record_id: u16,
+        description: &str,
+        data: Vec<u8>,
+    ) -> Self {
+        self.own_records.push(Vlr {
+            user_id: user_id.to_string(),
+            record_id,
+            description: description.to_string(),
+            data,
+        });
+        self
+    }
+}
+
+/// Most f32 columns whose Extra Bytes descriptors fit one VLR (its length is a u16:
+/// 341 × 192 = 65 472 bytes).
+pub const MAX_LAS_COLUMNS: usize = u16::MAX as usize / EXTRA_BYTES_DESCRIPTOR;
+
+/// Running smallest and largest finite value of each column, for the Extra Bytes descriptors.
+#[derive(Debug, Clone)]
+struct Ranges(Vec<(f64, f64)>);
+
+impl Ranges {
+    fn new(n: usize) -> Self {
+        Ranges(vec![(f64::INFINITY, f64::NEG_INFINITY); n])
+    }
+
+    fn add(&mut self, values: &[f32]) {
+        for ((lo, hi), &v) in self.0.iter_mut().zip(values) {
+            if v.is_finite() {
+                *lo = lo.min(v as f64);
+                *hi = hi.max(v as f64);
+            }
         }
     }
 }
 
-/// The Extra Bytes VLR (`LASF_Spec`, record 4) describing `columns` as f32 values.
-pub(crate) fn extra_bytes_vlr(columns: &[Column<'_>]) -> Vlr {
-    let mut data = Vec::with_capacity(columns.len() * EXTRA_BYTES_DESCRIPTOR);
-    for c in columns {
+/// The Extra Bytes VLR (`LASF_Spec`, record 4) describing `names` as f32 values with the
+/// given ranges (options bits 1 and 2 set where a column has a finite value).
+fn extra_bytes_vlr(names: &[String], ranges: &Ranges) -> Vlr {
+    let mut data = Vec::with_capacity(names.len() * EXTRA_BYTES_DESCRIPTOR);
+    for (name, &(lo, hi)) in names.iter().zip(&ranges.0) {
         let mut d = [0u8; EXTRA_BYTES_DESCRIPTOR];
         d[2] = 9; // data type: float
-        let (lo, hi) = c
-            .values
-            .iter()
-            .filter(|v| v.is_finite())
-            .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &v| {
-                (lo.min(v as f64), hi.max(v as f64))
-            });
         if lo <= hi {
             d[3] = 0b0000_0110; // min and max are valid
             d[64..72].copy_from_slice(&lo.to_le_bytes());
             d[88..96].copy_from_slice(&hi.to_le_bytes());
         }
-        d[4..4 + c.name.len()].copy_from_slice(c.name.as_bytes());
+        d[4..4 + name.len()].copy_from_slice(name.as_bytes());
         let desc = b"per-point feature";
         d[160..160 + desc.len()].copy_from_slice(desc);
         data.extend_from_slice(&d);
@@ -580,7 +966,8 @@ pub fn write_las(path: &Path, cloud: &Cloud, columns: &[Column<'_>]) -> Result<(
 ///
 /// Intensity is rounded and clamped to 0..=65535; classification 12 (overlap) is written
 /// with the overlap flag in formats 6–10. Column names: at most 32 bytes, letters, digits and
-/// `_`. Every coordinate must fit the 32-bit integer range at the chosen scale and offset.
+/// `_`; at most [`MAX_LAS_COLUMNS`] columns. Every coordinate must fit the 32-bit integer range
+/// at the chosen scale and offset.
 pub fn write_las_with(
     path: &Path,
     cloud: &Cloud,
@@ -589,158 +976,440 @@ pub fn write_las_with(
 ) -> Result<()> {
     cloud.validate().map_err(|e| super::about(path, e))?;
     check_columns(path, cloud.len(), columns, &[])?;
-    if let Some(c) = columns.iter().find(|c| c.name.len() > 32) {
-        return Err(Error::file(
-            path,
-            format!("column name {} is longer than 32 bytes", c.name),
-            "use a shorter name for LAS extra bytes",
-        ));
+    let names: Vec<String> = columns.iter().map(|c| c.name.to_string()).collect();
+    let mut w = LasRowWriter::create(path, cloud, &names, options)?;
+    let step = 1 << 16;
+    let mut values = Vec::with_capacity(step * columns.len());
+    let mut start = 0;
+    while start < cloud.len() {
+        let end = (start + step).min(cloud.len());
+        values.clear();
+        for i in start..end {
+            values.extend(columns.iter().map(|c| c.values[i]));
+        }
+        let rows: Vec<(usize, [f32; 3])> = (start..end).map(|i| (i, cloud.positions[i])).collect();
+        w.write_rows(Some(cloud), &rows, &values)?;
+        start = end;
     }
-    let n_extra = columns.len() * 4;
-    if n_extra + 67 > u16::MAX as usize {
-        return Err(Error::file(
-            path,
-            format!("{} columns do not fit a LAS point record", columns.len()),
-            "write fewer columns to LAS, or use NPY",
-        ));
-    }
-    let compress = path
-        .extension()
-        .is_some_and(|e| e.eq_ignore_ascii_case("laz"));
-    let fmt_no = match options
-        .point_format
-        .unwrap_or(if cloud.color.is_some() { 7 } else { 6 })
-    {
-        4 => 1,
-        5 => 3,
-        9 => 6,
-        10 => 8,
-        f if f <= 10 => f,
-        f => {
+    w.finish()?.commit()
+}
+
+/// A LAS/LAZ file written in chunks of rows, in the layout of [`write_las_with`]: the header
+/// and VLRs first (the Extra Bytes ranges are filled in by [`LasRowWriter::finish`]), then
+/// the points as they come. The file stays under a temporary name until the
+/// [`Finished`](super::Finished) it returns is committed.
+pub struct LasRowWriter {
+    path: std::path::PathBuf,
+    temp: super::TempFile,
+    writer: NoPanicWriter<BufWriter<std::fs::File>>,
+    format: las::point::Format,
+    fmt_no: u8,
+    names: Vec<String>,
+    ranges: Ranges,
+    origin: [f64; 3],
+}
+
+impl LasRowWriter {
+    /// Starts `path` for points with the attributes present in `like` (its origin is the
+    /// local frame of the rows) and f32 columns `names`.
+    pub fn create(
+        path: &Path,
+        like: &Cloud,
+        names: &[String],
+        options: &LasOptions,
+    ) -> Result<LasRowWriter> {
+        if let Some(c) = names.iter().find(|c| c.len() > 32) {
             return Err(Error::file(
                 path,
-                format!("point format {f} does not exist"),
-                "choose a point format from 0 to 10",
+                format!("column name {c} is longer than 32 bytes"),
+                "use a shorter name for LAS extra bytes",
             ));
         }
-    };
-    let mut format = las::point::Format::new(fmt_no).map_err(|e| las_err(path, e))?;
-    format.extra_bytes = n_extra as u16;
-    format.is_compressed = compress;
-    let scale = options.scale.unwrap_or([0.001; 3]);
-    let offset = options.offset.unwrap_or(cloud.origin);
-    if !scale.iter().all(|s| s.is_finite() && *s > 0.0) || !offset.iter().all(|o| o.is_finite()) {
-        return Err(Error::file(
-            path,
-            "the LAS scale must be positive and the offset finite",
-            "give other scale factors or offsets",
-        ));
-    }
-    let transforms = Vector {
-        x: Transform {
-            scale: scale[0],
-            offset: offset[0],
-        },
-        y: Transform {
-            scale: scale[1],
-            offset: offset[1],
-        },
-        z: Transform {
-            scale: scale[2],
-            offset: offset[2],
-        },
-    };
-    let mut builder = Builder::default();
-    builder.version = Version::new(1, 4);
-    builder.point_format = format;
-    builder.transforms = transforms;
-    builder.generating_software = "equiscan".to_string();
-    // LAS 1.4 R15 system identifier, from memory: "OTHER" when the points do not come straight
-    // from one instrument (the spec also names MERGE, MODIFICATION, EXTRACTION, …).
-    builder.system_identifier = "OTHER".to_string();
-    builder.vlrs = options.crs_records.clone();
-    if !columns.is_empty() {
-        builder.vlrs.push(extra_bytes_vlr(columns));
-    }
-    let header = builder.into_header().map_err(|e| las_err(path, e))?;
-
-    write_atomic(path, |w| {
-        let file = w.get_ref().try_clone().map_err(|e| Error::io(path, &e))?;
-        let mut writer = las::Writer::new(BufWriter::with_capacity(1 << 20, file), header)
-            .map_err(|e| las_err(path, e))?;
-        let step = 1 << 16;
-        let mut start = 0;
-        while start < cloud.len() {
-            let end = (start + step).min(cloud.len());
-            let points = (start..end).map(|i| las_point(cloud, columns, &format, i));
-            let pd = PointDataBuilder::new()
-                .for_header(writer.header())
-                .build_from_points(points)
-                .map_err(|e| match e {
-                    las::Error::InvalidInverseTransform { .. } => Error::file(
-                        path,
-                        "a coordinate does not fit the LAS integer range at this scale and offset",
-                        "choose a larger scale or an offset near the points",
-                    ),
-                    e => las_err(path, e),
-                })?;
-            writer.write_points(&pd).map_err(|e| las_err(path, e))?;
-            start = end;
+        if names.len() > MAX_LAS_COLUMNS {
+            return Err(Error::file(
+                path,
+                format!(
+                    "{} feature columns are more than the {MAX_LAS_COLUMNS} whose descriptions fit a LAS Extra Bytes record",
+                    names.len()
+                ),
+                "write NPY or CSV (a .npy or .csv output), or ask for fewer invariants or scales",
+            ));
         }
-        let inner = writer.into_inner().map_err(|e| las_err(path, e))?;
+        let compress = path
+            .extension()
+            .is_some_and(|e| e.eq_ignore_ascii_case("laz"));
+        let fmt_no = match options
+            .point_format
+            .unwrap_or(if like.color.is_some() { 7 } else { 6 })
+        {
+            4 => 1,
+            5 => 3,
+            9 => 6,
+            10 => 8,
+            f if f <= 10 => f,
+            f => {
+                return Err(Error::file(
+                    path,
+                    format!("point format {f} does not exist"),
+                    "choose a point format from 0 to 10",
+                ));
+            }
+        };
+        let mut format = las::point::Format::new(fmt_no).map_err(|e| las_err(path, e))?;
+        format.extra_bytes = (names.len() * 4) as u16;
+        format.is_compressed = compress;
+        let scale = options.scale.unwrap_or([0.001; 3]);
+        let offset = options.offset.unwrap_or(like.origin);
+        if !scale.iter().all(|s| s.is_finite() && *s > 0.0) || !offset.iter().all(|o| o.is_finite())
+        {
+            return Err(Error::file(
+                path,
+                "the LAS scale must be positive and the offset finite",
+                "give other scale factors or offsets",
+            ));
+        }
+        let t = |k: usize| Transform {
+            scale: scale[k],
+            offset: offset[k],
+        };
+        let mut builder = Builder::default();
+        builder.version = Version::new(1, 4);
+        builder.point_format = format;
+        builder.transforms = Vector {
+            x: t(0),
+            y: t(1),
+            z: t(2),
+        };
+        builder.generating_software = "equiscan".to_string();
+        // LAS 1.4 R15 system identifier, from memory: "OTHER" when the points do not come
+        // straight from one instrument (the spec also names MERGE, MODIFICATION, EXTRACTION, …).
+        builder.system_identifier = "OTHER".to_string();
+        builder.vlrs = options.crs_records.clone();
+        builder.vlrs.extend(options.own_records.iter().cloned());
+        let ranges = Ranges::new(names.len());
+        if !names.is_empty() {
+            // Same length as the final record; the ranges are written by `finish`.
+            builder.vlrs.push(extra_bytes_vlr(names, &ranges));
+        }
+        let header = builder.into_header().map_err(|e| las_err(path, e))?;
+        let mut temp = super::TempFile::create(path)?;
+        let file = temp
+            .writer()
+            .get_ref()
+            .try_clone()
+            .map_err(|e| Error::io(path, &e))?;
+        let writer = las::Writer::new(BufWriter::with_capacity(1 << 20, file), header)
+            .map_err(|e| las_err(path, e))?;
+        Ok(LasRowWriter {
+            path: path.to_path_buf(),
+            temp,
+            writer: NoPanicWriter(Some(writer)),
+            format,
+            fmt_no,
+            names: names.to_vec(),
+            ranges,
+            origin: like.origin,
+        })
+    }
+
+    /// Writes one point per entry of `rows`, `(point index in attrs, local position)`, with
+    /// the column values `values` (row-major, `rows.len() × names.len()`). `attrs`: the cloud
+    /// whose attributes the points carry; `None` writes defaults (class 1, first return).
+    pub fn write_rows(
+        &mut self,
+        attrs: Option<&Cloud>,
+        rows: &[(usize, [f32; 3])],
+        values: &[f32],
+    ) -> Result<()> {
+        let nc = self.names.len();
+        let path = &self.path;
+        let points = rows.iter().enumerate().map(|(r, &(i, p))| {
+            let v = &values[r * nc..(r + 1) * nc];
+            let g: [f64; 3] = std::array::from_fn(|k| self.origin[k] + p[k] as f64);
+            las_point(attrs.map(|c| (c, i)), g, v, &self.format)
+        });
+        let pd = PointDataBuilder::new()
+            .for_header(self.writer.get().header())
+            .build_from_points(points)
+            .map_err(|e| match e {
+                las::Error::InvalidInverseTransform { .. } => Error::file(
+                    path,
+                    "a coordinate does not fit the LAS integer range at this scale and offset",
+                    "choose a larger scale or an offset near the points",
+                ),
+                e => las_err(path, e),
+            })?;
+        self.writer
+            .get()
+            .write_points(&pd)
+            .map_err(|e| las_err(path, e))?;
+        for r in 0..rows.len() {
+            self.ranges.add(&values[r * nc..(r + 1) * nc]);
+        }
+        Ok(())
+    }
+
+    /// Closes the point data, writes the column ranges into the Extra Bytes record and, for
+    /// formats 6–10, zeroes the legacy counts; returns the complete, synced temporary file.
+    pub fn finish(self) -> Result<super::Finished> {
+        let path = &self.path;
+        let inner = self.writer.into_inner(path)?;
         let mut file = inner.into_inner().map_err(|e| Error::io(path, e.error()))?;
-        if fmt_no >= 6 {
+        if self.fmt_no >= 6 {
             // LAS 1.4 R15, Table 3: the legacy point count (byte 107, u32) and legacy counts
             // by return (bytes 111–130, 5 × u32) must be zero for point formats 6–10; the las
             // crate fills them in, so clear them here.
             file.seek(SeekFrom::Start(107))
                 .and_then(|_| file.write_all(&[0u8; 24]))
-                .and_then(|_| file.seek(SeekFrom::End(0)).map(|_| ()))
                 .map_err(|e| Error::io(path, &e))?;
         }
-        Ok(())
-    })
+        if !self.names.is_empty() {
+            let vlr = extra_bytes_vlr(&self.names, &self.ranges);
+            let at = find_vlr_data(&mut file, "LASF_Spec", 4).map_err(|e| Error::io(path, &e))?;
+            let at = at.ok_or_else(|| {
+                Error::file(
+                    path,
+                    "the Extra Bytes record is missing from the file just written",
+                    "report this as a bug",
+                )
+            })?;
+            file.seek(SeekFrom::Start(at))
+                .and_then(|_| file.write_all(&vlr.data))
+                .map_err(|e| Error::io(path, &e))?;
+        }
+        file.seek(SeekFrom::End(0))
+            .map_err(|e| Error::io(path, &e))?;
+        drop(file);
+        self.temp.finish()
+    }
+}
+
+/// A `las::Writer` that never panics. The `las` writer closes itself when dropped and panics
+/// when that fails (a full disk: "Error when dropping the writer"); this wrapper closes it
+/// explicitly, and after a failed close tries once more and, if that fails too, forgets the
+/// writer instead of dropping it (the temporary file is removed by its own guard).
+struct NoPanicWriter<W: Write + Seek + Send + Sync + std::fmt::Debug + 'static>(
+    Option<las::Writer<W>>,
+);
+
+impl<W: Write + Seek + Send + Sync + std::fmt::Debug + 'static> NoPanicWriter<W> {
+    /// The writer; present until [`NoPanicWriter::into_inner`].
+    fn get(&mut self) -> &mut las::Writer<W> {
+        self.0
+            .as_mut()
+            .expect("the LAS writer is present until into_inner")
+    }
+
+    /// Closes the writer (header counts, bounds) and gives back the sink; every failure is an
+    /// error naming `path`.
+    fn into_inner(mut self, path: &Path) -> Result<W> {
+        let mut w = self
+            .0
+            .take()
+            .expect("the LAS writer is present until into_inner");
+        if let Err(e) = w.close() {
+            if w.close().is_err() {
+                std::mem::forget(w);
+            }
+            return Err(las_err(path, e));
+        }
+        w.into_inner().map_err(|e| las_err(path, e))
+    }
+}
+
+impl<W: Write + Seek + Send + Sync + std::fmt::Debug + 'static> Drop for NoPanicWriter<W> {
+    fn drop(&mut self) {
+        if let Some(mut w) = self.0.take()
+            && w.close().is_err()
+            && w.close().is_err()
+        {
+            std::mem::forget(w);
+        }
+    }
+}
+
+/// Offset of the data of the first VLR with `user_id` and `record_id` in a LAS file (header
+/// size at byte 94, VLR count at 100; each VLR header is 54 bytes: user id at 2–17, record id
+/// at 18, length after the header at 20).
+fn find_vlr_data(
+    file: &mut std::fs::File,
+    user_id: &str,
+    record_id: u16,
+) -> std::io::Result<Option<u64>> {
+    let mut head = [0u8; 104];
+    file.seek(SeekFrom::Start(0))?;
+    file.read_exact(&mut head)?;
+    let mut at = u16_at(&head, 94) as u64;
+    for _ in 0..u32_at(&head, 100) {
+        let mut v = [0u8; 54];
+        file.seek(SeekFrom::Start(at))?;
+        file.read_exact(&mut v)?;
+        let len = u16_at(&v, 20) as u64;
+        let id = &v[2..18];
+        let name_len = id.iter().position(|&b| b == 0).unwrap_or(16);
+        if &id[..name_len] == user_id.as_bytes() && u16_at(&v, 18) == record_id {
+            return Ok(Some(at + 54));
+        }
+        at += 54 + len;
+    }
+    Ok(None)
 }
 
 fn las_point(
-    cloud: &Cloud,
-    columns: &[Column<'_>],
+    attrs: Option<(&Cloud, usize)>,
+    g: [f64; 3],
+    values: &[f32],
     format: &las::point::Format,
-    i: usize,
 ) -> las::Point {
-    let g = cloud.global(i);
-    let class = cloud.classification.as_ref().map_or(1, |c| c[i]);
-    let ret = cloud.return_number.as_ref().map_or(1, |r| r[i]);
+    let cloud = attrs.map(|(c, _)| c);
+    let i = attrs.map_or(0, |(_, i)| i);
+    let class = cloud
+        .and_then(|c| c.classification.as_ref())
+        .map_or(1, |c| c[i]);
+    let ret = cloud
+        .and_then(|c| c.return_number.as_ref())
+        .map_or(1, |r| r[i]);
     let max_ret = if format.is_extended { 15 } else { 7 };
     let ret = ret.min(max_ret);
-    let mut extra = Vec::with_capacity(columns.len() * 4);
-    for c in columns {
-        extra.extend_from_slice(&c.values[i].to_le_bytes());
+    let mut extra = Vec::with_capacity(values.len() * 4);
+    for v in values {
+        extra.extend_from_slice(&v.to_le_bytes());
     }
     las::Point {
         x: g[0],
         y: g[1],
         z: g[2],
         intensity: cloud
-            .intensity
-            .as_ref()
+            .and_then(|c| c.intensity.as_ref())
             .map_or(0, |v| v[i].round().clamp(0.0, 65535.0) as u16),
         return_number: ret,
         number_of_returns: ret,
         classification: las::point::Classification::new(class)
             .unwrap_or(las::point::Classification::CreatedNeverClassified),
         is_overlap: class == 12,
-        gps_time: format
-            .has_gps_time
-            .then(|| cloud.gps_time.as_ref().map_or(0.0, |v| v[i])),
+        gps_time: format.has_gps_time.then(|| {
+            cloud
+                .and_then(|c| c.gps_time.as_ref())
+                .map_or(0.0, |v| v[i])
+        }),
         color: format.has_color.then(|| {
-            cloud.color.as_ref().map_or(Color::default(), |c| {
-                let [red, green, blue] = c[i];
-                Color { red, green, blue }
-            })
+            cloud
+                .and_then(|c| c.color.as_ref())
+                .map_or(Color::default(), |c| {
+                    let [red, green, blue] = c[i];
+                    Color { red, green, blue }
+                })
         }),
         nir: format.has_nir.then_some(0),
         extra_bytes: extra,
         ..Default::default()
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::io::Cursor;
+
+    /// A sink that takes `left` bytes and then fails as a full disk does.
+    #[derive(Debug)]
+    struct FullAfter {
+        inner: Cursor<Vec<u8>>,
+        left: usize,
+    }
+
+    impl Write for FullAfter {
+        fn write(&mut self, buf: &[u8]) -> std::io::Result<usize> {
+            if self.left == 0 && !buf.is_empty() {
+                return Err(std::io::Error::from(std::io::ErrorKind::StorageFull));
+            }
+            let n = buf.len().min(self.left);
+            self.left -= n;
+            self.inner.write(&buf[..n])
+        }
+        fn flush(&mut self) -> std::io::Result<()> {
+            Ok(())
+        }
+    }
+
+    impl Seek for FullAfter {
+        fn seek(&mut self, pos: SeekFrom) -> std::io::Result<u64> {
+            self.inner.seek(pos)
+        }
+    }
+
+    /// Writes every point of `cloud` with `columns` through a [`NoPanicWriter`] over `sink`.
+    fn write_points_to<W: Write + Seek + Send + Sync + std::fmt::Debug + 'static>(
+        sink: W,
+        header: las::Header,
+        path: &Path,
+        cloud: &Cloud,
+        columns: &[Column<'_>],
+        format: &las::point::Format,
+    ) -> Result<W> {
+        let w = las::Writer::new(sink, header).map_err(|e| las_err(path, e))?;
+        let mut w = NoPanicWriter(Some(w));
+        let points = (0..cloud.len()).map(|i| {
+            let v: Vec<f32> = columns.iter().map(|c| c.values[i]).collect();
+            let g: [f64; 3] =
+                std::array::from_fn(|k| cloud.origin[k] + cloud.positions[i][k] as f64);
+            las_point(Some((cloud, i)), g, &v, format)
+        });
+        let pd = PointDataBuilder::new()
+            .for_header(w.get().header())
+            .build_from_points(points)
+            .map_err(|e| las_err(path, e))?;
+        w.get().write_points(&pd).map_err(|e| las_err(path, e))?;
+        w.into_inner(path)
+    }
+
+    /// The report's "Error when dropping the writer" panic on a full disk: for LAS and LAZ and
+    /// a disk filling up at any of several points, the writer gives the one-line error.
+    #[test]
+    fn a_full_disk_is_an_error_not_a_panic() {
+        let cloud = Cloud::new(
+            [100.0, 200.0, 10.0],
+            (0..5000)
+                .map(|i| [(i % 70) as f32 * 0.1, (i / 70) as f32 * 0.1, 0.5])
+                .collect(),
+        );
+        let vals: Vec<f32> = (0..5000).map(|i| i as f32).collect();
+        let columns = [Column::new("a", &vals)];
+        let path = Path::new("out.laz");
+        for compressed in [false, true] {
+            let mut format = las::point::Format::new(6).unwrap();
+            format.extra_bytes = 4;
+            format.is_compressed = compressed;
+            let header = || {
+                let mut b = Builder::default();
+                b.version = Version::new(1, 4);
+                b.point_format = format;
+                b.vlrs
+                    .push(extra_bytes_vlr(&["a".to_string()], &Ranges::new(1)));
+                b.into_header().unwrap()
+            };
+            // Enough room: written whole.
+            let big = FullAfter {
+                inner: Cursor::new(Vec::new()),
+                left: usize::MAX,
+            };
+            let done = write_points_to(big, header(), path, &cloud, &columns, &format).unwrap();
+            let total = done.inner.get_ref().len();
+            assert!(total > 1000);
+            for left in [0, 10, 300, 700, total / 3, total - 1] {
+                let sink = FullAfter {
+                    inner: Cursor::new(Vec::new()),
+                    left,
+                };
+                let err = write_points_to(sink, header(), path, &cloud, &columns, &format)
+                    .expect_err("a full disk must fail");
+                let msg = err.to_string();
+                assert!(
+                    msg.starts_with("out.laz: ") && !msg.contains('\n'),
+                    "{left}: {msg}"
+                );
+                assert_eq!(err.kind(), crate::error::Kind::Io, "{left}: {msg}");
+            }
+        }
     }
 }

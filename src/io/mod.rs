@@ -21,9 +21,12 @@
 
 mod atomic;
 mod csv;
+pub mod guard;
 mod las;
 mod npy;
 mod ply;
+mod quiet_panics;
+mod source;
 
 use std::fs::File;
 use std::io::Read;
@@ -34,11 +37,15 @@ use serde::Serialize;
 use crate::cloud::Cloud;
 use crate::error::{Error, Result};
 
-pub use atomic::write_atomic;
+pub use atomic::{
+    Finished, TEMP_SUFFIX, TempFile, remove_live_temp_files, remove_stale_temp_files, temp_owner,
+    write_atomic,
+};
 pub use csv::write_csv;
-pub use las::{LasOptions, write_las, write_las_with};
+pub use las::{LasOptions, LasRowWriter, MAX_LAS_COLUMNS, write_las, write_las_with};
 pub use npy::{npy_header, write_npy, write_npy_with_sidecar};
-pub use ply::{read_ply_mesh, write_ply};
+pub use ply::{PLY_TAKEN, PlyLayout, read_ply_mesh, write_ply, write_ply_with_comments};
+pub use source::PointSource;
 
 /// A named per-point f32 column, borrowed: `values[i]` belongs to point `i`.
 #[derive(Debug, Clone, Copy)]
@@ -128,7 +135,7 @@ impl FileInfo {
 
 /// The formats [`read_cloud`] recognises by content.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
-enum Kind {
+pub(crate) enum Kind {
     Las,
     Ply,
 }
@@ -155,7 +162,7 @@ pub(crate) fn open_input(path: &Path) -> Result<(File, u64)> {
     Ok((file, meta.len()))
 }
 
-fn sniff(path: &Path) -> Result<Kind> {
+pub(crate) fn sniff(path: &Path) -> Result<Kind> {
     let (mut file, _) = open_input(path)?;
     let mut head = [0u8; 4];
     let mut n = 0;
@@ -198,10 +205,92 @@ fn sniff(path: &Path) -> Result<Kind> {
 /// or ushort), `intensity` or `scalar_intensity`, and the `classification`, `return_number`
 /// and `gps_time` properties written by [`write_ply`]; other properties and elements are
 /// skipped. Coordinates must be finite.
+///
+/// The points' extent must fit the cloud's f32 local offsets with useful precision (at most
+/// [`MAX_EXTENT`] file units along each axis); a larger one is refused here, naming the file,
+/// rather than failing later inside spacing estimates and registration. [`PointSource`]
+/// reads the same file in chunks, header first.
 pub fn read_cloud(path: &Path) -> Result<(Cloud, FileInfo)> {
     match sniff(path)? {
         Kind::Las => las::read_las(path),
         Kind::Ply => ply::read_ply(path, false).map(|(c, _, i)| (c, i)),
+    }
+}
+
+/// Largest extent of a cloud along any axis, file units. f32 offsets carry 24 significant
+/// bits: at 5 × 10⁸ units from the origin one step is 32 units, far coarser than any scan's
+/// point spacing, and squared distances of larger extents overflow f32 (≈ 3.4 × 10³⁸).
+pub const MAX_EXTENT: f64 = 1e9;
+
+/// Running bounds of local positions, to refuse an extent f32 offsets cannot hold.
+#[derive(Debug, Clone, Copy)]
+pub(crate) struct Extent {
+    lo: [f64; 3],
+    hi: [f64; 3],
+}
+
+impl Default for Extent {
+    fn default() -> Self {
+        Extent {
+            lo: [f64::INFINITY; 3],
+            hi: [f64::NEG_INFINITY; 3],
+        }
+    }
+}
+
+impl Extent {
+    /// Adds `positions` and checks the extent so far.
+    pub(crate) fn add(&mut self, path: &Path, positions: &[[f32; 3]]) -> Result<()> {
+        for p in positions {
+            for (k, &v) in p.iter().enumerate() {
+                self.lo[k] = self.lo[k].min(v as f64);
+                self.hi[k] = self.hi[k].max(v as f64);
+            }
+        }
+        for k in 0..3 {
+            let e = self.hi[k] - self.lo[k];
+            if e > MAX_EXTENT || e.is_nan() {
+                return Err(Error::file(
+                    path,
+                    format!(
+                        "the points span {} file units along {}, more than 32-bit local offsets hold with useful precision (at most {})",
+                        compact(e),
+                        ["x", "y", "z"][k],
+                        compact(MAX_EXTENT)
+                    ),
+                    "drop the stray points, split the file or convert it to smaller units",
+                ));
+            }
+        }
+        Ok(())
+    }
+}
+
+/// Refuses a cloud whose extent [`Extent`] does not accept.
+pub(crate) fn check_extent(path: &Path, cloud: &Cloud) -> Result<()> {
+    Extent::default().add(path, &cloud.positions)
+}
+
+/// A number for a message: plain when moderate, compact scientific notation (`1.5e300`, six
+/// significant digits at most) when very large or small, so no message prints 300 digits.
+pub(crate) fn compact(v: f64) -> String {
+    let a = v.abs();
+    if !v.is_finite() || a == 0.0 || (1e-4..1e9).contains(&a) {
+        format!("{v}")
+    } else {
+        let s = format!("{v:.5e}");
+        // Trim trailing zeros of the mantissa: 1.50000e300 -> 1.5e300.
+        match s.split_once('e') {
+            Some((m, e)) => {
+                let m = if m.contains('.') {
+                    m.trim_end_matches('0').trim_end_matches('.')
+                } else {
+                    m
+                };
+                format!("{m}e{e}")
+            }
+            None => s,
+        }
     }
 }
 
@@ -250,8 +339,5 @@ pub(crate) fn check_columns(
 
 /// Puts `path` in front of an in-memory error, keeping its fix.
 pub(crate) fn about(path: &Path, e: Error) -> Error {
-    match e {
-        Error::Invalid { what, fix } => Error::file(path, what, fix),
-        other => other,
-    }
+    e.about(path)
 }

@@ -10,7 +10,7 @@
 
 use std::fs::File;
 use std::io::{BufRead, BufReader, Read, Write};
-use std::path::Path;
+use std::path::{Path, PathBuf};
 
 use crate::cloud::Cloud;
 use crate::error::{Error, Result};
@@ -251,6 +251,12 @@ fn parse_header(path: &Path, r: &mut impl BufRead) -> Result<Header> {
         match words.first().copied() {
             None => {}
             Some("format") => {
+                if encoding.is_some() {
+                    return Err(bad(
+                        path,
+                        format!("header line {lineno}: a second format line"),
+                    ));
+                }
                 encoding = Some(match words.get(1).copied() {
                     Some("ascii") => Encoding::Ascii,
                     Some("binary_little_endian") => Encoding::Little,
@@ -307,6 +313,12 @@ fn parse_header(path: &Path, r: &mut impl BufRead) -> Result<Header> {
                         ),
                     )
                 })?;
+                if *name == "vertex" && elements.iter().any(|e| e.name == "vertex") {
+                    return Err(bad(
+                        path,
+                        format!("header line {lineno}: a second vertex element"),
+                    ));
+                }
                 elements.push(Element {
                     name: name.to_string(),
                     count,
@@ -361,6 +373,15 @@ fn parse_header(path: &Path, r: &mut impl BufRead) -> Result<Header> {
                         kind: PropKind::Scalar(ty(words[1])?),
                     }
                 };
+                if el.find(&prop.name).is_some() {
+                    return Err(bad(
+                        path,
+                        format!(
+                            "header line {lineno}: property {} appears twice in element {}",
+                            prop.name, el.name
+                        ),
+                    ));
+                }
                 el.props.push(prop);
             }
             Some("end_header") => break,
@@ -384,17 +405,17 @@ fn parse_header(path: &Path, r: &mut impl BufRead) -> Result<Header> {
 }
 
 /// Buffered input that counts its position, for binary data.
-struct Src<'p> {
+struct Src {
     r: BufReader<File>,
     pos: u64,
     len: u64,
-    path: &'p Path,
+    path: PathBuf,
 }
 
-impl Src<'_> {
+impl Src {
     fn eof(&self, what: String) -> Error {
         Error::file(
-            self.path,
+            &self.path,
             format!(
                 "the file ends early: {what} (truncated, or the header declares more than the data holds)"
             ),
@@ -409,7 +430,7 @@ impl Src<'_> {
                 Ok(())
             }
             Err(e) if e.kind() == std::io::ErrorKind::UnexpectedEof => Err(self.eof(what())),
-            Err(e) => Err(Error::io(self.path, &e)),
+            Err(e) => Err(Error::io(&self.path, &e)),
         }
     }
 
@@ -419,7 +440,7 @@ impl Src<'_> {
         }
         self.r
             .seek_relative(n as i64)
-            .map_err(|e| Error::io(self.path, &e))?;
+            .map_err(|e| Error::io(&self.path, &e))?;
         self.pos += n;
         Ok(())
     }
@@ -429,38 +450,35 @@ impl Src<'_> {
     }
 }
 
-/// Ascii token stream over lines.
-struct Tokens<'p> {
+/// Ascii records. A record starts on a fresh line and must end at the end of a line; it may
+/// continue over several lines, but never shares a line with another record, so a short or
+/// long line is refused instead of shifting every value after it.
+struct Tokens {
     r: BufReader<File>,
     line: String,
+    raw: Vec<u8>,
     at: usize,
     lineno: usize,
-    path: &'p Path,
+    /// Line where the current record started.
+    start: usize,
+    path: PathBuf,
 }
 
-impl Tokens<'_> {
-    fn next(&mut self, what: &dyn Fn() -> String) -> Result<&str> {
+impl Tokens {
+    /// Reads the next non-blank line.
+    fn next_line(&mut self, what: &dyn Fn() -> String) -> Result<()> {
         loop {
-            let rest = &self.line[self.at..];
-            let trimmed = rest.trim_start();
-            if !trimmed.is_empty() {
-                let start = self.at + (rest.len() - trimmed.len());
-                let end = trimmed
-                    .find(|c: char| c.is_ascii_whitespace())
-                    .map_or(self.line.len(), |k| start + k);
-                self.at = end;
-                return Ok(&self.line[start..end]);
-            }
+            self.raw.clear();
             self.line.clear();
             self.at = 0;
             let n = self
                 .r
-                .read_line(&mut self.line)
-                .map_err(|e| Error::io(self.path, &e))?;
+                .read_until(b'\n', &mut self.raw)
+                .map_err(|e| Error::io(&self.path, &e))?;
             self.lineno += 1;
             if n == 0 {
                 return Err(Error::file(
-                    self.path,
+                    &self.path,
                     format!(
                         "the file ends early: {} (truncated, or the header declares more than the data holds)",
                         what()
@@ -468,7 +486,69 @@ impl Tokens<'_> {
                     "copy or export the file again",
                 ));
             }
+            match std::str::from_utf8(&self.raw) {
+                Ok(t) => self.line.push_str(t),
+                Err(_) => {
+                    return Err(bad(
+                        &self.path,
+                        format!(
+                            "line {} is not text (bytes that are not UTF-8 in an ascii PLY body)",
+                            self.lineno
+                        ),
+                    ));
+                }
+            }
+            if !self.line.trim().is_empty() {
+                return Ok(());
+            }
         }
+    }
+
+    /// Moves to a fresh line, where a record of `what()` starts.
+    fn begin(&mut self, what: &dyn Fn() -> String) -> Result<()> {
+        self.next_line(what)?;
+        self.start = self.lineno;
+        Ok(())
+    }
+
+    /// Refuses values left on the current line after a record.
+    fn check_line_done(&self, what: &dyn Fn() -> String) -> Result<()> {
+        let rest = self.line[self.at..].split_ascii_whitespace().count();
+        if rest > 0 {
+            let plural = if rest == 1 { "" } else { "s" };
+            return Err(bad(
+                &self.path,
+                if self.start == self.lineno {
+                    format!(
+                        "line {} has {rest} more value{plural} than its record needs ({})",
+                        self.lineno,
+                        what()
+                    )
+                } else {
+                    format!(
+                        "{} starts on line {} and ends inside line {}, leaving {rest} value{plural} (a short or long line)",
+                        what(),
+                        self.start,
+                        self.lineno
+                    )
+                },
+            ));
+        }
+        Ok(())
+    }
+
+    fn next(&mut self, what: &dyn Fn() -> String) -> Result<&str> {
+        while self.line[self.at..].trim_start().is_empty() {
+            self.next_line(what)?;
+        }
+        let rest = &self.line[self.at..];
+        let trimmed = rest.trim_start();
+        let start = self.at + (rest.len() - trimmed.len());
+        let end = trimmed
+            .find(|c: char| c.is_ascii_whitespace())
+            .map_or(self.line.len(), |k| start + k);
+        self.at = end;
+        Ok(&self.line[start..end])
     }
 
     fn value(&mut self, ty: Ty, what: &dyn Fn() -> String) -> Result<f64> {
@@ -478,7 +558,7 @@ impl Tokens<'_> {
             None => {
                 let t = t.to_string();
                 Err(Error::file(
-                    self.path,
+                    &self.path,
                     format!(
                         "line {}: {t:?} is not a valid {ty:?} value ({})",
                         self.lineno,
@@ -491,9 +571,9 @@ impl Tokens<'_> {
     }
 }
 
-enum Input<'p> {
-    Bin(Src<'p>, bool),
-    Ascii(Tokens<'p>),
+enum Input {
+    Bin(Src, bool),
+    Ascii(Tokens),
 }
 
 /// Where each kept vertex field sits.
@@ -600,7 +680,7 @@ impl Sink {
                         "vertex {} lies too far from the first vertex ({} = {})",
                         first_index + i,
                         ["x", "y", "z"][k],
-                        p[k]
+                        super::compact(p[k])
                     ),
                     "drop or repair such points",
                 ));
@@ -674,13 +754,20 @@ fn push_vertex(s: &mut Sink, m: &VertexMap, vals: &[f64]) {
 }
 
 /// Refuses a non-finite coordinate among `positions[from..]`, naming the vertex.
-fn check_float_positions(path: &Path, positions: &[[f32; 3]], from: usize) -> Result<()> {
+/// `positions[from]` is vertex `first` of the file.
+fn check_float_positions(
+    path: &Path,
+    positions: &[[f32; 3]],
+    from: usize,
+    first: u64,
+) -> Result<()> {
     for (i, p) in positions.iter().enumerate().skip(from) {
         if let Some(k) = (0..3).find(|&k| !p[k].is_finite()) {
             return Err(Error::file(
                 path,
                 format!(
-                    "vertex {i} has a non-finite coordinate ({} = {})",
+                    "vertex {} has a non-finite coordinate ({} = {})",
+                    first + (i - from) as u64,
                     ["x", "y", "z"][k],
                     p[k]
                 ),
@@ -780,7 +867,7 @@ fn decode_chunk(
 /// Reads (or skips, when `out` is `None`) one record of `el` with list properties, from
 /// binary input. List items of the property named `want` go to `items`.
 fn bin_record(
-    src: &mut Src<'_>,
+    src: &mut Src,
     big: bool,
     el: &Element,
     r: u64,
@@ -807,7 +894,7 @@ fn bin_record(
                 let n = ct.get(&b, big);
                 if n < 0.0 {
                     return Err(bad(
-                        src.path,
+                        &src.path,
                         format!("{} {r} has a negative list length", el.name),
                     ));
                 }
@@ -832,7 +919,7 @@ fn bin_record(
 
 /// Same as [`bin_record`] for ascii input.
 fn ascii_record(
-    tok: &mut Tokens<'_>,
+    tok: &mut Tokens,
     el: &Element,
     r: u64,
     vals: &mut Vec<f64>,
@@ -843,6 +930,7 @@ fn ascii_record(
     let name = el.name.clone();
     let count = el.count;
     let what = move || format!("{name} {r} of {count}");
+    tok.begin(&what)?;
     for (pi, p) in el.props.iter().enumerate() {
         match p.kind {
             PropKind::Scalar(t) => {
@@ -853,7 +941,7 @@ fn ascii_record(
                 let n = tok.value(ct, &what)?;
                 if n < 0.0 {
                     return Err(bad(
-                        tok.path,
+                        &tok.path,
                         format!("line {}: negative list length", tok.lineno),
                     ));
                 }
@@ -870,82 +958,209 @@ fn ascii_record(
             }
         }
     }
+    tok.check_line_done(&what)
+}
+
+/// Smallest number of bytes one record of `el` can take: ascii, one character and one
+/// separator per value; binary, the scalar sizes plus the list counts (empty lists).
+fn min_record_bytes(el: &Element, enc: Encoding) -> u64 {
+    match enc {
+        Encoding::Ascii => 2 * el.props.len() as u64,
+        _ => el
+            .props
+            .iter()
+            .map(|p| match p.kind {
+                PropKind::Scalar(t) | PropKind::List(t, _) => t.size() as u64,
+            })
+            .sum(),
+    }
+}
+
+/// Refuses element counts that the data cannot hold, before anything is skipped or
+/// allocated: a header claiming 10¹² records is refused at once instead of being skipped
+/// record by record.
+fn check_counts(path: &Path, h: &Header, data: u64) -> Result<()> {
+    let mut need = 0u64;
+    for el in &h.elements {
+        if el.props.is_empty() {
+            if el.count > 0 {
+                return Err(bad(
+                    path,
+                    format!(
+                        "element {} declares {} records but no properties",
+                        el.name, el.count
+                    ),
+                ));
+            }
+            continue;
+        }
+        let min = min_record_bytes(el, h.encoding);
+        need = need.saturating_add(el.count.saturating_mul(min));
+        // Ascii: the last value of the file may lack its separator.
+        if need > data.saturating_add(1) {
+            return Err(Error::file(
+                path,
+                format!(
+                    "the header declares {} {} records, which need at least {} bytes, but the data holds {data} (truncated, or a wrong count)",
+                    el.count, el.name, need
+                ),
+                "copy or export the file again",
+            ));
+        }
+    }
     Ok(())
 }
 
-/// Reads a PLY file: the cloud, the triangles when `faces` is true, and the header summary.
-pub(crate) fn read_ply(path: &Path, faces: bool) -> Result<(Cloud, Vec<[u32; 3]>, FileInfo)> {
-    let (file, file_len) = open_input(path)?;
-    let mut r = BufReader::with_capacity(1 << 20, file);
-    let h = parse_header(path, &mut r)?;
-    let vi = h
-        .elements
-        .iter()
-        .position(|e| e.name == "vertex")
-        .ok_or_else(|| {
-            Error::file(
-                path,
-                "the PLY file has no vertex element",
-                "export the points as a vertex element with x, y and z",
-            )
-        })?;
-    let vel = &h.elements[vi];
-    let map = map_vertex(path, vel)?;
+/// A PLY file opened for reading: header parsed and checked, elements before the vertex
+/// element read (faces kept when asked) or skipped; vertices are then read in chunks with
+/// [`PlyReader::read_into`].
+pub(crate) struct PlyReader {
+    path: PathBuf,
+    h: Header,
+    vi: usize,
+    map: VertexMap,
+    input: Input,
+    sink: Sink,
+    info: FileInfo,
+    done: u64,
+    faces: bool,
+    offs: Vec<(usize, Ty)>,
+    stride: Option<usize>,
+    buf: Vec<u8>,
+    vals: Vec<f64>,
+    items: Vec<f64>,
+    triangles: Vec<[u32; 3]>,
+}
 
-    let mut info = FileInfo::new(path, "PLY", h.version.clone());
-    info.encoding = Some(h.encoding.name().to_string());
-    info.point_count = vel.count;
-    info.other_fields = vel
-        .props
-        .iter()
-        .zip(&map.kept)
-        .filter(|(_, k)| !**k)
-        .map(|(p, _)| p.name.clone())
-        .collect();
-    info.other_elements = h
-        .elements
-        .iter()
-        .filter(|e| e.name != "vertex")
-        .map(|e| format!("{} {}", e.name, e.count))
-        .collect();
+impl PlyReader {
+    /// Opens `path` (the caller has seen the `ply` signature); `faces` keeps `face` lists.
+    pub(crate) fn open(path: &Path, faces: bool) -> Result<PlyReader> {
+        let (file, file_len) = open_input(path)?;
+        let mut r = BufReader::with_capacity(1 << 20, file);
+        let h = parse_header(path, &mut r)?;
+        let vi = h
+            .elements
+            .iter()
+            .position(|e| e.name == "vertex")
+            .ok_or_else(|| {
+                Error::file(
+                    path,
+                    "the PLY file has no vertex element",
+                    "export the points as a vertex element with x, y and z",
+                )
+            })?;
+        check_counts(path, &h, file_len.saturating_sub(h.len))?;
+        let vel = &h.elements[vi];
+        let map = map_vertex(path, vel)?;
 
-    let mut input = match h.encoding {
-        Encoding::Ascii => Input::Ascii(Tokens {
-            r,
-            line: String::new(),
-            at: 0,
-            lineno: h.lines,
-            path,
-        }),
-        enc => Input::Bin(
-            Src {
+        let mut info = FileInfo::new(path, "PLY", h.version.clone());
+        info.encoding = Some(h.encoding.name().to_string());
+        info.point_count = vel.count;
+        info.other_fields = vel
+            .props
+            .iter()
+            .zip(&map.kept)
+            .filter(|(_, k)| !**k)
+            .map(|(p, _)| p.name.clone())
+            .collect();
+        info.other_elements = h
+            .elements
+            .iter()
+            .filter(|e| e.name != "vertex")
+            .map(|e| format!("{} {}", e.name, e.count))
+            .collect();
+
+        let input = match h.encoding {
+            Encoding::Ascii => Input::Ascii(Tokens {
                 r,
-                pos: h.len,
-                len: file_len,
-                path,
-            },
-            enc == Encoding::Big,
-        ),
-    };
-    let remaining = match &input {
-        Input::Bin(s, _) => s.remaining(),
-        Input::Ascii(_) => file_len.saturating_sub(h.len),
-    };
-    // Reserve no more than the bytes left can hold: a huge declared count allocates nothing.
-    let min_record = match h.encoding {
-        Encoding::Ascii => 2 * vel.props.len().max(1),
-        _ => vel.fixed_stride().unwrap_or(vel.props.len()).max(1),
-    };
-    let reserve = vel.count.min(remaining / min_record as u64) as usize;
-    let mut sink = new_sink(&map, vel, h.origin, reserve);
+                line: String::new(),
+                raw: Vec::new(),
+                at: 0,
+                lineno: h.lines,
+                start: h.lines,
+                path: path.to_path_buf(),
+            }),
+            enc => Input::Bin(
+                Src {
+                    r,
+                    pos: h.len,
+                    len: file_len,
+                    path: path.to_path_buf(),
+                },
+                enc == Encoding::Big,
+            ),
+        };
+        let sink = new_sink(&map, vel, h.origin, 0);
+        info.attributes = sink
+            .cloud
+            .attribute_names()
+            .into_iter()
+            .map(String::from)
+            .collect();
+        let stride = match h.encoding {
+            Encoding::Ascii => None,
+            _ => vel.fixed_stride(),
+        };
+        let mut offs = Vec::with_capacity(vel.props.len());
+        let mut o = 0;
+        for p in &vel.props {
+            if let PropKind::Scalar(t) = p.kind {
+                offs.push((o, t));
+                o += t.size();
+            }
+        }
+        let mut me = PlyReader {
+            path: path.to_path_buf(),
+            h,
+            vi,
+            map,
+            input,
+            sink,
+            info,
+            done: 0,
+            faces,
+            offs,
+            stride,
+            buf: Vec::new(),
+            vals: Vec::new(),
+            items: Vec::new(),
+            triangles: Vec::new(),
+        };
+        for ei in 0..vi {
+            me.other_element(ei)?;
+        }
+        Ok(me)
+    }
 
-    let mut triangles = Vec::new();
-    let mut vals = Vec::new();
-    let mut items = Vec::new();
-    let last = if faces { h.elements.len() } else { vi + 1 };
-    for (ei, el) in h.elements.iter().enumerate().take(last) {
-        let is_vertex = ei == vi;
-        let is_face = faces && el.name == "face";
+    /// The header summary.
+    pub(crate) fn info(&self) -> &FileInfo {
+        &self.info
+    }
+
+    /// Vertices not read yet.
+    pub(crate) fn remaining(&self) -> u64 {
+        self.h.elements[self.vi].count - self.done
+    }
+
+    /// An empty cloud with the attributes this file carries, room for `reserve` points (no
+    /// more than the bytes left can hold).
+    pub(crate) fn empty_cloud(&self, reserve: u64) -> Cloud {
+        let vel = &self.h.elements[self.vi];
+        let left = match &self.input {
+            Input::Bin(s, _) => s.remaining(),
+            Input::Ascii(_) => u64::MAX,
+        };
+        let min = min_record_bytes(vel, self.h.encoding).max(1);
+        let reserve = reserve.min(self.remaining()).min(left / min) as usize;
+        new_sink(&self.map, vel, None, reserve).cloud
+    }
+
+    /// Reads or skips element `ei` (not the vertex element); face lists become triangles when
+    /// faces were asked for.
+    fn other_element(&mut self, ei: usize) -> Result<()> {
+        let el = &self.h.elements[ei];
+        let nv = self.h.elements[self.vi].count;
+        let is_face = self.faces && el.name == "face";
         let want = if is_face {
             el.find("vertex_indices")
                 .or_else(|| el.find("vertex_index"))
@@ -953,40 +1168,11 @@ pub(crate) fn read_ply(path: &Path, faces: bool) -> Result<(Cloud, Vec<[u32; 3]>
         } else {
             None
         };
-        match &mut input {
+        match &mut self.input {
             Input::Bin(src, big) => {
                 let big = *big;
-                match (is_vertex, el.fixed_stride()) {
-                    (true, Some(stride)) => {
-                        let mut offs = Vec::with_capacity(el.props.len());
-                        let mut o = 0;
-                        for p in &el.props {
-                            if let PropKind::Scalar(t) = p.kind {
-                                offs.push((o, t));
-                                o += t.size();
-                            }
-                        }
-                        let mut buf = Vec::new();
-                        let mut done = 0u64;
-                        while done < el.count {
-                            let n = (el.count - done).min(CHUNK as u64) as usize;
-                            buf.resize(n * stride, 0);
-                            let d = done;
-                            let count = el.count;
-                            // Report how far whole records go when the data stops early.
-                            if src.remaining() < buf.len() as u64 {
-                                let whole = d + src.remaining() / stride as u64;
-                                return Err(src.eof(format!("{whole} of {count} vertices present")));
-                            }
-                            src.read_exact(&mut buf, || format!("vertex {d} of {count}"))?;
-                            let before = sink.cloud.positions.len();
-                            decode_chunk(&mut sink, &map, &offs, &buf, stride, big);
-                            check_float_positions(path, &sink.cloud.positions, before)?;
-                            sink.flush_xyz(path, d as usize)?;
-                            done += n as u64;
-                        }
-                    }
-                    (false, Some(stride)) if !is_face => {
+                match el.fixed_stride() {
+                    Some(stride) if !is_face => {
                         let count = el.count;
                         let name = el.name.clone();
                         src.skip(count.saturating_mul(stride as u64), || {
@@ -995,23 +1181,9 @@ pub(crate) fn read_ply(path: &Path, faces: bool) -> Result<(Cloud, Vec<[u32; 3]>
                     }
                     _ => {
                         for rec in 0..el.count {
-                            bin_record(
-                                src,
-                                big,
-                                el,
-                                rec,
-                                if is_vertex { Some(&mut vals) } else { None },
-                                want,
-                                &mut items,
-                            )?;
-                            if is_vertex {
-                                push_vertex(&mut sink, &map, &vals);
-                                if sink.xyz[0].len() >= CHUNK {
-                                    let first = rec as usize + 1 - sink.xyz[0].len();
-                                    sink.flush_xyz(path, first)?;
-                                }
-                            } else if want.is_some() {
-                                fan(path, rec, &items, vel.count, &mut triangles)?;
+                            bin_record(src, big, el, rec, None, want, &mut self.items)?;
+                            if want.is_some() {
+                                fan(&self.path, rec, &self.items, nv, &mut self.triangles)?;
                             }
                         }
                     }
@@ -1019,31 +1191,116 @@ pub(crate) fn read_ply(path: &Path, faces: bool) -> Result<(Cloud, Vec<[u32; 3]>
             }
             Input::Ascii(tok) => {
                 for rec in 0..el.count {
-                    ascii_record(tok, el, rec, &mut vals, want, &mut items)?;
-                    if is_vertex {
-                        push_vertex(&mut sink, &map, &vals);
-                        if sink.xyz[0].len() >= CHUNK {
-                            let first = rec as usize + 1 - sink.xyz[0].len();
-                            sink.flush_xyz(path, first)?;
-                        }
-                    } else if want.is_some() {
-                        fan(path, rec, &items, vel.count, &mut triangles)?;
+                    ascii_record(tok, el, rec, &mut self.vals, want, &mut self.items)?;
+                    if want.is_some() {
+                        fan(&self.path, rec, &self.items, nv, &mut self.triangles)?;
                     }
                 }
             }
         }
-        if is_vertex {
-            let first = sink.cloud.positions.len();
-            sink.flush_xyz(path, first)?;
-        }
+        Ok(())
     }
-    let mut cloud = sink.cloud;
-    cloud.origin = sink.origin.unwrap_or([0.0; 3]);
-    info.attributes = cloud
-        .attribute_names()
-        .into_iter()
-        .map(String::from)
-        .collect();
+
+    /// Appends up to `max` vertices to `out` (a cloud from [`PlyReader::empty_cloud`]) and
+    /// sets its origin; returns how many were read (0 at the end).
+    pub(crate) fn read_into(&mut self, out: &mut Cloud, max: usize) -> Result<usize> {
+        let want = (max as u64).min(self.remaining());
+        if want == 0 {
+            out.origin = self.sink.origin.unwrap_or([0.0; 3]);
+            return Ok(0);
+        }
+        std::mem::swap(&mut self.sink.cloud, out);
+        let r = self.read_vertices(want);
+        std::mem::swap(&mut self.sink.cloud, out);
+        r?;
+        out.origin = self.sink.origin.unwrap_or([0.0; 3]);
+        Ok(want as usize)
+    }
+
+    fn read_vertices(&mut self, want: u64) -> Result<()> {
+        let path = self.path.clone();
+        let path = path.as_path();
+        let vel = &self.h.elements[self.vi];
+        let count = vel.count;
+        let end = self.done + want;
+        match (&mut self.input, self.stride) {
+            (Input::Bin(src, big), Some(stride)) => {
+                let big = *big;
+                while self.done < end {
+                    let n = (end - self.done).min(CHUNK as u64) as usize;
+                    self.buf.resize(n * stride, 0);
+                    let d = self.done;
+                    // Report how far whole records go when the data stops early.
+                    if src.remaining() < self.buf.len() as u64 {
+                        let whole = d + src.remaining() / stride as u64;
+                        return Err(src.eof(format!("{whole} of {count} vertices present")));
+                    }
+                    src.read_exact(&mut self.buf, || format!("vertex {d} of {count}"))?;
+                    let before = self.sink.cloud.positions.len();
+                    decode_chunk(
+                        &mut self.sink,
+                        &self.map,
+                        &self.offs,
+                        &self.buf,
+                        stride,
+                        big,
+                    );
+                    check_float_positions(path, &self.sink.cloud.positions, before, d)?;
+                    self.sink.flush_xyz(path, d as usize)?;
+                    self.done += n as u64;
+                }
+            }
+            (input, _) => {
+                let mut first = self.done;
+                while self.done < end {
+                    let rec = self.done;
+                    match input {
+                        Input::Bin(src, big) => bin_record(
+                            src,
+                            *big,
+                            vel,
+                            rec,
+                            Some(&mut self.vals),
+                            None,
+                            &mut self.items,
+                        )?,
+                        Input::Ascii(tok) => {
+                            ascii_record(tok, vel, rec, &mut self.vals, None, &mut self.items)?
+                        }
+                    }
+                    push_vertex(&mut self.sink, &self.map, &self.vals);
+                    self.done += 1;
+                    if self.sink.xyz[0].len() >= CHUNK {
+                        self.sink.flush_xyz(path, first as usize)?;
+                        first = self.done;
+                    }
+                }
+                self.sink.flush_xyz(path, first as usize)?;
+            }
+        }
+        Ok(())
+    }
+
+    /// Reads what follows the vertices when faces were asked for; returns the triangles.
+    pub(crate) fn finish(mut self) -> Result<Vec<[u32; 3]>> {
+        if self.faces {
+            for ei in self.vi + 1..self.h.elements.len() {
+                self.other_element(ei)?;
+            }
+        }
+        Ok(self.triangles)
+    }
+}
+
+/// Reads a PLY file: the cloud, the triangles when `faces` is true, and the header summary.
+pub(crate) fn read_ply(path: &Path, faces: bool) -> Result<(Cloud, Vec<[u32; 3]>, FileInfo)> {
+    let mut r = PlyReader::open(path, faces)?;
+    let mut cloud = r.empty_cloud(u64::MAX);
+    let n = r.remaining().min(usize::MAX as u64) as usize;
+    r.read_into(&mut cloud, n)?;
+    super::check_extent(path, &cloud)?;
+    let info = r.info().clone();
+    let triangles = r.finish()?;
     Ok((cloud, triangles, info))
 }
 
@@ -1092,91 +1349,40 @@ pub fn read_ply_mesh(path: &Path) -> Result<(Cloud, Vec<[u32; 3]>)> {
 /// closer to the origin an f32 offset may change by one unit in the last place (below
 /// 10⁻⁹ file units there).
 pub fn write_ply(path: &Path, cloud: &Cloud, columns: &[Column<'_>]) -> Result<()> {
+    write_ply_with_comments(path, cloud, columns, &[])
+}
+
+/// [`write_ply`] with extra header comment lines (one per entry, without the `comment`
+/// keyword; line breaks are replaced by spaces), written after the origin comment.
+pub fn write_ply_with_comments(
+    path: &Path,
+    cloud: &Cloud,
+    columns: &[Column<'_>],
+    comments: &[String],
+) -> Result<()> {
     cloud.validate().map_err(|e| super::about(path, e))?;
-    let taken = [
-        "x",
-        "y",
-        "z",
-        "nx",
-        "ny",
-        "nz",
-        "red",
-        "green",
-        "blue",
-        "intensity",
-        "classification",
-        "return_number",
-        "gps_time",
-    ];
-    check_columns(path, cloud.len(), columns, &taken)?;
-    let wide_color = cloud
-        .color
-        .as_ref()
-        .is_some_and(|c| c.iter().flatten().any(|&v| v > 255));
-    let mut h = String::from("ply\nformat binary_little_endian 1.0\n");
-    let o = cloud.origin;
-    h += &format!("comment {ORIGIN_COMMENT} {} {} {}\n", o[0], o[1], o[2]);
-    h += &format!("element vertex {}\n", cloud.len());
-    h += "property double x\nproperty double y\nproperty double z\n";
-    if cloud.normals.is_some() {
-        h += "property float nx\nproperty float ny\nproperty float nz\n";
+    check_columns(path, cloud.len(), columns, &PLY_TAKEN)?;
+    let names: Vec<&str> = columns.iter().map(|c| c.name).collect();
+    let layout = PlyLayout::new(cloud, None, &names, cloud.len());
+    let mut header = layout.header();
+    if !comments.is_empty() {
+        // Right after the origin comment.
+        let at = header
+            .find(&format!("comment {ORIGIN_COMMENT}"))
+            .and_then(|i| header[i..].find('\n').map(|j| i + j + 1))
+            .unwrap_or(0);
+        let extra: String = comments
+            .iter()
+            .map(|c| format!("comment {}\n", c.replace(['\n', '\r'], " ")))
+            .collect();
+        header.insert_str(at, &extra);
     }
-    if cloud.color.is_some() {
-        let t = if wide_color { "ushort" } else { "uchar" };
-        h += &format!("property {t} red\nproperty {t} green\nproperty {t} blue\n");
-    }
-    if cloud.intensity.is_some() {
-        h += "property float intensity\n";
-    }
-    if cloud.classification.is_some() {
-        h += "property uchar classification\n";
-    }
-    if cloud.return_number.is_some() {
-        h += "property uchar return_number\n";
-    }
-    if cloud.gps_time.is_some() {
-        h += "property double gps_time\n";
-    }
-    for c in columns {
-        h += &format!("property float {}\n", c.name);
-    }
-    h += "end_header\n";
     write_atomic(path, |w| {
-        put(w, path, h.as_bytes())?;
+        put(w, path, header.as_bytes())?;
         let mut rec = Vec::with_capacity(64 + 4 * columns.len());
         for i in 0..cloud.len() {
             rec.clear();
-            for (o, l) in cloud.origin.iter().zip(cloud.positions[i]) {
-                // With a zero origin the f32 value itself is written (keeps -0.0).
-                let g = if *o == 0.0 { l as f64 } else { o + l as f64 };
-                rec.extend_from_slice(&g.to_le_bytes());
-            }
-            if let Some(n) = &cloud.normals {
-                for v in n[i] {
-                    rec.extend_from_slice(&v.to_le_bytes());
-                }
-            }
-            if let Some(c) = &cloud.color {
-                for v in c[i] {
-                    if wide_color {
-                        rec.extend_from_slice(&v.to_le_bytes());
-                    } else {
-                        rec.push(v as u8);
-                    }
-                }
-            }
-            if let Some(v) = &cloud.intensity {
-                rec.extend_from_slice(&v[i].to_le_bytes());
-            }
-            if let Some(v) = &cloud.classification {
-                rec.push(v[i]);
-            }
-            if let Some(v) = &cloud.return_number {
-                rec.push(v[i]);
-            }
-            if let Some(v) = &cloud.gps_time {
-                rec.extend_from_slice(&v[i].to_le_bytes());
-            }
+            layout.point(cloud.positions[i], Some((cloud, i)), &mut rec);
             for c in columns {
                 rec.extend_from_slice(&c.values[i].to_le_bytes());
             }
@@ -1184,4 +1390,145 @@ pub fn write_ply(path: &Path, cloud: &Cloud, columns: &[Column<'_>]) -> Result<(
         }
         Ok(())
     })
+}
+
+/// Property names [`write_ply`] uses for coordinates and attributes; columns may not reuse them.
+pub const PLY_TAKEN: [&str; 13] = [
+    "x",
+    "y",
+    "z",
+    "nx",
+    "ny",
+    "nz",
+    "red",
+    "green",
+    "blue",
+    "intensity",
+    "classification",
+    "return_number",
+    "gps_time",
+];
+
+/// The vertex layout of a binary PLY written by [`write_ply`], for writers that produce rows in
+/// chunks: [`PlyLayout::header`] first, then per row [`PlyLayout::point`] followed by the row's
+/// column values as little-endian f32.
+#[derive(Debug, Clone)]
+pub struct PlyLayout {
+    origin: [f64; 3],
+    normals: bool,
+    /// `Some(wide)` when colour is written; wide = ushort.
+    color: Option<bool>,
+    intensity: bool,
+    classification: bool,
+    return_number: bool,
+    gps_time: bool,
+    columns: Vec<String>,
+    rows: usize,
+}
+
+impl PlyLayout {
+    /// The layout for `rows` vertices with the attributes present in `like` (its origin too)
+    /// and float `columns`. `wide_color`: ushort colour; `None` decides from `like`'s colours
+    /// (ushort when any value is above 255).
+    pub fn new(like: &Cloud, wide_color: Option<bool>, columns: &[&str], rows: usize) -> Self {
+        let wide = wide_color.unwrap_or_else(|| {
+            like.color
+                .as_ref()
+                .is_some_and(|c| c.iter().flatten().any(|&v| v > 255))
+        });
+        PlyLayout {
+            origin: like.origin,
+            normals: like.normals.is_some(),
+            color: like.color.is_some().then_some(wide),
+            intensity: like.intensity.is_some(),
+            classification: like.classification.is_some(),
+            return_number: like.return_number.is_some(),
+            gps_time: like.gps_time.is_some(),
+            columns: columns.iter().map(|c| c.to_string()).collect(),
+            rows,
+        }
+    }
+
+    /// The header text, `ply` to `end_header` and its newline.
+    pub fn header(&self) -> String {
+        let mut h = String::from("ply\nformat binary_little_endian 1.0\n");
+        let o = self.origin;
+        h += &format!("comment {ORIGIN_COMMENT} {} {} {}\n", o[0], o[1], o[2]);
+        h += &format!("element vertex {}\n", self.rows);
+        h += "property double x\nproperty double y\nproperty double z\n";
+        if self.normals {
+            h += "property float nx\nproperty float ny\nproperty float nz\n";
+        }
+        if let Some(wide) = self.color {
+            let t = if wide { "ushort" } else { "uchar" };
+            h += &format!("property {t} red\nproperty {t} green\nproperty {t} blue\n");
+        }
+        if self.intensity {
+            h += "property float intensity\n";
+        }
+        if self.classification {
+            h += "property uchar classification\n";
+        }
+        if self.return_number {
+            h += "property uchar return_number\n";
+        }
+        if self.gps_time {
+            h += "property double gps_time\n";
+        }
+        for c in &self.columns {
+            h += &format!("property float {c}\n");
+        }
+        h += "end_header\n";
+        h
+    }
+
+    /// Appends the coordinates (`position` in the layout's local frame) and the attributes of
+    /// point `i` of `attrs` (a cloud with the attributes the layout was made with; `None` only
+    /// for a layout without attributes) to `rec`. The column values follow.
+    pub fn point(&self, position: [f32; 3], attrs: Option<(&Cloud, usize)>, rec: &mut Vec<u8>) {
+        for (o, l) in self.origin.iter().zip(position) {
+            // With a zero origin the f32 value itself is written (keeps -0.0).
+            let g = if *o == 0.0 { l as f64 } else { o + l as f64 };
+            rec.extend_from_slice(&g.to_le_bytes());
+        }
+        let Some((cloud, i)) = attrs else {
+            return;
+        };
+        if self.normals
+            && let Some(n) = &cloud.normals
+        {
+            for v in n[i] {
+                rec.extend_from_slice(&v.to_le_bytes());
+            }
+        }
+        if let (Some(wide), Some(c)) = (self.color, &cloud.color) {
+            for v in c[i] {
+                if wide {
+                    rec.extend_from_slice(&v.to_le_bytes());
+                } else {
+                    rec.push(v as u8);
+                }
+            }
+        }
+        if self.intensity
+            && let Some(v) = &cloud.intensity
+        {
+            rec.extend_from_slice(&v[i].to_le_bytes());
+        }
+        if self.classification
+            && let Some(v) = &cloud.classification
+        {
+            rec.push(v[i]);
+        }
+        if self.return_number
+            && let Some(v) = &cloud.return_number
+        {
+            rec.push(v[i]);
+        }
+        if self.gps_time
+            && let Some(v) = &cloud.gps_time
+        {
+            rec.extend_from_slice(&v[i].to_le_bytes());
+        }
+    }
 }

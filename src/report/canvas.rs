@@ -8,10 +8,8 @@
 //! Orthographic views look along a coordinate axis ([`ViewAxis`]); a [`Viewport`] maps the two
 //! in-plane coordinates (file units) to pixels with the same scale on both axes.
 
-use std::fs;
 use std::io::Write;
 use std::path::Path;
-use std::sync::atomic::{AtomicU64, Ordering};
 
 use super::font::{self, ADVANCE, GLYPH_HEIGHT, GLYPH_WIDTH, LINE_HEIGHT};
 use crate::error::{Error, Result};
@@ -390,16 +388,9 @@ impl Canvas {
     }
 }
 
-/// Writes `bytes` to `path` through a temporary file in the same folder and a rename.
+/// Writes `bytes` to `path` with [`crate::io::write_atomic`] (temporary file in the same
+/// folder, then a rename), after checking that the folder exists.
 pub fn write_atomically(path: &Path, bytes: &[u8]) -> Result<()> {
-    static COUNTER: AtomicU64 = AtomicU64::new(0);
-    let Some(name) = path.file_name() else {
-        return Err(Error::file(
-            path,
-            "is not a file name",
-            "give an output path that ends in a file name",
-        ));
-    };
     let folder = match path.parent() {
         Some(p) if !p.as_os_str().is_empty() => p,
         _ => Path::new("."),
@@ -414,28 +405,15 @@ pub fn write_atomically(path: &Path, bytes: &[u8]) -> Result<()> {
             "create the folder first or choose another output path",
         ));
     }
-    let tmp = folder.join(format!(
-        ".{}.{}-{}.tmp",
-        name.to_string_lossy(),
-        std::process::id(),
-        COUNTER.fetch_add(1, Ordering::Relaxed)
-    ));
-    let written = (|| {
-        let mut f = fs::File::create(&tmp)?;
-        f.write_all(bytes)?;
-        f.sync_all()?;
-        drop(f);
-        fs::rename(&tmp, path)
-    })();
-    written.map_err(|e| {
-        let _ = fs::remove_file(&tmp);
-        Error::io(path, &e)
+    crate::io::write_atomic(path, |w| {
+        w.write_all(bytes).map_err(|e| Error::io(path, &e))
     })
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
+    use std::fs;
 
     const WHITE: Rgb = [255, 255, 255];
     const RED: Rgb = [200, 0, 0];

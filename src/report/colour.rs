@@ -17,6 +17,17 @@ pub const LAYER_PALETTE: [Rgb; 6] = [
     [170, 90, 150],
 ];
 
+/// SOURCE in registration pictures: plum, dark (CIELAB L* 33).
+///
+/// With [`TARGET_COLOUR`] it differs in lightness as well as hue, so the pair stays apart for
+/// colour-blind readers: simulated with the Machado, Oliveira & Fernandes (2009) matrices at
+/// full severity (coefficients from memory), the CIELAB ΔE between the two is 101 for
+/// deuteranopia and 126 for protanopia (144 with normal vision).
+pub const SOURCE_COLOUR: Rgb = [122, 40, 140];
+
+/// TARGET in registration pictures: leaf green, light (CIELAB L* 70). See [`SOURCE_COLOUR`].
+pub const TARGET_COLOUR: Rgb = [120, 190, 40];
+
 /// Colour for points without a value (NaN).
 pub const NO_VALUE: Rgb = [150, 150, 150];
 

@@ -12,17 +12,14 @@
 //!
 //! ```
 //! use equiscan::Cloud;
+//! use equiscan::geometry::Rigid;
+//! use nalgebra::Vector3;
 //! use equiscan::report::{FigureText, LAYER_PALETTE, Layer, draw_alignment_views};
 //!
 //! let target = Cloud::new([0.0; 3], vec![[0.0, 0.0, 0.0], [1.0, 0.5, 0.2]]);
 //! let source = Cloud::new([5.0, 0.0, 0.0], target.positions.clone());
-//! // Row-major 4x4 transform taking the source onto the target: 5 units along -X.
-//! let back = [
-//!     [1.0, 0.0, 0.0, -5.0],
-//!     [0.0, 1.0, 0.0, 0.0],
-//!     [0.0, 0.0, 1.0, 0.0],
-//!     [0.0, 0.0, 0.0, 1.0],
-//! ];
+//! // The rigid transform taking the source onto the target: 5 units along -X.
+//! let back = Rigid::translation(Vector3::new(-5.0, 0.0, 0.0));
 //! let layers = [
 //!     Layer::from_cloud("source", LAYER_PALETTE[0], &source).moved_after(back),
 //!     Layer::from_cloud("target", LAYER_PALETTE[1], &target),
@@ -32,6 +29,7 @@
 //!     lines: vec!["rotation 0.00\u{b0}".into(), "overlap 100 %".into()],
 //!     footer: "A made-up example.".into(),
 //!     unit: "m".into(),
+//!     warning: String::new(),
 //! };
 //! let picture = draw_alignment_views(&layers, &text)?;
 //! assert_eq!((picture.width(), picture.height()), (1800, 1200));
@@ -45,7 +43,7 @@ pub mod font;
 pub mod views;
 
 pub use canvas::{Canvas, Rgb, Share, Splat, ViewAxis, Viewport};
-pub use colour::{ColourMap, LAYER_PALETTE};
+pub use colour::{ColourMap, LAYER_PALETTE, SOURCE_COLOUR, TARGET_COLOUR};
 pub use views::{
     FigureText, Layer, ScalarField, Transform, draw_alignment_views, draw_cloud_views, nice_length,
     render_alignment_views, render_cloud_views,

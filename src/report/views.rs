@@ -27,8 +27,8 @@ pub const ALIGNMENT_SIZE: [u32; 2] = [1800, 1200];
 /// Size in pixels of the single-cloud picture.
 pub const CLOUD_SIZE: [u32; 2] = [1800, 860];
 
-/// A row-major 4 × 4 rigid transform acting on global coordinates (`p' = T p`).
-pub type Transform = [[f64; 4]; 4];
+/// The rigid transform moving a layer in the "after" row, acting on global coordinates.
+pub type Transform = crate::geometry::Rigid;
 
 /// One set of points drawn in one colour.
 #[derive(Debug, Clone)]
@@ -43,6 +43,12 @@ pub struct Layer<'a> {
     pub points: &'a [[f32; 3]],
     /// Transform applied to this layer in the "after" row; `None` leaves it in place.
     pub after: Option<Transform>,
+    /// Drawn in front of the other layers wherever they cover the same pixel (a partial scan
+    /// over a full one), whatever the depth.
+    pub on_top: bool,
+    /// In the "after" row, colour the points by these values (one per point) instead of the
+    /// layer colour, with a colour bar under the panels.
+    pub after_values: Option<ScalarField<'a>>,
 }
 
 impl<'a> Layer<'a> {
@@ -54,6 +60,8 @@ impl<'a> Layer<'a> {
             origin: cloud.origin,
             points: &cloud.positions,
             after: None,
+            on_top: false,
+            after_values: None,
         }
     }
 
@@ -75,6 +83,9 @@ pub struct FigureText {
     pub footer: String,
     /// Name of the file unit for scale bars, e.g. `m`; empty prints `units`.
     pub unit: String,
+    /// When not empty, the result is not to be trusted: a red band with this text under the
+    /// heading, and the "after" panels framed in red.
+    pub warning: String,
 }
 
 /// Per-point values that colour a cloud through a colour map.
@@ -165,6 +176,8 @@ const PANEL: Rgb = [250, 250, 248];
 const INK: Rgb = [25, 25, 30];
 const SOFT_INK: Rgb = [90, 90, 95];
 const FRAME: Rgb = [160, 160, 165];
+/// Band and frames of a result that is not to be trusted.
+const WARNING: Rgb = [180, 20, 30];
 const MARGIN: i64 = 24;
 const GAP: i64 = 16;
 /// Darkening of the farthest points relative to the nearest.
@@ -224,9 +237,12 @@ fn prepare(layer: &Layer<'_>, reference: [f64; 3], transform: Option<&Transform>
         .map(|p| {
             let g: [f64; 3] = std::array::from_fn(|k| layer.origin[k] + p[k] as f64);
             let g = match transform {
-                Some(t) => std::array::from_fn(|r| {
-                    t[r][0] * g[0] + t[r][1] * g[1] + t[r][2] * g[2] + t[r][3]
-                }),
+                Some(t) => {
+                    let (m, v) = (&t.rotation, &t.translation);
+                    std::array::from_fn(|r| {
+                        m[(r, 0)] * g[0] + m[(r, 1)] * g[1] + m[(r, 2)] * g[2] + v[r]
+                    })
+                }
                 None => g,
             };
             std::array::from_fn(|k| g[k] - reference[k])
@@ -319,6 +335,8 @@ struct PointStyle {
     /// Pixel sharing with other layers at equal depth.
     share: Option<Share>,
     splat: Splat,
+    /// Added to the depth test value only (not the shading): negative draws in front.
+    depth_bias: f64,
 }
 
 /// Splats points in one view.
@@ -339,7 +357,14 @@ fn draw_points(
         {
             c = darken(c, DEPTH_SHADE * ((d - dlo) / (dhi - dlo)) as f32);
         }
-        canvas.splat_shared(px, py, d as f32, style.splat, c, style.share);
+        canvas.splat_shared(
+            px,
+            py,
+            (d + style.depth_bias) as f32,
+            style.splat,
+            c,
+            style.share,
+        );
     }
 }
 
@@ -353,6 +378,36 @@ fn fit_text(text: &str, scale: u32, max_width: i64) -> String {
     text.chars().take(keep).collect::<String>() + "..."
 }
 
+/// `text` broken at spaces into at most `max_lines` lines of at most `max_width` pixels at
+/// `scale`; the last line is cut with `...` when the text does not fit.
+fn wrap_words(text: &str, scale: u32, max_width: i64, max_lines: usize) -> Vec<String> {
+    let mut lines: Vec<String> = Vec::new();
+    let mut current = String::new();
+    for word in text.split(' ') {
+        let candidate = if current.is_empty() {
+            word.to_string()
+        } else {
+            format!("{current} {word}")
+        };
+        if Canvas::text_width(&candidate, scale) as i64 <= max_width || current.is_empty() {
+            current = candidate;
+        } else {
+            lines.push(std::mem::replace(&mut current, word.to_string()));
+        }
+    }
+    if !current.is_empty() {
+        lines.push(current);
+    }
+    if lines.len() > max_lines {
+        let rest = lines.split_off(max_lines - 1).join(" ");
+        lines.push(rest);
+    }
+    lines
+        .into_iter()
+        .map(|l| fit_text(&l, scale, max_width))
+        .collect()
+}
+
 /// Most rows of figure lines under the heading; more lines go to further columns.
 const MAX_HEADER_ROWS: usize = 6;
 /// Most columns of figure lines.
@@ -364,9 +419,20 @@ const MAX_HEADER_COLUMNS: usize = 3;
 fn draw_header(canvas: &mut Canvas, text: &FigureText) -> i64 {
     let usable = canvas.width() as i64 - 2 * MARGIN;
     let mut y = MARGIN;
-    if !text.title.is_empty() {
-        canvas.text(MARGIN, y, &fit_text(&text.title, 3, usable), 3, INK);
+    for line in wrap_words(&text.title, 3, usable, 2) {
+        canvas.text(MARGIN, y, &line, 3, INK);
         y += Canvas::line_height(3) as i64 + 6;
+    }
+    if !text.warning.is_empty() {
+        let words = format!("NOT ALIGNED: {}", text.warning);
+        let rows = wrap_words(&words, 3, usable - 20, 2);
+        let pitch = Canvas::line_height(3) as i64 + 4;
+        let band = rows.len() as i64 * pitch + 10;
+        canvas.fill_rect(MARGIN, y, usable as u32, band as u32, WARNING);
+        for (i, row) in rows.iter().enumerate() {
+            canvas.text(MARGIN + 10, y + 7 + i as i64 * pitch, row, 3, BACKGROUND);
+        }
+        y += band + 8;
     }
     if !text.lines.is_empty() {
         let limit = MAX_HEADER_ROWS * MAX_HEADER_COLUMNS;
@@ -462,7 +528,7 @@ fn grid(width: i64, top: i64, bottom: i64, rows: i64) -> Vec<PanelLayout> {
 
 fn check_transform(layer: &Layer<'_>) -> Result<()> {
     if let Some(t) = &layer.after
-        && !t.iter().flatten().all(|v| v.is_finite())
+        && !(t.rotation.iter().chain(t.translation.iter())).all(|v| v.is_finite())
     {
         return Err(Error::invalid(
             format!("the transform of layer {} is not finite", layer.name),
@@ -496,7 +562,13 @@ pub fn draw_alignment_views(layers: &[Layer<'_>], text: &FigureText) -> Result<C
         });
 
     let top = draw_header(&mut canvas, text);
-    let bottom = height as i64 - MARGIN - FOOTER_HEIGHT;
+    let bar_field = layers.iter().find_map(|l| l.after_values.as_ref());
+    let footer = if bar_field.is_some() {
+        FOOTER_HEIGHT + 56
+    } else {
+        FOOTER_HEIGHT
+    };
+    let bottom = height as i64 - MARGIN - footer;
     let panels = grid(width as i64, top, bottom, 2);
     for (row, (row_name, points)) in [("before", &before), ("after", &after)]
         .into_iter()
@@ -508,6 +580,12 @@ pub fn draw_alignment_views(layers: &[Layer<'_>], text: &FigureText) -> Result<C
             let label = format!("{row_name}: {} view, {r}-{u}", view.name());
             let panel = &panels[row * 3 + col];
             let vp = draw_panel(&mut canvas, panel, &label, view, extent, &text.unit);
+            if row == 1 && !text.warning.is_empty() {
+                canvas.stroke_rect(panel.x, panel.y, panel.w as u32, panel.h as u32, 5, WARNING);
+                let note = "NOT ALIGNED";
+                let w = Canvas::text_width(note, 2) as i64;
+                canvas.text(panel.x + panel.w - PAD - w, panel.y + 12, note, 2, WARNING);
+            }
             let (dlo, dhi) = (extent.0[2], extent.1[2]);
             for (k, (layer, pts)) in layers.iter().zip(points.iter()).enumerate() {
                 let style = PointStyle {
@@ -518,9 +596,36 @@ pub fn draw_alignment_views(layers: &[Layer<'_>], text: &FigureText) -> Result<C
                         tolerance: ((dhi - dlo) * 1e-5).max(1e-6) as f32,
                     }),
                     splat: Splat::Square(2),
+                    depth_bias: if layer.on_top {
+                        -(dhi - dlo) - 1.0
+                    } else {
+                        0.0
+                    },
                 };
                 let colour = layer.colour;
-                draw_points(&mut canvas, &vp, view, pts, |_| colour, &style);
+                match (&layer.after_values, row) {
+                    (Some(field), 1) => {
+                        let step = stride(layer.points.len());
+                        let [lo, hi] = value_range(field);
+                        let map = field.map;
+                        let value_colour = |i: usize| {
+                            let v = field.values.get(i * step).copied().unwrap_or(f32::NAN);
+                            if v.is_finite() {
+                                map.colour(
+                                    ((v - lo) / (hi - lo).max(f32::MIN_POSITIVE)).clamp(0.0, 1.0),
+                                )
+                            } else {
+                                super::colour::NO_VALUE
+                            }
+                        };
+                        let flat = PointStyle {
+                            shade: None,
+                            ..style
+                        };
+                        draw_points(&mut canvas, &vp, view, pts, value_colour, &flat);
+                    }
+                    _ => draw_points(&mut canvas, &vp, view, pts, |_| colour, &style),
+                }
             }
         }
     }
@@ -540,8 +645,12 @@ pub fn draw_alignment_views(layers: &[Layer<'_>], text: &FigureText) -> Result<C
             (l.colour, name)
         })
         .collect();
-    let legend_y = height as i64 - MARGIN - FOOTER_HEIGHT + 14;
+    let legend_y = height as i64 - MARGIN - footer + 14;
     let x = draw_legend(&mut canvas, MARGIN, legend_y, &legend);
+    if let Some(field) = bar_field {
+        let note = "after row; grey = no value or beyond the bar";
+        draw_colour_bar(&mut canvas, legend_y + 32, field, value_range(field), note);
+    }
     draw_depth_note(&mut canvas, x, legend_y, &text.footer);
     Ok(canvas)
 }
@@ -621,6 +730,7 @@ pub fn draw_cloud_views(
                     shade: None,
                     share: None,
                     splat: Splat::Square(2),
+                    depth_bias: 0.0,
                 };
                 draw_points(&mut canvas, &vp, view, &points, colour, &style);
             }
@@ -629,6 +739,7 @@ pub fn draw_cloud_views(
                     shade: Some([extent.0[2], extent.1[2]]),
                     share: None,
                     splat: Splat::Square(2),
+                    depth_bias: 0.0,
                 };
                 let c = layer.colour;
                 draw_points(&mut canvas, &vp, view, &points, |_| c, &style);
@@ -810,6 +921,8 @@ mod tests {
             origin: [0.0; 3],
             points: &pts,
             after: None,
+            on_top: false,
+            after_values: None,
         };
         assert!(prepare(&layer, [0.0; 3], None).len() <= MAX_POINTS_PER_LAYER);
     }
@@ -864,12 +977,7 @@ mod tests {
         }
         let fixed_origin = [638_864.6, 4_853_123.4, 120.0];
         let moved_origin = [638_869.6, 4_853_126.4, 122.0];
-        let mut back = [[0.0; 4]; 4];
-        for (k, d) in [-5.0, -3.0, -2.0].into_iter().enumerate() {
-            back[k][k] = 1.0;
-            back[k][3] = d;
-        }
-        back[3][3] = 1.0;
+        let back = Transform::translation(nalgebra::Vector3::new(-5.0, -3.0, -2.0));
         let orange = [250, 120, 0];
         let blue = [0, 90, 250];
         let layers = [
@@ -879,6 +987,8 @@ mod tests {
                 origin: moved_origin,
                 points: &cube,
                 after: Some(back),
+                on_top: false,
+                after_values: None,
             },
             Layer {
                 name: "fixed".into(),
@@ -886,6 +996,8 @@ mod tests {
                 origin: fixed_origin,
                 points: &cube,
                 after: None,
+                on_top: false,
+                after_values: None,
             },
         ];
         let text = FigureText {
@@ -893,6 +1005,7 @@ mod tests {
             lines: vec!["rotation 0.00\u{b0}".into()],
             footer: "note".into(),
             unit: "m".into(),
+            warning: String::new(),
         };
         let canvas = draw_alignment_views(&layers, &text).unwrap();
         assert_eq!([canvas.width(), canvas.height()], ALIGNMENT_SIZE);
@@ -974,7 +1087,11 @@ mod tests {
             colour: [0; 3],
             origin: [0.0; 3],
             points: &[],
-            after: Some([[f64::NAN; 4]; 4]),
+            after: Some(Transform::translation(nalgebra::Vector3::from_element(
+                f64::NAN,
+            ))),
+            on_top: false,
+            after_values: None,
         };
         assert!(draw_alignment_views(&[bad], &text).is_err());
     }

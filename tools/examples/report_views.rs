@@ -6,6 +6,7 @@
 use std::path::PathBuf;
 
 use equiscan::Cloud;
+use equiscan::geometry::Rigid;
 use equiscan::report::{
     ColourMap, FigureText, LAYER_PALETTE, Layer, ScalarField, render_alignment_views,
     render_cloud_views,
@@ -114,7 +115,10 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     let source = Cloud::from_global(&source);
     let target = Cloud::from_global(&target);
     let layers = [
-        Layer::from_cloud("source", LAYER_PALETTE[0], &source).moved_after(transform),
+        Layer::from_cloud("source", LAYER_PALETTE[0], &source).moved_after(Rigid::new(
+            nalgebra::Matrix3::from_fn(|i, j| transform[i][j]),
+            nalgebra::Vector3::new(transform[0][3], transform[1][3], transform[2][3]),
+        )),
         Layer::from_cloud("target", LAYER_PALETTE[1], &target),
     ];
     let text = FigureText {
@@ -130,6 +134,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         footer: "Synthetic scene. Check the after row: the layers should overlap everywhere."
             .into(),
         unit: "m".into(),
+        warning: String::new(),
     };
     let path = folder.join("alignment.png");
     render_alignment_views(&layers, &text, &path)?;
@@ -147,6 +152,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         lines: vec![format!("{} points", target.len())],
         footer: "Colours clamp at the 1st and 99th percentiles.".into(),
         unit: "m".into(),
+        warning: String::new(),
     };
     let path = folder.join("cloud.png");
     render_cloud_views(&target, Some(&field), &text, &path)?;
@@ -173,6 +179,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         lines: vec!["tolerance +/-0.004 m".into()],
         footer: "Blue: below the reference; red: above.".into(),
         unit: "m".into(),
+        warning: String::new(),
     };
     let path = folder.join("deviation.png");
     render_cloud_views(&target, Some(&field), &text, &path)?;

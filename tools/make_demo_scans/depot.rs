@@ -66,8 +66,8 @@ fn ground_normal() -> V3 {
 /// A pose standing on the ground at `(x, y)`, turned by `heading_deg` (counter-clockwise from
 /// east), with `lift` metres added to the ground height.
 fn on_ground(x: f64, y: f64, heading_deg: f64, lift: f64) -> Pose {
-    Pose::about_z(
-        heading_deg.to_radians(),
+    Pose::new(
+        crate::solid::rot_z(heading_deg.to_radians()),
         V3::new(x, y, ground_z(x, y) + lift),
     )
 }
@@ -145,7 +145,7 @@ fn pole(x: f64, y: f64) -> [Solid; 2] {
     let arm = Convex::between(
         V3::new(-0.06, -1.1, 8.3),
         V3::new(0.06, 1.1, 8.42),
-        &Pose::shift(V3::new(x, y, g)),
+        &Pose::translation(V3::new(x, y, g)),
     );
     [post.into(), arm.into()]
 }

@@ -27,7 +27,7 @@ fn z_cyl(x: f64, y: f64, z0: f64, z1: f64, r: f64) -> Solid {
 }
 
 fn between(lo: [f64; 3], hi: [f64; 3]) -> Convex {
-    Convex::between(V3::from(lo), V3::from(hi), &Pose::shift(V3::zeros()))
+    Convex::between(V3::from(lo), V3::from(hi), &Pose::translation(V3::zeros()))
 }
 
 /// L-angle bracket, 80 × 50 base, 60 high leg, 6 mm plate, a central gusset, two Ø9 holes in

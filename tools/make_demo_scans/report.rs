@@ -4,9 +4,10 @@ use crate::solid::Pose;
 use nalgebra::Rotation3;
 use serde::Serialize;
 
-/// A rigid transform with its human-readable parts.
+/// A rigid transform (the library's [`Pose`]) with its human-readable parts, as `truth.json`
+/// records it.
 #[derive(Debug, Clone, Serialize)]
-pub struct Rigid {
+pub struct TransformRecord {
     /// 4×4 homogeneous matrix, row-major, mapping source coordinates to target coordinates.
     pub matrix: [[f64; 4]; 4],
     /// Rotation angle, degrees (0..=180).
@@ -17,19 +18,19 @@ pub struct Rigid {
     pub translation: [f64; 3],
 }
 
-impl Rigid {
+impl TransformRecord {
     /// From a pose.
-    pub fn from_pose(p: &Pose) -> Rigid {
-        let rot = Rotation3::from_matrix_unchecked(p.rot);
+    pub fn from_pose(p: &Pose) -> TransformRecord {
+        let rot = Rotation3::from_matrix_unchecked(p.rotation);
         let (axis, angle) = rot
             .axis_angle()
             .map(|(a, g)| ([a.x, a.y, a.z], g.to_degrees()))
             .unwrap_or(([0.0, 0.0, 1.0], 0.0));
-        Rigid {
-            matrix: p.matrix4(),
+        TransformRecord {
+            matrix: p.to_rows(),
             rotation_angle_deg: angle,
             rotation_axis: axis,
-            translation: [p.shift.x, p.shift.y, p.shift.z],
+            translation: [p.translation.x, p.translation.y, p.translation.z],
         }
     }
 }
@@ -78,7 +79,7 @@ pub struct DepotTruth {
     /// Station 2 (its own instrument frame).
     pub station2: StationTruth,
     /// Maps station 2's file coordinates into station 1's file coordinates.
-    pub station2_to_station1: Rigid,
+    pub station2_to_station1: TransformRecord,
     /// Distance between the two instrument centres, metres.
     pub station_distance_m: f64,
 }
@@ -99,7 +100,7 @@ pub struct PartTruth {
     /// Its number of points.
     pub scan_points: usize,
     /// Maps the canonical (reference) frame into the partial scan's frame, millimetres.
-    pub pose: Rigid,
+    pub pose: TransformRecord,
     /// Rotations that map the part onto itself (besides the identity), in words.
     pub symmetry: String,
 }
@@ -120,7 +121,7 @@ pub struct DefectTruth {
     /// Centre of the defect in the scan's frame, mm.
     pub location_in_scan: [f64; 3],
     /// Pose of the part in the defective scan (the same as the intact partial scan).
-    pub pose: Rigid,
+    pub pose: TransformRecord,
 }
 
 /// Everything true about the demo data.
@@ -280,7 +281,8 @@ pub fn readme(t: &Truth, sizes: &dyn Fn(&str) -> u64) -> String {
          removed. Each part stands about 13 times its bounding radius from the camera, so that \
          it spans about 320 pixels. The flange's rotation was redrawn until one of its faces \
          looked at the camera within 50°, so that its defective copy shows the defect. \
-         Binary little-endian PLY: x, y, z as double, normals as float.\n\n",
+         Binary little-endian PLY, x, y, z as double; the reference files also carry outward \
+         unit normals (nx, ny, nz as float), the tray scans carry positions only (no normals).\n\n",
     );
     o.push_str("| part | description | symmetry |\n|---|---|---|\n");
     for p in &t.parts {

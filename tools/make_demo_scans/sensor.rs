@@ -90,7 +90,7 @@ mod tests {
         // 40 × 40 × 2 mm plate, front face at z = 499 mm.
         let plate = Convex::cuboid(
             V3::new(20.0, 20.0, 1.0),
-            &Pose::shift(V3::new(0.0, 0.0, 500.0)),
+            &Pose::translation(V3::new(0.0, 0.0, 500.0)),
         );
         let body = Body::new(plate.into());
         let s = Sensor {
@@ -112,7 +112,7 @@ mod tests {
 
     #[test]
     fn reference_samples_hit_the_target_count() {
-        let cube = Convex::cuboid(V3::repeat(10.0), &Pose::shift(V3::zeros()));
+        let cube = Convex::cuboid(V3::repeat(10.0), &Pose::translation(V3::zeros()));
         let n = reference_samples(&Body::new(cube.into()), 5000, 3).len();
         assert!((n as f64 / 5000.0 - 1.0).abs() < 0.05, "{n}");
     }

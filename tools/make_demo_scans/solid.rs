@@ -16,58 +16,8 @@ use nalgebra::{Matrix3, Vector3};
 /// A 3-vector of f64.
 pub type V3 = Vector3<f64>;
 
-/// A rigid transform `p -> rot * p + shift`.
-#[derive(Debug, Clone, Copy, PartialEq)]
-pub struct Pose {
-    /// Rotation matrix.
-    pub rot: Matrix3<f64>,
-    /// Translation.
-    pub shift: V3,
-}
-
-impl Pose {
-    /// A pose from a rotation matrix and a translation.
-    pub fn new(rot: Matrix3<f64>, shift: V3) -> Self {
-        Pose { rot, shift }
-    }
-
-    /// A translation only.
-    pub fn shift(shift: V3) -> Self {
-        Pose::new(Matrix3::identity(), shift)
-    }
-
-    /// A rotation by `angle` radians about +z followed by a translation.
-    pub fn about_z(angle: f64, shift: V3) -> Self {
-        Pose::new(rot_z(angle), shift)
-    }
-
-    /// Applies the pose to a point.
-    pub fn apply(&self, p: &V3) -> V3 {
-        self.rot * p + self.shift
-    }
-
-    /// Applies the rotation only (for directions and normals).
-    pub fn apply_dir(&self, d: &V3) -> V3 {
-        self.rot * d
-    }
-
-    /// `outer ∘ self`: first this pose, then `outer`.
-    pub fn then(&self, outer: &Pose) -> Pose {
-        Pose::new(outer.rot * self.rot, outer.rot * self.shift + outer.shift)
-    }
-
-    /// The 4×4 homogeneous matrix, row-major.
-    pub fn matrix4(&self) -> [[f64; 4]; 4] {
-        let r = &self.rot;
-        let t = &self.shift;
-        [
-            [r[(0, 0)], r[(0, 1)], r[(0, 2)], t.x],
-            [r[(1, 0)], r[(1, 1)], r[(1, 2)], t.y],
-            [r[(2, 0)], r[(2, 1)], r[(2, 2)], t.z],
-            [0.0, 0.0, 0.0, 1.0],
-        ]
-    }
-}
+/// The library's rigid transform `p -> R p + t`, under the name the scene code uses.
+pub use equiscan::geometry::Rigid as Pose;
 
 /// Rotation by `a` radians about +x.
 pub fn rot_x(a: f64) -> Matrix3<f64> {
@@ -210,7 +160,7 @@ impl Convex {
     /// A box between two corners (axis-aligned in the local frame), then moved by `pose`.
     pub fn between(lo: V3, hi: V3, pose: &Pose) -> Convex {
         let centre = (lo + hi) * 0.5;
-        Convex::cuboid((hi - lo) * 0.5, &Pose::shift(centre).then(pose))
+        Convex::cuboid((hi - lo) * 0.5, &pose.compose(&Pose::translation(centre)))
     }
 
     /// The same polyhedron moved by `pose`.
@@ -220,8 +170,8 @@ impl Convex {
                 .planes
                 .iter()
                 .map(|(n, d)| {
-                    let n2 = pose.apply_dir(n);
-                    (n2, d + n2.dot(&pose.shift))
+                    let n2 = pose.rotate(n);
+                    (n2, d + n2.dot(&pose.translation))
                 })
                 .collect(),
             vertices: self.vertices.iter().map(|v| pose.apply(v)).collect(),
@@ -329,9 +279,9 @@ impl Frustum {
     fn transformed(&self, pose: &Pose) -> Frustum {
         Frustum {
             base: pose.apply(&self.base),
-            u: pose.apply_dir(&self.u),
-            v: pose.apply_dir(&self.v),
-            w: pose.apply_dir(&self.w),
+            u: pose.rotate(&self.u),
+            v: pose.rotate(&self.v),
+            w: pose.rotate(&self.w),
             ..*self
         }
     }
@@ -487,9 +437,9 @@ impl TorusSegment {
     fn transformed(&self, pose: &Pose) -> TorusSegment {
         TorusSegment {
             centre: pose.apply(&self.centre),
-            u: pose.apply_dir(&self.u),
-            v: pose.apply_dir(&self.v),
-            w: pose.apply_dir(&self.w),
+            u: pose.rotate(&self.u),
+            v: pose.rotate(&self.v),
+            w: pose.rotate(&self.w),
             ..*self
         }
     }
@@ -898,7 +848,7 @@ mod tests {
         let plate = Convex::between(
             V3::new(-10.0, -10.0, 0.0),
             V3::new(10.0, 10.0, 2.0),
-            &Pose::shift(V3::zeros()),
+            &Pose::translation(V3::zeros()),
         );
         let hole = Frustum::cylinder(V3::new(0.0, 0.0, -1.0), V3::new(0.0, 0.0, 3.0), 3.0);
         let body = Body::new(Solid::minus(plate, hole));
@@ -950,7 +900,7 @@ mod tests {
     #[test]
     fn surface_samples_match_the_area() {
         // Unit cube minus nothing: area 6, spacing 0.05 -> about 2400 samples.
-        let cube = Convex::cuboid(V3::repeat(0.5), &Pose::shift(V3::zeros()));
+        let cube = Convex::cuboid(V3::repeat(0.5), &Pose::translation(V3::zeros()));
         let body = Body::new(cube.into());
         let n = body.surface_samples(0.05, &mut Rng::new(1)).len();
         assert!((n as f64 - 2400.0).abs() < 60.0, "{n}");
@@ -977,7 +927,7 @@ mod tests {
 
     #[test]
     fn intersection_keeps_only_the_common_part() {
-        let cube = Convex::cuboid(V3::repeat(1.0), &Pose::shift(V3::zeros()));
+        let cube = Convex::cuboid(V3::repeat(1.0), &Pose::translation(V3::zeros()));
         let rod = Frustum::cylinder(V3::new(0.0, 0.0, -2.0), V3::new(0.0, 0.0, 2.0), 0.5);
         let body = Body::new(Solid::Inter(vec![cube.into(), rod.into()]));
         let mut s = Vec::new();
@@ -997,7 +947,7 @@ mod tests {
     #[test]
     fn pose_matrix_is_row_major() {
         let p = Pose::new(rot_z(std::f64::consts::FRAC_PI_2), V3::new(1.0, 2.0, 3.0));
-        let m = p.matrix4();
+        let m = p.to_rows();
         let q = p.apply(&V3::new(1.0, 0.0, 0.0));
         let r: Vec<f64> = (0..3).map(|i| m[i][0] + m[i][3]).collect();
         assert!((q - V3::new(r[0], r[1], r[2])).norm() < 1e-12);

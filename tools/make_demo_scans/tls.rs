@@ -60,7 +60,7 @@ pub struct Return {
 pub fn scan(scene: &Scene, station: &Station, s: &Settings) -> Vec<Return> {
     let cols = (360.0 / s.step_deg).round() as usize;
     let rows = ((s.elevation_max_deg - s.elevation_min_deg) / s.step_deg).round() as usize + 1;
-    let origin = station.pose.shift;
+    let origin = station.pose.translation;
     let columns: Vec<Vec<Return>> = (0..cols)
         .into_par_iter()
         .map(|c| {
@@ -72,7 +72,7 @@ pub fn scan(scene: &Scene, station: &Station, s: &Settings) -> Vec<Return> {
                 let el_deg = s.elevation_min_deg + r as f64 * s.step_deg;
                 let (sel, cel) = el_deg.to_radians().sin_cos();
                 let local = V3::new(cel * caz, cel * saz, sel);
-                let d = station.pose.apply_dir(&local);
+                let d = station.pose.rotate(&local);
                 let inv_d = V3::new(1.0 / d.x, 1.0 / d.y, 1.0 / d.z);
                 let mut best: Option<(f64, V3, usize)> = None;
                 for (k, obj) in scene.objects.iter().enumerate() {

@@ -48,10 +48,21 @@ impl Rigid {
         self.rotation * p + self.translation
     }
 
+    /// Applies the rotation only (for directions and normals).
+    #[inline]
+    pub fn rotate(&self, d: &Vector3<f64>) -> Vector3<f64> {
+        self.rotation * d
+    }
+
+    /// A translation only.
+    pub fn translation(t: Vector3<f64>) -> Self {
+        Rigid::new(Matrix3::identity(), t)
+    }
+
     /// Applies the transform to an f32 point, computing in f64.
     #[inline]
     pub fn apply_f32(&self, p: [f32; 3]) -> Vector3<f64> {
-        self.apply(&Vector3::new(p[0] as f64, p[1] as f64, p[2] as f64))
+        self.apply(&super::vec3(p))
     }
 
     /// `self ∘ other`: first `other`, then `self`.
