@@ -82,7 +82,9 @@ fn part_scans_get_no_confident_wrong_pose() {
         let right = fits && (symmetric || (rot <= 2.0 && trans <= 0.01 * size));
         let outcome = match a.verdict {
             Verdict::Confident => Outcome::Aligned,
-            Verdict::NotFound(Reason::AmbiguousSymmetricShape) => Outcome::Ambiguous,
+            Verdict::Ambiguous(_) | Verdict::NotFound(Reason::AmbiguousSymmetricShape) => {
+                Outcome::Ambiguous
+            }
             Verdict::NotFound(_) => Outcome::NotFound,
         };
         eprintln!(

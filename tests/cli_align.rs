@@ -135,7 +135,12 @@ fn unrelated_scatter_has_no_confident_alignment() {
         String::from_utf8_lossy(&out.stderr)
     );
     let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
-    assert_eq!(v["verdict"], "not_found");
+    // Not confident: nothing found, or (a random scatter fits many poses alike) ambiguous.
+    assert!(
+        v["verdict"] == "not_found" || v["verdict"] == "ambiguous",
+        "{}",
+        v["verdict"]
+    );
     assert!(v["reason"].is_string() && v["reason_text"].is_string());
 
     // --write without a confident result writes nothing unless asked; -q with --json still
@@ -156,7 +161,7 @@ fn unrelated_scatter_has_no_confident_alignment() {
     );
     assert_eq!(out.status.code(), Some(1));
     let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
-    assert_eq!(v["verdict"], "not_found");
+    assert_ne!(v["verdict"], "confident");
     assert!(!dir.path().join("m.ply").exists());
     assert!(String::from_utf8_lossy(&out.stderr).contains("--write-anyway"));
     // The picture of a failed run carries the red "not aligned" band.
@@ -188,7 +193,8 @@ fn unrelated_scatter_has_no_confident_alignment() {
     let header = std::fs::read(dir.path().join("m.ply")).unwrap();
     let header = String::from_utf8_lossy(&header[..600]);
     assert!(
-        header.contains("comment equiscan registration verdict not_found"),
+        header.contains("comment equiscan registration verdict not_found")
+            || header.contains("comment equiscan registration verdict ambiguous"),
         "{header}"
     );
 }

@@ -16,13 +16,23 @@
 //!    from the equivariant coefficients), scored by the correspondences they explain;
 //! 5. refinement of the best few on their inliers (weighted Umeyama), ranking by tight overlap
 //!    (plane distance and normal agreement), then point-to-plane [`icp`] with a robust loss from
-//!    the 12 best distinct poses; the best refined pose wins;
-//! 6. [`residual`]: the inlier RMSE on the full-resolution clouds; [`quality`]: overlap, consensus, ambiguity, a confidence figure and a verdict.
+//!    the 12 best distinct poses and from the near-symmetric alternatives of the leader
+//!    ([`candidates`]: turns about the principal axes of the overlap, flips, slides along weak
+//!    directions); poses ranked by tight overlap × explained matches, rivals by
+//!    [`candidates::rivalry`];
+//! 6. fine ICP from the best pose; [`constraint`]: the 6×6 normal matrix of the fit, its weak
+//!    directions, and a refit on a stability-aware sample when a direction looks weak (Gelfand,
+//!    Ikemoto, Rusinkiewicz & Levoy 2003);
+//! 7. [`residual`]: the inlier RMSE on the full-resolution clouds; [`quality`]: overlap,
+//!    consensus, margin, a confidence figure and the verdict (`confident`, `ambiguous` with the
+//!    candidates listed, or `not_found`).
 //!
 //! [`multi`] registers more than two scans through a maximum spanning tree of pair confidences.
 //! Nothing here prints; every stage is deterministic for any number of threads.
 
+pub mod candidates;
 pub mod consensus;
+pub mod constraint;
 pub mod equivariant;
 pub mod export;
 pub mod fpfh;
@@ -40,6 +50,8 @@ pub mod truth;
 /// kept so that `align::rigid::…` and `align::Rigid` keep working.
 pub use crate::geometry::rigid;
 
+pub use candidates::Candidate;
+pub use constraint::{Constraint, Motion, WeakDirection};
 pub use icp::RobustLoss;
 pub use multi::{LoopResidual, MultiAlignment, PairAlignment, align_many};
 pub use pipeline::{AlignParams, Alignment, Method, StageTime, align_pair};

@@ -2,10 +2,13 @@
 
 use std::time::Instant;
 
+use nalgebra::Vector3;
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
+use super::candidates::{Candidate, Scored, alternatives, difference, distinct_best, rivalry};
 use super::consensus::{self, Hypothesis, Pairs};
+use super::constraint::{Constraint, Motion, analyse, paired, stable_sample};
 use super::equivariant::{self, EquivariantRecipe};
 use super::fpfh::{FPFH_LEN, fpfh};
 use super::icp::{IcpParams, RobustLoss, fit_quality, icp_point_to_plane, oriented_fit};
@@ -80,6 +83,13 @@ const PLANE_TOLERANCE_VOXELS: f64 = 0.25;
 /// Largest angle between the source and target normal lines for a point to count in the tight
 /// overlap, in degrees.
 const NORMAL_ANGLE_DEG: f64 = 30.0;
+/// Distinct refined poses listed as candidates.
+const CANDIDATES: usize = 5;
+/// Rivals listed as candidates come at least this close to the best (see
+/// [`super::candidates::rivalry`]).
+const LIST_RIVALRY: f64 = 0.3;
+/// Smallest stability-aware sample for the constraint check of the final fit.
+const STABLE_SAMPLE: usize = 2000;
 /// Source keypoints used to re-rank hypotheses by overlap.
 const OVERLAP_SAMPLE: usize = 400;
 
@@ -131,6 +141,10 @@ pub struct Alignment {
     pub icp_iterations: usize,
     /// Time per stage, in pipeline order.
     pub timings: Vec<StageTime>,
+    /// Distinct refined poses, best first (the first is the answer), at most five.
+    pub candidates: Vec<Candidate>,
+    /// Constraint analysis of the final fit: condition figure and weakly constrained directions.
+    pub constraint: Constraint,
 }
 
 struct Clock {
@@ -323,50 +337,75 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
             starts.push(h.transform);
         }
     }
-    let polished: Vec<(Rigid, f64, usize)> = starts
-        .iter()
-        .map(|start| {
-            let out =
-                icp_point_to_plane(&ps.points, &pt.points, &pt.normals, &pt.index, start, &icp);
-            let n = oriented_fit(
-                &ps.points,
-                &ps.normals,
-                &pt.points,
-                &pt.normals,
-                &pt.index,
-                &out.transform,
-                tau,
-                PLANE_TOLERANCE_VOXELS * voxel,
-                NORMAL_ANGLE_DEG,
-            );
-            (
-                out.transform,
-                n as f64 / ps.points.len() as f64,
-                out.iterations,
-            )
-        })
-        .collect();
+    let tight_of = |tf: &Rigid| {
+        oriented_fit(
+            &ps.points,
+            &ps.normals,
+            &pt.points,
+            &pt.normals,
+            &pt.index,
+            tf,
+            tau,
+            PLANE_TOLERANCE_VOXELS * voxel,
+            NORMAL_ANGLE_DEG,
+        ) as f64
+            / ps.points.len() as f64
+    };
+    let polish = |start: &Rigid| {
+        let out = icp_point_to_plane(&ps.points, &pt.points, &pt.normals, &pt.index, start, &icp);
+        Scored {
+            pose: out.transform,
+            overlap: tight_of(&out.transform),
+            explained: pairs.support(&out.transform, tau),
+            iterations: out.iterations,
+        }
+    };
+    let mut polished: Vec<Scored> = starts.iter().map(polish).collect();
+    // The near-symmetric alternatives of the best pose so far (turns about the principal axes
+    // of the overlap, flips, slides along weakly constrained directions), refined too: the
+    // drawn hypotheses need not contain them.
+    let leader = distinct_best(&polished, 1, 10.0, 5.0 * tau, 0.0)
+        .first()
+        .map(|&i| polished[i].pose);
+    if let Some(leader) = leader {
+        let (pts, nrm, _) = paired(&ps.points, &pt.normals, &pt.index, &leader, tau);
+        let slides: Vec<Vector3<f64>> = analyse(&pts, &nrm, [0.0; 3])
+            .weak
+            .iter()
+            .filter(|w| w.motion == Motion::Slide)
+            .map(|w| Vector3::from(w.axis))
+            .collect();
+        let alts = alternatives(&leader, &ps.points, &pt.index, tau, &slides);
+        polished.extend(alts.iter().map(polish));
+    }
     clock.lap("refinement");
 
-    let (coarse, tight, _) = polished
+    let order = distinct_best(&polished, polished.len(), 10.0, 5.0 * tau, 0.0);
+    let most = polished.iter().map(|p| p.explained).max().unwrap_or(0);
+    let best = order.first().map(|&i| polished[i]);
+    let coarse = best.map_or(Rigid::identity(), |b| b.pose);
+    // How close each distinct pose comes to the best (1 for the best itself): see
+    // [`candidates::rivalry`]. The candidates are the best and its closest rivals.
+    let mut rivals: Vec<(usize, f64)> = order
         .iter()
-        .copied()
-        .enumerate()
-        .max_by(|a, b| a.1.1.total_cmp(&b.1.1).then(b.0.cmp(&a.0)))
-        .map(|(_, x)| x)
-        .unwrap_or((Rigid::identity(), 0.0, 0));
-    // A rival must come close to the winner both in tight overlap and in the correspondences
-    // it explains: a dominant plane (the ground) lets a wrong pose keep much of the overlap, but
-    // not the matched features; a truly symmetric shape keeps both.
-    let support = pairs.support(&coarse, tau).max(1) as f64;
-    let rival = polished
-        .iter()
-        .filter(|p| !consensus::same_pose(&p.0, &coarse, 10.0, 5.0 * tau))
-        .map(|p| {
-            let s = pairs.support(&p.0, tau) as f64 / support;
-            (p.1 / tight.max(f64::MIN_POSITIVE)).min(s)
+        .map(|&i| {
+            let r = best.map_or(0.0, |b| rivalry(&polished[i], &b, most));
+            (i, r)
         })
-        .fold(0.0f64, f64::max);
+        .collect();
+    if rivals.len() > 1 {
+        rivals[1..].sort_by(|x, y| y.1.total_cmp(&x.1).then(x.0.cmp(&y.0)));
+    }
+    let rival = rivals.get(1).map_or(0.0, |r| r.1);
+    let listed: Vec<(usize, f64)> = rivals
+        .iter()
+        .take(CANDIDATES)
+        .enumerate()
+        .filter(|(k, r)| *k == 0 || r.1 >= LIST_RIVALRY)
+        .map(|(_, r)| *r)
+        .collect();
+    let tight = best.map_or(0.0, |b| b.overlap);
+    let support = best.map_or(1, |b| b.explained.max(1)) as f64;
     // The shortlist holds more poses than were polished: a symmetric shape splits its matches
     // among its symmetric poses, which then rank alike. Compare them on the same subsample.
     let sample_tight = oriented_fit(
@@ -412,8 +451,35 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
             ..icp
         },
     );
-    let local = fine.transform;
-    let icp_iterations = fine.iterations;
+    let mut local = fine.transform;
+    let mut icp_iterations = fine.iterations;
+    // Constraint analysis of the fit (Gelfand et al. 2003). Where a motion looks weak with
+    // every point, the fit is redone on a stability-aware sample (same paper), in which the
+    // few points on holes and edges weigh as much as the planes, and judged on that sample.
+    let (pts, nrm, idx) = paired(&fs.points, &ft.normals, &ft.index, &local, tau);
+    let mut constraint = analyse(&pts, &nrm, target.origin);
+    if !constraint.weak.is_empty() && pts.len() > STABLE_SAMPLE {
+        let keep = stable_sample(&pts, &nrm, STABLE_SAMPLE.max(pts.len() / 4));
+        let chosen: Vec<[f32; 3]> = keep.iter().map(|&k| fs.points[idx[k]]).collect();
+        let again = icp_point_to_plane(
+            &chosen,
+            &ft.points,
+            &ft.normals,
+            &ft.index,
+            &local,
+            &IcpParams {
+                max_distance: tau,
+                min_scale: 0.02 * voxel,
+                ..icp
+            },
+        );
+        local = again.transform;
+        icp_iterations += again.iterations;
+        // Judged on every point again: on the sample, the few most tilted normals of a noisy
+        // plane would pass for a constraint.
+        let (p2, n2, _) = paired(&fs.points, &ft.normals, &ft.index, &local, tau);
+        constraint = analyse(&p2, &n2, target.origin);
+    }
     clock.lap("fine ICP");
 
     let overlap = fit_quality(&ps.points, &pt.index, &local, tau).1 as f64 / ps.points.len() as f64;
@@ -439,7 +505,32 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
         confidence: 0.0,
     };
     figures.confidence = quality::confidence(inliers, overlap, margin);
-    let verdict = quality::verdict(&figures);
+    let mut verdict = quality::verdict(&figures);
+    if verdict == Verdict::Confident && !constraint.weak.is_empty() {
+        verdict = Verdict::Ambiguous(quality::Reason::WeaklyConstrained);
+    }
+    // The listed poses, in file coordinates; the first is the answer after the fine fit.
+    let centroid = ps.points.iter().fold(Vector3::zeros(), |a, p| {
+        a + Vector3::new(p[0] as f64, p[1] as f64, p[2] as f64)
+    }) / ps.points.len() as f64;
+    let candidates: Vec<Candidate> = listed
+        .iter()
+        .enumerate()
+        .map(|(k, &(i, rivalry))| {
+            let p = &polished[i];
+            let pose = if k == 0 { local } else { p.pose };
+            let (angle_deg, distance) = difference(&local, &pose, &centroid);
+            Candidate {
+                transform: pose.between_origins(source.origin, target.origin),
+                score: p.score(most),
+                rivalry,
+                overlap: p.overlap,
+                explained: p.explained,
+                angle_deg,
+                distance,
+            }
+        })
+        .collect();
     clock.lap("verdict");
     Ok(Alignment {
         transform: local.between_origins(source.origin, target.origin),
@@ -452,5 +543,7 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
         keypoints: [ps.points.len(), pt.points.len()],
         icp_iterations,
         timings: clock.stages,
+        candidates,
+        constraint,
     })
 }

@@ -205,10 +205,10 @@ pub struct PairReport {
     pub source: ScanEntry,
     /// The scan whose frame the transform maps into.
     pub target: ScanEntry,
-    /// `confident` or `not_found`.
+    /// `confident`, `ambiguous` or `not_found`.
     pub verdict: String,
     /// Why nothing confident was found (`too_few_distinctive_points`, `too_little_overlap`,
-    /// `ambiguous_symmetric_shape`).
+    /// `ambiguous_symmetric_shape`, `weakly_constrained`).
     pub reason: Option<Reason>,
     /// The reason in words.
     pub reason_text: Option<String>,
@@ -220,6 +220,10 @@ pub struct PairReport {
     pub rotation_axis: [f64; 3],
     /// Translation part of the transform, file units.
     pub translation: [f64; 3],
+    /// Distinct refined poses, best first (the first is the answer).
+    pub candidates: Vec<super::candidates::Candidate>,
+    /// Constraint analysis of the final fit (condition figure, weakly constrained directions).
+    pub constraint: super::constraint::Constraint,
     /// The fit figures.
     pub fit: FitFigures,
     /// Every setting of the run.
@@ -445,6 +449,7 @@ impl PairReport {
     ) -> PairReport {
         let (verdict, reason) = match a.verdict {
             Verdict::Confident => ("confident", None),
+            Verdict::Ambiguous(r) => ("ambiguous", Some(r)),
             Verdict::NotFound(r) => ("not_found", Some(r)),
         };
         let t = &a.transform;
@@ -469,6 +474,8 @@ impl PairReport {
             rotation_angle_deg: t.angle_deg(),
             rotation_axis: t.axis(),
             translation: [t.translation.x, t.translation.y, t.translation.z],
+            candidates: a.candidates.clone(),
+            constraint: a.constraint.clone(),
             fit: FitFigures {
                 surface_gap_rms: a.figures.rmse,
                 coverage: a.figures.overlap,

@@ -352,3 +352,4 @@ pub fn view_ring(
         })
         .collect()
 }
+pub mod shapes;

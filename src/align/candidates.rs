@@ -1,0 +1,178 @@
+//! Rival poses: the distinct refined poses that explain the data nearly as well as the best,
+//! listed so that a user can choose when the verdict is ambiguous.
+
+use nalgebra::{Matrix3, Rotation3, SymmetricEigen, Unit, Vector3};
+use serde::{Serialize, Serializer};
+
+use super::consensus::same_pose;
+use super::rigid::{Rigid, rotation_error_deg};
+use crate::spatial::KdIndex;
+
+/// One distinct refined pose.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Candidate {
+    /// Row-major 4×4 matrix mapping SOURCE file coordinates into TARGET file coordinates (the
+    /// layout of the top-level transform).
+    #[serde(serialize_with = "rows")]
+    pub transform: Rigid,
+    /// Ranking score (tight overlap × explained correspondences over the most any pose
+    /// explains), in [0, 1].
+    pub score: f64,
+    /// How close this pose comes to the best, in [0, 1] (1 for the best itself; see
+    /// [`rivalry`]); the verdict is ambiguous when the first rival comes within 0.1 of 1.
+    pub rivalry: f64,
+    /// Tight overlap: fraction of SOURCE keypoints on TARGET's surface with agreeing normals.
+    pub overlap: f64,
+    /// Matched keypoint pairs that this pose brings within the inlier threshold.
+    pub explained: usize,
+    /// Rotation angle between this pose and the best one, degrees.
+    pub angle_deg: f64,
+    /// Distance between where this pose and the best one put SOURCE's keypoint centroid, file
+    /// units.
+    pub distance: f64,
+}
+
+fn rows<S: Serializer>(tf: &Rigid, s: S) -> Result<S::Ok, S::Error> {
+    tf.to_rows().serialize(s)
+}
+
+/// A refined pose with the evidence for it (local frames).
+#[derive(Debug, Clone, Copy)]
+pub struct Scored {
+    /// SOURCE local → TARGET local.
+    pub pose: Rigid,
+    /// Tight overlap fraction (see [`super::icp::oriented_fit`]).
+    pub overlap: f64,
+    /// Correspondences explained (matched keypoints that the pose brings within the inlier
+    /// threshold): the distinctive evidence.
+    pub explained: usize,
+    /// ICP iterations.
+    pub iterations: usize,
+}
+
+impl Scored {
+    /// The ranking score `overlap × explained / most explained`: geometry alone prefers a
+    /// pose that stacks two partial views of a near-symmetric part; the matched features are
+    /// what separates it from the true, side-by-side pose.
+    pub fn score(&self, most_explained: usize) -> f64 {
+        self.overlap * self.explained as f64 / most_explained.max(1) as f64
+    }
+}
+
+/// Near-symmetric alternatives of `best` (local frames) that the drawn hypotheses may have
+/// missed: turns by 90°, 180° and 270° about each principal axis of the overlap region (the
+/// SOURCE points that `best` puts within `tau` of TARGET), through its centroid (the 180°
+/// turns are the flips), and slides by `±shift` along each of `slides` (unit vectors, TARGET
+/// local frame).
+pub fn alternatives(
+    best: &Rigid,
+    source: &[[f32; 3]],
+    target_index: &KdIndex,
+    tau: f64,
+    slides: &[Vector3<f64>],
+) -> Vec<Rigid> {
+    let near: Vec<Vector3<f64>> = source
+        .iter()
+        .map(|p| best.apply_f32(*p))
+        .filter(|q| {
+            let (_, d2) = target_index.nearest_one([q.x as f32, q.y as f32, q.z as f32]);
+            (d2 as f64) <= tau * tau
+        })
+        .collect();
+    if near.len() < 10 {
+        return Vec::new();
+    }
+    let n = near.len() as f64;
+    let c = near.iter().fold(Vector3::zeros(), |a, p| a + p) / n;
+    let mut cov = Matrix3::zeros();
+    for p in &near {
+        cov += (p - c) * (p - c).transpose();
+    }
+    let e = SymmetricEigen::new(cov / n);
+    let mut out = Vec::new();
+    for k in 0..3 {
+        let axis = Unit::new_normalize(e.eigenvectors.column(k).into_owned());
+        for deg in [90.0f64, 180.0, 270.0] {
+            let r = *Rotation3::from_axis_angle(&axis, deg.to_radians()).matrix();
+            out.push(Rigid::new(
+                r * best.rotation,
+                r * (best.translation - c) + c,
+            ));
+        }
+    }
+    for s in slides {
+        let spread = (near.iter().map(|p| (p - c).dot(s).powi(2)).sum::<f64>() / n).sqrt();
+        for sign in [-1.0, 1.0] {
+            out.push(Rigid::new(
+                best.rotation,
+                best.translation + s * (sign * spread),
+            ));
+        }
+    }
+    out
+}
+
+/// Up to `count` distinct poses of `scored` in order of [`Scored::score`] (ties: input order),
+/// skipping poses within `angle_deg` and `distance` of one already kept and poses scoring below
+/// `floor` × the best. Returns indices into `scored`.
+pub fn distinct_best(
+    scored: &[Scored],
+    count: usize,
+    angle_deg: f64,
+    distance: f64,
+    floor: f64,
+) -> Vec<usize> {
+    let most = scored.iter().map(|s| s.explained).max().unwrap_or(0);
+    let mut order: Vec<usize> = (0..scored.len()).collect();
+    order.sort_by(|&a, &b| {
+        scored[b]
+            .score(most)
+            .total_cmp(&scored[a].score(most))
+            .then(a.cmp(&b))
+    });
+    let top = order.first().map_or(0.0, |&i| scored[i].score(most));
+    let mut kept: Vec<usize> = Vec::new();
+    for i in order {
+        if kept.len() >= count || scored[i].score(most) < floor * top {
+            break;
+        }
+        if kept
+            .iter()
+            .all(|&j| !same_pose(&scored[j].pose, &scored[i].pose, angle_deg, distance))
+        {
+            kept.push(i);
+        }
+    }
+    kept
+}
+
+/// How `other` differs from `best` (local frames) at `centroid` (SOURCE local frame): the angle
+/// of the relative rotation (degrees) and the distance between the moved centroids.
+pub fn difference(best: &Rigid, other: &Rigid, centroid: &Vector3<f64>) -> (f64, f64) {
+    (
+        rotation_error_deg(&best.rotation, &other.rotation),
+        (best.apply(centroid) - other.apply(centroid)).norm(),
+    )
+}
+
+/// Fewest explained matches for a rival's matches to count as real support (set on the
+/// benchmark subset and the demo part scans, DEVELOPERS.md).
+pub const MIN_RIVAL_SUPPORT: f64 = 5.0;
+
+/// How close `other` comes to `best`, in [0, 1] (1 when it is as good). It is the larger of:
+/// the ratio of their [`Scored::score`]s (a stacked pose with more overlap and fewer matches
+/// against a side-by-side pose with fewer overlap and more matches); and the smaller of the
+/// overlap ratio and the explained-match ratio (a dominant plane lets a wrong pose keep the
+/// overlap but not the matches; a symmetric shape keeps both). When the two explained counts
+/// differ by no more than three standard deviations of a count (`3 √(k₁ + k₂)`, Poisson) and the
+/// rival has real support (at least [`MIN_RIVAL_SUPPORT`] matches), the matches do not tell
+/// the poses apart and the overlap ratio alone is used.
+pub fn rivalry(other: &Scored, best: &Scored, most_explained: usize) -> f64 {
+    let o = other.overlap / best.overlap.max(f64::MIN_POSITIVE);
+    let (k1, k2) = (best.explained as f64, other.explained as f64);
+    let k = k2 / k1.max(1.0);
+    let s = other.score(most_explained) / best.score(most_explained).max(f64::MIN_POSITIVE);
+    let indistinct = k2 >= MIN_RIVAL_SUPPORT && k1 - k2 <= 3.0 * (k1 + k2).sqrt();
+    let r = if indistinct { o } else { o.min(k) };
+    r.max(s).clamp(0.0, 1.0)
+}
