@@ -45,6 +45,7 @@ pub mod quality;
 pub mod report;
 pub mod residual;
 pub mod truth;
+pub mod tuning;
 
 /// The rigid-transform type and closed-form fits live in [`crate::geometry`]; this path is
 /// kept so that `align::rigid::…` and `align::Rigid` keep working.
@@ -57,3 +58,4 @@ pub use multi::{LoopResidual, MultiAlignment, PairAlignment, align_many};
 pub use pipeline::{AlignParams, Alignment, Method, StageTime, align_pair};
 pub use quality::{Figures, Reason, Verdict};
 pub use rigid::{Rigid, horn, rotation_error_deg, umeyama};
+pub use tuning::Tuning;

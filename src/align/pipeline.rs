@@ -17,6 +17,7 @@ use super::prep::{choose_voxel, prepare, spacing_of};
 use super::quality::{self, Figures, Verdict};
 use super::residual::full_resolution_rmse;
 use super::rigid::Rigid;
+use super::tuning::Tuning;
 use crate::cloud::Cloud;
 use crate::error::{Error, Result};
 use crate::spatial::{KdIndex, estimate_spacing_with, voxel_downsample};
@@ -74,24 +75,9 @@ pub struct AlignParams {
     /// with version 2 the elbow of the demo part scans no longer aligns (tests/align_parts.rs),
     /// so registration stays on version 1 until it is tuned for version 2.
     pub descriptor_version: u32,
+    /// Every other tuning value of the pipeline.
+    pub tuning: Tuning,
 }
-
-/// Distinct hypotheses re-ranked by overlap.
-const SHORTLIST: usize = 40;
-/// Tolerance of the tight overlap (distance to the target's tangent plane), in voxel sizes.
-const PLANE_TOLERANCE_VOXELS: f64 = 0.25;
-/// Largest angle between the source and target normal lines for a point to count in the tight
-/// overlap, in degrees.
-const NORMAL_ANGLE_DEG: f64 = 30.0;
-/// Distinct refined poses listed as candidates.
-const CANDIDATES: usize = 5;
-/// Rivals listed as candidates come at least this close to the best (see
-/// [`super::candidates::rivalry`]).
-const LIST_RIVALRY: f64 = 0.3;
-/// Smallest stability-aware sample for the constraint check of the final fit.
-const STABLE_SAMPLE: usize = 2000;
-/// Source keypoints used to re-rank hypotheses by overlap.
-const OVERLAP_SAMPLE: usize = 400;
 
 impl Default for AlignParams {
     fn default() -> Self {
@@ -105,6 +91,7 @@ impl Default for AlignParams {
             loss: RobustLoss::Tukey,
             seed: 1,
             descriptor_version: 1,
+            tuning: Tuning::default(),
         }
     }
 }
@@ -145,6 +132,8 @@ pub struct Alignment {
     pub candidates: Vec<Candidate>,
     /// Constraint analysis of the final fit: condition figure and weakly constrained directions.
     pub constraint: Constraint,
+    /// The tuning values used.
+    pub tuning: Tuning,
 }
 
 struct Clock {
@@ -179,6 +168,7 @@ struct FeatureRows {
 /// Aligns `source` onto `target` with no initial guess.
 pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Result<Alignment> {
     let mut clock = Clock::new();
+    let tu = &params.tuning;
     let voxel = match params.voxel {
         Some(v) if v > 0.0 && v.is_finite() => v,
         Some(v) => {
@@ -212,7 +202,7 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
     let tau = params.inlier_voxels * voxel;
     // One pass over the full clouds: points at half the voxel size for the final ICP, and the
     // keypoints taken from those.
-    let fine_voxel = 0.5 * voxel;
+    let fine_voxel = tu.fine_voxels * voxel;
     let thin = |pts: &[[f32; 3]]| -> Vec<[f32; 3]> {
         voxel_downsample(pts, fine_voxel as f32)
             .into_iter()
@@ -231,9 +221,9 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
     let rows = match params.method {
         Method::Equivariant => {
             let recipe = EquivariantRecipe {
-                radii: vec![radius as f32, (0.5 * radius) as f32],
-                degree: 4,
-                shells: 6,
+                radii: vec![radius as f32, (tu.inner_radius_share * radius) as f32],
+                degree: tu.descriptor_degree,
+                shells: tu.descriptor_shells,
                 version: params.descriptor_version,
             };
             let (a, b) = rayon::join(
@@ -268,10 +258,10 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
         &rows.target,
         rows.dim,
         &MatchParams {
-            max_ratio: 0.9,
-            mutual: true,
-            min_keep: 300,
-            max_keep: 3000,
+            max_ratio: tu.match_max_ratio,
+            mutual: tu.match_mutual,
+            min_keep: tu.match_min_keep,
+            max_keep: tu.match_max_keep,
         },
     );
     let pairs = Pairs::new(&ps.points, &pt.points, &corr);
@@ -292,14 +282,20 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
     // there, and a dominant plane (ground) does not favour a wrong pose under a plane-distance
     // test as it does under a plain distance test; the orientation test keeps a pose that lays
     // one flat face on another from counting the edges and faces that cross the target.
-    let shortlist = consensus::best_distinct(hyps, SHORTLIST, 10.0, 5.0 * tau);
-    let stride = ps.points.len().div_ceil(OVERLAP_SAMPLE).max(1);
+    let shortlist = consensus::best_distinct(
+        hyps,
+        tu.shortlist,
+        tu.distinct_angle_deg,
+        tu.distinct_distance_taus * tau,
+    );
+    let stride = ps.points.len().div_ceil(tu.overlap_sample).max(1);
     let sample: Vec<[f32; 3]> = ps.points.iter().step_by(stride).copied().collect();
     let sample_normals: Vec<[f32; 3]> = ps.normals.iter().step_by(stride).copied().collect();
     let mut ranked: Vec<(usize, Hypothesis)> = shortlist
         .par_iter()
         .map(|h| {
-            let h = consensus::refine_on_inliers(&pairs, &h.transform, tau, 4);
+            let h =
+                consensus::refine_on_inliers(&pairs, &h.transform, tau, tu.inlier_refine_rounds);
             let n = oriented_fit(
                 &sample,
                 &sample_normals,
@@ -308,8 +304,8 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
                 &pt.index,
                 &h.transform,
                 tau,
-                2.0 * PLANE_TOLERANCE_VOXELS * voxel,
-                NORMAL_ANGLE_DEG,
+                2.0 * tu.plane_tolerance_voxels * voxel,
+                tu.normal_angle_deg,
             );
             (n, h)
         })
@@ -318,21 +314,21 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
     clock.lap("hypotheses");
 
     let icp = IcpParams {
-        max_distance: 2.0 * tau,
-        min_scale: 0.05 * voxel,
+        max_distance: tu.icp_max_distance_taus * tau,
+        min_scale: tu.icp_min_scale_voxels * voxel,
         loss: params.loss,
-        max_iterations: 40,
-        tolerance: 1e-6,
+        max_iterations: tu.icp_max_iterations,
+        tolerance: tu.icp_tolerance,
     };
     // Least squares on the inliers first (cheap); poses that then coincide are polished once.
     let mut starts: Vec<Rigid> = Vec::new();
-    for (_, h) in ranked.iter().take(SHORTLIST) {
+    for (_, h) in ranked.iter().take(tu.shortlist) {
         if starts.len() >= params.refine_best {
             break;
         }
         if starts
             .iter()
-            .all(|s| !consensus::same_pose(s, &h.transform, 2.0, tau))
+            .all(|s| !consensus::same_pose(s, &h.transform, tu.start_angle_deg, tau))
         {
             starts.push(h.transform);
         }
@@ -346,8 +342,8 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
             &pt.index,
             tf,
             tau,
-            PLANE_TOLERANCE_VOXELS * voxel,
-            NORMAL_ANGLE_DEG,
+            tu.plane_tolerance_voxels * voxel,
+            tu.normal_angle_deg,
         ) as f64
             / ps.points.len() as f64
     };
@@ -364,9 +360,15 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
     // The near-symmetric alternatives of the best pose so far (turns about the principal axes
     // of the overlap, flips, slides along weakly constrained directions), refined too: the
     // drawn hypotheses need not contain them.
-    let leader = distinct_best(&polished, 1, 10.0, 5.0 * tau, 0.0)
-        .first()
-        .map(|&i| polished[i].pose);
+    let leader = distinct_best(
+        &polished,
+        1,
+        tu.distinct_angle_deg,
+        tu.distinct_distance_taus * tau,
+        0.0,
+    )
+    .first()
+    .map(|&i| polished[i].pose);
     if let Some(leader) = leader {
         let (pts, nrm, _) = paired(&ps.points, &pt.normals, &pt.index, &leader, tau);
         let slides: Vec<Vector3<f64>> = analyse(&pts, &nrm, [0.0; 3])
@@ -380,7 +382,13 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
     }
     clock.lap("refinement");
 
-    let order = distinct_best(&polished, polished.len(), 10.0, 5.0 * tau, 0.0);
+    let order = distinct_best(
+        &polished,
+        polished.len(),
+        tu.distinct_angle_deg,
+        tu.distinct_distance_taus * tau,
+        0.0,
+    );
     let most = polished.iter().map(|p| p.explained).max().unwrap_or(0);
     let best = order.first().map(|&i| polished[i]);
     let coarse = best.map_or(Rigid::identity(), |b| b.pose);
@@ -399,9 +407,9 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
     let rival = rivals.get(1).map_or(0.0, |r| r.1);
     let listed: Vec<(usize, f64)> = rivals
         .iter()
-        .take(CANDIDATES)
+        .take(tu.candidates)
         .enumerate()
-        .filter(|(k, r)| *k == 0 || r.1 >= LIST_RIVALRY)
+        .filter(|(k, r)| *k == 0 || r.1 >= tu.list_rivalry)
         .map(|(_, r)| *r)
         .collect();
     let tight = best.map_or(0.0, |b| b.overlap);
@@ -416,12 +424,19 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
         &pt.index,
         &coarse,
         tau,
-        2.0 * PLANE_TOLERANCE_VOXELS * voxel,
-        NORMAL_ANGLE_DEG,
+        2.0 * tu.plane_tolerance_voxels * voxel,
+        tu.normal_angle_deg,
     );
     let rival = ranked
         .iter()
-        .filter(|(_, h)| !consensus::same_pose(&h.transform, &coarse, 10.0, 5.0 * tau))
+        .filter(|(_, h)| {
+            !consensus::same_pose(
+                &h.transform,
+                &coarse,
+                tu.distinct_angle_deg,
+                tu.distinct_distance_taus * tau,
+            )
+        })
         .map(|(n, h)| {
             let o = *n as f64 / sample_tight.max(1) as f64;
             o.min(h.support as f64 / support)
@@ -446,8 +461,8 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
         &ft.index,
         &coarse,
         &IcpParams {
-            max_distance: tau,
-            min_scale: 0.02 * voxel,
+            max_distance: tu.fine_max_distance_taus * tau,
+            min_scale: tu.fine_min_scale_voxels * voxel,
             ..icp
         },
     );
@@ -458,8 +473,12 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
     // few points on holes and edges weigh as much as the planes, and judged on that sample.
     let (pts, nrm, idx) = paired(&fs.points, &ft.normals, &ft.index, &local, tau);
     let mut constraint = analyse(&pts, &nrm, target.origin);
-    if !constraint.weak.is_empty() && pts.len() > STABLE_SAMPLE {
-        let keep = stable_sample(&pts, &nrm, STABLE_SAMPLE.max(pts.len() / 4));
+    if !constraint.weak.is_empty() && pts.len() > tu.stable_sample {
+        let keep = stable_sample(
+            &pts,
+            &nrm,
+            tu.stable_sample.max(pts.len() / tu.stable_one_in),
+        );
         let chosen: Vec<[f32; 3]> = keep.iter().map(|&k| fs.points[idx[k]]).collect();
         let again = icp_point_to_plane(
             &chosen,
@@ -468,8 +487,8 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
             &ft.index,
             &local,
             &IcpParams {
-                max_distance: tau,
-                min_scale: 0.02 * voxel,
+                max_distance: tu.fine_max_distance_taus * tau,
+                min_scale: tu.fine_min_scale_voxels * voxel,
                 ..icp
             },
         );
@@ -486,8 +505,9 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
     // Inlier RMSE on the full-resolution clouds: pairs closer than three TARGET point spacings
     // (at most one fine voxel) are inside the overlap.
     let target_full = KdIndex::new(&target.positions)?;
-    let pairing = estimate_spacing_with(&target.positions, &target_full)
-        .map_or(fine_voxel, |s| (3.0 * s as f64).min(fine_voxel));
+    let pairing = estimate_spacing_with(&target.positions, &target_full).map_or(fine_voxel, |s| {
+        (tu.rmse_pairing_spacings * s as f64).min(fine_voxel)
+    });
     let (rmse, _) = full_resolution_rmse(
         &source.positions,
         &target.positions,
@@ -545,5 +565,6 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
         timings: clock.stages,
         candidates,
         constraint,
+        tuning: *tu,
     })
 }

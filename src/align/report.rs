@@ -170,6 +170,8 @@ pub struct Settings {
     pub units_from: String,
     /// `scene` or `part`: decides the caution's wording.
     pub job: Job,
+    /// Every tuning value of the pipeline (lengths in voxel sizes or inlier thresholds).
+    pub tuning: super::tuning::Tuning,
 }
 
 /// How well the found pose fits, in our own words (file units where a length).
@@ -499,6 +501,7 @@ impl PairReport {
                 units: ctx.units,
                 units_from: ctx.units_from.clone(),
                 job: ctx.job,
+                tuning: a.tuning,
             },
             keypoints: a.keypoints,
             timings: if ctx.reproducible {

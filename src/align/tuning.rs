@@ -1,0 +1,109 @@
+//! The tuning values of the pair pipeline, in one place, written into every report.
+//!
+//! Lengths are given as multiples of the keypoint voxel size (`…_voxels`) or of the inlier
+//! threshold τ (`…_taus`), so that one set of values serves scans of any scale; angles are in
+//! degrees. [`Tuning::default`] holds the values the demo scans, the part scans and the
+//! registration benchmark were checked with (tests/align_*.rs); changing one changes results.
+
+use serde::{Deserialize, Serialize};
+
+/// Every tuning value of [`super::align_pair`] besides the ones on the command line.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct Tuning {
+    /// Edge of the fine grid (final ICP points, and the points the keypoints are taken from),
+    /// in voxel sizes.
+    pub fine_voxels: f64,
+    /// Highest spherical-harmonic degree of the harmonic descriptors.
+    pub descriptor_degree: usize,
+    /// Radial shells of the harmonic descriptors.
+    pub descriptor_shells: usize,
+    /// Second, inner support radius of the harmonic descriptors, as a share of the first.
+    pub inner_radius_share: f64,
+    /// Largest ratio of best to second-best feature distance kept as a match.
+    pub match_max_ratio: f32,
+    /// Keep only matches that are each other's nearest neighbours.
+    pub match_mutual: bool,
+    /// When the filters leave fewer matches than this, the most distinctive remaining ones are
+    /// added.
+    pub match_min_keep: usize,
+    /// Most matches kept (most distinctive first).
+    pub match_max_keep: usize,
+    /// Distinct hypotheses re-ranked by overlap.
+    pub shortlist: usize,
+    /// Two poses are the same when their rotations differ by less than this, degrees, and …
+    pub distinct_angle_deg: f64,
+    /// … their translations by less than this, in inlier thresholds τ.
+    pub distinct_distance_taus: f64,
+    /// Least-squares rounds on the inliers of each shortlisted hypothesis.
+    pub inlier_refine_rounds: usize,
+    /// Source keypoints (a strided subsample) used to re-rank hypotheses by overlap.
+    pub overlap_sample: usize,
+    /// Tolerance of the tight overlap (distance to the target's tangent plane), in voxel sizes;
+    /// the re-ranking on the subsample uses twice this.
+    pub plane_tolerance_voxels: f64,
+    /// Largest angle between the source and target normal lines for a point to count in the
+    /// tight overlap, degrees.
+    pub normal_angle_deg: f64,
+    /// Start poses of the ICP stage coincide when their rotations differ by less than this,
+    /// degrees, and their translations by less than one τ.
+    pub start_angle_deg: f64,
+    /// Largest pairing distance of the coarse ICP, in τ.
+    pub icp_max_distance_taus: f64,
+    /// Smallest scale of the robust loss of the coarse ICP, in voxel sizes.
+    pub icp_min_scale_voxels: f64,
+    /// Most iterations of each ICP run.
+    pub icp_max_iterations: usize,
+    /// ICP has converged when an update rotates less than this (radians) and moves less than
+    /// this times its largest pairing distance.
+    pub icp_tolerance: f64,
+    /// Largest pairing distance of the fine ICP, in τ.
+    pub fine_max_distance_taus: f64,
+    /// Smallest scale of the robust loss of the fine ICP, in voxel sizes.
+    pub fine_min_scale_voxels: f64,
+    /// Smallest stability-aware sample for the constraint check of the final fit.
+    pub stable_sample: usize,
+    /// The stability-aware sample keeps at least one in this many of the paired points.
+    pub stable_one_in: usize,
+    /// Distinct refined poses listed as candidates.
+    pub candidates: usize,
+    /// Rivals listed as candidates come at least this close to the best (see
+    /// [`super::candidates::rivalry`]).
+    pub list_rivalry: f64,
+    /// Full-resolution pairs count in the RMSE when closer than this many TARGET point
+    /// spacings (and at most one fine voxel).
+    pub rmse_pairing_spacings: f64,
+}
+
+impl Default for Tuning {
+    fn default() -> Self {
+        Tuning {
+            fine_voxels: 0.5,
+            descriptor_degree: 4,
+            descriptor_shells: 6,
+            inner_radius_share: 0.5,
+            match_max_ratio: 0.9,
+            match_mutual: true,
+            match_min_keep: 300,
+            match_max_keep: 3000,
+            shortlist: 40,
+            distinct_angle_deg: 10.0,
+            distinct_distance_taus: 5.0,
+            inlier_refine_rounds: 4,
+            overlap_sample: 400,
+            plane_tolerance_voxels: 0.25,
+            normal_angle_deg: 30.0,
+            start_angle_deg: 2.0,
+            icp_max_distance_taus: 2.0,
+            icp_min_scale_voxels: 0.05,
+            icp_max_iterations: 40,
+            icp_tolerance: 1e-6,
+            fine_max_distance_taus: 1.0,
+            fine_min_scale_voxels: 0.02,
+            stable_sample: 2000,
+            stable_one_in: 4,
+            candidates: 5,
+            list_rivalry: 0.3,
+            rmse_pairing_spacings: 3.0,
+        }
+    }
+}
