@@ -13,7 +13,7 @@ use super::equivariant::{self, EquivariantRecipe};
 use super::fpfh::{FPFH_LEN, fpfh};
 use super::icp::{IcpParams, RobustLoss, fit_quality, icp_point_to_plane, oriented_fit};
 use super::matching::{MatchParams, match_features};
-use super::prep::{choose_voxel, prepare, spacing_of};
+use super::prep::{choose_voxel, figure, prepare, spacing_of};
 use super::quality::{self, Figures, Verdict};
 use super::residual::full_resolution_rmse;
 use super::rigid::Rigid;
@@ -173,7 +173,7 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
         Some(v) if v > 0.0 && v.is_finite() => v,
         Some(v) => {
             return Err(Error::invalid(
-                format!("voxel size {v} is not a positive number"),
+                format!("voxel size {} is not a positive number", figure(v)),
                 "give a voxel size in file units, e.g. 0.05",
             ));
         }
@@ -195,7 +195,11 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
         .unwrap_or(params.method.radius_in_voxels() * voxel);
     if radius.is_nan() || radius <= voxel {
         return Err(Error::invalid(
-            format!("support radius {radius} is not larger than the voxel size {voxel}"),
+            format!(
+                "support radius {} is not larger than the voxel size {}",
+                figure(radius),
+                figure(voxel)
+            ),
             "give a support radius of several voxel sizes",
         ));
     }

@@ -70,13 +70,37 @@ pub fn choose_voxel(points: &[[f32; 3]], spacing: f64) -> f64 {
     voxel
 }
 
+/// A length or other figure for a message: three significant digits, trailing zeros dropped
+/// (`3.464101552963257` → `3.46`, `0.05` → `0.05`, `1200.4` → `1200`).
+pub fn figure(v: f64) -> String {
+    if !v.is_finite() || v == 0.0 {
+        return format!("{v}");
+    }
+    let digits = (2 - v.abs().log10().floor() as i32).max(0) as usize;
+    let s = format!("{v:.digits$}");
+    if s.contains('.') {
+        s.trim_end_matches('0').trim_end_matches('.').to_string()
+    } else {
+        s
+    }
+}
+
+/// `n` followed by the singular or plural noun (`1 keypoint`, `3 keypoints`).
+pub fn count(n: usize, one: &str, many: &str) -> String {
+    format!("{n} {}", if n == 1 { one } else { many })
+}
+
 /// Downsamples `points` on a voxel grid of edge `voxel`, estimates normals and builds the index.
 pub fn prepare(name: &str, points: &[[f32; 3]], voxel: f64) -> Result<Prepared> {
     let keep = voxel_downsample(points, voxel as f32);
     let kp: Vec<[f32; 3]> = keep.iter().map(|&i| points[i]).collect();
     if kp.len() < 10 {
         return Err(Error::invalid(
-            format!("{name}: only {} keypoints at voxel size {voxel}", kp.len()),
+            format!(
+                "{name}: only {} at voxel size {}",
+                count(kp.len(), "keypoint", "keypoints"),
+                figure(voxel)
+            ),
             "give a smaller voxel size or a denser scan",
         ));
     }
@@ -101,4 +125,39 @@ pub fn prepare(name: &str, points: &[[f32; 3]], voxel: f64) -> Result<Prepared> 
         normals,
         index,
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn figures_are_rounded_to_three_significant_digits() {
+        assert_eq!(figure(3.464101552963257), "3.46");
+        assert_eq!(figure(0.05), "0.05");
+        assert_eq!(figure(0.012345), "0.0123");
+        assert_eq!(figure(1200.4), "1200");
+        assert_eq!(figure(-2.5), "-2.5");
+        assert_eq!(figure(f64::NAN), "NaN");
+    }
+
+    #[test]
+    fn counts_take_the_singular_for_one() {
+        assert_eq!(count(1, "keypoint", "keypoints"), "1 keypoint");
+        assert_eq!(count(0, "keypoint", "keypoints"), "0 keypoints");
+        assert_eq!(count(7, "keypoint", "keypoints"), "7 keypoints");
+    }
+
+    #[test]
+    fn too_few_keypoints_is_told_in_words() {
+        let pts = vec![[0.0f32; 3], [0.1, 0.0, 0.0]];
+        let e = prepare("elbow.ply", &pts, 3.464101552963257)
+            .err()
+            .expect("two points cannot be prepared");
+        let text = e.to_string();
+        assert!(
+            text.contains("elbow.ply: only 1 keypoint at voxel size 3.46"),
+            "{text}"
+        );
+    }
 }
