@@ -33,7 +33,7 @@ pub struct Pairs {
 impl Pairs {
     /// Gathers the end points of `corr`.
     pub fn new(source: &[[f32; 3]], target: &[[f32; 3]], corr: &[Correspondence]) -> Pairs {
-        let v = |p: [f32; 3]| Vector3::new(p[0] as f64, p[1] as f64, p[2] as f64);
+        let v = crate::geometry::vec3;
         Pairs {
             src: corr.iter().map(|c| v(source[c.source as usize])).collect(),
             dst: corr.iter().map(|c| v(target[c.target as usize])).collect(),

@@ -197,7 +197,7 @@ pub fn paired(
         let q = tf.apply_f32(*p);
         let (j, d2) = target_index.nearest_one([q.x as f32, q.y as f32, q.z as f32]);
         let n = target_normals[j];
-        let n = Vector3::new(n[0] as f64, n[1] as f64, n[2] as f64);
+        let n = crate::geometry::vec3(n);
         if (d2 as f64) <= cutoff2 && n.norm_squared() > 0.5 {
             pts.push(q);
             nrm.push(n);

@@ -142,7 +142,7 @@ pub fn hypotheses(
 }
 
 fn v(p: [f32; 3]) -> nalgebra::Vector3<f64> {
-    nalgebra::Vector3::new(p[0] as f64, p[1] as f64, p[2] as f64)
+    crate::geometry::vec3(p)
 }
 
 #[cfg(test)]

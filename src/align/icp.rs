@@ -184,8 +184,7 @@ pub fn oriented_fit(
                 if d.abs() > plane_tolerance {
                     continue;
                 }
-                let nr =
-                    tf.rotation * nalgebra::Vector3::new(ns[0] as f64, ns[1] as f64, ns[2] as f64);
+                let nr = tf.rotation * crate::geometry::vec3(*ns);
                 let c: f64 = (0..3).map(|k| n[k] as f64 * nr[k]).sum();
                 if c.abs() >= min_cos {
                     tight += 1;
@@ -217,12 +216,12 @@ fn collect_pairs(
                     continue;
                 }
                 let n = normals[j];
-                let n = Vector3::new(n[0] as f64, n[1] as f64, n[2] as f64);
+                let n = crate::geometry::vec3(n);
                 if n.norm_squared() < 0.5 {
                     continue;
                 }
                 let q = target[j];
-                let q = Vector3::new(q[0] as f64, q[1] as f64, q[2] as f64);
+                let q = crate::geometry::vec3(q);
                 let residual = n.dot(&(pm - q));
                 let c = pm.cross(&n);
                 out.push(Pair {

@@ -534,9 +534,11 @@ pub fn align_pair(source: &Cloud, target: &Cloud, params: &AlignParams) -> Resul
         verdict = Verdict::Ambiguous(quality::Reason::WeaklyConstrained);
     }
     // The listed poses, in file coordinates; the first is the answer after the fine fit.
-    let centroid = ps.points.iter().fold(Vector3::zeros(), |a, p| {
-        a + Vector3::new(p[0] as f64, p[1] as f64, p[2] as f64)
-    }) / ps.points.len() as f64;
+    let centroid = ps
+        .points
+        .iter()
+        .fold(Vector3::zeros(), |a, p| a + crate::geometry::vec3(*p))
+        / ps.points.len() as f64;
     let candidates: Vec<Candidate> = listed
         .iter()
         .enumerate()

@@ -67,7 +67,7 @@ fn plane_distance(target: &[[f32; 3]], index: &KdIndex, p: &Vector3<f64>) -> Opt
     }
     let v = |j: usize| {
         let q = target[j];
-        Vector3::new(q[0] as f64, q[1] as f64, q[2] as f64)
+        crate::geometry::vec3(q)
     };
     let n = hits.len() as f64;
     let mean = hits.iter().fold(Vector3::zeros(), |a, &(j, _)| a + v(j)) / n;

@@ -61,7 +61,7 @@ pub fn estimate_normals(
 }
 
 fn to_v(p: [f32; 3]) -> Vector3<f64> {
-    Vector3::new(p[0] as f64, p[1] as f64, p[2] as f64)
+    crate::geometry::vec3(p)
 }
 
 #[cfg(test)]
