@@ -385,7 +385,7 @@ impl<'a> FeatureWriter<'a> {
     }
 }
 
-/// Rows per chunk for `columns` f32 columns: about [`CHUNK_BYTES`] of output, 1 024 to 65 536.
+/// Rows per chunk for `columns` f32 columns: about 16 MiB of output, 1 024 to 65 536.
 pub fn chunk_rows(columns: usize) -> usize {
     (CHUNK_BYTES / (4 * columns.max(1))).clamp(1 << 10, 1 << 16)
 }
