@@ -119,8 +119,45 @@ pub struct Engine {
     tree_only: bool,
 }
 
-/// Where the neighbours of a centre come from: the cell grid (built per run with cells of the
-/// query radius), or the k-d tree when the grid would have too many cells along an axis.
+/// A cloud made ready for repeated [`Engine`] runs: the points, their k-d tree and the cell
+/// grid of the engine's largest support radius, built once ([`Engine::prepare`]) and reused by
+/// every [`Engine::compute_prepared`] / [`Engine::compute_at_prepared`] call, so computing a
+/// cloud chunk by chunk does not rebuild the grid for each chunk. Results are the same bytes
+/// as the unprepared calls.
+pub struct PreparedCloud<'a> {
+    points: &'a [[f32; 3]],
+    index: &'a KdIndex,
+    /// Cell grid with cells of the query radius (`None`: tree search, empty cloud, or too many
+    /// cells along an axis).
+    grid: Option<CellGrid>,
+    /// The query radius the grid was built for (file units).
+    query_radius: f32,
+}
+
+impl std::fmt::Debug for PreparedCloud<'_> {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("PreparedCloud")
+            .field("points", &self.points.len())
+            .field("grid", &self.grid.is_some())
+            .field("query_radius", &self.query_radius)
+            .finish()
+    }
+}
+
+impl PreparedCloud<'_> {
+    /// The points (local frame).
+    pub fn points(&self) -> &[[f32; 3]] {
+        self.points
+    }
+
+    /// The k-d tree over [`PreparedCloud::points`].
+    pub fn index(&self) -> &KdIndex {
+        self.index
+    }
+}
+
+/// Where the neighbours of a centre come from: the cell grid (built once per cloud with cells
+/// of the query radius, [`PreparedCloud`]), or the k-d tree when the grid would have too many cells along an axis.
 enum Search<'a> {
     Grid(&'a CellGrid),
     Tree(&'a KdIndex),
@@ -269,7 +306,48 @@ impl Engine {
         centres: &Centres,
         progress: Option<&(dyn Fn(usize) + Sync)>,
     ) -> Result<Features> {
+        let prepared = self.prepare(points, index)?;
+        self.compute_prepared(&prepared, centres, progress)
+    }
+
+    /// Prepares `points` (with `index` built over them) for repeated runs of this engine:
+    /// builds the cell grid of the largest support radius once. Use it with
+    /// [`Engine::compute_prepared`] and [`Engine::compute_at_prepared`] when one cloud is
+    /// computed in several calls (for example chunk by chunk); an engine with another largest
+    /// radius may use it too (it then searches as the unprepared calls do).
+    ///
+    /// # Errors
+    /// If `index` was not built over `points` (different lengths).
+    pub fn prepare<'a>(
+        &self,
+        points: &'a [[f32; 3]],
+        index: &'a KdIndex,
+    ) -> Result<PreparedCloud<'a>> {
         check_index(points, index)?;
+        let query_radius = self.query_radius();
+        let grid = (!points.is_empty() && !self.tree_only)
+            .then(|| CellGrid::new(points, query_radius).ok())
+            .flatten();
+        Ok(PreparedCloud {
+            points,
+            index,
+            grid,
+            query_radius,
+        })
+    }
+
+    /// [`Engine::compute_with_index`] over a [`PreparedCloud`] (same bytes).
+    ///
+    /// # Errors
+    /// A voxel size that is not a finite number greater than 0, or a centre index beyond the
+    /// cloud.
+    pub fn compute_prepared(
+        &self,
+        cloud: &PreparedCloud<'_>,
+        centres: &Centres,
+        progress: Option<&(dyn Fn(usize) + Sync)>,
+    ) -> Result<Features> {
+        let points = cloud.points;
         let indices: Vec<usize> = match centres {
             Centres::All => (0..points.len()).collect(),
             Centres::Voxel(v) => {
@@ -295,9 +373,25 @@ impl Engine {
             }
         };
         let positions: Vec<[f32; 3]> = indices.iter().map(|&i| points[i]).collect();
-        let mut f = self.run(points, index, positions, progress);
+        let mut f = self.run(cloud, positions, progress);
         f.indices = Some(indices);
         Ok(f)
+    }
+
+    /// [`Engine::compute_at_with`] over a [`PreparedCloud`] (same bytes).
+    pub fn compute_at_prepared(
+        &self,
+        cloud: &PreparedCloud<'_>,
+        centres: &[[f32; 3]],
+        progress: Option<&(dyn Fn(usize) + Sync)>,
+    ) -> Features {
+        self.run(cloud, centres.to_vec(), progress)
+    }
+
+    /// The neighbour query radius: the largest support radius, with [`QUERY_SLACK`].
+    fn query_radius(&self) -> f32 {
+        let r_max = self.recipe.radii().iter().copied().fold(0.0f32, f32::max);
+        r_max * QUERY_SLACK
     }
 
     /// Descriptors at arbitrary centre positions (local frame of `points`), with `index` built
@@ -327,8 +421,8 @@ impl Engine {
         centres: &[[f32; 3]],
         progress: Option<&(dyn Fn(usize) + Sync)>,
     ) -> Result<Features> {
-        check_index(points, index)?;
-        Ok(self.run(points, index, centres.to_vec(), progress))
+        let prepared = self.prepare(points, index)?;
+        Ok(self.run(&prepared, centres.to_vec(), progress))
     }
 
     fn scratch(&self) -> Scratch {
@@ -362,8 +456,7 @@ impl Engine {
 
     fn run(
         &self,
-        points: &[[f32; 3]],
-        index: &KdIndex,
+        cloud: &PreparedCloud<'_>,
         positions: Vec<[f32; 3]>,
         progress: Option<&(dyn Fn(usize) + Sync)>,
     ) -> Features {
@@ -380,18 +473,25 @@ impl Engine {
         } else {
             Vec::new()
         };
-        let r_max = self.recipe.radii().iter().copied().fold(0.0f32, f32::max);
-        let grid = (rows > 0 && !self.tree_only)
-            .then(|| CellGrid::new(points, r_max * QUERY_SLACK).ok())
+        let points = cloud.points;
+        // The cloud's grid serves when it was built for this engine's query radius; otherwise
+        // (a cloud prepared by an engine with another largest radius) the grid is built here.
+        let own_grid = (rows > 0 && !self.tree_only && cloud.query_radius != self.query_radius())
+            .then(|| CellGrid::new(points, self.query_radius()).ok())
             .flatten();
-        let search = match &grid {
+        let grid = match (&own_grid, self.tree_only || rows == 0) {
+            (Some(g), _) => Some(g),
+            (None, false) if cloud.query_radius == self.query_radius() => cloud.grid.as_ref(),
+            _ => None,
+        };
+        let search = match grid {
             Some(g) => Search::Grid(g),
-            None => Search::Tree(index),
+            None => Search::Tree(cloud.index),
         };
         // Centres are visited in the grid's cell order (ties by row), so that consecutive
         // centres share their cells' points in cache; each row is written where it belongs.
         let mut visit: Vec<u32> = (0..rows as u32).collect();
-        if let Some(g) = &grid {
+        if let Some(g) = grid {
             let keys: Vec<u64> = positions.iter().map(|p| g.sort_key(*p)).collect();
             visit.sort_unstable_by_key(|&i| (keys[i as usize], i));
         }

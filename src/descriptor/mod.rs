@@ -41,7 +41,7 @@ pub mod radial;
 mod recipe;
 mod support;
 
-pub use engine::{Centres, Engine, Features};
+pub use engine::{Centres, Engine, Features, PreparedCloud};
 pub use recipe::{
     DEFAULT_DEGREE, DEFAULT_SHELLS, Invariants, MAX_DEGREE, MAX_SHELLS, OLDEST_RECIPE_VERSION,
     RECIPE_VERSION, Recipe, RecipeBuilder, bispectrum_triples,

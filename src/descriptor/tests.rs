@@ -665,3 +665,43 @@ fn high_degree_and_many_shells_match_the_definition() {
         assert_close(f.coefficients_of(0, 0).unwrap(), &want, 2e-6);
     }
 }
+
+#[test]
+fn a_prepared_cloud_gives_the_same_bytes_for_any_engine() {
+    let cloud = bunny();
+    let r = bunny_radius(&cloud);
+    let index = KdIndex::new(&cloud.positions).unwrap();
+    let idx: Vec<usize> = (0..cloud.len()).step_by(11).collect();
+    let centres = Centres::Indices(idx.clone());
+    let at: Vec<[f32; 3]> = idx.iter().map(|&i| cloud.positions[i]).collect();
+    let engine = Engine::new(all_invariants_recipe(r));
+    let prepared = engine.prepare(&cloud.positions, &index).unwrap();
+    // Reference: the k-d tree engine, centres in the order given.
+    let want = Engine::new(all_invariants_recipe(r))
+        .tree_search()
+        .compute(&cloud, &centres)
+        .unwrap();
+    // The same prepared cloud, used twice (as chunk after chunk would), gives the same bytes.
+    for _ in 0..2 {
+        let got = engine.compute_prepared(&prepared, &centres, None).unwrap();
+        assert_eq!(got.values, want.values);
+        assert_eq!(got.counts, want.counts);
+        assert_eq!(got.flags, want.flags);
+        let got = engine.compute_at_prepared(&prepared, &at, None);
+        assert_eq!(got.values, want.values);
+    }
+    // An engine with another largest radius, or the tree engine, may use the same prepared
+    // cloud: it must not search the grid of the wrong cell size.
+    for other in [0.5 * r, 1.7 * r] {
+        let e = Engine::new(all_invariants_recipe(other));
+        let want = e.compute(&cloud, &centres).unwrap();
+        let got = e.compute_prepared(&prepared, &centres, None).unwrap();
+        assert_eq!(got.values, want.values, "radius {other}");
+        assert_eq!(got.counts, want.counts, "radius {other}");
+    }
+    let tree = Engine::new(all_invariants_recipe(r)).tree_search();
+    let got = tree.compute_prepared(&prepared, &centres, None).unwrap();
+    assert_eq!(got.values, want.values);
+    // A k-d tree over other points is an error, not a panic.
+    assert!(engine.prepare(&cloud.positions[1..], &index).is_err());
+}

@@ -415,31 +415,26 @@ fn write_features_in(
     progress: Option<&(dyn Fn(usize) + Sync)>,
     step: usize,
 ) -> Result<()> {
+    // The cell grid is built once for the whole cloud, not once per chunk (each run over a
+    // fresh grid of all the points made writing N points O(N²/step)).
+    let prepared = engine.prepare(points, index)?;
     let n = centres.len();
     let mut start = 0;
     while start < n {
         let end = (start + step).min(n);
         let chunk = match centres {
-            CentreList::All(_) => engine.compute_with_index(
-                points,
-                index,
+            CentreList::All(_) => engine.compute_prepared(
+                &prepared,
                 &Centres::Indices((start..end).collect()),
                 progress,
             )?,
-            CentreList::Points(ix) => engine.compute_with_index(
-                points,
-                index,
+            CentreList::Points(ix) => engine.compute_prepared(
+                &prepared,
                 &Centres::Indices(ix[start..end].to_vec()),
                 progress,
             )?,
             CentreList::Positions(at) => {
-                if index.len() != points.len() {
-                    return Err(Error::invalid(
-                        "the index is not built over these points",
-                        "build the index over the same points",
-                    ));
-                }
-                engine.compute_at_with(points, index, &at[start..end], progress)?
+                engine.compute_at_prepared(&prepared, &at[start..end], progress)
             }
         };
         writer.push(&chunk)?;
