@@ -133,14 +133,7 @@ pub fn analyse(points: &[Vector3<f64>], normals: &[Vector3<f64>], origin: [f64; 
             let w = Vector3::new(x[0], x[1], x[2]);
             let t = Vector3::new(x[3], x[4], x[5]);
             if w.norm() < t.norm() {
-                let mut a = t.normalize();
-                if a.iter()
-                    .copied()
-                    .fold(0.0, |m: f64, q| if q.abs() > m.abs() { q } else { m })
-                    < 0.0
-                {
-                    a = -a;
-                }
+                let a = signed_axis(t);
                 WeakDirection {
                     motion: Motion::Slide,
                     axis: [a.x, a.y, a.z],
@@ -150,14 +143,7 @@ pub fn analyse(points: &[Vector3<f64>], normals: &[Vector3<f64>], origin: [f64; 
             } else {
                 let omega = w / l;
                 let through = c + omega.cross(&t) / omega.norm_squared();
-                let mut a = omega.normalize();
-                if a.iter()
-                    .copied()
-                    .fold(0.0, |m: f64, q| if q.abs() > m.abs() { q } else { m })
-                    < 0.0
-                {
-                    a = -a;
-                }
+                let a = signed_axis(omega);
                 WeakDirection {
                     motion: Motion::Turn,
                     axis: [a.x, a.y, a.z],
@@ -256,6 +242,17 @@ pub fn stable_sample(
     }
     out.sort_unstable();
     out
+}
+
+/// `v` normalised, with its largest component (by magnitude) made positive, so that the same
+/// weak direction is always reported with the same sign.
+fn signed_axis(v: Vector3<f64>) -> Vector3<f64> {
+    let a = v.normalize();
+    let largest = a
+        .iter()
+        .copied()
+        .fold(0.0, |m: f64, q| if q.abs() > m.abs() { q } else { m });
+    if largest < 0.0 { -a } else { a }
 }
 
 #[cfg(test)]
