@@ -30,6 +30,7 @@ pub mod descriptor;
 pub mod error;
 pub mod geometry;
 pub mod io;
+pub mod parts;
 pub mod report;
 pub mod so3;
 pub mod spatial;

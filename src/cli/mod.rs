@@ -8,9 +8,12 @@
 
 pub mod align;
 pub mod align_checks;
+pub mod catalogue;
 pub mod common;
 pub mod features;
+pub mod identify;
 pub mod info;
+pub mod inspect;
 
 use clap::{Parser, Subcommand};
 use equiscan::Result;
@@ -36,6 +39,15 @@ pub enum Command {
     /// Register scans with no initial guess: the rigid transform carrying SOURCE onto TARGET
     /// (or every scan onto the first), with quality figures and a verdict.
     Align(align::AlignArgs),
+    /// Build or list a part catalogue: reference scans or meshes of each part, with
+    /// whole-shape signatures, for `identify` and `inspect --part`.
+    Catalogue(catalogue::CatalogueArgs),
+    /// Name the part each scan shows (or none of the catalogue's), with its pose in the
+    /// part's frame.
+    Identify(identify::IdentifyArgs),
+    /// Register a scan onto its part's reference and measure every point's signed deviation
+    /// against a tolerance, with clusters of out-of-tolerance points.
+    Inspect(inspect::InspectArgs),
 }
 
 impl Command {
@@ -45,6 +57,9 @@ impl Command {
             Command::Info(args) => info::run(args),
             Command::Features(args) => features::run(args),
             Command::Align(args) => align::run(args),
+            Command::Catalogue(args) => catalogue::run(args),
+            Command::Identify(args) => identify::run(args),
+            Command::Inspect(args) => inspect::run(args),
         }
     }
 }

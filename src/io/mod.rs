@@ -23,6 +23,7 @@ mod atomic;
 mod csv;
 pub mod guard;
 mod las;
+pub mod mesh;
 mod npy;
 mod ply;
 mod quiet_panics;

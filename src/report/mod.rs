@@ -4,6 +4,7 @@
 //!   splats, lines, rectangles, text, atomic PNG output.
 //! - [`font`]: the 5 × 9 glyph tables (ASCII 32–126 and `°`).
 //! - [`colour`]: layer palette and colour maps.
+//! - [`inspection`]: the inspection picture (deviation map, colour bar, histogram).
 //! - [`views`]: whole pictures — [`render_alignment_views`] (before/after rows × top, front,
 //!   side) and [`render_cloud_views`] (one cloud, optionally coloured by a value).
 //!
@@ -40,6 +41,7 @@
 pub mod canvas;
 pub mod colour;
 pub mod font;
+pub mod inspection;
 pub mod views;
 
 pub use canvas::{Canvas, Rgb, Share, Splat, ViewAxis, Viewport};
