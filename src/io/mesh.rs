@@ -62,7 +62,7 @@ impl Mesh {
                 "repair the mesh or export it again",
             ));
         }
-        if !(self.area() > 0.0) {
+        if self.area().partial_cmp(&0.0) != Some(std::cmp::Ordering::Greater) {
             return Err(Error::file(
                 path,
                 "the mesh has no triangle of positive area",
@@ -85,7 +85,7 @@ impl Mesh {
         let mut rng = SplitMix64::new(seed);
         let mut points = Vec::with_capacity(n);
         let mut normals = Vec::with_capacity(n);
-        if !(total > 0.0) {
+        if total.partial_cmp(&0.0) != Some(std::cmp::Ordering::Greater) {
             return (points, normals);
         }
         for _ in 0..n {
@@ -223,13 +223,13 @@ fn read_ascii_stl(path: &Path, bytes: &[u8]) -> Result<Mesh> {
             ];
             mesh.vertices.push(v);
             corners += 1;
-            if corners % 3 == 0 {
+            if corners.is_multiple_of(3) {
                 let b = (corners - 3) as u32;
                 mesh.triangles.push([b, b + 1, b + 2]);
             }
         }
     }
-    if corners % 3 != 0 {
+    if !corners.is_multiple_of(3) {
         return Err(Error::file(
             path,
             format!("{corners} vertices do not make whole triangles"),

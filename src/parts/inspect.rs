@@ -229,7 +229,6 @@ fn clusters(
             let mut members = vec![seed];
             while let Some(k) = stack.pop() {
                 tree.for_each_within(pts[k], link, |j, _| {
-                    let j = j as usize;
                     if label[j] == usize::MAX {
                         label[j] = seed;
                         stack.push(j);

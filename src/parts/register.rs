@@ -8,13 +8,15 @@
 //!    covering radius 27°) the scan's centroid is put on the reference's, then a few trimmed
 //!    point-to-point ICP steps (Horn's closed form) on the coarse samples; each start is scored
 //!    by its mean distance to the coarse reference (capped at one coarse voxel);
-//!    the best distinct ones go on to a medium stage: point-to-plane ICP of an 800-point
-//!    sample with a wide window, scored by [`Residuals::score`];
-//! 2. the best distinct poses are refined by robust point-to-plane ICP ([`icp_point_to_plane`])
-//!    on the fine sample against all reference points with their normals;
-//! 3. the winner's turns about the reference's principal axes (every 10°, screened by their fit; for symmetric parts)
-//!    are refined too, and the pose verdict compares the winner with its best distinct rival
-//!    by the points only one of them explains ([`super::evidence`]).
+//! 2. medium stage: the best distinct starts go through point-to-plane ICP of an 800-point
+//!    sample with a wide window, scored by [`Residuals::score`]; so do the winner's turns about
+//!    the reference's principal axes (every 10°, the best dozen by their fit before ICP, and
+//!    every quarter and half turn) and its quarter and half turns of the scan about the scan's
+//!    own principal axes (a partial view often fits upside down on a face of the part);
+//! 3. the best distinct poses are refined by robust point-to-plane ICP ([`icp_point_to_plane`])
+//!    on the fine sample against all reference points with their normals, and the pose verdict
+//!    compares the winner with its best distinct rival by the points only one of them
+//!    explains ([`super::evidence`]).
 //!
 //! Transforms map the scan's local frame to the reference's local frame here; callers turn
 //! them into file coordinates with [`Rigid::between_origins`]. Everything is deterministic.
@@ -315,6 +317,19 @@ pub fn fit(scan: &PreparedScan, r: &Prepared, params: &FitParams) -> Fit {
                         screened.push((0.0, t));
                     }
                 }
+            }
+        }
+        // Quarter and half turns of the scan about its own principal axes through its
+        // centroid: a partial view often fits upside down on a face of the part.
+        let scan_axes = super::reference::principal_axes(&scan.fine, &scan.centroid);
+        for axis in 0..3 {
+            let a = Unit::new_normalize(scan_axes.column(axis).into_owned());
+            for k in 1..4 {
+                let rot: Matrix3<f64> =
+                    *Rotation3::from_axis_angle(&a, k as f64 * std::f64::consts::FRAC_PI_2)
+                        .matrix();
+                let flip = Rigid::new(rot, scan.centroid - rot * scan.centroid);
+                screened.push((0.0, best.compose(&flip)));
             }
         }
         let turned: Vec<(Rigid, f64)> = screened.par_iter().map(|(_, t)| medium(t)).collect();

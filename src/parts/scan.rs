@@ -60,7 +60,7 @@ impl PreparedScan {
         let spacing = estimate_spacing_with(&scan.positions, &index).unwrap_or(0.0) as f64;
         let (lo, hi) = super::reference::bounds(&scan.positions);
         let diag = (hi - lo).norm();
-        if !(diag > 0.0) {
+        if diag.partial_cmp(&0.0) != Some(std::cmp::Ordering::Greater) {
             return Err(Error::file(
                 name,
                 "all points coincide",

@@ -49,7 +49,7 @@ pub fn pair_distances(points: &[[f32; 3]]) -> Vec<f32> {
 /// The histogram of `distances` on `[0, diameter]` ([`BINS`] + 1 bins, summing to 1).
 pub fn histogram(distances: &[f32], diameter: f64) -> Vec<f32> {
     let mut h = vec![0f32; BINS + 1];
-    if distances.is_empty() || !(diameter > 0.0) {
+    if distances.is_empty() || diameter.partial_cmp(&0.0) != Some(std::cmp::Ordering::Greater) {
         return h;
     }
     for &d in distances {

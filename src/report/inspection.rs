@@ -18,7 +18,7 @@ use crate::geometry::Rigid;
 use crate::parts::report::InspectReport;
 
 /// Picture size in pixels.
-pub const SIZE: [u32; 2] = [1800, 1120];
+pub const SIZE: [u32; 2] = [1800, 1080];
 
 const BACKGROUND: Rgb = [255, 255, 255];
 const INK: Rgb = [30, 30, 30];
@@ -78,6 +78,25 @@ fn printable(s: &str) -> String {
         .collect()
 }
 
+/// Splits `text` into lines of at most `width` characters at spaces.
+fn wrap(text: &str, width: usize) -> Vec<String> {
+    let mut lines = Vec::new();
+    let mut line = String::new();
+    for word in text.split(' ') {
+        if !line.is_empty() && line.chars().count() + 1 + word.chars().count() > width {
+            lines.push(std::mem::take(&mut line));
+        }
+        if !line.is_empty() {
+            line.push(' ');
+        }
+        line.push_str(word);
+    }
+    if !line.is_empty() {
+        lines.push(line);
+    }
+    lines
+}
+
 fn number(v: f64, span: f64) -> String {
     let decimals = if span >= 10.0 {
         1
@@ -93,7 +112,13 @@ fn number(v: f64, span: f64) -> String {
 pub fn draw_inspection(p: &InspectionPicture<'_>) -> Result<Canvas> {
     let [width, height] = SIZE;
     let mut c = Canvas::new(width, height, BACKGROUND);
-    let unit = if p.unit.is_empty() { "units" } else { p.unit };
+    let unit = if p.unit.is_empty() {
+        "file units"
+    } else {
+        p.unit
+    };
+    // Characters per line of text at scale 2 across the picture.
+    let chars = ((width as i64 - 2 * MARGIN) / 12) as usize;
     let r = p.report;
     let tf = Rigid::from_rows(&r.transform).unwrap_or_default();
     let tol = p.tolerance;
@@ -126,7 +151,7 @@ pub fn draw_inspection(p: &InspectionPicture<'_>) -> Result<Canvas> {
     let d = &r.deviation;
     let lines = [
         format!(
-            "reference {}; tolerance +/- {} {unit} ({}); {:.2} % of points outside; {} clusters",
+            "reference {}; tolerance +/- {} {unit} ({}); {:.2} % of points outside; clusters: {}",
             r.reference,
             r.tolerance.value,
             r.tolerance.from,
@@ -148,14 +173,12 @@ pub fn draw_inspection(p: &InspectionPicture<'_>) -> Result<Canvas> {
             }
         ),
     ];
-    for (k, l) in lines.iter().enumerate() {
-        c.text(
-            MARGIN,
-            MARGIN + 40 + 24 * k as i64,
-            &printable(l),
-            2,
-            SOFT_INK,
-        );
+    let wrapped: Vec<String> = lines
+        .iter()
+        .flat_map(|l| wrap(&printable(l), chars))
+        .collect();
+    for (k, l) in wrapped.iter().take(3).enumerate() {
+        c.text(MARGIN, MARGIN + 40 + 24 * k as i64, l, 2, SOFT_INK);
     }
 
     // Points in the part's frame.
@@ -169,7 +192,7 @@ pub fn draw_inspection(p: &InspectionPicture<'_>) -> Result<Canvas> {
             ([q.x, q.y, q.z], p.deviations[i] as f64)
         })
         .collect();
-    let top = MARGIN + 100;
+    let top = MARGIN + 116;
     let panel_h = 600.0;
     let panel_w = (width as f64 - 2.0 * MARGIN as f64 - 40.0) / 3.0;
     for (k, view) in ViewAxis::ALL.into_iter().enumerate() {
@@ -248,17 +271,23 @@ pub fn draw_inspection(p: &InspectionPicture<'_>) -> Result<Canvas> {
     }
     c.stroke_rect(bar_x, bar_y, bar_w as u32, 26, 1, INK);
     let at = |v: f64| bar_x + ((v + range) / (2.0 * range) * (bar_w - 1) as f64).round() as i64;
-    for v in [-range, -tol, 0.0, tol, range] {
+    // Ends and zero on the first row of labels, the band's edges on a second row.
+    for (v, row) in [(-range, 0), (0.0, 0), (range, 0), (-tol, 1), (tol, 1)] {
         let x = at(v);
-        c.fill_rect(x, bar_y + 26, 1, 8, INK);
+        c.fill_rect(x, bar_y + 26, 1, 8 + 22 * row, INK);
         let label = number(v, range);
         let w = Canvas::text_width(&label, 2) as i64;
-        c.text(x - w / 2, bar_y + 38, &label, 2, INK);
+        let lx = match row {
+            0 => x - w / 2,
+            _ if v < 0.0 => x - w - 4,
+            _ => x + 4,
+        };
+        c.text(lx, bar_y + 38 + 22 * row as i64, &label, 2, INK);
     }
     c.text(
         bar_x,
-        bar_y + 64,
-        "grey: within tolerance; blue: below (material missing); orange-brown: above (extra material)",
+        bar_y + 90,
+        "grey: within tolerance; blue: below the surface;\norange to brown: above it (extra material)",
         2,
         SOFT_INK,
     );
@@ -318,13 +347,10 @@ pub fn draw_inspection(p: &InspectionPicture<'_>) -> Result<Canvas> {
     );
 
     // Caution.
-    let foot = height as i64 - MARGIN - 22;
-    c.text(
-        MARGIN,
-        foot,
-        &printable(crate::parts::CAUTION),
-        2,
-        [150, 30, 20],
-    );
+    let caution = wrap(&printable(crate::parts::CAUTION), chars);
+    let foot = height as i64 - MARGIN - 24 * caution.len() as i64;
+    for (k, l) in caution.iter().enumerate() {
+        c.text(MARGIN, foot + 24 * k as i64, l, 2, [150, 30, 20]);
+    }
     Ok(c)
 }
