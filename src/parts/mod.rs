@@ -1,7 +1,7 @@
 //! Part identification and inspection: which catalogued part a scan shows (or none), its pose
 //! in the part's frame, and how its surface deviates from the part's reference.
 //!
-//! - [`reference`]: a part's reference surface (points with outward normals, the mesh when
+//! - [`reference`](mod@reference): a part's reference surface (points with outward normals, the mesh when
 //!   there is one) and its search structures ([`reference::Prepared`]);
 //! - [`catalogue`]: the versioned catalogue file (`catalogue build` / `show`);
 //! - [`signature`]: whole-shape rotation invariants (diameter, D2 shape distribution) for the
