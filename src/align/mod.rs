@@ -59,7 +59,7 @@ pub use crate::geometry::rigid;
 pub use candidates::Candidate;
 pub use constraint::{Constraint, Motion, WeakDirection};
 pub use icp::RobustLoss;
-pub use multi::{LoopResidual, MultiAlignment, PairAlignment, align_many};
+pub use multi::{LoopResidual, MultiAlignment, PairAlignment, align_many, align_many_named};
 pub use pipeline::{
     AlignParams, Alignment, Method, StageTime, align_named, align_pair, align_prepared,
 };

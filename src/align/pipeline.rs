@@ -3,6 +3,7 @@
 
 use std::time::Instant;
 
+use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
 use super::candidates::Candidate;
@@ -14,7 +15,7 @@ use super::rigid::Rigid;
 use super::tuning::Tuning;
 use super::{hypotheses, judge, rank, refine};
 use crate::cloud::Cloud;
-use crate::error::Result;
+use crate::error::{Error, Result};
 
 /// How correspondences are described and turned into pose hypotheses.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
@@ -130,19 +131,20 @@ pub struct Alignment {
     pub tuning: Tuning,
 }
 
-struct Clock {
+/// Wall time per stage, lap by lap.
+pub(crate) struct Clock {
     last: Instant,
     stages: Vec<StageTime>,
 }
 
 impl Clock {
-    fn new() -> Self {
+    pub(crate) fn new() -> Self {
         Clock {
             last: Instant::now(),
             stages: Vec::new(),
         }
     }
-    fn lap(&mut self, stage: &str) {
+    pub(crate) fn lap(&mut self, stage: &str) {
         let now = Instant::now();
         self.stages.push(StageTime {
             stage: stage.to_string(),
@@ -169,16 +171,37 @@ pub fn align_named(
     let mut clock = Clock::new();
     let voxel = pair_voxel(params, source, target)?;
     support_radius(params, voxel)?;
-    let (gs, gt) = rayon::join(
-        || Geometry::of(source.0, source.1, params, voxel),
-        || Geometry::of(target.0, target.1, params, voxel),
-    );
-    let (gs, gt) = (gs?, gt?);
+    let mut both = prepare_timed(&[source, target], params, voxel, &mut clock)?.into_iter();
+    match (both.next(), both.next()) {
+        (Some(ps), Some(pt)) => register(&ps, &pt, params, clock),
+        _ => Err(Error::internal(
+            "two clouds did not give two prepared scans",
+            "report this as a bug",
+        )),
+    }
+}
+
+/// Prepares `clouds` (name, cloud) at `voxel`, all at once, in order; the keypoint step and
+/// the descriptor step are laps of `clock`. The first failing cloud's error is returned.
+pub(crate) fn prepare_timed(
+    clouds: &[(&str, &Cloud)],
+    params: &AlignParams,
+    voxel: f64,
+    clock: &mut Clock,
+) -> Result<Vec<PreparedScan>> {
+    let geometry: Vec<Result<Geometry<'_>>> = clouds
+        .par_iter()
+        .map(|&(name, cloud)| Geometry::of(name, cloud, params, voxel))
+        .collect();
+    let geometry: Vec<Geometry<'_>> = geometry.into_iter().collect::<Result<_>>()?;
     clock.lap("keypoints and normals");
-    let (ps, pt) = rayon::join(|| gs.describe(params), || gt.describe(params));
-    let (ps, pt) = (ps?, pt?);
+    let scans: Vec<Result<PreparedScan>> = geometry
+        .into_par_iter()
+        .map(|g| g.describe(params))
+        .collect();
+    let scans = scans.into_iter().collect::<Result<_>>()?;
     clock.lap("features");
-    register(&ps, &pt, params, clock)
+    Ok(scans)
 }
 
 /// Aligns two prepared scans: `source` onto `target`. Both must have been prepared with the
@@ -196,7 +219,7 @@ pub fn align_prepared(
 }
 
 /// The four stages on two prepared scans: hypotheses → rank → refine → judge.
-fn register(
+pub(crate) fn register(
     source: &PreparedScan,
     target: &PreparedScan,
     params: &AlignParams,

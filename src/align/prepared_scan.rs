@@ -23,7 +23,7 @@ use super::fpfh::{FPFH_LEN, fpfh};
 use super::pipeline::{AlignParams, Method};
 use super::prep::{choose_voxel, figure, prepare, spacing_of};
 use crate::cloud::Cloud;
-use crate::error::{Error, Result};
+use crate::error::{Error, Kind, Result};
 use crate::spatial::{KdIndex, estimate_spacing_with, voxel_downsample};
 
 /// Version of the stored form of a [`PreparedScan`]; a scan stored with another version is
@@ -175,7 +175,8 @@ pub fn pair_voxel(
     Ok(vs?.max(vt?))
 }
 
-fn checked_voxel(v: f64) -> Result<f64> {
+/// `v` when it is a usable voxel size (positive, finite), else the error that says so.
+pub(crate) fn checked_voxel(v: f64) -> Result<f64> {
     if v > 0.0 && v.is_finite() {
         Ok(v)
     } else {
@@ -424,6 +425,7 @@ impl TryFrom<StoredScan> for PreparedScan {
                 format!("{}: stored prepared scan {what}", s.name),
                 "prepare the scan again from its file",
             )
+            .with_kind(Kind::Input)
         };
         if s.format_version != PREPARED_SCAN_VERSION {
             return Err(bad(format!(

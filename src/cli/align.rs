@@ -17,7 +17,7 @@ use equiscan::align::report::{
     Input, MultiReport, PairReport, RunContext, Timing, Units, fingerprint, write_pair_picture,
 };
 use equiscan::align::truth::{TruthCheck, read_truth};
-use equiscan::align::{AlignParams, Method, align_many, align_pair};
+use equiscan::align::{AlignParams, Method, align_many_named, align_named};
 use equiscan::io::guard::{check_extension, check_outputs};
 use equiscan::io::{FileInfo, read_cloud, write_atomic};
 use equiscan::{Cloud, Error, Result};
@@ -196,16 +196,21 @@ fn registered(args: &AlignArgs) -> Result<u8> {
         })
         .collect();
     let stages = "registering (keypoints, descriptors, matching, poses, refinement)";
+    let names: Vec<String> = args.scans.iter().map(|p| p.display().to_string()).collect();
     if read.len() > 2 {
-        let clouds: Vec<Cloud> = read.iter().map(|(c, _)| c.clone()).collect();
-        let multi = busy(c.quiet, stages, || align_many(&clouds, &p))?;
+        let scans: Vec<(&str, &Cloud)> = names
+            .iter()
+            .map(String::as_str)
+            .zip(read.iter().map(|(c, _)| c))
+            .collect();
+        let multi = busy(c.quiet, stages, || align_many_named(&scans, &p))?;
         let report = MultiReport::new(&inputs, p.method, &multi, &ctx);
         finish(args, &report, &report.summary())?;
         return Ok(if report.is_confident() { 0 } else { 1 });
     }
     let (source, target) = (inputs[0], inputs[1]);
     let a = busy(c.quiet, stages, || {
-        align_pair(source.cloud, target.cloud, &p)
+        align_named((&names[0], source.cloud), (&names[1], target.cloud), &p)
     })?;
     let check = truth.map(|t| TruthCheck::new(&a.transform, &t, &source.cloud.centroid()));
     let mut report = PairReport::new(source, target, p.method, &a, check, &ctx);
