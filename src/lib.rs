@@ -33,6 +33,7 @@ pub mod io;
 pub mod report;
 pub mod so3;
 pub mod spatial;
+pub mod text;
 
 pub use cloud::Cloud;
 pub use error::{Error, Result};

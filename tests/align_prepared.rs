@@ -115,6 +115,9 @@ fn scans_prepared_differently_are_refused_naming_both_files() {
     assert!(align_prepared(&a, &b, &params).is_ok());
 }
 
+/// A change made to a stored scan.
+type Edit = fn(&mut serde_json::Value);
+
 #[test]
 fn damaged_stored_scans_are_refused_naming_the_scan() {
     let mesh = bunny();
@@ -123,7 +126,7 @@ fn damaged_stored_scans_are_refused_naming_the_scan() {
     let voxel = pair_voxel(&params, ("a.ply", &p.source), ("b.ply", &p.target)).unwrap();
     let a = PreparedScan::prepare("part_a.ply", &p.source, &params, voxel).unwrap();
     let good: serde_json::Value = serde_json::to_value(&a).unwrap();
-    let edits: [(&str, fn(&mut serde_json::Value)); 4] = [
+    let edits: [(&str, Edit); 4] = [
         ("version", |v| v["format_version"] = 99.into()),
         ("short rows", |v| {
             v["descriptors"]["rows"].as_array_mut().unwrap().pop();

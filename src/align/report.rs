@@ -10,12 +10,13 @@ use std::path::Path;
 
 use serde::Serialize;
 
+use super::export::MoveRecord;
 use super::multi::{LoopResidual, MultiAlignment};
 use super::pipeline::{Alignment, Method};
 use super::quality::{Reason, Verdict};
 use super::truth::TruthCheck;
 use crate::cloud::Cloud;
-use crate::error::Result;
+use crate::error::{Error, Result};
 use crate::geometry::Rigid;
 use crate::geometry::{to_f32, vec3};
 use crate::io::FileInfo;
@@ -520,6 +521,25 @@ impl PairReport {
         }
     }
 
+    /// Puts the time spent reading the scans first in the timings, unless the run is
+    /// reproducible (`SOURCE_DATE_EPOCH`: no wall times then).
+    pub fn add_reading_time(&mut self, seconds: f64, ctx: &RunContext) {
+        if !ctx.reproducible {
+            let stage = "reading".to_string();
+            self.timings.insert(0, Timing { stage, seconds });
+        }
+    }
+
+    /// What a file moved by this result records: the program version, the verdict and the
+    /// transform.
+    pub fn move_record(&self, ctx: &RunContext) -> MoveRecord {
+        MoveRecord {
+            version: ctx.version.clone(),
+            verdict: self.verdict.clone(),
+            transform: self.transform,
+        }
+    }
+
     /// True for a confident result.
     pub fn is_confident(&self) -> bool {
         self.verdict == "confident"
@@ -717,6 +737,19 @@ fn distances_to(a: &Cloud, a_tf: &Rigid, b: &Cloud, b_tf: &Rigid) -> Vec<f32> {
             index.nearest_one(to_f32(&q)).1.sqrt()
         })
         .collect()
+}
+
+/// Writes `report` (a [`PairReport`] or [`MultiReport`]) to `path` as pretty-printed JSON with
+/// a final newline, replacing the file as a whole ([`crate::io::write_atomic`]).
+pub fn write_report<T: Serialize>(path: &Path, report: &T) -> Result<()> {
+    let json = serde_json::to_string_pretty(report)
+        .map_err(|e| Error::internal(format!("report: {e}"), "report this as a bug"))?;
+    crate::io::write_atomic(path, |w| {
+        use std::io::Write;
+        w.write_all(json.as_bytes())
+            .and_then(|_| w.write_all(b"\n"))
+            .map_err(|e| Error::io(path, &e))
+    })
 }
 
 /// Draws SOURCE and TARGET before and after `tf` (three views each) with the report's figures

@@ -21,6 +21,7 @@
 
 mod cost;
 mod plan;
+mod run;
 mod sidecar;
 mod sinks;
 
@@ -34,6 +35,7 @@ use crate::spatial::KdIndex;
 
 pub use cost::{Cost, estimate};
 pub use plan::{Job, plan};
+pub use run::{Budget, CentreChoice, Summary, check_budget, choose_centres, radius_from_spacing};
 pub use sidecar::{
     CentresInfo, CountSummary, Metadata, SIDECAR_VERSION, Sidecar, checksum, sidecar_path, verify,
 };
