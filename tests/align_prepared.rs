@@ -42,12 +42,12 @@ fn prepared_scans_give_the_pair_result_also_after_a_json_round_trip() {
         assert_eq!(voxel, direct.voxel);
         let s = PreparedScan::prepare("s.ply", &p.source, &params, voxel).unwrap();
         let t = PreparedScan::prepare("t.ply", &p.target, &params, voxel).unwrap();
-        assert_eq!(s.name, "s.ply");
+        assert_eq!(s.name(), "s.ply");
         let prepared = align_prepared(&s, &t, &params).unwrap();
         assert_eq!(fingerprint(&prepared), fingerprint(&direct), "{method:?}");
         let (s2, t2) = (round_trip(&s), round_trip(&t));
-        assert_eq!(s2.keypoints, s.keypoints);
-        assert_eq!(s2.descriptors, s.descriptors);
+        assert_eq!(s2.keypoints(), s.keypoints());
+        assert_eq!(s2.descriptors(), s.descriptors());
         let again = align_prepared(&s2, &t2, &params).unwrap();
         assert_eq!(
             fingerprint(&again),

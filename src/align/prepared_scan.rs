@@ -82,33 +82,34 @@ impl StoredRecipe {
 }
 
 /// One cloud prepared for registration (see the module documentation for the frames and units).
+/// The fields are read through methods, so that the trees built over them stay valid.
 #[derive(Serialize, Deserialize)]
 #[serde(try_from = "StoredScan")]
 pub struct PreparedScan {
     /// [`PREPARED_SCAN_VERSION`] when stored.
-    pub format_version: u32,
+    pub(crate) format_version: u32,
     /// Display name used in messages and reports: the file name.
-    pub name: String,
+    pub(crate) name: String,
     /// f64 origin of the local frame, file coordinates.
-    pub origin: [f64; 3],
+    pub(crate) origin: [f64; 3],
     /// Keypoint voxel size (file units).
-    pub voxel: f64,
+    pub(crate) voxel: f64,
     /// Edge of the fine grid (file units).
-    pub fine_voxel: f64,
+    pub(crate) fine_voxel: f64,
     /// Method, support radius and recipe of the descriptors.
-    pub settings: DescriptorSettings,
+    pub(crate) settings: DescriptorSettings,
     /// Keypoints, local frame.
-    pub keypoints: Vec<[f32; 3]>,
+    pub(crate) keypoints: Vec<[f32; 3]>,
     /// Unit normals at the keypoints, oriented away from the keypoints' centroid.
-    pub normals: Vec<[f32; 3]>,
+    pub(crate) normals: Vec<[f32; 3]>,
     /// Descriptors at the keypoints, in keypoint order.
-    pub descriptors: Descriptors,
+    pub(crate) descriptors: Descriptors,
     /// Fine points (final ICP), local frame.
-    pub fine_points: Vec<[f32; 3]>,
+    pub(crate) fine_points: Vec<[f32; 3]>,
     /// Unit normals at the fine points.
-    pub fine_normals: Vec<[f32; 3]>,
+    pub(crate) fine_normals: Vec<[f32; 3]>,
     /// Every point of the cloud, local frame (the RMSE is measured on these).
-    pub points: Vec<[f32; 3]>,
+    pub(crate) points: Vec<[f32; 3]>,
     #[serde(skip)]
     keypoint_index: KdIndex,
     #[serde(skip)]
@@ -309,6 +310,66 @@ impl PreparedScan {
         voxel: f64,
     ) -> Result<PreparedScan> {
         Geometry::of(name, cloud, params, voxel)?.describe(params)
+    }
+
+    /// Version of the stored form ([`PREPARED_SCAN_VERSION`]).
+    pub fn format_version(&self) -> u32 {
+        self.format_version
+    }
+
+    /// Display name used in messages and reports: the file name.
+    pub fn name(&self) -> &str {
+        &self.name
+    }
+
+    /// f64 origin of the local frame, file coordinates.
+    pub fn origin(&self) -> [f64; 3] {
+        self.origin
+    }
+
+    /// Keypoint voxel size (file units).
+    pub fn voxel(&self) -> f64 {
+        self.voxel
+    }
+
+    /// Edge of the fine grid (file units).
+    pub fn fine_voxel(&self) -> f64 {
+        self.fine_voxel
+    }
+
+    /// Method, support radius and recipe of the descriptors.
+    pub fn settings(&self) -> &DescriptorSettings {
+        &self.settings
+    }
+
+    /// Keypoints, local frame.
+    pub fn keypoints(&self) -> &[[f32; 3]] {
+        &self.keypoints
+    }
+
+    /// Unit normals at the keypoints, oriented away from the keypoints' centroid.
+    pub fn normals(&self) -> &[[f32; 3]] {
+        &self.normals
+    }
+
+    /// Descriptors at the keypoints, in keypoint order.
+    pub fn descriptors(&self) -> &Descriptors {
+        &self.descriptors
+    }
+
+    /// Fine points (final ICP), local frame.
+    pub fn fine_points(&self) -> &[[f32; 3]] {
+        &self.fine_points
+    }
+
+    /// Unit normals at the fine points.
+    pub fn fine_normals(&self) -> &[[f32; 3]] {
+        &self.fine_normals
+    }
+
+    /// Every point of the cloud, local frame (the RMSE is measured on these).
+    pub fn points(&self) -> &[[f32; 3]] {
+        &self.points
     }
 
     /// The k-d tree over the keypoints.
