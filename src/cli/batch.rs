@@ -165,12 +165,30 @@ impl Ticker {
         let total: u64 = plan.todo.iter().map(|&i| plan.tiles[i].points).sum();
         let bar = (show && terminal).then(|| {
             let b = indicatif::ProgressBar::new(total);
-            b.set_style(
-                indicatif::ProgressStyle::with_template(
-                    "{msg} {bar:30} {human_pos}/{human_len} points, {per_sec}, {eta} left",
-                )
-                .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar()),
+            // Counts grouped as in every other message (`1 234 567`), the rate in whole points.
+            let style = indicatif::ProgressStyle::with_template(
+                "{msg} {bar:30} {done} of {total} points, {rate} points/s, {eta} left",
+            )
+            .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar())
+            .with_key(
+                "done",
+                |s: &indicatif::ProgressState, w: &mut dyn std::fmt::Write| {
+                    let _ = w.write_str(&group(s.pos() as usize));
+                },
+            )
+            .with_key(
+                "total",
+                |s: &indicatif::ProgressState, w: &mut dyn std::fmt::Write| {
+                    let _ = w.write_str(&group(s.len().unwrap_or(0) as usize));
+                },
+            )
+            .with_key(
+                "rate",
+                |s: &indicatif::ProgressState, w: &mut dyn std::fmt::Write| {
+                    let _ = w.write_str(&group(s.per_sec().round() as usize));
+                },
             );
+            b.set_style(style);
             b
         });
         Ticker {
