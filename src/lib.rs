@@ -25,6 +25,7 @@
 #![deny(missing_docs)]
 
 pub mod align;
+pub mod batch;
 pub mod cloud;
 pub mod descriptor;
 pub mod error;

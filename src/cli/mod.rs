@@ -8,6 +8,7 @@
 
 pub mod align;
 pub mod align_checks;
+pub mod batch;
 pub mod common;
 pub mod features;
 pub mod info;
@@ -36,6 +37,10 @@ pub enum Command {
     /// Register scans with no initial guess: the rigid transform carrying SOURCE onto TARGET
     /// (or every scan onto the first), with quality figures and a verdict.
     Align(align::AlignArgs),
+    /// Descriptors of every point of many tiles: one feature file per input in OUTDIR, with
+    /// points of neighbouring tiles as neighbours (halo), a journal to resume an interrupted
+    /// run, and shards to split a run over processes or hosts.
+    Batch(batch::BatchArgs),
 }
 
 impl Command {
@@ -45,6 +50,7 @@ impl Command {
             Command::Info(args) => info::run(args),
             Command::Features(args) => features::run(args),
             Command::Align(args) => align::run(args),
+            Command::Batch(args) => batch::run(args),
         }
     }
 }

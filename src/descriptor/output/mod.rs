@@ -20,6 +20,7 @@
 //! [`verify`] refuses a pair torn by a kill between the two renames.
 
 mod cost;
+mod parquet;
 mod plan;
 mod sidecar;
 mod sinks;
@@ -33,6 +34,7 @@ use crate::io::{FileInfo, LasOptions};
 use crate::spatial::KdIndex;
 
 pub use cost::{Cost, estimate};
+pub use parquet::{ROW_GROUP_BYTES, row_group_rows};
 pub use plan::{Job, plan};
 pub use sidecar::{
     CentresInfo, CountSummary, Metadata, SIDECAR_VERSION, Sidecar, checksum, sidecar_path, verify,
@@ -55,6 +57,8 @@ pub enum Format {
     Las,
     /// Compressed LAS 1.4 with Extra Bytes.
     Laz,
+    /// Apache Parquet: file coordinates (f64), point attributes, feature columns (f32).
+    Parquet,
 }
 
 impl Format {
@@ -67,6 +71,7 @@ impl Format {
             "csv" => Format::Csv,
             "las" => Format::Las,
             "laz" => Format::Laz,
+            "parquet" => Format::Parquet,
             _ => return None,
         })
     }
@@ -79,6 +84,7 @@ impl Format {
             Format::Csv => "csv",
             Format::Las => "las",
             Format::Laz => "laz",
+            Format::Parquet => "parquet",
         }
     }
 
@@ -100,10 +106,10 @@ impl Format {
 impl std::str::FromStr for Format {
     type Err = String;
 
-    /// `npy`, `ply`, `csv`, `las` or `laz`, without case.
+    /// `npy`, `ply`, `csv`, `las`, `laz` or `parquet`, without case.
     fn from_str(s: &str) -> std::result::Result<Format, String> {
         Format::from_path(Path::new(&format!("x.{s}"))).ok_or_else(|| {
-            format!("{s} is not a feature-file format; give npy, ply, csv, las or laz")
+            format!("{s} is not a feature-file format; give npy, ply, csv, las, laz or parquet")
         })
     }
 }
