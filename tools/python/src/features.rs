@@ -12,19 +12,20 @@ use crate::arrays::{cloud_from, matrix};
 use crate::errors::detached;
 
 /// The recipe of a call (the CLI's options, same defaults).
-struct Options {
-    radii: Option<Vec<f32>>,
-    degree: usize,
-    shells: usize,
-    version: u32,
-    max_neighbours: Option<usize>,
-    invariants: String,
-    keep_coefficients: bool,
-    voxel: Option<f32>,
+pub(crate) struct Options {
+    pub radii: Option<Vec<f32>>,
+    pub degree: usize,
+    pub shells: usize,
+    pub version: u32,
+    pub max_neighbours: Option<usize>,
+    pub invariants: String,
+    pub keep_coefficients: bool,
+    pub voxel: Option<f32>,
 }
 
 impl Options {
-    fn recipe(&self, radii: Vec<f32>) -> Result<Recipe> {
+    /// The recipe with `radii`, checked.
+    pub fn recipe(&self, radii: Vec<f32>) -> Result<Recipe> {
         Recipe::builder()
             .radii(radii)
             .version(self.version)

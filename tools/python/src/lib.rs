@@ -11,6 +11,7 @@ use pyo3::prelude::*;
 
 mod align;
 mod arrays;
+mod batch;
 mod errors;
 mod features;
 mod read;
@@ -23,6 +24,8 @@ fn _native(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(read::read, m)?)?;
     m.add_function(wrap_pyfunction!(align::align, m)?)?;
     m.add_function(wrap_pyfunction!(write::write, m)?)?;
+    m.add_function(wrap_pyfunction!(batch::batch_run_tile, m)?)?;
+    m.add_class::<batch::BatchRun>()?;
     m.add("__version__", env!("CARGO_PKG_VERSION"))?;
     m.add("DEFAULT_DEGREE", equiscan::descriptor::DEFAULT_DEGREE)?;
     m.add("DEFAULT_SHELLS", equiscan::descriptor::DEFAULT_SHELLS)?;
