@@ -5,6 +5,8 @@ specification (NEP 1, ``.npy`` version 1.0; numpy's own ``np.load`` reads it her
 """
 
 import json
+import sys
+import threading
 
 import numpy as np
 import pytest
@@ -122,3 +124,29 @@ def test_bad_input_raises_one_line_errors(points, kwargs, error, words):
     assert "\n" not in text and "; " in text
     assert e.value.kind == error.kind
     assert isinstance(e.value, equiscan.Error) and isinstance(e.value, ValueError)
+
+
+def test_the_gil_is_released_during_the_computation():
+    # With a 30 s switch interval a thread holding the GIL is not made to yield: the main
+    # thread can run while the worker is inside `features` only if the call released it.
+    scan = equiscan.read(PART)
+    state = {"inside": False, "seen_inside": None}
+    entered = threading.Event()
+
+    def work():
+        state["inside"] = True
+        entered.set()
+        equiscan.features(scan, radius=2.5, threads=1)
+        state["inside"] = False
+
+    old = sys.getswitchinterval()
+    sys.setswitchinterval(30.0)
+    try:
+        t = threading.Thread(target=work)
+        t.start()
+        entered.wait()
+        state["seen_inside"] = state["inside"]
+        t.join()
+    finally:
+        sys.setswitchinterval(old)
+    assert state["seen_inside"] is True
