@@ -72,33 +72,42 @@ impl RunRecord {
         crc32fast::hash(serde_json::to_string(self).unwrap_or_default().as_bytes())
     }
 
-    /// The differences from `other`, in words (empty when the same).
+    /// The differences from `other` (the journal's), in words, `old → new` (empty when the
+    /// same).
     pub fn differences(&self, other: &RunRecord) -> Vec<String> {
         let mut d = Vec::new();
         if self.recipe != other.recipe {
-            d.push(format!(
-                "recipe {} (journal) vs {} (now)",
-                other.recipe.to_json(),
-                self.recipe.to_json()
-            ));
+            // The recipe fields that differ, compactly: `radii [0.5] → [0.25]`.
+            let (now, then) = (
+                serde_json::to_value(&self.recipe).unwrap_or_default(),
+                serde_json::to_value(&other.recipe).unwrap_or_default(),
+            );
+            if let (Some(a), Some(b)) = (now.as_object(), then.as_object()) {
+                for (k, v) in a {
+                    let old = b.get(k).cloned().unwrap_or_default();
+                    if old != *v {
+                        d.push(format!("{k} {old} → {v}"));
+                    }
+                }
+            }
         }
         if self.format != other.format {
             d.push(format!(
-                "format {} vs {}",
+                "format {} → {}",
                 other.format.ext(),
                 self.format.ext()
             ));
         }
         if self.halo != other.halo {
             d.push(format!(
-                "tile grid {} vs {}",
+                "tile grid {} → {}",
                 if other.halo { "auto" } else { "off" },
                 if self.halo { "auto" } else { "off" }
             ));
         }
         if self.journal_version != other.journal_version {
             d.push(format!(
-                "journal version {} vs {}",
+                "journal version {} → {}",
                 other.journal_version, self.journal_version
             ));
         }

@@ -286,6 +286,14 @@ pub fn plan(inputs: &[PathBuf], outdir: &Path, opts: &BatchOptions) -> Result<Pl
         }
     });
     crs_notes(&tiles, &mut notes);
+    if halos {
+        for t in tiles.iter().filter(|t| t.problem.is_some()) {
+            notes.push(format!(
+                "{}: the header cannot be read, so its neighbours get no halo points from it",
+                t.input.display()
+            ));
+        }
+    }
     let halo_width = if halos {
         opts.recipe.radii().iter().copied().fold(0.0f32, f32::max) as f64
     } else {
@@ -552,6 +560,18 @@ fn compute_tile(
         return Err(Error::invalid(what, fix).with_kind(crate::error::Kind::Input));
     }
     let (cloud, info) = read_cloud(&tile.input)?;
+    // Neighbours were chosen from the header bounds: points outside them may be missed.
+    if let (Some(b), Some(actual)) = (tile.bounds, Bbox::of_cloud(&cloud))
+        && plan.halo_width > 0.0
+        && !tile.halo.is_empty()
+    {
+        let slack = 1e-3 * plan.halo_width;
+        if !(b.grown(slack).contains(actual.min) && b.grown(slack).contains(actual.max)) {
+            record.warnings.push(
+                "points lie outside the bounds its header declares, so neighbouring tiles may miss some of them in their halos; rewrite the file's header".to_string(),
+            );
+        }
+    }
     let limit = plan.options.halo_cache_points;
     // What this tile lends its neighbours, kept while the cloud is in memory.
     if let Some(st) = &tile.stamp {

@@ -8,19 +8,46 @@ use std::path::{Path, PathBuf};
 use equiscan::Cloud;
 use equiscan::io::write_las;
 
-/// The tile (column, row) of each point of `cloud` on a `cols` × `rows` grid over its x/y
-/// bounds (the last column and row take the upper edge).
+/// The tile (column, row) of each point of `cloud` on a `cols` × `rows` grid whose lines are
+/// quantiles of x and of y (so columns, and rows, hold about as many points each).
 pub fn cells(cloud: &Cloud, cols: usize, rows: usize) -> Vec<(usize, usize)> {
-    let (lo, hi) = cloud.local_bounds().expect("a cloud with points");
-    let at = |v: f32, k: usize, n: usize| -> usize {
-        let t = ((v - lo[k]) / (hi[k] - lo[k]).max(f32::MIN_POSITIVE)) * n as f32;
-        (t.max(0.0) as usize).min(n - 1)
+    let cuts = |k: usize, n: usize| -> Vec<f32> {
+        let mut v: Vec<f32> = cloud.positions.iter().map(|p| p[k]).collect();
+        v.sort_by(f32::total_cmp);
+        (1..n).map(|q| v[q * v.len() / n]).collect()
     };
+    let (cx, cy) = (cuts(0, cols), cuts(1, rows));
+    let at = |v: f32, cuts: &[f32]| cuts.iter().filter(|&&c| v >= c).count();
     cloud
         .positions
         .iter()
-        .map(|p| (at(p[0], 0, cols), at(p[1], 1, rows)))
+        .map(|p| (at(p[0], &cx), at(p[1], &cy)))
         .collect()
+}
+
+/// Every `step`-th point of `cloud` (attributes kept).
+pub fn thin(cloud: &Cloud, step: usize) -> Cloud {
+    let idx: Vec<usize> = (0..cloud.len()).step_by(step).collect();
+    subset(cloud, &idx)
+}
+
+/// Reads an NPY float32 matrix written by equiscan: (rows, cols, values).
+pub fn read_npy(path: &Path) -> (usize, usize, Vec<f32>) {
+    let b = std::fs::read(path).expect("npy");
+    let hl = u16::from_le_bytes([b[8], b[9]]) as usize;
+    let head = std::str::from_utf8(&b[10..10 + hl]).expect("header");
+    let shape = &head[head.find("'shape': (").expect("shape") + 10..];
+    let shape = &shape[..shape.find(')').expect("shape end")];
+    let dims: Vec<usize> = shape
+        .split(',')
+        .filter(|s| !s.trim().is_empty())
+        .map(|s| s.trim().parse().expect("dim"))
+        .collect();
+    let vals = b[10 + hl..]
+        .chunks_exact(4)
+        .map(|c| f32::from_le_bytes([c[0], c[1], c[2], c[3]]))
+        .collect();
+    (dims[0], dims[1], vals)
 }
 
 /// The points of `cloud` at `idx`, attributes kept.

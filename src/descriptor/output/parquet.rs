@@ -7,8 +7,9 @@
 //! arrow.
 //!
 //! Columns, in order, all `REQUIRED` (no nulls):
-//! - `x`, `y`, `z`: `DOUBLE`, file coordinates (the cloud's origin plus the f32 offset, added
-//!   in f64);
+//! - `x`, `y`, `z`: `DOUBLE`, file coordinates: the cloud's origin plus the f32 offset, added
+//!   in f64, and for a LAS/LAZ input put back on the file's grid (`offset + k × scale`, the
+//!   nearest `k`), so a LAS coordinate comes out as the file stores it;
 //! - the point attributes present in the input, when the rows are points of the cloud:
 //!   `intensity` (`FLOAT`), `red`, `green`, `blue` (`INT32` annotated `UINT_16`), `nx`, `ny`,
 //!   `nz` (`FLOAT`), `classification`, `return_number` (`INT32` annotated `UINT_8`),
@@ -86,6 +87,8 @@ enum Attr {
 pub(super) struct ParquetSink {
     writer: SerializedFileWriter<Out>,
     path: std::path::PathBuf,
+    /// LAS scale and offset: coordinates are put back on this grid.
+    grid: Option<([f64; 3], [f64; 3])>,
     attrs: Vec<Attr>,
     columns: Vec<Values>,
     buffered: usize,
@@ -186,7 +189,10 @@ impl ParquetSink {
             .build()
             .map_err(|e| Error::internal(format!("Parquet schema: {e}"), "report this as a bug"))?;
         let mut meta = vec![
-            KeyValue::new("equiscan.recipe".to_string(), spec.recipe.to_json()),
+            KeyValue::new(
+                "equiscan.recipe".to_string(),
+                serde_json::to_string(&spec.recipe).unwrap_or_else(|_| spec.recipe.to_json()),
+            ),
             KeyValue::new("equiscan.input".to_string(), spec.input.path.clone()),
             KeyValue::new(
                 "equiscan.columns".to_string(),
@@ -200,7 +206,12 @@ impl ParquetSink {
             meta.push(KeyValue::new("equiscan.crs".to_string(), crs.clone()));
         }
         let row_bytes = 24 + 4 * names.len() + 8 * attrs.len();
-        let group_rows = row_group_rows(row_bytes);
+        // Unit tests use small groups so that several are written.
+        let group_rows = if cfg!(test) {
+            1000
+        } else {
+            row_group_rows(row_bytes)
+        };
         let props = WriterProperties::builder()
             .set_compression(Compression::SNAPPY)
             .set_dictionary_enabled(false)
@@ -210,9 +221,14 @@ impl ParquetSink {
         let file = TempFile::create(&path)?;
         let writer = SerializedFileWriter::new(Out(file), Arc::new(schema), Arc::new(props))
             .map_err(|e| failed(&path, e))?;
+        let grid = match (spec.input.scale, spec.input.offset) {
+            (Some(s), Some(o)) if s.iter().all(|v| v.is_finite() && *v > 0.0) => Some((s, o)),
+            _ => None,
+        };
         Ok(ParquetSink {
             writer,
             path,
+            grid,
             attrs,
             columns,
             buffered: 0,
@@ -227,8 +243,12 @@ impl ParquetSink {
             let p = f.positions[i];
             let mut c = 0;
             for k in 0..3 {
+                let mut g = cloud.origin[k] + p[k] as f64;
+                if let Some((scale, offset)) = self.grid {
+                    g = offset[k] + ((g - offset[k]) / scale[k]).round() * scale[k];
+                }
                 if let Values::Double(v) = &mut self.columns[c] {
-                    v.push(cloud.origin[k] + p[k] as f64);
+                    v.push(g);
                 }
                 c += 1;
             }
@@ -338,6 +358,72 @@ fn push_attr(columns: &mut [Values], c: usize, cloud: &Cloud, a: Attr, j: usize)
                 v.push(cloud.gps_time.as_ref().map_or(0.0, |s| s[j]));
             }
             c + 1
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use std::path::Path;
+
+    use parquet::file::reader::{FileReader, SerializedFileReader};
+    use parquet::record::RowAccessor;
+
+    use crate::descriptor::output::{
+        CentreList, CentresInfo, FeatureWriter, FileSpec, Format, write_features,
+    };
+    use crate::descriptor::{Centres, Engine, Recipe};
+    use crate::io::read_cloud;
+    use crate::spatial::KdIndex;
+
+    #[test]
+    fn rows_read_back_with_the_parquet_reader_in_several_row_groups() {
+        let (cloud, info) = read_cloud(Path::new("tests/data/bunny/bunny.ply")).unwrap();
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("b.parquet");
+        let recipe = Recipe::builder().radius(1.5).build().unwrap();
+        let engine = Engine::new(recipe.clone());
+        let index = KdIndex::new(&cloud.positions).unwrap();
+        let centres = CentreList::All(cloud.len());
+        let spec = FileSpec {
+            path: path.clone(),
+            format: Format::Parquet,
+            recipe: recipe.clone(),
+            input: info,
+            centres: CentresInfo::All,
+            radius_suggested: false,
+        };
+        let mut w = FeatureWriter::create(&cloud, spec, &centres).unwrap();
+        write_features(&engine, &cloud.positions, &index, &centres, &mut w, None).unwrap();
+        w.finish().unwrap();
+        let want = engine.compute(&cloud, &Centres::All).unwrap();
+
+        let r = SerializedFileReader::new(std::fs::File::open(&path).unwrap()).unwrap();
+        let meta = r.metadata();
+        assert_eq!(meta.file_metadata().num_rows() as usize, cloud.len());
+        assert_eq!(meta.num_row_groups(), cloud.len().div_ceil(1000));
+        let kv = meta.file_metadata().key_value_metadata().unwrap();
+        let recipe_text = kv
+            .iter()
+            .find(|k| k.key == "equiscan.recipe")
+            .and_then(|k| k.value.clone())
+            .unwrap();
+        assert_eq!(Recipe::from_json(&recipe_text).unwrap(), recipe);
+        let schema = meta.file_metadata().schema_descr();
+        let names: Vec<&str> = schema.columns().iter().map(|c| c.name()).collect();
+        assert_eq!(&names[..3], ["x", "y", "z"]);
+        assert_eq!(names.len(), 3 + 2 + want.columns.len());
+        assert_eq!(names[5], want.columns[0]);
+        for (i, row) in r.get_row_iter(None).unwrap().enumerate() {
+            let row = row.unwrap();
+            let g = cloud.global(i);
+            for (k, v) in g.iter().enumerate() {
+                assert_eq!(row.get_double(k).unwrap(), *v, "row {i}");
+            }
+            assert_eq!(row.get_float(3).unwrap(), want.count(i, 0) as f32);
+            for (c, v) in want.row(i).iter().enumerate() {
+                assert_eq!(row.get_float(5 + c).unwrap(), *v, "row {i} column {c}");
+            }
         }
     }
 }
