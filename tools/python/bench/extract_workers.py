@@ -6,8 +6,10 @@ Cuts an N x N grid of LAS tiles (edges at the quantiles of x and y) from STATION
 temporary folder, then runs extract over them on a LocalCluster of 1 and of 2 worker
 processes (one thread each, one thread per task), alternating, K rounds, each run into a
 fresh OUTDIR. Prints the wall-clock seconds of each run, the medians and their ratio, and
-each worker's peak resident size (ru_maxrss of the worker process, read after the run).
-Run it on an otherwise idle machine for a figure; on a shared one, compare within one run.
+each worker's CPU seconds during the run and peak resident size (getrusage of the worker
+process). On a machine whose CPU share is fixed (shared with other jobs) the wall-clock ratio
+says little; the CPU seconds of one worker over those of the busier of two is the speed-up
+that two free cores would give.
 """
 
 import argparse
@@ -59,12 +61,15 @@ def worker_usage():
 
 def one_run(tiles, out, workers, radius):
     with LocalCluster(
-        n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=None
+        n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=":0"
     ) as cluster, Client(cluster) as client:
+        before = client.run(worker_usage)
         t = time.perf_counter()
         s = equiscan.dask.extract(tiles, out, radius=radius, client=client)
         seconds = time.perf_counter() - t
-        usage = sorted(client.run(worker_usage).values())
+        after = client.run(worker_usage)
+        # Peak resident size, and CPU seconds of the run alone (worker start-up excluded).
+        usage = sorted((after[w][0], after[w][1] - before[w][1]) for w in after)
     assert s["exit_code"] == 0, s
     return seconds, usage, s
 
@@ -85,6 +90,7 @@ def main():
         print(f"{a.grid} x {a.grid} tiles, {total} points (largest tile {max(sizes)}), "
               f"radius {a.radius}, {os.cpu_count()} cores", flush=True)
         times = {1: [], 2: []}
+        cpu_one = []
         balance = []
         peak = 0.0
         for r in range(a.rounds):
@@ -94,10 +100,13 @@ def main():
                 times[w].append(sec)
                 peak = max([peak] + [u[0] for u in usage])
                 cpu = [u[1] for u in usage]
-                if w == 2:
-                    # Work split: total CPU over the busier worker's CPU, the speed-up two
-                    # free cores would give (worker start-up included in both).
-                    balance.append(sum(cpu) / max(cpu))
+                if w == 1:
+                    cpu_one.append(cpu[0])
+                else:
+                    # The speed-up two free cores would give: the CPU seconds of one worker
+                    # doing everything over those of the busier of two (halo reads that one
+                    # worker's cache would have saved included).
+                    balance.append(statistics.median(cpu_one) / max(cpu))
                 print(f"round {r + 1}, {w} worker(s): {sec:.2f} s wall (load {load:.1f}), "
                       f"{s['points'] / sec:,.0f} points/s, halo points {s['halo_points']}, "
                       f"CPU per worker {', '.join(f'{c:.1f} s' for c in cpu)}, "
@@ -105,8 +114,8 @@ def main():
                       flush=True)
         m1, m2 = statistics.median(times[1]), statistics.median(times[2])
         print(f"median wall: 1 worker {m1:.2f} s, 2 workers {m2:.2f} s, speed-up {m1 / m2:.2f}x")
-        print(f"work split over 2 workers (total CPU / busier worker's CPU), median: "
-              f"{statistics.median(balance):.2f}")
+        print(f"CPU of 1 worker / CPU of the busier of 2 (the speed-up on two free cores), "
+              f"median: {statistics.median(balance):.2f}x")
         print(f"largest peak RSS of a worker: {peak:.0f} MB")
     return 0
 

@@ -46,7 +46,7 @@ def tiles(tmp_path_factory, station1):
 @pytest.fixture(scope="module")
 def client():
     cluster = distributed.LocalCluster(
-        n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None
+        n_workers=2, threads_per_worker=1, processes=True, dashboard_address=":0"
     )
     c = distributed.Client(cluster)
     yield c

@@ -123,7 +123,7 @@ def extract(
                 n_workers=os.cpu_count() or 1,
                 threads_per_worker=1,
                 processes=True,
-                dashboard_address=None,
+                dashboard_address=":0",
             )
             client = Client(cluster)
         try:
