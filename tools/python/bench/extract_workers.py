@@ -69,7 +69,7 @@ def one_run(tiles, out, workers, radius):
         seconds = time.perf_counter() - t
         after = client.run(worker_usage)
         # Peak resident size, and CPU seconds of the run alone (worker start-up excluded).
-        usage = sorted((after[w][0], after[w][1] - before[w][1]) for w in after)
+        usage = sorted((after[w][0], after[w][1] - before[w][1], before[w][0]) for w in after)
     assert s["exit_code"] == 0, s
     return seconds, usage, s
 
@@ -110,7 +110,8 @@ def main():
                 print(f"round {r + 1}, {w} worker(s): {sec:.2f} s wall (load {load:.1f}), "
                       f"{s['points'] / sec:,.0f} points/s, halo points {s['halo_points']}, "
                       f"CPU per worker {', '.join(f'{c:.1f} s' for c in cpu)}, "
-                      f"peak RSS per worker {', '.join(f'{u[0]:.0f} MB' for u in usage)}",
+                      f"peak RSS per worker {', '.join(f'{u[0]:.0f} MB' for u in usage)} "
+                      f"(idle before the run: {', '.join(f'{u[2]:.0f} MB' for u in usage)})",
                       flush=True)
         m1, m2 = statistics.median(times[1]), statistics.median(times[2])
         print(f"median wall: 1 worker {m1:.2f} s, 2 workers {m2:.2f} s, speed-up {m1 / m2:.2f}x")

@@ -19,7 +19,7 @@ import os
 import uuid
 import warnings
 
-from . import _native
+from . import _native, _radii
 from .errors import Error
 
 
@@ -41,14 +41,6 @@ def _inputs(paths):
     if isinstance(paths, (str, bytes, os.PathLike)):
         paths = [paths]
     return [os.fspath(p) for p in paths]
-
-
-def _radii(radius):
-    if radius is None:
-        return None
-    if isinstance(radius, (int, float)) or hasattr(radius, "__float__"):
-        return [float(radius)]
-    return [float(r) for r in radius]
 
 
 def extract(
