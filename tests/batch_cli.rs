@@ -216,7 +216,7 @@ fn a_bad_tile_is_reported_and_the_others_are_done() {
         .collect();
     assert_eq!(errors.len(), 2);
     assert!(
-        errors[0].starts_with("tiles/tile_1_1.las: ") && errors[0].contains("truncated; "),
+        errors[0].starts_with("tiles/tile_1_1.las: ") && errors[0].contains("(truncated); "),
         "{errors:?}"
     );
     assert_eq!(

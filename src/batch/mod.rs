@@ -33,7 +33,13 @@
 //!
 //! Rows: one per point of the input, in the input's point order, with the columns of
 //! `features` (see [`crate::descriptor::output`]); halo points are neighbours, never rows
-//! ([`halo`] states the rule). Memory: one tile, its halo and the halo cache at a time.
+//! ([`halo`] states the rule). Memory: one tile, its halo and the halo cache at a time; a
+//! tile is held whole, so a single file larger than memory must be cut into tiles first.
+//!
+//! Concurrency: [`run_tile`] may run for different tiles at once, in threads of one process
+//! (the halo cache is shared under a lock) or in separate processes, even on several hosts
+//! sharing OUTDIR (each output has its own journal record); the engine inside uses the
+//! current rayon pool. Run one process per tile or per shard, not two for the same tile.
 
 pub mod halo;
 pub mod inputs;
