@@ -242,8 +242,9 @@ impl CountStats {
     }
 }
 
-/// Appends row `i` of `f` in file column order (local coordinates when `with_local`).
-fn push_row(f: &Features, i: usize, with_local: bool, out: &mut Vec<f32>) {
+/// Appends row `i` of `f` in file column order ([`column_names`]; the local coordinates first
+/// when `with_local`, as in NPY and CSV files).
+pub fn push_row(f: &Features, i: usize, with_local: bool, out: &mut Vec<f32>) {
     if with_local {
         out.extend_from_slice(&f.positions[i]);
     }
