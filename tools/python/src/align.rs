@@ -5,7 +5,7 @@ use std::time::Instant;
 
 use equiscan::align::report::{Input, PairReport, RunContext, Timing, Units, fingerprint};
 use equiscan::align::truth::{TruthCheck, read_truth};
-use equiscan::align::{AlignParams, Method, align_pair};
+use equiscan::align::{AlignParams, Method, align_named};
 use equiscan::io::read_cloud;
 use equiscan::{Error, Result};
 use pyo3::prelude::*;
@@ -79,7 +79,12 @@ fn run(r: &Request) -> Result<String> {
         bytes: b_bytes,
         checksum: b_sum,
     };
-    let found = align_pair(&a, &b, &params)?;
+    // Named as the CLI names them, so that messages match `equiscan align`'s wording.
+    let (a_name, b_name) = (
+        r.source.display().to_string(),
+        r.target.display().to_string(),
+    );
+    let found = align_named((&a_name, &a), (&b_name, &b), &params)?;
     let check = truth.map(|t| TruthCheck::new(&found.transform, &t, &a.centroid()));
     let mut report = PairReport::new(source, target, r.method, &found, check, &ctx);
     if !ctx.reproducible {
