@@ -26,14 +26,15 @@ pub struct FeaturesArgs {
     /// LAS, LAZ or PLY files.
     #[arg(required = true, value_name = "INPUT")]
     pub inputs: Vec<PathBuf>,
-    /// Output file (format from its extension: .npy, .ply, .csv, .las, .laz), or an existing
+    /// Output file (format from its extension: .npy, .ply, .csv, .las, .laz, .parquet), or an existing
     /// folder, or with several inputs a folder (one `<input name>.<format>` per input).
     #[arg(short, long, value_name = "OUT")]
     pub output: PathBuf,
     /// Output format, overriding the extension (needed for a folder; default there: npy):
     /// npy (float32 matrix) or csv, each with its JSON sidecar `<file>.json`; ply (the centres
     /// with the columns as properties); las or laz (LAS 1.4 with Extra Bytes, at most 341
-    /// columns).
+    /// columns); parquet (x, y, z as f64, the point attributes, the columns as f32; recipe
+    /// and CRS in the file's metadata).
     #[arg(long, value_name = "FORMAT", value_parser = str::parse::<Format>)]
     pub format: Option<Format>,
     /// Support radius in file units; repeat or give a comma list for several scales. Left out:
