@@ -73,6 +73,13 @@ impl Units {
     /// The linear unit named in a CRS description (WKT or GeoTIFF keys as `io` prints them);
     /// `Unknown` when none is recognised. US survey foot is tested before the foot.
     pub fn from_crs(crs: &str) -> Units {
+        // GeoTIFF keys name the unit by its EPSG code (see `io::crs::geotiff_linear_unit`).
+        match crate::io::crs::geotiff_linear_unit(crs) {
+            Some(9001) => return Units::Metre,
+            Some(9002) => return Units::Foot,
+            Some(9003) => return Units::UsSurveyFoot,
+            _ => {}
+        }
         let c = crs.to_ascii_lowercase();
         if c.contains("us survey foot") || c.contains("foot_us") || c.contains("ftus") {
             Units::UsSurveyFoot
