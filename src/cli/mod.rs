@@ -8,6 +8,7 @@
 
 pub mod align;
 pub mod align_checks;
+pub mod apply;
 pub mod common;
 pub mod features;
 pub mod info;
@@ -36,6 +37,9 @@ pub enum Command {
     /// Register scans with no initial guess: the rigid transform carrying SOURCE onto TARGET
     /// (or every scan onto the first), with quality figures and a verdict.
     Align(align::AlignArgs),
+    /// Move whole files by a transform from an align or inspect report, or given as 16
+    /// numbers: every attribute and the CRS kept, LAS precision kept.
+    Apply(apply::ApplyArgs),
 }
 
 impl Command {
@@ -45,6 +49,7 @@ impl Command {
             Command::Info(args) => info::run(args),
             Command::Features(args) => features::run(args),
             Command::Align(args) => align::run(args),
+            Command::Apply(args) => apply::run(args),
         }
     }
 }

@@ -486,6 +486,7 @@ pub(crate) struct LasReader {
     reader: las::Reader,
     pd: las::PointData,
     layout: Layout,
+    layout_format: u8,
     transforms: [Transform; 3],
     compressed: bool,
     n: u64,
@@ -559,6 +560,7 @@ impl LasReader {
             pd: PointDataBuilder::new().for_header(&header).build(),
             reader,
             layout: Layout::new(raw.format, fmt.len() as usize),
+            layout_format: raw.format,
             transforms: [t.x, t.y, t.z],
             compressed: raw.compressed,
             n,
@@ -870,7 +872,7 @@ impl LasOptions {
             point_format: info.point_format,
             scale: info.scale,
             offset: info.offset,
-            crs_records: info.crs_records.clone(),
+            crs_records: crs_records_of(info),
             own_records: Vec::new(),
         }
     }
@@ -878,7 +880,7 @@ impl LasOptions {
     /// The same layout with the CRS records of `info` instead (an output moved into another
     /// file's frame takes that file's reference system).
     pub fn with_crs_of(mut self, info: &FileInfo) -> Self {
-        self.crs_records = info.crs_records.clone();
+        self.crs_records = crs_records_of(info);
         self
     }
 
@@ -898,6 +900,28 @@ impl LasOptions {
             data,
         });
         self
+    }
+}
+
+/// The CRS records a LAS output of `info`'s points carries: a LAS input's own CRS records;
+/// for another input whose CRS is WKT text (E57 `coordinateMetadata`), a WKT record
+/// (`LASF_Projection`, record 2112, the text and a closing NUL; LAS 1.4 R15, from memory).
+fn crs_records_of(info: &FileInfo) -> Vec<Vlr> {
+    if !info.crs_records.is_empty() {
+        return info.crs_records.clone();
+    }
+    match info.crs.as_deref().map(str::trim) {
+        Some(wkt) if !wkt.is_empty() && !wkt.starts_with("GeoTIFF keys") => {
+            let mut data = wkt.as_bytes().to_vec();
+            data.push(0);
+            vec![Vlr {
+                user_id: "LASF_Projection".to_string(),
+                record_id: 2112,
+                description: "OGC WKT coordinate system".to_string(),
+                data,
+            }]
+        }
+        _ => Vec::new(),
     }
 }
 
@@ -1085,6 +1109,11 @@ impl LasRowWriter {
         // straight from one instrument (the spec also names MERGE, MODIFICATION, EXTRACTION, …).
         builder.system_identifier = "OTHER".to_string();
         builder.vlrs = options.crs_records.clone();
+        // LAS 1.4 R15, Table 4: global encoding bit 4 marks a WKT CRS (required with one).
+        builder.has_wkt_crs = options
+            .crs_records
+            .iter()
+            .any(|v| v.user_id == "LASF_Projection" && v.record_id == 2112);
         builder.vlrs.extend(options.own_records.iter().cloned());
         let ranges = Ranges::new(names.len());
         if !names.is_empty() {
@@ -1412,4 +1441,246 @@ mod tests {
             }
         }
     }
+}
+
+/// What [`move_las`] wrote.
+#[derive(Debug, Clone, PartialEq)]
+pub(crate) struct MovedLas {
+    /// Points written.
+    pub points: u64,
+    /// Scale factors of the output (the input's).
+    pub scale: [f64; 3],
+    /// Offsets of the output (chosen near the moved points).
+    pub offset: [f64; 3],
+}
+
+/// Largest stored integer used for a coordinate; one step short of the i32 limits.
+const MAX_STORED: f64 = (i32::MAX - 1) as f64;
+
+/// Offsets for points within `lo..=hi` stored at `scale`: the centre rounded to whole units.
+/// Refuses, naming `output`, a span the 32-bit integers cannot hold at that scale.
+fn offsets_for(output: &Path, lo: [f64; 3], hi: [f64; 3], scale: [f64; 3]) -> Result<[f64; 3]> {
+    let mut offset = [0.0; 3];
+    for k in 0..3 {
+        let o = ((lo[k] + hi[k]) * 0.5).round();
+        let reach = (hi[k] - o).max(o - lo[k]) / scale[k];
+        if !(reach <= MAX_STORED) {
+            return Err(Error::file(
+                output,
+                format!(
+                    "the moved points span {} file units along {}, more than 32-bit integers hold at the input's scale {} (at most {} units)",
+                    super::compact(hi[k] - lo[k]),
+                    ["x", "y", "z"][k],
+                    scale[k],
+                    super::compact(2.0 * MAX_STORED * scale[k])
+                ),
+                "write a PLY output instead, or check the transform (its translation may be in other units)",
+            ));
+        }
+        offset[k] = o;
+    }
+    Ok(offset)
+}
+
+/// Writes the LAS/LAZ file `input` moved by `tf` to `output` (LAZ when it ends in `.laz`),
+/// record by record: coordinates are decoded to f64 (`offset + scale × stored`), moved in
+/// f64 and stored again at the input's scale about new offsets (the moved bounds' centre
+/// rounded to whole units), so each coordinate is within half a scale step of the exact moved
+/// value; every other byte of every record (every field of the point format and the Extra
+/// Bytes) is copied unchanged, and so are the header's records (CRS, Extra Bytes
+/// descriptions, others), with `extra` added. A span the input's scale cannot hold in 32-bit
+/// integers is refused before anything is written.
+pub(crate) fn move_las(
+    input: &Path,
+    output: &Path,
+    tf: &crate::geometry::Rigid,
+    extra: Option<Vlr>,
+) -> Result<MovedLas> {
+    use nalgebra::Vector3;
+    let moved_bounds = |lo: [f64; 3], hi: [f64; 3]| {
+        let mut a = [f64::INFINITY; 3];
+        let mut b = [f64::NEG_INFINITY; 3];
+        for c in 0..8 {
+            let p = Vector3::new(
+                if c & 1 == 0 { lo[0] } else { hi[0] },
+                if c & 2 == 0 { lo[1] } else { hi[1] },
+                if c & 4 == 0 { lo[2] } else { hi[2] },
+            );
+            let q = tf.apply(&p);
+            for k in 0..3 {
+                a[k] = a[k].min(q[k]);
+                b[k] = b[k].max(q[k]);
+            }
+        }
+        (a, b)
+    };
+    let mut r = LasReader::open(input)?;
+    let header = r.reader.header().clone();
+    let t_in = r.transforms;
+    let scale = [t_in[0].scale, t_in[1].scale, t_in[2].scale];
+    // Bounds of the input: the header's when usable, else a first pass over the points.
+    let (lo, hi) = if r.header_origin_ok {
+        (r.bounds.min, r.bounds.max)
+    } else {
+        let mut first = LasReader::open(input)?;
+        let mut lo = [f64::INFINITY; 3];
+        let mut hi = [f64::NEG_INFINITY; 3];
+        let mut c = first.empty_cloud(0);
+        loop {
+            c.positions.clear();
+            c.intensity.as_mut().map(Vec::clear);
+            c.classification.as_mut().map(Vec::clear);
+            c.return_number.as_mut().map(Vec::clear);
+            c.color.as_mut().map(Vec::clear);
+            c.gps_time.as_mut().map(Vec::clear);
+            if first.read_into(&mut c, 1 << 16)? == 0 {
+                break;
+            }
+            for i in 0..c.len() {
+                let g = c.global(i);
+                for k in 0..3 {
+                    lo[k] = lo[k].min(g[k]);
+                    hi[k] = hi[k].max(g[k]);
+                }
+            }
+        }
+        if lo[0] > hi[0] {
+            lo = [0.0; 3];
+            hi = [0.0; 3];
+        }
+        (lo, hi)
+    };
+    let (mlo, mhi) = moved_bounds(lo, hi);
+    let offset = offsets_for(output, mlo, mhi, scale)?;
+    let compress = output
+        .extension()
+        .is_some_and(|e| e.eq_ignore_ascii_case("laz"));
+    let mut builder = Builder::from(header.clone());
+    builder.point_format.is_compressed = compress;
+    let t = |k: usize| Transform {
+        scale: scale[k],
+        offset: offset[k],
+    };
+    builder.transforms = Vector {
+        x: t(0),
+        y: t(1),
+        z: t(2),
+    };
+    builder.generating_software = "equiscan".to_string();
+    builder.vlrs.retain(|v| !v.user_id.starts_with("laszip"));
+    builder.vlrs.extend(extra);
+    let out_header = builder.into_header().map_err(|e| las_err(output, e))?;
+    let out_format = *out_header.point_format();
+    let out_transforms = *out_header.transforms();
+    let mut temp = super::TempFile::create(output)?;
+    let file = temp
+        .writer()
+        .get_ref()
+        .try_clone()
+        .map_err(|e| Error::io(output, &e))?;
+    let writer = las::Writer::new(BufWriter::with_capacity(1 << 20, file), out_header)
+        .map_err(|e| las_err(output, e))?;
+    let mut writer = NoPanicWriter(Some(writer));
+    let record_len = header.point_format().len() as usize;
+    // Byte offset of the waveform's X(t) in formats 4, 5, 9, 10 (LAS 1.4 R15, Tables 11, 12,
+    // 16, 17: after the packet index u8, offset u64, size u32 and location f32).
+    let waveform_direction = match r.layout_format {
+        4 => Some(45),
+        5 => Some(51),
+        9 => Some(47),
+        10 => Some(55),
+        _ => None,
+    };
+    let mut points = 0u64;
+    while r.remaining() > 0 {
+        let want = r.natural_chunk().min(r.remaining());
+        let (reader, pd) = (&mut r.reader, &mut r.pd);
+        let compressed = r.compressed;
+        let got = guard(input, compressed, || {
+            reader.fill_points(want, pd).map_err(|e| {
+                if compressed {
+                    laz_data_err(input, e)
+                } else {
+                    las_err(input, e)
+                }
+            })
+        })?;
+        if got == 0 {
+            return Err(Error::file(
+                input,
+                format!(
+                    "the point data ends after {} of {} points (truncated)",
+                    r.done, r.n
+                ),
+                "copy or export the file again",
+            ));
+        }
+        r.done += got;
+        let mut bytes = r.pd.raw_bytes().to_vec();
+        for rec in bytes.chunks_exact_mut(record_len) {
+            let p = Vector3::from_fn(|k, _| {
+                let v = i32::from_le_bytes(rec[4 * k..4 * k + 4].try_into().unwrap_or([0; 4]));
+                t_in[k].offset + t_in[k].scale * v as f64
+            });
+            let q = tf.apply(&p);
+            for k in 0..3 {
+                let stored = ((q[k] - offset[k]) / scale[k]).round();
+                if !(stored.abs() <= MAX_STORED) {
+                    return Err(Error::file(
+                        output,
+                        format!(
+                            "point {} moves to {} along {}, outside what 32-bit integers hold at scale {} about offset {} (the input's header bounds do not hold its points)",
+                            points,
+                            super::compact(q[k]),
+                            ["x", "y", "z"][k],
+                            scale[k],
+                            offset[k]
+                        ),
+                        "repair the input's header bounds, or write a PLY output instead",
+                    ));
+                }
+                rec[4 * k..4 * k + 4].copy_from_slice(&(stored as i32).to_le_bytes());
+            }
+            if let Some(o) = waveform_direction {
+                // The waveform's parametric line direction (X(t), Y(t), Z(t)) turns with
+                // the points.
+                let d = Vector3::from_fn(|k, _| {
+                    f32::from_le_bytes(rec[o + 4 * k..o + 4 * k + 4].try_into().unwrap_or([0; 4]))
+                        as f64
+                });
+                let d = tf.rotate(&d);
+                for k in 0..3 {
+                    rec[o + 4 * k..o + 4 * k + 4].copy_from_slice(&(d[k] as f32).to_le_bytes());
+                }
+            }
+            points += 1;
+        }
+        let pd = PointDataBuilder::new()
+            .with_format(out_format)
+            .with_transforms(out_transforms)
+            .build_from_bytes(bytes)
+            .map_err(|e| las_err(output, e))?;
+        writer
+            .get()
+            .write_points(&pd)
+            .map_err(|e| las_err(output, e))?;
+    }
+    let mut file = writer
+        .into_inner(output)?
+        .into_inner()
+        .map_err(|e| Error::io(output, e.error()))?;
+    if out_format.is_extended {
+        // Formats 6–10: legacy counts zero (LAS 1.4 R15, Table 3), as `LasRowWriter::finish`.
+        file.seek(SeekFrom::Start(107))
+            .and_then(|_| file.write_all(&[0u8; 24]))
+            .and_then(|_| file.seek(SeekFrom::End(0)).map(|_| ()))
+            .map_err(|e| Error::io(output, &e))?;
+    }
+    drop(file);
+    temp.finish()?.commit()?;
+    Ok(MovedLas {
+        points,
+        scale,
+        offset,
+    })
 }

@@ -22,6 +22,7 @@
 //!
 //! Every failure is an [`Error::File`] that reads `PATH: what is wrong; what to do`.
 
+pub mod apply;
 mod atomic;
 pub mod crs;
 mod csv;
