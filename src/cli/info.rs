@@ -7,10 +7,9 @@
 use std::path::{Path, PathBuf};
 
 use equiscan::Result;
-use equiscan::align::report::Units;
 use equiscan::descriptor::suggested_radius;
 use equiscan::geometry::Rigid;
-use equiscan::io::crs::crs_label;
+use equiscan::io::crs::{crs_label, units_label};
 use equiscan::io::{Bounds, FileInfo, read_cloud};
 use equiscan::spatial::estimate_spacing;
 use serde::Serialize;
@@ -55,12 +54,7 @@ pub fn inspect(path: &Path) -> Result<InfoReport> {
     let (cloud, file) = read_cloud(path)?;
     let bounds = cloud.global_bounds().map(|(min, max)| Bounds { min, max });
     let point_spacing = estimate_spacing(&cloud.positions);
-    let units = file
-        .crs
-        .as_deref()
-        .map(Units::from_crs)
-        .filter(|u| *u != Units::Unknown)
-        .map(|u| u.label().to_string());
+    let units = file.crs.as_deref().and_then(units_label);
     Ok(InfoReport {
         units,
         file,

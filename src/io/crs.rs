@@ -75,6 +75,30 @@ pub fn geotiff_linear_unit(crs: &str) -> Option<u32> {
     geotiff_key(crs, 3076).or_else(|| geotiff_key(crs, 4099))
 }
 
+/// The linear unit a CRS names, as a short label (`m`, `mm`, `ft`, `US survey ft`): GeoTIFF
+/// unit codes (see [`geotiff_linear_unit`]), else the unit's name in the text (US survey foot
+/// before the foot); `None` when none is recognised. The same reading as
+/// `align::report::Units::from_crs`.
+pub fn units_label(crs: &str) -> Option<String> {
+    match geotiff_linear_unit(crs) {
+        Some(9001) => return Some("m".into()),
+        Some(9002) => return Some("ft".into()),
+        Some(9003) => return Some("US survey ft".into()),
+        _ => {}
+    }
+    let c = crs.to_ascii_lowercase();
+    let label = if c.contains("us survey foot") || c.contains("foot_us") || c.contains("ftus") {
+        "US survey ft"
+    } else if c.contains("foot") || c.contains("feet") {
+        "ft"
+    } else if c.contains("metre") || c.contains("meter") {
+        "m"
+    } else {
+        return None;
+    };
+    Some(label.into())
+}
+
 /// True when the two CRS texts are equal up to white space.
 pub fn same_crs(a: &str, b: &str) -> bool {
     let norm = |s: &str| s.split_whitespace().collect::<String>();
