@@ -487,6 +487,8 @@ pub(crate) struct LasReader {
     pd: las::PointData,
     layout: Layout,
     layout_format: u8,
+    extra_bytes: usize,
+    extra_descriptors: Vec<u8>,
     transforms: [Transform; 3],
     compressed: bool,
     n: u64,
@@ -561,6 +563,12 @@ impl LasReader {
             reader,
             layout: Layout::new(raw.format, fmt.len() as usize),
             layout_format: raw.format,
+            extra_bytes: fmt.extra_bytes as usize,
+            extra_descriptors: header
+                .all_vlrs()
+                .filter(|v| is_extra_bytes_vlr(v))
+                .flat_map(|v| v.data.iter().copied())
+                .collect(),
             transforms: [t.x, t.y, t.z],
             compressed: raw.compressed,
             n,
@@ -615,6 +623,13 @@ impl LasReader {
         c.return_number = Some(Vec::with_capacity(cap));
         c.color = self.has_color.then(|| Vec::with_capacity(cap));
         c.gps_time = self.has_gps.then(|| Vec::with_capacity(cap));
+        c.records = Some(crate::cloud::SourceRecords {
+            format: self.layout_format,
+            record_len: self.layout.record_len,
+            extra_bytes: self.extra_bytes,
+            extra_descriptors: self.extra_descriptors.clone(),
+            bytes: Vec::with_capacity(cap * self.layout.record_len),
+        });
         c
     }
 
@@ -697,6 +712,9 @@ impl LasReader {
                     gps: gps_time.as_mut(),
                 },
             );
+            if let Some(r) = out.records.as_mut() {
+                r.bytes.extend_from_slice(self.pd.raw_bytes());
+            }
             self.done += got;
         }
         out.origin = self.origin.unwrap_or([0.0; 3]);
@@ -948,10 +966,53 @@ impl Ranges {
     }
 }
 
-/// The Extra Bytes VLR (`LASF_Spec`, record 4) describing `names` as f32 values with the
-/// given ranges (options bits 1 and 2 set where a column has a finite value).
-fn extra_bytes_vlr(names: &[String], ranges: &Ranges) -> Vlr {
-    let mut data = Vec::with_capacity(names.len() * EXTRA_BYTES_DESCRIPTOR);
+/// The descriptors of a source's Extra Bytes for an output that appends `names` after them:
+/// the source's own, then, when they describe fewer bytes than each record carries, data type
+/// 0 ("undocumented", its options byte giving the length; LAS 1.4 R15 Table 24, from memory)
+/// for the rest, so that the appended columns stay where their descriptors say. A source name
+/// equal to one of `names` gets `_input` appended (cut to 32 bytes), so names stay distinct.
+fn source_descriptors(r: &crate::cloud::SourceRecords, names: &[String]) -> Vec<u8> {
+    let mut out = Vec::new();
+    let mut described = 0usize;
+    for d in r.extra_descriptors.chunks_exact(EXTRA_BYTES_DESCRIPTOR) {
+        let size = extra_bytes_type_size(d[2], d[3]).unwrap_or(0) as usize;
+        if described + size > r.extra_bytes {
+            break;
+        }
+        described += size;
+        let mut d: [u8; EXTRA_BYTES_DESCRIPTOR] =
+            d.try_into().unwrap_or([0; EXTRA_BYTES_DESCRIPTOR]);
+        let end = d[4..36].iter().position(|&c| c == 0).unwrap_or(32);
+        let name = String::from_utf8_lossy(&d[4..4 + end]).into_owned();
+        if names.contains(&name) {
+            let renamed: String = format!("{name}_input").chars().take(32).collect();
+            d[4..36].fill(0);
+            let b = renamed.as_bytes();
+            d[4..4 + b.len().min(32)].copy_from_slice(&b[..b.len().min(32)]);
+        }
+        out.extend_from_slice(&d);
+    }
+    let mut left = r.extra_bytes - described;
+    let mut k = 0;
+    while left > 0 {
+        let n = left.min(255);
+        let mut d = [0u8; EXTRA_BYTES_DESCRIPTOR];
+        d[2] = 0;
+        d[3] = n as u8;
+        let name = format!("input_extra_bytes_{k}");
+        d[4..4 + name.len()].copy_from_slice(name.as_bytes());
+        out.extend_from_slice(&d);
+        left -= n;
+        k += 1;
+    }
+    out
+}
+
+/// The Extra Bytes VLR (`LASF_Spec`, record 4): the `source` descriptors, then `names` as f32
+/// values with the given ranges (options bits 1 and 2 set where a column has a finite value).
+fn extra_bytes_vlr(source: &[u8], names: &[String], ranges: &Ranges) -> Vlr {
+    let mut data = Vec::with_capacity(source.len() + names.len() * EXTRA_BYTES_DESCRIPTOR);
+    data.extend_from_slice(source);
     for (name, &(lo, hi)) in names.iter().zip(&ranges.0) {
         let mut d = [0u8; EXTRA_BYTES_DESCRIPTOR];
         d[2] = 9; // data type: float
@@ -1031,6 +1092,10 @@ pub struct LasRowWriter {
     names: Vec<String>,
     ranges: Ranges,
     origin: [f64; 3],
+    /// Extra Bytes of the source records copied in front of the columns.
+    source_extra: usize,
+    /// Their descriptors (whole, padded to cover `source_extra`).
+    source_desc: Vec<u8>,
 }
 
 impl LasRowWriter {
@@ -1049,12 +1114,23 @@ impl LasRowWriter {
                 "use a shorter name for LAS extra bytes",
             ));
         }
-        if names.len() > MAX_LAS_COLUMNS {
+        // The source's Extra Bytes come first, described as the source described them.
+        let (source_extra, source_desc) = match &like.records {
+            Some(r) => (r.extra_bytes, source_descriptors(r, names)),
+            None => (0, Vec::new()),
+        };
+        let described = source_desc.len() / EXTRA_BYTES_DESCRIPTOR;
+        if names.len() + described > MAX_LAS_COLUMNS {
             return Err(Error::file(
                 path,
                 format!(
-                    "{} feature columns are more than the {MAX_LAS_COLUMNS} whose descriptions fit a LAS Extra Bytes record",
-                    names.len()
+                    "{} feature columns{} are more than the {MAX_LAS_COLUMNS} whose descriptions fit a LAS Extra Bytes record",
+                    names.len(),
+                    if described > 0 {
+                        format!(" after the input's {described} Extra Bytes fields")
+                    } else {
+                        String::new()
+                    }
                 ),
                 "write NPY or CSV (a .npy or .csv output), or ask for fewer invariants or scales",
             ));
@@ -1066,11 +1142,7 @@ impl LasRowWriter {
             .point_format
             .unwrap_or(if like.color.is_some() { 7 } else { 6 })
         {
-            4 => 1,
-            5 => 3,
-            9 => 6,
-            10 => 8,
-            f if f <= 10 => f,
+            f if f <= 10 => without_waveform(f),
             f => {
                 return Err(Error::file(
                     path,
@@ -1080,7 +1152,7 @@ impl LasRowWriter {
             }
         };
         let mut format = las::point::Format::new(fmt_no).map_err(|e| las_err(path, e))?;
-        format.extra_bytes = (names.len() * 4) as u16;
+        format.extra_bytes = (source_extra + names.len() * 4) as u16;
         format.is_compressed = compress;
         let scale = options.scale.unwrap_or([0.001; 3]);
         let offset = options.offset.unwrap_or(like.origin);
@@ -1116,9 +1188,11 @@ impl LasRowWriter {
             .any(|v| v.user_id == "LASF_Projection" && v.record_id == 2112);
         builder.vlrs.extend(options.own_records.iter().cloned());
         let ranges = Ranges::new(names.len());
-        if !names.is_empty() {
+        if !names.is_empty() || !source_desc.is_empty() {
             // Same length as the final record; the ranges are written by `finish`.
-            builder.vlrs.push(extra_bytes_vlr(names, &ranges));
+            builder
+                .vlrs
+                .push(extra_bytes_vlr(&source_desc, names, &ranges));
         }
         let header = builder.into_header().map_err(|e| las_err(path, e))?;
         let mut temp = super::TempFile::create(path)?;
@@ -1138,6 +1212,8 @@ impl LasRowWriter {
             names: names.to_vec(),
             ranges,
             origin: like.origin,
+            source_extra,
+            source_desc,
         })
     }
 
@@ -1152,10 +1228,32 @@ impl LasRowWriter {
     ) -> Result<()> {
         let nc = self.names.len();
         let path = &self.path;
+        let same = attrs.filter(|c| {
+            c.records.as_ref().is_some_and(|r| {
+                without_waveform(r.format) == self.fmt_no
+                    && r.extra_bytes == self.source_extra
+                    && r.len() == c.len()
+            })
+        });
+        if let Some(cloud) = same {
+            let bytes = self.copied_records(cloud, rows, values)?;
+            let pd = PointDataBuilder::new()
+                .for_header(self.writer.get().header())
+                .build_from_bytes(bytes)
+                .map_err(|e| las_err(path, e))?;
+            self.writer
+                .get()
+                .write_points(&pd)
+                .map_err(|e| las_err(path, e))?;
+            for r in 0..rows.len() {
+                self.ranges.add(&values[r * nc..(r + 1) * nc]);
+            }
+            return Ok(());
+        }
         let points = rows.iter().enumerate().map(|(r, &(i, p))| {
             let v = &values[r * nc..(r + 1) * nc];
             let g: [f64; 3] = std::array::from_fn(|k| self.origin[k] + p[k] as f64);
-            las_point(attrs.map(|c| (c, i)), g, v, &self.format)
+            las_point(attrs.map(|c| (c, i)), g, v, &self.format, self.source_extra)
         });
         let pd = PointDataBuilder::new()
             .for_header(self.writer.get().header())
@@ -1178,6 +1276,85 @@ impl LasRowWriter {
         Ok(())
     }
 
+    /// The rows as records of the cloud's own point format: each source record copied byte
+    /// for byte (every field, the source's Extra Bytes), its coordinates stored anew at this
+    /// file's scale and offset, the fields the cloud holds as columns (intensity, return
+    /// number, classification, GPS time, colour) written over it (flag bits kept), and the
+    /// column values appended as f32.
+    fn copied_records(
+        &self,
+        cloud: &Cloud,
+        rows: &[(usize, [f32; 3])],
+        values: &[f32],
+    ) -> Result<Vec<u8>> {
+        let Some(src) = cloud.records.as_ref() else {
+            return Ok(Vec::new());
+        };
+        let nc = self.names.len();
+        let t = *self
+            .writer
+            .0
+            .as_ref()
+            .map_or(&Default::default(), |w| w.header().transforms());
+        let t = [t.x, t.y, t.z];
+        // A waveform format written as its format without waveform: the 29-byte packet
+        // description follows the base record (LAS 1.4 R15, Tables 11, 12, 16, 17), so it is
+        // cut out and everything else kept.
+        let base = BASE_LEN[self.fmt_no as usize] as usize;
+        let cut = if src.format != self.fmt_no { 29 } else { 0 };
+        let layout = Layout::new(self.fmt_no, src.record_len - cut);
+        let mut out = Vec::with_capacity(rows.len() * (src.record_len - cut + 4 * nc));
+        for (r, &(i, p)) in rows.iter().enumerate() {
+            let start = out.len();
+            let record = src.record(i);
+            out.extend_from_slice(&record[..base]);
+            out.extend_from_slice(&record[base + cut..]);
+            let rec = &mut out[start..];
+            for k in 0..3 {
+                let g = self.origin[k] + p[k] as f64;
+                let stored = ((g - t[k].offset) / t[k].scale).round();
+                if !(stored >= i32::MIN as f64 && stored <= i32::MAX as f64) {
+                    return Err(Error::file(
+                        &self.path,
+                        "a coordinate does not fit the LAS integer range at this scale and offset",
+                        "choose a larger scale or an offset near the points",
+                    ));
+                }
+                rec[4 * k..4 * k + 4].copy_from_slice(&(stored as i32).to_le_bytes());
+            }
+            if let Some(v) = &cloud.intensity {
+                let v = v[i].round().clamp(0.0, 65535.0) as u16;
+                rec[12..14].copy_from_slice(&v.to_le_bytes());
+            }
+            if let Some(v) = &cloud.return_number {
+                if layout.extended {
+                    rec[14] = (rec[14] & 0xF0) | (v[i].min(15) & 0x0F);
+                } else {
+                    rec[14] = (rec[14] & 0xF8) | (v[i].min(7) & 0x07);
+                }
+            }
+            if let Some(v) = &cloud.classification {
+                if layout.extended {
+                    rec[16] = v[i];
+                } else if v[i] <= 31 {
+                    rec[15] = (rec[15] & 0xE0) | v[i];
+                }
+            }
+            if let (Some(v), Some(o)) = (&cloud.gps_time, layout.gps) {
+                rec[o..o + 8].copy_from_slice(&v[i].to_le_bytes());
+            }
+            if let (Some(v), Some(o)) = (&cloud.color, layout.rgb) {
+                for (k, c) in v[i].iter().enumerate() {
+                    rec[o + 2 * k..o + 2 * k + 2].copy_from_slice(&c.to_le_bytes());
+                }
+            }
+            for v in &values[r * nc..(r + 1) * nc] {
+                out.extend_from_slice(&v.to_le_bytes());
+            }
+        }
+        Ok(out)
+    }
+
     /// Closes the point data, writes the column ranges into the Extra Bytes record and, for
     /// formats 6–10, zeroes the legacy counts; returns the complete, synced temporary file.
     pub fn finish(self) -> Result<super::Finished> {
@@ -1192,8 +1369,8 @@ impl LasRowWriter {
                 .and_then(|_| file.write_all(&[0u8; 24]))
                 .map_err(|e| Error::io(path, &e))?;
         }
-        if !self.names.is_empty() {
-            let vlr = extra_bytes_vlr(&self.names, &self.ranges);
+        if !self.names.is_empty() || !self.source_desc.is_empty() {
+            let vlr = extra_bytes_vlr(&self.source_desc, &self.names, &self.ranges);
             let at = find_vlr_data(&mut file, "LASF_Spec", 4).map_err(|e| Error::io(path, &e))?;
             let at = at.ok_or_else(|| {
                 Error::file(
@@ -1284,55 +1461,117 @@ fn find_vlr_data(
     Ok(None)
 }
 
+/// The point format a writer uses for `f`: waveform formats without their waveform.
+fn without_waveform(f: u8) -> u8 {
+    match f {
+        4 => 1,
+        5 => 3,
+        9 => 6,
+        10 => 8,
+        f => f,
+    }
+}
+
+/// The source record of point `i` of `cloud` decoded by the `las` crate, when the cloud
+/// carries its LAS records (its coordinates are replaced by the caller).
+fn source_point(cloud: &Cloud, i: usize) -> Option<las::Point> {
+    let r = cloud.records.as_ref()?;
+    if r.len() != cloud.len() {
+        return None;
+    }
+    let mut format = las::point::Format::new(r.format).ok()?;
+    format.extra_bytes = r.extra_bytes as u16;
+    let raw = las::raw::Point::read_from(r.record(i), &format).ok()?;
+    let mut p = las::Point::new(raw, &Default::default());
+    if !format.is_extended {
+        // Formats 0–5 mark overlap with class 12 in the 5-bit class field (LAS 1.4 R15,
+        // Table 8); the `las` crate tests 4 bits and so also takes class 28 for overlap.
+        let class = r.record(i)[15] & 0x1F;
+        p.is_overlap = class == 12;
+        if class != 12 {
+            p.classification = las::point::Classification::new(class).unwrap_or(p.classification);
+        }
+    }
+    Some(p)
+}
+
+/// A point for a record of `format` at global `g`: every field of the source record when
+/// `attrs` carries LAS records ([`crate::cloud::SourceRecords`]), the cloud's columns over it
+/// (intensity, classification, return number, colour, GPS time), then the source's Extra Bytes
+/// (`source_extra` bytes: zeros when there is no source record) and `values` as f32.
 fn las_point(
     attrs: Option<(&Cloud, usize)>,
     g: [f64; 3],
     values: &[f32],
     format: &las::point::Format,
+    source_extra: usize,
 ) -> las::Point {
     let cloud = attrs.map(|(c, _)| c);
     let i = attrs.map_or(0, |(_, i)| i);
-    let class = cloud
-        .and_then(|c| c.classification.as_ref())
-        .map_or(1, |c| c[i]);
-    let ret = cloud
-        .and_then(|c| c.return_number.as_ref())
-        .map_or(1, |r| r[i]);
+    let source = attrs.and_then(|(c, i)| source_point(c, i));
     let max_ret = if format.is_extended { 15 } else { 7 };
-    let ret = ret.min(max_ret);
-    let mut extra = Vec::with_capacity(values.len() * 4);
+    let mut p = source.unwrap_or(las::Point {
+        return_number: 1,
+        number_of_returns: 1,
+        classification: las::point::Classification::CreatedNeverClassified,
+        ..Default::default()
+    });
+    let mut extra = Vec::with_capacity(source_extra + values.len() * 4);
+    let kept = p.extra_bytes.len().min(source_extra);
+    extra.extend_from_slice(&p.extra_bytes[..kept]);
+    extra.resize(source_extra, 0);
     for v in values {
         extra.extend_from_slice(&v.to_le_bytes());
     }
-    las::Point {
-        x: g[0],
-        y: g[1],
-        z: g[2],
-        intensity: cloud
-            .and_then(|c| c.intensity.as_ref())
-            .map_or(0, |v| v[i].round().clamp(0.0, 65535.0) as u16),
-        return_number: ret,
-        number_of_returns: ret,
-        classification: las::point::Classification::new(class)
-            .unwrap_or(las::point::Classification::CreatedNeverClassified),
-        is_overlap: class == 12,
-        gps_time: format.has_gps_time.then(|| {
-            cloud
-                .and_then(|c| c.gps_time.as_ref())
-                .map_or(0.0, |v| v[i])
-        }),
-        color: format.has_color.then(|| {
-            cloud
-                .and_then(|c| c.color.as_ref())
-                .map_or(Color::default(), |c| {
-                    let [red, green, blue] = c[i];
-                    Color { red, green, blue }
-                })
-        }),
-        nir: format.has_nir.then_some(0),
-        extra_bytes: extra,
-        ..Default::default()
+    p.extra_bytes = extra;
+    p.x = g[0];
+    p.y = g[1];
+    p.z = g[2];
+    if let Some(v) = cloud.and_then(|c| c.intensity.as_ref()) {
+        p.intensity = v[i].round().clamp(0.0, 65535.0) as u16;
     }
+    if let Some(c) = cloud.and_then(|c| c.classification.as_ref()) {
+        let class = c[i];
+        p.classification = las::point::Classification::new(class)
+            .unwrap_or(las::point::Classification::CreatedNeverClassified);
+        p.is_overlap |= class == 12;
+    }
+    if let Some(r) = cloud.and_then(|c| c.return_number.as_ref()) {
+        p.return_number = r[i];
+        if cloud.is_some_and(|c| c.records.is_none()) {
+            p.number_of_returns = r[i];
+        }
+    }
+    p.return_number = p.return_number.min(max_ret);
+    p.number_of_returns = p.number_of_returns.clamp(p.return_number, max_ret);
+    if !format.is_extended {
+        p.scanner_channel = 0;
+        if u8::from(p.classification) > 31 {
+            p.classification = las::point::Classification::CreatedNeverClassified;
+        }
+    }
+    p.gps_time = format.has_gps_time.then(|| {
+        cloud
+            .and_then(|c| c.gps_time.as_ref())
+            .map(|v| v[i])
+            .or(p.gps_time)
+            .unwrap_or(0.0)
+    });
+    p.color = format.has_color.then(|| {
+        cloud
+            .and_then(|c| c.color.as_ref())
+            .map(|c| {
+                let [red, green, blue] = c[i];
+                Color { red, green, blue }
+            })
+            .or(p.color)
+            .unwrap_or_default()
+    });
+    p.nir = format.has_nir.then(|| p.nir.unwrap_or(0));
+    // Waveform packets point into data the writer does not copy: formats with waveforms are
+    // written without them (4 → 1, 5 → 3, 9 → 6, 10 → 8).
+    p.waveform = None;
+    p
 }
 
 #[cfg(test)]
@@ -1382,7 +1621,7 @@ mod tests {
             let v: Vec<f32> = columns.iter().map(|c| c.values[i]).collect();
             let g: [f64; 3] =
                 std::array::from_fn(|k| cloud.origin[k] + cloud.positions[i][k] as f64);
-            las_point(Some((cloud, i)), g, &v, format)
+            las_point(Some((cloud, i)), g, &v, format, 0)
         });
         let pd = PointDataBuilder::new()
             .for_header(w.get().header())
@@ -1414,7 +1653,7 @@ mod tests {
                 b.version = Version::new(1, 4);
                 b.point_format = format;
                 b.vlrs
-                    .push(extra_bytes_vlr(&["a".to_string()], &Ranges::new(1)));
+                    .push(extra_bytes_vlr(&[], &["a".to_string()], &Ranges::new(1)));
                 b.into_header().unwrap()
             };
             // Enough room: written whole.

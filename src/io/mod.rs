@@ -99,8 +99,10 @@ pub struct FileInfo {
     pub record_length: Option<u16>,
     /// Attributes the reader keeps in the [`Cloud`], in [`Cloud::attribute_names`] order.
     pub attributes: Vec<String>,
-    /// Other per-point fields present in the file but not kept: LAS extra-bytes names, other
-    /// PLY vertex properties.
+    /// Other per-point fields present in the file but not decoded into the cloud's columns:
+    /// LAS Extra Bytes names (kept all the same in the cloud's source records and written
+    /// again by LAS/LAZ writers), other PLY vertex properties, E57 fields such as row and
+    /// column indices.
     pub other_fields: Vec<String>,
     /// Coordinate reference system as found: the WKT text of a LAS WKT record or of an E57
     /// file's `coordinateMetadata`, or LAS GeoTIFF keys as `GeoTIFF keys id=value, …`. `None`
