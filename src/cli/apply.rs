@@ -167,8 +167,9 @@ pub fn run(args: &ApplyArgs) -> Result<u8> {
                     c.print_json(&done)?;
                 } else if c.chatty() {
                     let t = tf.translation;
+                    let unit = done.units.as_deref().unwrap_or("file units");
                     let mut line = format!(
-                        "{}: {} points moved (turn {:.4}°, shift {:.4} {:.4} {:.4}) into {}",
+                        "{}: {} points moved (turn {:.4}°, shift {:.4} {:.4} {:.4} {unit}) into {}",
                         done.input,
                         done.points,
                         tf.angle_deg(),

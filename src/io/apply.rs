@@ -236,6 +236,9 @@ pub struct Applied {
     /// The CRS carried into the output (its label), when the input has one.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub crs: Option<String>,
+    /// Unit of the coordinates named by that CRS (`m`, `ft`, `US survey ft`), when it names one.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub units: Option<String>,
 }
 
 /// The record a moved file carries: the version, the transform and where it came from.
@@ -294,6 +297,7 @@ pub fn apply_to_file(input: &Path, output: &Path, tf: &Rigid, from: &str) -> Res
             path: "records".into(),
             scale: Some(m.scale),
             offset: Some(m.offset),
+            units: crs.as_deref().and_then(super::crs::units_label),
             crs: crs.as_deref().map(super::crs::crs_label),
         });
     }
@@ -308,6 +312,7 @@ pub fn apply_to_file(input: &Path, output: &Path, tf: &Rigid, from: &str) -> Res
         path: "cloud".into(),
         scale,
         offset,
+        units: info.crs.as_deref().and_then(super::crs::units_label),
         crs: info.crs.as_deref().map(super::crs::crs_label),
     })
 }
