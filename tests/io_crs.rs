@@ -5,6 +5,9 @@
 //! crate's test data (GeoTIFF keys, EPSG 2994 in international feet, unit code 9002; EPSG unit
 //! codes from memory) and the pye57-written E57 (a WKT in metres).
 
+// Coordinates are indexed by axis, as the formulas write them.
+#![allow(clippy::needless_range_loop)]
+
 use std::path::{Path, PathBuf};
 use std::process::Command;
 

@@ -3,6 +3,9 @@
 //! tools/fixtures/e57_fixtures.py, which also recorded what pye57 reads back
 //! (tests/data/e57/two_scans.json). Then scan selection, the point source, and damaged files.
 
+// Coordinates are indexed by axis, as the formulas write them.
+#![allow(clippy::needless_range_loop)]
+
 use std::path::{Path, PathBuf};
 use std::process::Command;
 

@@ -5,11 +5,15 @@
 //! after them (described in that order), the CRS is kept. Waveform formats (4, 5, 9, 10) are
 //! written as the same format without the waveform packet (its data is not copied).
 
+// Coordinates are indexed by axis, as the formulas write them.
+#![allow(clippy::needless_range_loop)]
+
 use std::path::Path;
 
 use equiscan::io::{Column, LasOptions, read_cloud, write_las_with};
 
 #[path = "support/las_all_fields.rs"]
+#[allow(dead_code)]
 mod las_all_fields;
 use las_all_fields::{WKT, extra_bytes_vlr, write_format};
 

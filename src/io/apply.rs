@@ -3,7 +3,7 @@
 //!
 //! Transforms are row-major 4×4 in file coordinates (f64), mapping the file's coordinates to
 //! the new frame, as every report of this crate writes them. LAS/LAZ into LAS/LAZ is moved
-//! record by record in f64 ([`super::las`]'s `move_las`: every field and Extra Byte kept, the
+//! record by record in f64 (the LAS module's `move_las`: every field and Extra Byte kept, the
 //! input's scale kept, offsets chosen near the moved points, a span the scale cannot hold
 //! refused). Any other pairing of formats goes through a [`Cloud`]: coordinates are moved in
 //! f64 and stored as f32 offsets about a whole-unit origin near the points (steps of at most

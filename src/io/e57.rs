@@ -193,7 +193,7 @@ fn pose(path: &Path, index: usize, pc: &PointCloud) -> Result<(UnitQuaternion<f6
     let q = Quaternion::new(t.rotation.w, t.rotation.x, t.rotation.y, t.rotation.z);
     let tr = Vector3::new(t.translation.x, t.translation.y, t.translation.z);
     let n = q.norm();
-    if !(n.is_finite() && n > 1e-9) || !tr.iter().all(|v| v.is_finite()) {
+    if !(n.is_finite() && n > 1e-9 && tr.iter().all(|v| v.is_finite())) {
         return Err(bad(
             path,
             format!("scan {index} has a pose that is not a rotation and translation"),
@@ -264,7 +264,8 @@ impl E57Reader {
         drop(f);
         let reader = guard(shown, || {
             let f = File::open(file).map_err(|e| Error::io(shown, &e))?;
-            e57::E57Reader::new(BufReader::with_capacity(1 << 20, f)).map_err(|e| e57_err(shown, e))
+            // The default 8 KiB buffer: the page reader seeks often, and a seek empties the buffer.
+            e57::E57Reader::new(BufReader::new(f)).map_err(|e| e57_err(shown, e))
         })?;
         let clouds = reader.pointclouds();
         if clouds.is_empty() {

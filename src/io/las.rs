@@ -1703,7 +1703,8 @@ fn offsets_for(output: &Path, lo: [f64; 3], hi: [f64; 3], scale: [f64; 3]) -> Re
     for k in 0..3 {
         let o = ((lo[k] + hi[k]) * 0.5).round();
         let reach = (hi[k] - o).max(o - lo[k]) / scale[k];
-        if !(reach <= MAX_STORED) {
+        // NaN fails too.
+        if reach.is_nan() || reach > MAX_STORED {
             return Err(Error::file(
                 output,
                 format!(
@@ -1864,7 +1865,7 @@ pub(crate) fn move_las(
             let q = tf.apply(&p);
             for k in 0..3 {
                 let stored = ((q[k] - offset[k]) / scale[k]).round();
-                if !(stored.abs() <= MAX_STORED) {
+                if stored.is_nan() || stored.abs() > MAX_STORED {
                     return Err(Error::file(
                         output,
                         format!(

@@ -80,18 +80,18 @@ pub fn write_format(path: &Path, f: u8, n: usize) {
             intensity: r.next() as u16,
             return_number: 1 + (r.next() % nret as u64) as u8,
             number_of_returns: nret,
-            scan_direction: if r.next() % 2 == 0 {
+            scan_direction: if r.next().is_multiple_of(2) {
                 ScanDirection::LeftToRight
             } else {
                 ScanDirection::RightToLeft
             },
-            is_edge_of_flight_line: r.next() % 2 == 0,
+            is_edge_of_flight_line: r.next().is_multiple_of(2),
             classification: Classification::new((r.next() % if ext { 64 } else { 32 }) as u8)
                 .unwrap_or(Classification::Ground),
-            is_synthetic: r.next() % 2 == 0,
-            is_key_point: r.next() % 2 == 0,
-            is_withheld: r.next() % 2 == 0,
-            is_overlap: ext && r.next() % 2 == 0,
+            is_synthetic: r.next().is_multiple_of(2),
+            is_key_point: r.next().is_multiple_of(2),
+            is_withheld: r.next().is_multiple_of(2),
+            is_overlap: ext && r.next().is_multiple_of(2),
             scanner_channel: if ext { (r.next() % 4) as u8 } else { 0 },
             scan_angle: if ext {
                 (r.next() % 2000) as f32 * 0.006 - 6.0
