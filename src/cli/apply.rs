@@ -179,8 +179,13 @@ pub fn run(args: &ApplyArgs) -> Result<u8> {
                         done.output
                     );
                     if let (Some(s), Some(o)) = (done.scale, done.offset) {
+                        let whose = if done.path == "records" {
+                            " (the input's)"
+                        } else {
+                            ""
+                        };
                         line += &format!(
-                            "; LAS scale {} {} {} (the input's), offset {} {} {}",
+                            "; LAS scale {} {} {}{whose}, offset {} {} {}",
                             s[0], s[1], s[2], o[0], o[1], o[2]
                         );
                     }
