@@ -25,7 +25,8 @@ use serde::Serialize;
 /// Arguments of `equiscan align`.
 #[derive(Debug, clap::Args)]
 pub struct AlignArgs {
-    /// SOURCE and TARGET scans (LAS, LAZ or PLY); with more than two, every scan is registered
+    /// SOURCE and TARGET scans (LAS, LAZ, PLY or E57; one scan of an E57 file as
+    /// FILE.e57#NAME or FILE.e57#INDEX from 0); with more than two, every scan is registered
     /// into the frame of the first.
     #[arg(required = true, num_args = 2.., value_name = "SCAN")]
     pub scans: Vec<PathBuf>,

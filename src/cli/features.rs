@@ -23,7 +23,8 @@ const TIME_BUDGET: f64 = 3600.0;
 /// Arguments of `equiscan features`.
 #[derive(Debug, clap::Args)]
 pub struct FeaturesArgs {
-    /// LAS, LAZ or PLY files.
+    /// LAS, LAZ, PLY or E57 files (one scan of an E57 file as FILE.e57#NAME or
+    /// FILE.e57#INDEX from 0; without it every scan, each placed by its pose).
     #[arg(required = true, value_name = "INPUT")]
     pub inputs: Vec<PathBuf>,
     /// Output file (format from its extension: .npy, .ply, .csv, .las, .laz, .parquet), or an existing

@@ -9,6 +9,7 @@
 pub mod align;
 pub mod align_checks;
 pub mod batch;
+pub mod apply;
 pub mod common;
 pub mod features;
 pub mod info;
@@ -41,6 +42,9 @@ pub enum Command {
     /// points of neighbouring tiles as neighbours (halo), a journal to resume an interrupted
     /// run, and shards to split a run over processes or hosts.
     Batch(batch::BatchArgs),
+    /// Move whole files by a transform from an align or inspect report, or given as 16
+    /// numbers: every attribute and the CRS kept, LAS precision kept.
+    Apply(apply::ApplyArgs),
 }
 
 impl Command {
@@ -51,6 +55,7 @@ impl Command {
             Command::Features(args) => features::run(args),
             Command::Align(args) => align::run(args),
             Command::Batch(args) => batch::run(args),
+            Command::Apply(args) => apply::run(args),
         }
     }
 }

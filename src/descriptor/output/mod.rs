@@ -366,6 +366,13 @@ impl<'a> FeatureWriter<'a> {
                                  bispectrum n, l1 <= l2, l), then coefficients \
                                  [scale][n][l^2 + l + m]"
                             .to_string(),
+                        crs: self.spec.input.crs.clone(),
+                        units: self
+                            .spec
+                            .input
+                            .crs
+                            .as_deref()
+                            .and_then(crate::io::crs::units_label),
                     },
                 };
                 let text = serde_json::to_string_pretty(&doc)
