@@ -11,6 +11,45 @@ use nalgebra::Vector3;
 use crate::error::{Error, Result};
 use crate::geometry::{Rigid, to_f32, vec3};
 
+/// Point records as a LAS/LAZ file stored them, kept beside the decoded columns so that a LAS
+/// writer can copy every field of the point format and the Extra Bytes, which `Cloud` does not
+/// decode (scan angle, user data, point source id, flags, NIR, waveform packets, …).
+///
+/// Record `i` is `bytes[i * record_len .. (i + 1) * record_len]`; its first 12 bytes are the
+/// stored x, y, z, which writers replace with the cloud's own coordinates; the last
+/// `extra_bytes` bytes are the Extra Bytes.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct SourceRecords {
+    /// LAS point data record format, 0–10.
+    pub format: u8,
+    /// Bytes per record, Extra Bytes included.
+    pub record_len: usize,
+    /// Extra Bytes at the end of each record.
+    pub extra_bytes: usize,
+    /// The Extra Bytes descriptions (the payload of the `LASF_Spec` record 4, 192 bytes per
+    /// field); empty when the file does not describe its Extra Bytes.
+    pub extra_descriptors: Vec<u8>,
+    /// The records, one after another.
+    pub bytes: Vec<u8>,
+}
+
+impl SourceRecords {
+    /// Record `i`.
+    pub fn record(&self, i: usize) -> &[u8] {
+        &self.bytes[i * self.record_len..(i + 1) * self.record_len]
+    }
+
+    /// Number of records held.
+    pub fn len(&self) -> usize {
+        self.bytes.len().checked_div(self.record_len).unwrap_or(0)
+    }
+
+    /// True when no record is held.
+    pub fn is_empty(&self) -> bool {
+        self.bytes.is_empty()
+    }
+}
+
 /// A point cloud: f64 origin plus f32 local positions and optional scanner attributes.
 #[derive(Debug, Clone, Default, PartialEq)]
 pub struct Cloud {
@@ -30,6 +69,9 @@ pub struct Cloud {
     pub return_number: Option<Vec<u8>>,
     /// GPS time, seconds, as stored in the file.
     pub gps_time: Option<Vec<f64>>,
+    /// The point records of a LAS/LAZ source, one per point ([`SourceRecords`]); `None` for
+    /// other sources. LAS writers copy every field they do not take from the columns above.
+    pub records: Option<SourceRecords>,
 }
 
 impl Cloud {
@@ -172,6 +214,17 @@ impl Cloud {
             classification: pick(&self.classification, indices),
             return_number: pick(&self.return_number, indices),
             gps_time: pick(&self.gps_time, indices),
+            records: self.records.as_ref().map(|r| {
+                let mut bytes = Vec::with_capacity(indices.len() * r.record_len);
+                for &i in indices {
+                    bytes.extend_from_slice(r.record(i));
+                }
+                SourceRecords {
+                    bytes,
+                    extra_descriptors: r.extra_descriptors.clone(),
+                    ..*r
+                }
+            }),
         }
     }
 
@@ -185,6 +238,7 @@ impl Cloud {
             ("classification", self.classification.as_ref().map(Vec::len)),
             ("return_number", self.return_number.as_ref().map(Vec::len)),
             ("gps_time", self.gps_time.as_ref().map(Vec::len)),
+            ("records", self.records.as_ref().map(SourceRecords::len)),
         ];
         for (name, len) in lens {
             if let Some(len) = len
@@ -195,6 +249,21 @@ impl Cloud {
                     "give one entry per point",
                 ));
             }
+        }
+        if let Some(r) = &self.records
+            && (r.record_len < 12
+                || r.bytes.len() % r.record_len != 0
+                || r.extra_bytes > r.record_len)
+        {
+            return Err(Error::invalid(
+                format!(
+                    "the source records hold {} bytes in records of {} bytes with {} extra bytes",
+                    r.bytes.len(),
+                    r.record_len,
+                    r.extra_bytes
+                ),
+                "give whole records of at least 12 bytes",
+            ));
         }
         if let Some(i) = self
             .positions

@@ -25,6 +25,7 @@
 #![deny(missing_docs)]
 
 pub mod align;
+pub mod batch;
 pub mod cloud;
 pub mod descriptor;
 pub mod error;
@@ -34,6 +35,7 @@ pub mod parts;
 pub mod report;
 pub mod so3;
 pub mod spatial;
+pub mod text;
 
 pub use cloud::Cloud;
 pub use error::{Error, Result};

@@ -475,3 +475,33 @@ fn three_scans_share_the_first_frame_and_close_their_loop() {
         assert!(l["translation"].as_f64().unwrap() < 0.01 * d, "{l}");
     }
 }
+
+#[test]
+fn registration_messages_name_the_file() {
+    let dir = tempfile::tempdir().unwrap();
+    let p = problem(&bunny(), 50.0, 2000, 0.003, 5);
+    write_ply(&dir.path().join("good.ply"), &p.target, &[]).unwrap();
+    // Twelve copies of one point: read fine, but no spacing can be measured.
+    let flat = Cloud::new([10.0, 20.0, 30.0], vec![[0.5, 0.5, 0.5]; 12]);
+    write_ply(&dir.path().join("one_spot.ply"), &flat, &[]).unwrap();
+    for scans in [
+        ["one_spot.ply", "good.ply", ""],
+        ["good.ply", "one_spot.ply", ""],
+        ["good.ply", "good.ply", "one_spot.ply"],
+    ] {
+        let args: Vec<&str> = std::iter::once("align")
+            .chain(scans.into_iter().filter(|s| !s.is_empty()))
+            .collect();
+        let out = equiscan(&args, dir.path());
+        let err = String::from_utf8_lossy(&out.stderr);
+        assert_eq!(out.status.code(), Some(2), "{args:?}: {err}");
+        assert!(
+            err.contains("one_spot.ply: fewer than two distinct points"),
+            "{args:?}: {err}"
+        );
+        assert!(
+            !err.contains("source:") && !err.contains("target:"),
+            "{err}"
+        );
+    }
+}

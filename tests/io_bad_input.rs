@@ -81,10 +81,16 @@ fn wrong_magic() {
     let d = Dir::new();
     check(
         &d.file("photo.las", b"\x89PNG\r\n\x1a\n...."),
-        "not a LAS, LAZ or PLY file",
+        "not a LAS, LAZ, PLY or E57 file",
     );
-    check(&d.file("x.ply", b"plyx\n"), "not a LAS, LAZ or PLY file");
-    check(&d.file("short.las", b"LA"), "not a LAS, LAZ or PLY file");
+    check(
+        &d.file("x.ply", b"plyx\n"),
+        "not a LAS, LAZ, PLY or E57 file",
+    );
+    check(
+        &d.file("short.las", b"LA"),
+        "not a LAS, LAZ, PLY or E57 file",
+    );
 }
 
 #[test]

@@ -38,6 +38,10 @@ fn append(a: &mut Cloud, b: Cloud) {
     cat(&mut a.classification, b.classification);
     cat(&mut a.return_number, b.return_number);
     cat(&mut a.gps_time, b.gps_time);
+    assert_eq!(a.records.is_some(), b.records.is_some());
+    if let (Some(x), Some(y)) = (a.records.as_mut(), b.records) {
+        x.bytes.extend(y.bytes);
+    }
 }
 
 #[test]

@@ -166,7 +166,7 @@ fn las_family(c: &mut Corpus, minor: u8, format: u8) {
     v(c, "bounds_nan", b, Accepted(N));
     let mut b = base.clone();
     b[3] = b'X';
-    v(c, "magic", b, Refused("not a LAS, LAZ or PLY file"));
+    v(c, "magic", b, Refused("not a LAS, LAZ, PLY or E57 file"));
     v(c, "empty", Vec::new(), Refused("the file is empty"));
     // One point's X integer at i32::MAX with a 1000-unit x scale: 2.1e12 units away.
     let mut b = base.clone();

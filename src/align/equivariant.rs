@@ -16,6 +16,7 @@
 use rayon::prelude::*;
 
 use super::matching::Correspondence;
+use super::prepared_scan::Descriptors;
 use super::rigid::Rigid;
 use crate::descriptor::{Centres, Engine, Invariants, Recipe};
 use crate::error::Result;
@@ -35,25 +36,12 @@ pub struct EquivariantRecipe {
     pub version: u32,
 }
 
-/// Invariant rows and coefficient blocks at the keypoints of one cloud.
-pub struct EquivariantFeatures {
-    /// Invariant values per row.
-    pub dim: usize,
-    /// Matching rows (signed square root of the power spectrum), `len × dim`.
-    pub rows: Vec<f32>,
-    /// Values per coefficient block: scales × shells × (L+1)².
-    pub block: usize,
-    /// Coefficient blocks, `len × block`, layout `[scale][n][l² + l + m]` (scales act as extra
-    /// shells for the rotation search).
-    pub coefficients: Vec<f64>,
-}
-
 /// Descriptors at every point of `points` (the keypoints), neighbours from the same points.
 pub fn describe(
     points: &[[f32; 3]],
     index: &KdIndex,
     recipe: &EquivariantRecipe,
-) -> Result<EquivariantFeatures> {
+) -> Result<Descriptors> {
     let r = Recipe::builder()
         .version(recipe.version)
         .radii(recipe.radii.iter().copied())
@@ -76,11 +64,11 @@ pub fn describe(
         .collect();
     let coeffs = f.coefficients.unwrap_or_default();
     let block = coeffs.len() / points.len().max(1);
-    Ok(EquivariantFeatures {
+    Ok(Descriptors {
         dim,
         rows,
         block,
-        coefficients: coeffs.iter().map(|&v| v as f64).collect(),
+        coefficients: coeffs,
     })
 }
 
@@ -108,8 +96,8 @@ pub fn hypotheses(
     corr: &[Correspondence],
     source_points: &[[f32; 3]],
     target_points: &[[f32; 3]],
-    source: &EquivariantFeatures,
-    target: &EquivariantFeatures,
+    source: &Descriptors,
+    target: &Descriptors,
     searcher: &RotationSearcher,
 ) -> Vec<Rigid> {
     let b = source.block;
@@ -119,7 +107,7 @@ pub fn hypotheses(
             let (i, j) = (c.source as usize, c.target as usize);
             let a = &source.coefficients[i * b..(i + 1) * b];
             let t = &target.coefficients[j * b..(j + 1) * b];
-            let Ok(res) = searcher.search(a, t) else {
+            let Ok(res) = searcher.search_f32(a, t) else {
                 return Vec::new();
             };
             if res.best.normalized_rotational_score.is_nan()

@@ -71,6 +71,10 @@ pub fn write_moved(
                     row[0], row[1], row[2], row[3]
                 ));
             }
+            // The points are now in TARGET's frame: its CRS, on one line.
+            if let Some(crs) = &target_info.crs {
+                comments.push(format!("crs {}", crs.replace(['\n', '\r'], " ")));
+            }
             write_ply_with_comments(path, &cloud, &[], &comments)
         }
         _ => Err(Error::file(

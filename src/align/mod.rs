@@ -6,28 +6,30 @@
 //! f64. Distances (voxel size, radii, RMSE) are in file units, usually metres. Angles in the
 //! results are in degrees.
 //!
-//! Pipeline ([`align_pair`]), one module per job:
-//! 1. [`prep`]: voxel-grid keypoints (voxel size from the measured spacing unless given), PCA
-//!    normals, a k-d tree;
-//! 2. features at the keypoints: the baseline FPFH ([`fpfh`]) or rotation-invariant harmonic
-//!    descriptors with their equivariant coefficients ([`equivariant`]);
-//! 3. [`matching`]: nearest neighbours in feature space, mutual check and ratio test;
-//! 4. [`consensus`]: pose hypotheses (3-point RANSAC for the baseline; one per correspondence
-//!    from the equivariant coefficients), scored by the correspondences they explain;
-//! 5. refinement of the best few on their inliers (weighted Umeyama), ranking by tight overlap
-//!    (plane distance and normal agreement), then point-to-plane [`icp`] with a robust loss from
-//!    the 12 best distinct poses and from the near-symmetric alternatives of the leader
-//!    ([`candidates`]: turns about the principal axes of the overlap, flips, slides along weak
-//!    directions); poses ranked by tight overlap × explained matches, rivals by
-//!    [`candidates::rivalry`];
-//! 6. fine ICP from the best pose; [`constraint`]: the 6×6 normal matrix of the fit, its weak
-//!    directions, and a refit on a stability-aware sample when a direction looks weak (Gelfand,
-//!    Ikemoto, Rusinkiewicz & Levoy 2003);
-//! 7. [`residual`]: the inlier RMSE on the full-resolution clouds; [`quality`]: overlap,
-//!    consensus, margin, a confidence figure and the verdict (`confident`, `ambiguous` with the
-//!    candidates listed, or `not_found`).
+//! Each cloud is first prepared once ([`PreparedScan`], [`prepared_scan`]): voxel-grid keypoints
+//! ([`prep`]; voxel size from the measured spacing unless given), PCA normals, the descriptors
+//! at the keypoints (the baseline FPFH, [`fpfh`], or rotation-invariant harmonic descriptors
+//! with their equivariant coefficients, [`equivariant`]), the fine points for the final fit.
+//! Two prepared scans then go through four stages ([`align_prepared`]; [`align_pair`] prepares
+//! and registers two clouds), one module each, every tuning value in [`Tuning`]:
+//! 1. [`hypotheses`]: nearest neighbours in descriptor space with the mutual check and ratio
+//!    test ([`matching`]); pose hypotheses (3-point RANSAC for the baseline; one per
+//!    correspondence from the equivariant coefficients), scored by the correspondences they
+//!    explain ([`consensus`]);
+//! 2. [`rank`]: the best distinct hypotheses refined on their inliers (weighted Umeyama) and
+//!    re-ranked by tight overlap (plane distance and normal agreement) on a keypoint subsample;
+//! 3. [`refine`]: point-to-plane [`icp`] with a robust loss from the best distinct poses and
+//!    from the near-symmetric alternatives of the leader ([`candidates`]: turns about the
+//!    principal axes of the overlap, flips, slides along weak directions), ranked by tight
+//!    overlap × explained matches; fine ICP from the best pose; [`constraint`]: the 6×6 normal
+//!    matrix of the fit, its weak directions, and a refit on a stability-aware sample when a
+//!    direction looks weak (Gelfand, Ikemoto, Rusinkiewicz & Levoy 2003);
+//! 4. [`judge`]: rivals ([`candidates::rivalry`]) and margin, the inlier RMSE on the
+//!    full-resolution clouds ([`residual`]), overlap, a confidence figure and the verdict
+//!    ([`quality`]: `confident`, `ambiguous` with the candidates listed, or `not_found`).
 //!
-//! [`multi`] registers more than two scans through a maximum spanning tree of pair confidences.
+//! [`multi`] registers more than two scans through a maximum spanning tree of pair confidences,
+//! each scan prepared once per voxel size. Messages name each cloud by its display name.
 //! Nothing here prints; every stage is deterministic for any number of threads.
 
 pub mod candidates;
@@ -36,12 +38,17 @@ pub mod constraint;
 pub mod equivariant;
 pub mod export;
 pub mod fpfh;
+pub mod hypotheses;
 pub mod icp;
+pub mod judge;
 pub mod matching;
 pub mod multi;
 pub mod pipeline;
 pub mod prep;
+pub mod prepared_scan;
 pub mod quality;
+pub mod rank;
+pub mod refine;
 pub mod report;
 pub mod residual;
 pub mod truth;
@@ -54,8 +61,11 @@ pub use crate::geometry::rigid;
 pub use candidates::Candidate;
 pub use constraint::{Constraint, Motion, WeakDirection};
 pub use icp::RobustLoss;
-pub use multi::{LoopResidual, MultiAlignment, PairAlignment, align_many};
-pub use pipeline::{AlignParams, Alignment, Method, StageTime, align_pair};
+pub use multi::{LoopResidual, MultiAlignment, PairAlignment, align_many, align_many_named};
+pub use pipeline::{
+    AlignParams, Alignment, Method, StageTime, align_named, align_pair, align_prepared,
+};
+pub use prepared_scan::PreparedScan;
 pub use quality::{Figures, Reason, Verdict};
 pub use rigid::{Rigid, horn, rotation_error_deg, umeyama};
 pub use tuning::Tuning;

@@ -1,4 +1,4 @@
-//! More than two scans: pairwise alignments, a maximum spanning tree on pair confidence, every
+//! More than two scans: pairwise alignments of scans prepared once each, a maximum spanning tree on pair confidence, every
 //! scan placed in the frame of the first, and the residual of every loop the tree does not use.
 //!
 //! For scans `0..n`, each pair `i < j` is aligned (`j` onto `i`). Confident pairs are edges
@@ -11,7 +11,12 @@
 use nalgebra::Vector3;
 use serde::{Deserialize, Serialize};
 
-use super::pipeline::{AlignParams, Alignment, align_pair};
+use std::collections::HashMap;
+
+use rayon::prelude::*;
+
+use super::pipeline::{AlignParams, Alignment, Clock, prepare_timed, register};
+use super::prepared_scan::{PreparedScan, checked_voxel, scan_voxel, support_radius};
 use super::quality::Verdict;
 use super::rigid::Rigid;
 use crate::cloud::Cloud;
@@ -53,24 +58,88 @@ pub struct MultiAlignment {
     pub loops: Vec<LoopResidual>,
 }
 
-/// Registers every scan into the frame of the first.
+/// Registers every scan into the frame of the first; messages call the scans "scan 1",
+/// "scan 2", … ([`align_many_named`] names them).
 pub fn align_many(clouds: &[Cloud], params: &AlignParams) -> Result<MultiAlignment> {
-    let n = clouds.len();
+    let names: Vec<String> = (1..=clouds.len()).map(|k| format!("scan {k}")).collect();
+    let scans: Vec<(&str, &Cloud)> = names.iter().map(String::as_str).zip(clouds).collect();
+    align_many_named(&scans, params)
+}
+
+/// Registers every scan (display name, cloud) into the frame of the first.
+///
+/// Each cloud is prepared once per voxel size it is used at ([`PreparedScan`], kept while a
+/// later pair needs it): a pair is registered at the voxel size given in `params`, or else at
+/// the larger of its two clouds' automatic voxel sizes, each measured once per cloud. The
+/// results are those of [`super::align_named`] on every pair; a pair's timings include the
+/// preparations it triggered.
+pub fn align_many_named(scans: &[(&str, &Cloud)], params: &AlignParams) -> Result<MultiAlignment> {
+    let n = scans.len();
     if n < 2 {
         return Err(Error::invalid(
             format!("{n} scan given"),
             "give at least two scans",
         ));
     }
+    let voxels: Vec<f64> = match params.voxel {
+        Some(v) => vec![checked_voxel(v)?; n],
+        None => {
+            let each: Vec<Result<f64>> = scans
+                .par_iter()
+                .map(|&(name, cloud)| scan_voxel(name, cloud))
+                .collect();
+            each.into_iter().collect::<Result<_>>()?
+        }
+    };
+    // Pairs in order (0,1), (0,2), …, (1,2), …, each with its voxel size; how often each
+    // (scan, voxel size) is still needed.
+    let order: Vec<(usize, usize, f64)> = (0..n)
+        .flat_map(|i| (i + 1..n).map(move |j| (i, j)))
+        .map(|(i, j)| (i, j, voxels[i].max(voxels[j])))
+        .collect();
+    let mut uses: HashMap<(usize, u64), usize> = HashMap::new();
+    for &(i, j, v) in &order {
+        for k in [i, j] {
+            *uses.entry((k, v.to_bits())).or_default() += 1;
+        }
+    }
+    let mut prepared: HashMap<(usize, u64), PreparedScan> = HashMap::new();
     let mut pairs = Vec::new();
-    for i in 0..n {
-        for j in i + 1..n {
-            let alignment = align_pair(&clouds[j], &clouds[i], params)?;
-            pairs.push(PairAlignment {
-                fixed: i,
-                moving: j,
-                alignment,
-            });
+    for &(i, j, v) in &order {
+        let mut clock = Clock::new();
+        support_radius(params, v)?;
+        let todo: Vec<usize> = [j, i]
+            .into_iter()
+            .filter(|&k| !prepared.contains_key(&(k, v.to_bits())))
+            .collect();
+        let clouds: Vec<(&str, &Cloud)> = todo.iter().map(|&k| scans[k]).collect();
+        let fresh = prepare_timed(&clouds, params, v, &mut clock)?;
+        for (k, scan) in todo.into_iter().zip(fresh) {
+            prepared.insert((k, v.to_bits()), scan);
+        }
+        let (Some(moving), Some(fixed)) = (
+            prepared.get(&(j, v.to_bits())),
+            prepared.get(&(i, v.to_bits())),
+        ) else {
+            return Err(Error::internal(
+                "a prepared scan went missing",
+                "report this as a bug",
+            ));
+        };
+        let alignment = register(moving, fixed, params, clock)?;
+        pairs.push(PairAlignment {
+            fixed: i,
+            moving: j,
+            alignment,
+        });
+        for k in [i, j] {
+            let key = (k, v.to_bits());
+            if let Some(u) = uses.get_mut(&key) {
+                *u -= 1;
+                if *u == 0 {
+                    prepared.remove(&key);
+                }
+            }
         }
     }
     let edges: Vec<(usize, usize, f64, Rigid)> = pairs
@@ -87,7 +156,7 @@ pub fn align_many(clouds: &[Cloud], params: &AlignParams) -> Result<MultiAlignme
         .collect();
     let (tree, rest) = spanning_tree(n, &edges);
     let poses = compose_poses(n, &tree);
-    let centroids: Vec<Vector3<f64>> = clouds.iter().map(Cloud::centroid).collect();
+    let centroids: Vec<Vector3<f64>> = scans.iter().map(|(_, c)| c.centroid()).collect();
     let loops = rest
         .iter()
         .filter_map(|&(i, j, _, t)| {

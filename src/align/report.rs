@@ -10,12 +10,13 @@ use std::path::Path;
 
 use serde::Serialize;
 
+use super::export::MoveRecord;
 use super::multi::{LoopResidual, MultiAlignment};
 use super::pipeline::{Alignment, Method};
 use super::quality::{Reason, Verdict};
 use super::truth::TruthCheck;
 use crate::cloud::Cloud;
-use crate::error::Result;
+use crate::error::{Error, Result};
 use crate::geometry::Rigid;
 use crate::geometry::{to_f32, vec3};
 use crate::io::FileInfo;
@@ -71,17 +72,16 @@ impl Units {
     }
 
     /// The linear unit named in a CRS description (WKT or GeoTIFF keys as `io` prints them);
-    /// `Unknown` when none is recognised. US survey foot is tested before the foot.
+    /// `Unknown` when none is recognised. US survey foot is tested before the foot; GeoTIFF
+    /// keys by their unit code.
     pub fn from_crs(crs: &str) -> Units {
-        let c = crs.to_ascii_lowercase();
-        if c.contains("us survey foot") || c.contains("foot_us") || c.contains("ftus") {
-            Units::UsSurveyFoot
-        } else if c.contains("foot") || c.contains("feet") {
-            Units::Foot
-        } else if c.contains("metre") || c.contains("meter") {
-            Units::Metre
-        } else {
-            Units::Unknown
+        // One reading of a CRS's unit for every output: `io::crs::units_label`.
+        match crate::io::crs::units_label(crs).as_deref() {
+            Some("m") => Units::Metre,
+            Some("mm") => Units::Millimetre,
+            Some("ft") => Units::Foot,
+            Some("US survey ft") => Units::UsSurveyFoot,
+            _ => Units::Unknown,
         }
     }
 }
@@ -238,6 +238,13 @@ pub struct PairReport {
     pub timings: Vec<Timing>,
     /// Errors against the --truth transform, when given.
     pub truth: Option<TruthCheck>,
+    /// The coordinate reference system of the frame the transform maps into (TARGET's, as
+    /// `io::FileInfo::crs` reads it); left out when TARGET has none.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub target_crs: Option<String>,
+    /// Warnings about the inputs (e.g. different coordinate reference systems).
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub warnings: Vec<String>,
     /// The caution that goes with every result.
     pub caution: String,
 }
@@ -279,6 +286,13 @@ pub struct MultiReport {
     /// Loops closed by confident pairs outside the tree: rotation (degrees) and displacement
     /// (file units) of the composition around the loop.
     pub loops: Vec<LoopResidual>,
+    /// The coordinate reference system of the first scan, the frame every pose maps into;
+    /// left out when it has none.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub crs: Option<String>,
+    /// Warnings about the inputs (e.g. different coordinate reference systems).
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub warnings: Vec<String>,
     /// The caution that goes with every result.
     pub caution: String,
 }
@@ -347,6 +361,11 @@ pub struct RunContext {
     pub units_from: String,
     /// Scene or part.
     pub job: Job,
+    /// CRS of the frame the transforms map into: TARGET's for two scans, the first scan's for
+    /// more (`io::FileInfo::crs`).
+    pub crs: Option<String>,
+    /// The warning of `io::crs::mixed_crs_warning` when the inputs' CRSs differ.
+    pub crs_warning: Option<String>,
 }
 
 impl RunContext {
@@ -377,9 +396,21 @@ impl RunContext {
             .and_then(|(_, c, _)| c.global_bounds())
             .map(|(lo, hi)| (0..3).map(|k| (hi[k] - lo[k]).powi(2)).sum::<f64>().sqrt())
             .unwrap_or(0.0);
-        let any_las = scans
+        let any_las = scans.iter().any(|(_, _, i)| {
+            let f = i.format.to_ascii_uppercase();
+            f.starts_with("LA") || f == "E57"
+        });
+        let frame = if scans.len() == 2 {
+            scans.get(1)
+        } else {
+            scans.first()
+        };
+        let named: Vec<(String, Option<&str>)> = scans
             .iter()
-            .any(|(_, _, i)| i.format.to_ascii_uppercase().starts_with("LA"));
+            .map(|(p, _, i)| (p.display().to_string(), i.crs.as_deref()))
+            .collect();
+        let named: Vec<(&str, Option<&str>)> =
+            named.iter().map(|(p, c)| (p.as_str(), *c)).collect();
         let (created, reproducible) = RunContext::clock();
         RunContext {
             version: env!("CARGO_PKG_VERSION").to_string(),
@@ -391,6 +422,8 @@ impl RunContext {
             units,
             units_from,
             job: Job::decide(units, diagonal, any_las),
+            crs: frame.and_then(|(_, _, i)| i.crs.clone()),
+            crs_warning: crate::io::crs::mixed_crs_warning(&named),
         }
     }
 
@@ -516,7 +549,28 @@ impl PairReport {
                     .collect()
             },
             truth,
+            target_crs: ctx.crs.clone(),
+            warnings: ctx.crs_warning.iter().cloned().collect(),
             caution: ctx.job.caution().to_string(),
+        }
+    }
+
+    /// Puts the time spent reading the scans first in the timings, unless the run is
+    /// reproducible (`SOURCE_DATE_EPOCH`: no wall times then).
+    pub fn add_reading_time(&mut self, seconds: f64, ctx: &RunContext) {
+        if !ctx.reproducible {
+            let stage = "reading".to_string();
+            self.timings.insert(0, Timing { stage, seconds });
+        }
+    }
+
+    /// What a file moved by this result records: the program version, the verdict and the
+    /// transform.
+    pub fn move_record(&self, ctx: &RunContext) -> MoveRecord {
+        MoveRecord {
+            version: ctx.version.clone(),
+            verdict: self.verdict.clone(),
+            transform: self.transform,
         }
     }
 
@@ -576,6 +630,15 @@ impl PairReport {
             Some(why) => s.push_str(&format!("result: no confident alignment: {why}\n")),
         }
         s.push_str("transform (source into target, row-major):\n");
+        if let Some(c) = &r.target_crs {
+            s.push_str(&format!(
+                "frame: {} (TARGET's CRS)\n",
+                crate::io::crs::crs_label(c)
+            ));
+        }
+        for w in &r.warnings {
+            s.push_str(&format!("warning: {w}\n"));
+        }
         for row in &r.transform {
             s.push_str(&format!(
                 "  {:>16.9} {:>16.9} {:>16.9} {:>16.6}\n",
@@ -639,6 +702,8 @@ impl MultiReport {
                 })
                 .collect(),
             loops: m.loops.clone(),
+            crs: ctx.crs.clone(),
+            warnings: ctx.crs_warning.iter().cloned().collect(),
             caution: ctx.job.caution().to_string(),
         }
     }
@@ -685,6 +750,9 @@ impl MultiReport {
                 l.cycle, l.rotation_deg, l.translation
             ));
         }
+        for w in &r.warnings {
+            s.push_str(&format!("warning: {w}\n"));
+        }
         s.push_str(&r.caution);
         s
     }
@@ -717,6 +785,19 @@ fn distances_to(a: &Cloud, a_tf: &Rigid, b: &Cloud, b_tf: &Rigid) -> Vec<f32> {
             index.nearest_one(to_f32(&q)).1.sqrt()
         })
         .collect()
+}
+
+/// Writes `report` (a [`PairReport`] or [`MultiReport`]) to `path` as pretty-printed JSON with
+/// a final newline, replacing the file as a whole ([`crate::io::write_atomic`]).
+pub fn write_report<T: Serialize>(path: &Path, report: &T) -> Result<()> {
+    let json = serde_json::to_string_pretty(report)
+        .map_err(|e| Error::internal(format!("report: {e}"), "report this as a bug"))?;
+    crate::io::write_atomic(path, |w| {
+        use std::io::Write;
+        w.write_all(json.as_bytes())
+            .and_then(|_| w.write_all(b"\n"))
+            .map_err(|e| Error::io(path, &e))
+    })
 }
 
 /// Draws SOURCE and TARGET before and after `tf` (three views each) with the report's figures

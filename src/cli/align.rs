@@ -6,27 +6,27 @@
 //! arguments, checks outputs before reading, prints and sets the exit code: 0 on a confident
 //! result, 1 when the run found none, 2 on an error.
 
-use std::io::Write;
 use std::path::{Path, PathBuf};
 use std::time::Instant;
 
-use super::align_checks::{busy, check_cost, occupied_voxels};
+use super::align_checks::{busy, check_cost, context, occupied_voxels, positive};
 use super::common::{CommonArgs, Size, default_memory_budget, print_stdout};
-use equiscan::align::export::{MoveRecord, write_moved};
+use equiscan::align::export::write_moved;
 use equiscan::align::report::{
-    Input, MultiReport, PairReport, RunContext, Timing, Units, fingerprint, write_pair_picture,
+    Input, MultiReport, PairReport, fingerprint, write_pair_picture, write_report,
 };
 use equiscan::align::truth::{TruthCheck, read_truth};
-use equiscan::align::{AlignParams, Method, align_many, align_pair};
+use equiscan::align::{AlignParams, Method, align_many_named, align_named};
 use equiscan::io::guard::{check_extension, check_outputs};
-use equiscan::io::{FileInfo, read_cloud, write_atomic};
+use equiscan::io::{FileInfo, read_cloud};
 use equiscan::{Cloud, Error, Result};
 use serde::Serialize;
 
 /// Arguments of `equiscan align`.
 #[derive(Debug, clap::Args)]
 pub struct AlignArgs {
-    /// SOURCE and TARGET scans (LAS, LAZ or PLY); with more than two, every scan is registered
+    /// SOURCE and TARGET scans (LAS, LAZ, PLY or E57; one scan of an E57 file as
+    /// FILE.e57#NAME or FILE.e57#INDEX from 0); with more than two, every scan is registered
     /// into the frame of the first.
     #[arg(required = true, num_args = 2.., value_name = "SCAN")]
     pub scans: Vec<PathBuf>,
@@ -103,18 +103,6 @@ pub enum UnitsArg {
     Ft,
     /// US survey feet.
     UsFt,
-}
-
-fn positive(v: Option<f64>, option: &str, example: &str) -> Result<()> {
-    match v {
-        Some(x) if !(x > 0.0 && x.is_finite()) => Err(Error::invalid(
-            format!("{option} {x} is not a size greater than 0"),
-            format!(
-                "give a size such as {option} {example} (file units), or leave it out to choose it from the point spacing"
-            ),
-        )),
-        _ => Ok(()),
-    }
 }
 
 /// Runs `align`; returns the exit code.
@@ -196,42 +184,30 @@ fn registered(args: &AlignArgs) -> Result<u8> {
         })
         .collect();
     let stages = "registering (keypoints, descriptors, matching, poses, refinement)";
+    let names: Vec<String> = args.scans.iter().map(|p| p.display().to_string()).collect();
     if read.len() > 2 {
-        let clouds: Vec<Cloud> = read.iter().map(|(c, _)| c.clone()).collect();
-        let multi = busy(c.quiet, stages, || align_many(&clouds, &p))?;
+        let scans: Vec<(&str, &Cloud)> = names
+            .iter()
+            .map(String::as_str)
+            .zip(read.iter().map(|(c, _)| c))
+            .collect();
+        let multi = busy(c.quiet, stages, || align_many_named(&scans, &p))?;
         let report = MultiReport::new(&inputs, p.method, &multi, &ctx);
         finish(args, &report, &report.summary())?;
         return Ok(if report.is_confident() { 0 } else { 1 });
     }
     let (source, target) = (inputs[0], inputs[1]);
     let a = busy(c.quiet, stages, || {
-        align_pair(source.cloud, target.cloud, &p)
+        align_named((&names[0], source.cloud), (&names[1], target.cloud), &p)
     })?;
     let check = truth.map(|t| TruthCheck::new(&a.transform, &t, &source.cloud.centroid()));
     let mut report = PairReport::new(source, target, p.method, &a, check, &ctx);
-    if !ctx.reproducible {
-        report.timings.insert(
-            0,
-            Timing {
-                stage: "reading".into(),
-                seconds: read_seconds,
-            },
-        );
-    }
+    report.add_reading_time(read_seconds, &ctx);
     if let Some(out) = &args.write {
         if report.is_confident() || args.write_anyway {
-            let record = MoveRecord {
-                version: ctx.version.clone(),
-                verdict: report.verdict.clone(),
-                transform: report.transform,
-            };
-            write_moved(
-                out,
-                (source.cloud, &read[0].1),
-                &read[1].1,
-                &a.transform,
-                &record,
-            )?;
+            let record = report.move_record(&ctx);
+            let source = (source.cloud, &read[0].1);
+            write_moved(out, source, &read[1].1, &a.transform, &record)?;
             c.wrote(out);
         } else {
             eprintln!(
@@ -248,39 +224,10 @@ fn registered(args: &AlignArgs) -> Result<u8> {
     Ok(if report.is_confident() { 0 } else { 1 })
 }
 
-/// The run's settings, units (flag, else a CRS), job and clock.
-fn context(args: &AlignArgs, read: &[(Cloud, FileInfo)]) -> RunContext {
-    let units = args.units.map(|u| match u {
-        UnitsArg::M => Units::Metre,
-        UnitsArg::Mm => Units::Millimetre,
-        UnitsArg::Ft => Units::Foot,
-        UnitsArg::UsFt => Units::UsSurveyFoot,
-    });
-    let scans: Vec<_> = args
-        .scans
-        .iter()
-        .zip(read)
-        .map(|(p, (c, i))| (p.as_path(), c, i))
-        .collect();
-    RunContext::new(
-        args.seed,
-        args.voxel.is_some(),
-        args.radius.is_some(),
-        units,
-        &scans,
-    )
-}
-
 fn finish<T: Serialize>(args: &AlignArgs, report: &T, summary: &str) -> Result<()> {
     let c = &args.common;
     if let Some(path) = &args.report {
-        let json = serde_json::to_string_pretty(report)
-            .map_err(|e| Error::invalid(format!("report: {e}"), "report this as a bug"))?;
-        write_atomic(path, |w| {
-            w.write_all(json.as_bytes())
-                .and_then(|_| w.write_all(b"\n"))
-                .map_err(|e| Error::io(path, &e))
-        })?;
+        write_report(path, report)?;
         c.wrote(path);
     }
     if c.json {

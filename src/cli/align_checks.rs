@@ -1,9 +1,13 @@
-//! What `align` adds to the shared machinery ([`super::common`], `io::guard`): the
-//! keypoint and memory estimate before the heavy work, and a ticker for stages that report no
-//! item counts (the shared [`super::common::Progress`] counts items).
+//! What `align` adds to the shared machinery ([`super::common`], `io::guard`): the checks of
+//! --voxel and --radius, the keypoint and memory estimate before the heavy work, the run
+//! context from the arguments, and a ticker for stages that report no item counts (the shared
+//! [`super::common::Progress`] counts items).
 
+use equiscan::align::report::{RunContext, Units};
+use equiscan::io::FileInfo;
 use equiscan::{Cloud, Error, Result};
 
+use super::align::{AlignArgs, UnitsArg};
 use super::common::{Size, plural};
 
 /// Bytes of memory per keypoint (both clouds counted), from the depot stations: peak resident
@@ -71,4 +75,40 @@ pub fn busy<T>(quiet: bool, what: &str, work: impl FnOnce() -> T) -> T {
     let _ = done.send(());
     let _ = ticker.join();
     out
+}
+
+/// Refuses a size option (`--voxel`, `--radius`) that is not a positive number.
+pub fn positive(v: Option<f64>, option: &str, example: &str) -> Result<()> {
+    match v {
+        Some(x) if !(x > 0.0 && x.is_finite()) => Err(Error::invalid(
+            format!("{option} {x} is not a size greater than 0"),
+            format!(
+                "give a size such as {option} {example} (file units), or leave it out to choose it from the point spacing"
+            ),
+        )),
+        _ => Ok(()),
+    }
+}
+
+/// The run's settings, units (flag, else a CRS), job and clock.
+pub fn context(args: &AlignArgs, read: &[(Cloud, FileInfo)]) -> RunContext {
+    let units = args.units.map(|u| match u {
+        UnitsArg::M => Units::Metre,
+        UnitsArg::Mm => Units::Millimetre,
+        UnitsArg::Ft => Units::Foot,
+        UnitsArg::UsFt => Units::UsSurveyFoot,
+    });
+    let scans: Vec<_> = args
+        .scans
+        .iter()
+        .zip(read)
+        .map(|(p, (c, i))| (p.as_path(), c, i))
+        .collect();
+    RunContext::new(
+        args.seed,
+        args.voxel.is_some(),
+        args.radius.is_some(),
+        units,
+        &scans,
+    )
 }

@@ -7,16 +7,15 @@ use std::path::{Path, PathBuf};
 use std::time::Instant;
 
 use equiscan::descriptor::output::{
-    CentreList, CentresInfo, FeatureWriter, FileSpec, Format, Job, estimate, place_keypoints, plan,
-    write_features,
+    Budget, CentreChoice, FeatureWriter, FileSpec, Format, Job, Summary, check_budget,
+    choose_centres, plan, radius_from_spacing, write_features,
 };
-use equiscan::descriptor::{Engine, Invariants, Recipe, suggested_radius};
+use equiscan::descriptor::{Engine, Invariants, Recipe};
 use equiscan::io::read_cloud;
-use equiscan::spatial::{KdIndex, estimate_spacing_with, voxel_downsample};
+use equiscan::spatial::KdIndex;
 use equiscan::{Cloud, Error, Result};
-use serde::Serialize;
 
-use super::common::{CommonArgs, Size, group, plural, seconds_text};
+use super::common::{CommonArgs, Size, default_memory_budget};
 
 /// Longest estimated run (wall clock) started without `--force`, seconds.
 const TIME_BUDGET: f64 = 3600.0;
@@ -24,17 +23,19 @@ const TIME_BUDGET: f64 = 3600.0;
 /// Arguments of `equiscan features`.
 #[derive(Debug, clap::Args)]
 pub struct FeaturesArgs {
-    /// LAS, LAZ or PLY files.
+    /// LAS, LAZ, PLY or E57 files (one scan of an E57 file as FILE.e57#NAME or
+    /// FILE.e57#INDEX from 0; without it every scan, each placed by its pose).
     #[arg(required = true, value_name = "INPUT")]
     pub inputs: Vec<PathBuf>,
-    /// Output file (format from its extension: .npy, .ply, .csv, .las, .laz), or an existing
+    /// Output file (format from its extension: .npy, .ply, .csv, .las, .laz, .parquet), or an existing
     /// folder, or with several inputs a folder (one `<input name>.<format>` per input).
     #[arg(short, long, value_name = "OUT")]
     pub output: PathBuf,
     /// Output format, overriding the extension (needed for a folder; default there: npy):
     /// npy (float32 matrix) or csv, each with its JSON sidecar `<file>.json`; ply (the centres
     /// with the columns as properties); las or laz (LAS 1.4 with Extra Bytes, at most 341
-    /// columns).
+    /// columns); parquet (x, y, z as f64, the point attributes, the columns as f32; recipe
+    /// and CRS in the file's metadata).
     #[arg(long, value_name = "FORMAT", value_parser = str::parse::<Format>)]
     pub format: Option<Format>,
     /// Support radius in file units; repeat or give a comma list for several scales. Left out:
@@ -92,31 +93,6 @@ pub struct FeaturesArgs {
     pub common: CommonArgs,
 }
 
-/// The JSON summary of one input.
-#[derive(Debug, Serialize)]
-pub struct Summary {
-    /// Input file.
-    pub input: String,
-    /// Files written, the data file first.
-    pub outputs: Vec<String>,
-    /// Points in the input.
-    pub points: usize,
-    /// Centres computed (rows).
-    pub centres: usize,
-    /// Wall-clock seconds from the index to the last row written (reading excluded).
-    pub seconds: f64,
-    /// Centres per second over `seconds`.
-    pub centres_per_second: f64,
-    /// Columns written (coordinates, counts, flags, invariants, coefficients).
-    pub columns: usize,
-    /// Support radii used, file units.
-    pub radii: Vec<f32>,
-    /// True when the radius was suggested from the point spacing.
-    pub radius_suggested: bool,
-    /// Centres without any neighbour at the first scale.
-    pub centres_without_neighbours: usize,
-}
-
 /// Runs `features`; a failing input prints its one-line error and the others go on. Exit
 /// code 0 when every input was written, 2 otherwise.
 pub fn run(args: &FeaturesArgs) -> Result<u8> {
@@ -162,7 +138,8 @@ pub fn run(args: &FeaturesArgs) -> Result<u8> {
                     return Ok(code);
                 }
                 if !c.json {
-                    print_summary(c, &s);
+                    s.lines().iter().for_each(|l| c.note(l));
+                    s.outputs.iter().for_each(|f| c.wrote(Path::new(f)));
                 }
             }
             Err(e) => {
@@ -172,29 +149,6 @@ pub fn run(args: &FeaturesArgs) -> Result<u8> {
         }
     }
     Ok(code)
-}
-
-fn print_summary(c: &CommonArgs, s: &Summary) {
-    c.note(&format!(
-        "{}: {} of {}, {}, {} ({} centres per second)",
-        s.input,
-        plural(s.centres, "centre", "centres"),
-        plural(s.points, "point", "points"),
-        plural(s.columns, "column", "columns"),
-        seconds_text(s.seconds),
-        group(s.centres_per_second.round() as usize),
-    ));
-    if s.centres_without_neighbours > 0 {
-        c.note(&format!(
-            "{}: {} ({:.1} %) found no neighbour within the support radius and are all zeros (flag 1); give a larger --radius if they matter",
-            s.input,
-            plural(s.centres_without_neighbours, "centre", "centres"),
-            100.0 * s.centres_without_neighbours as f64 / s.centres.max(1) as f64
-        ));
-    }
-    for f in &s.outputs {
-        c.wrote(Path::new(f));
-    }
 }
 
 fn recipe(args: &FeaturesArgs, radii: Vec<f32>) -> Result<Recipe> {
@@ -225,43 +179,32 @@ fn one(
         .map_err(|_| Error::file(input, "the cloud has no point", "give a cloud with points"))?;
     let suggested = args.radius.is_empty();
     let radii = if suggested {
-        let spacing = estimate_spacing_with(&cloud.positions, &index).ok_or_else(|| {
-            Error::file(
-                input,
-                "the point spacing cannot be measured (fewer than two distinct points)",
-                "give --radius",
-            )
-        })?;
-        let r = suggested_radius(spacing);
-        c.note(&format!(
-            "{}: support radius {r} (5 × point spacing {spacing:.3}, rounded); give --radius to choose",
-            input.display()
-        ));
+        let (r, note) = radius_from_spacing(input, &cloud, &index)?;
+        c.note(&note);
         vec![r]
     } else {
         check.radii().to_vec()
     };
     let recipe = recipe(args, radii.clone())?;
-    let (centres, kind) = match (keypoints, args.voxel) {
-        (Some(kp), _) => {
-            let smallest = radii.iter().copied().fold(f32::INFINITY, f32::min);
-            let (at, matched) = place_keypoints(&cloud, &index, kp, smallest);
-            let file = args.keypoints.as_ref().map(|p| p.display().to_string());
-            (
-                CentreList::Positions(at),
-                CentresInfo::Keypoints {
-                    file,
-                    matched_to_points: matched,
-                },
-            )
-        }
-        (None, Some(v)) => (
-            CentreList::Points(voxel_downsample(&cloud.positions, v)),
-            CentresInfo::Voxel { voxel: v },
-        ),
-        (None, None) => (CentreList::All(cloud.len()), CentresInfo::All),
+    let file = args.keypoints.as_ref().map(|p| p.display().to_string());
+    let choice = match (keypoints, args.voxel) {
+        (Some(cloud), _) => CentreChoice::Keypoints {
+            cloud,
+            file: file.as_deref(),
+        },
+        (None, Some(v)) => CentreChoice::Voxel(v),
+        (None, None) => CentreChoice::All,
     };
-    check_cost(args, input, &cloud, &index, &centres, &recipe)?;
+    let (centres, kind) = choose_centres(&cloud, &index, choice, &radii);
+    let budget = Budget {
+        seconds: TIME_BUDGET,
+        memory: args.max_memory.map_or_else(default_memory_budget, |s| s.0),
+        force: args.force,
+        threads: rayon::current_num_threads(),
+    };
+    for note in check_budget(input, &cloud, &index, &centres, &recipe, &budget)? {
+        c.note(&note);
+    }
     let engine = Engine::new(recipe.clone());
     let spec = FileSpec {
         path: output.to_path_buf(),
@@ -286,87 +229,12 @@ fn one(
     res?;
     let written = writer.finish()?;
     let seconds = t0.elapsed().as_secs_f64();
-    Ok(Summary {
-        input: input.display().to_string(),
-        outputs: written
-            .files
-            .iter()
-            .map(|p| p.display().to_string())
-            .collect(),
-        points: cloud.len(),
-        centres: written.rows,
+    Ok(Summary::new(
+        input,
+        cloud.len(),
+        &written,
         seconds,
-        centres_per_second: written.rows as f64 / seconds.max(1e-9),
-        columns: written.columns,
         radii,
-        radius_suggested: suggested,
-        centres_without_neighbours: written.counts.first().map_or(0, |s| s.without_neighbours),
-    })
-}
-
-/// Refuses a run whose estimate exceeds the time or memory budget (unless `--force`); warns
-/// when the radius is larger than the cloud.
-fn check_cost(
-    args: &FeaturesArgs,
-    input: &Path,
-    cloud: &Cloud,
-    index: &KdIndex,
-    centres: &CentreList,
-    recipe: &Recipe,
-) -> Result<()> {
-    let c = &args.common;
-    let threads = rayon::current_num_threads();
-    let r = recipe.radii().iter().copied().fold(0.0f32, f32::max);
-    if let Some((lo, hi)) = cloud.local_bounds() {
-        let extent = (0..3)
-            .map(|k| (hi[k] - lo[k]) as f64)
-            .map(|d| d * d)
-            .sum::<f64>()
-            .sqrt();
-        if r as f64 > extent {
-            c.note(&format!(
-                "{}: the support radius {r} is larger than the whole cloud ({:.3} corner to corner): every centre sees every point",
-                input.display(),
-                extent
-            ));
-        }
-    }
-    let cost = estimate(&cloud.positions, index, centres, recipe, threads);
-    let secs = cost.seconds_on(threads);
-    let budget = args
-        .max_memory
-        .map_or_else(super::common::default_memory_budget, |s| s.0);
-    let what = format!(
-        "{} × about {} within radius {r}: about {} on {} and {} of working memory",
-        plural(cost.centres, "centre", "centres"),
-        plural(
-            cost.mean_neighbours.round() as usize,
-            "neighbour",
-            "neighbours"
-        ),
-        seconds_text(secs),
-        plural(threads, "thread", "threads"),
-        Size(cost.working_bytes),
-    );
-    if args.force {
-        return Ok(());
-    }
-    if secs > TIME_BUDGET {
-        return Err(Error::file(
-            input,
-            format!("this run would be long: {what}"),
-            "give a smaller --radius, or --voxel SIZE for fewer centres, or --force to run anyway",
-        ));
-    }
-    if cost.working_bytes > budget {
-        return Err(Error::file(
-            input,
-            format!(
-                "this run would need more memory than allowed ({}): {what}",
-                Size(budget)
-            ),
-            "give a smaller --radius or --max-neighbours, a larger --max-memory, or --force",
-        ));
-    }
-    Ok(())
+        suggested,
+    ))
 }

@@ -8,6 +8,8 @@ use std::path::{Path, PathBuf};
 
 use equiscan::Result;
 use equiscan::descriptor::suggested_radius;
+use equiscan::geometry::Rigid;
+use equiscan::io::crs::{crs_label, units_label};
 use equiscan::io::{Bounds, FileInfo, read_cloud};
 use equiscan::spatial::estimate_spacing;
 use serde::Serialize;
@@ -17,7 +19,8 @@ use super::common::{CommonArgs, print_stdout};
 /// Arguments of `equiscan info`.
 #[derive(Debug, clap::Args)]
 pub struct InfoArgs {
-    /// LAS, LAZ or PLY files (the format is recognised from the content).
+    /// LAS, LAZ, PLY or E57 files (the format is recognised from the content). An E57 file
+    /// lists every scan; `FILE.e57#NAME` or `FILE.e57#INDEX` (from 0) reads one of them.
     #[arg(required = true, value_name = "FILE")]
     pub files: Vec<PathBuf>,
     /// `-q`, `--json` (one object per file, one per line), `--threads`.
@@ -41,6 +44,9 @@ pub struct InfoReport {
     /// 5 × point spacing rounded to two significant digits, file units
     /// ([`suggested_radius`], the radius `features` uses when none is given).
     pub suggested_support_radius: Option<f32>,
+    /// Unit of the coordinates named by the CRS (`m`, `ft`, `US survey ft`); `None` when the
+    /// file has no CRS or its CRS names no linear unit.
+    pub units: Option<String>,
 }
 
 /// Reads `path` and builds its report.
@@ -48,7 +54,9 @@ pub fn inspect(path: &Path) -> Result<InfoReport> {
     let (cloud, file) = read_cloud(path)?;
     let bounds = cloud.global_bounds().map(|(min, max)| Bounds { min, max });
     let point_spacing = estimate_spacing(&cloud.positions);
+    let units = file.crs.as_deref().and_then(units_label);
     Ok(InfoReport {
+        units,
         file,
         points_read: cloud.len(),
         bounds,
@@ -124,7 +132,14 @@ pub fn render(r: &InfoReport) -> String {
     line("format", format);
     let mut points = format!("{}", r.points_read);
     if r.points_read as u64 != f.point_count {
-        points += &format!(" (header declares {})", f.point_count);
+        if f.format == "E57" {
+            points += &format!(
+                " ({} declared; points marked invalid are dropped)",
+                f.point_count
+            );
+        } else {
+            points += &format!(" (header declares {})", f.point_count);
+        }
     }
     line("points", points);
     let d = decimals(f);
@@ -152,7 +167,74 @@ pub fn render(r: &InfoReport) -> String {
             format!("{} {} {}", of[0] + 0.0, of[1] + 0.0, of[2] + 0.0),
         );
     }
-    line("CRS", f.crs.clone().unwrap_or_else(|| "none".to_string()));
+    line(
+        "CRS",
+        f.crs.as_deref().map_or_else(
+            || "none".to_string(),
+            |c| {
+                let label = crs_label(c);
+                if label == c.trim() {
+                    label
+                } else {
+                    format!("{label} (full text with --json)")
+                }
+            },
+        ),
+    );
+    line(
+        "units",
+        match &r.units {
+            Some(u) => format!("{u} (named by the CRS)"),
+            None => "not stated (commands that print lengths take --units)".to_string(),
+        },
+    );
+    if let Some(v) = f.viewpoint {
+        line(
+            "scanner at",
+            format!("{} {} {}", fixed(v[0], d), fixed(v[1], d), fixed(v[2], d)),
+        );
+    }
+    let mut first = true;
+    for sc in &f.scans {
+        let label = if first { "scans" } else { "" };
+        first = false;
+        let read = if sc.selected { "" } else { ", not read" };
+        line(
+            label,
+            format!(
+                "{} {:?}: {} points, {}{read}",
+                sc.index, sc.name, sc.points, sc.coordinates
+            ),
+        );
+        let p = sc.scanner_position;
+        line(
+            "",
+            format!(
+                "  scanner at {} {} {}",
+                fixed(p[0], d),
+                fixed(p[1], d),
+                fixed(p[2], d)
+            ),
+        );
+        let pose = if !sc.has_pose {
+            "none in the file (identity)".to_string()
+        } else {
+            match Rigid::from_rows(&sc.pose) {
+                Some(tf) => {
+                    let a = tf.axis();
+                    format!(
+                        "turn {:.4}° about ({:.4}, {:.4}, {:.4}), then to the scanner position",
+                        tf.angle_deg(),
+                        a[0] + 0.0,
+                        a[1] + 0.0,
+                        a[2] + 0.0
+                    )
+                }
+                None => "not a rotation".to_string(),
+            }
+        };
+        line("", format!("  pose {pose}"));
+    }
     match (r.point_spacing, r.suggested_support_radius) {
         (Some(sp), Some(rad)) => {
             line(

@@ -8,6 +8,8 @@
 
 pub mod align;
 pub mod align_checks;
+pub mod apply;
+pub mod batch;
 pub mod catalogue;
 pub mod common;
 pub mod features;
@@ -48,6 +50,13 @@ pub enum Command {
     /// Register a scan onto its part's reference and measure every point's signed deviation
     /// against a tolerance, with clusters of out-of-tolerance points.
     Inspect(inspect::InspectArgs),
+    /// Descriptors of every point of many tiles: one feature file per input in OUTDIR, with
+    /// points of neighbouring tiles as neighbours (halo), a journal to resume an interrupted
+    /// run, and shards to split a run over processes or hosts.
+    Batch(batch::BatchArgs),
+    /// Move whole files by a transform from an align or inspect report, or given as 16
+    /// numbers: every attribute and the CRS kept, LAS precision kept.
+    Apply(apply::ApplyArgs),
 }
 
 impl Command {
@@ -60,6 +69,8 @@ impl Command {
             Command::Catalogue(args) => catalogue::run(args),
             Command::Identify(args) => identify::run(args),
             Command::Inspect(args) => inspect::run(args),
+            Command::Batch(args) => batch::run(args),
+            Command::Apply(args) => apply::run(args),
         }
     }
 }

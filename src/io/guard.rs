@@ -87,7 +87,7 @@ pub fn same_file(output: &Path, input: &Path) -> bool {
 }
 
 /// Refuses, with one line and before any work, an output that is the same file as an input
-/// or as another output, an output that is a folder, and an output whose folder is missing.
+/// (an input `FILE.e57#SCAN` is the file FILE) or as another output, an output that is a folder, and an output whose folder is missing.
 pub fn check_outputs(inputs: &[&Path], outputs: &[&Path]) -> Result<()> {
     for (k, out) in outputs.iter().enumerate() {
         check_folder(&folder_of(out))?;
@@ -98,7 +98,11 @@ pub fn check_outputs(inputs: &[&Path], outputs: &[&Path]) -> Result<()> {
                 "give the path of a file to write",
             ));
         }
-        if let Some(input) = inputs.iter().find(|i| same_file(out, i)) {
+        // `FILE.e57#NAME` is the file FILE.
+        if let Some(input) = inputs
+            .iter()
+            .find(|i| same_file(out, &super::split_scan(i).0))
+        {
             return Err(Error::file(
                 out,
                 format!(

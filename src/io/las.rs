@@ -486,6 +486,9 @@ pub(crate) struct LasReader {
     reader: las::Reader,
     pd: las::PointData,
     layout: Layout,
+    layout_format: u8,
+    extra_bytes: usize,
+    extra_descriptors: Vec<u8>,
     transforms: [Transform; 3],
     compressed: bool,
     n: u64,
@@ -559,6 +562,13 @@ impl LasReader {
             pd: PointDataBuilder::new().for_header(&header).build(),
             reader,
             layout: Layout::new(raw.format, fmt.len() as usize),
+            layout_format: raw.format,
+            extra_bytes: fmt.extra_bytes as usize,
+            extra_descriptors: header
+                .all_vlrs()
+                .filter(|v| is_extra_bytes_vlr(v))
+                .flat_map(|v| v.data.iter().copied())
+                .collect(),
             transforms: [t.x, t.y, t.z],
             compressed: raw.compressed,
             n,
@@ -613,6 +623,13 @@ impl LasReader {
         c.return_number = Some(Vec::with_capacity(cap));
         c.color = self.has_color.then(|| Vec::with_capacity(cap));
         c.gps_time = self.has_gps.then(|| Vec::with_capacity(cap));
+        c.records = Some(crate::cloud::SourceRecords {
+            format: self.layout_format,
+            record_len: self.layout.record_len,
+            extra_bytes: self.extra_bytes,
+            extra_descriptors: self.extra_descriptors.clone(),
+            bytes: Vec::with_capacity(cap * self.layout.record_len),
+        });
         c
     }
 
@@ -695,6 +712,9 @@ impl LasReader {
                     gps: gps_time.as_mut(),
                 },
             );
+            if let Some(r) = out.records.as_mut() {
+                r.bytes.extend_from_slice(self.pd.raw_bytes());
+            }
             self.done += got;
         }
         out.origin = self.origin.unwrap_or([0.0; 3]);
@@ -870,7 +890,7 @@ impl LasOptions {
             point_format: info.point_format,
             scale: info.scale,
             offset: info.offset,
-            crs_records: info.crs_records.clone(),
+            crs_records: crs_records_of(info),
             own_records: Vec::new(),
         }
     }
@@ -878,7 +898,7 @@ impl LasOptions {
     /// The same layout with the CRS records of `info` instead (an output moved into another
     /// file's frame takes that file's reference system).
     pub fn with_crs_of(mut self, info: &FileInfo) -> Self {
-        self.crs_records = info.crs_records.clone();
+        self.crs_records = crs_records_of(info);
         self
     }
 
@@ -898,6 +918,28 @@ impl LasOptions {
             data,
         });
         self
+    }
+}
+
+/// The CRS records a LAS output of `info`'s points carries: a LAS input's own CRS records;
+/// for another input whose CRS is WKT text (E57 `coordinateMetadata`), a WKT record
+/// (`LASF_Projection`, record 2112, the text and a closing NUL; LAS 1.4 R15, from memory).
+fn crs_records_of(info: &FileInfo) -> Vec<Vlr> {
+    if !info.crs_records.is_empty() {
+        return info.crs_records.clone();
+    }
+    match info.crs.as_deref().map(str::trim) {
+        Some(wkt) if !wkt.is_empty() && !wkt.starts_with("GeoTIFF keys") => {
+            let mut data = wkt.as_bytes().to_vec();
+            data.push(0);
+            vec![Vlr {
+                user_id: "LASF_Projection".to_string(),
+                record_id: 2112,
+                description: "OGC WKT coordinate system".to_string(),
+                data,
+            }]
+        }
+        _ => Vec::new(),
     }
 }
 
@@ -924,10 +966,53 @@ impl Ranges {
     }
 }
 
-/// The Extra Bytes VLR (`LASF_Spec`, record 4) describing `names` as f32 values with the
-/// given ranges (options bits 1 and 2 set where a column has a finite value).
-fn extra_bytes_vlr(names: &[String], ranges: &Ranges) -> Vlr {
-    let mut data = Vec::with_capacity(names.len() * EXTRA_BYTES_DESCRIPTOR);
+/// The descriptors of a source's Extra Bytes for an output that appends `names` after them:
+/// the source's own, then, when they describe fewer bytes than each record carries, data type
+/// 0 ("undocumented", its options byte giving the length; LAS 1.4 R15 Table 24, from memory)
+/// for the rest, so that the appended columns stay where their descriptors say. A source name
+/// equal to one of `names` gets `_input` appended (cut to 32 bytes), so names stay distinct.
+fn source_descriptors(r: &crate::cloud::SourceRecords, names: &[String]) -> Vec<u8> {
+    let mut out = Vec::new();
+    let mut described = 0usize;
+    for d in r.extra_descriptors.chunks_exact(EXTRA_BYTES_DESCRIPTOR) {
+        let size = extra_bytes_type_size(d[2], d[3]).unwrap_or(0) as usize;
+        if described + size > r.extra_bytes {
+            break;
+        }
+        described += size;
+        let mut d: [u8; EXTRA_BYTES_DESCRIPTOR] =
+            d.try_into().unwrap_or([0; EXTRA_BYTES_DESCRIPTOR]);
+        let end = d[4..36].iter().position(|&c| c == 0).unwrap_or(32);
+        let name = String::from_utf8_lossy(&d[4..4 + end]).into_owned();
+        if names.contains(&name) {
+            let renamed: String = format!("{name}_input").chars().take(32).collect();
+            d[4..36].fill(0);
+            let b = renamed.as_bytes();
+            d[4..4 + b.len().min(32)].copy_from_slice(&b[..b.len().min(32)]);
+        }
+        out.extend_from_slice(&d);
+    }
+    let mut left = r.extra_bytes - described;
+    let mut k = 0;
+    while left > 0 {
+        let n = left.min(255);
+        let mut d = [0u8; EXTRA_BYTES_DESCRIPTOR];
+        d[2] = 0;
+        d[3] = n as u8;
+        let name = format!("input_extra_bytes_{k}");
+        d[4..4 + name.len()].copy_from_slice(name.as_bytes());
+        out.extend_from_slice(&d);
+        left -= n;
+        k += 1;
+    }
+    out
+}
+
+/// The Extra Bytes VLR (`LASF_Spec`, record 4): the `source` descriptors, then `names` as f32
+/// values with the given ranges (options bits 1 and 2 set where a column has a finite value).
+fn extra_bytes_vlr(source: &[u8], names: &[String], ranges: &Ranges) -> Vlr {
+    let mut data = Vec::with_capacity(source.len() + names.len() * EXTRA_BYTES_DESCRIPTOR);
+    data.extend_from_slice(source);
     for (name, &(lo, hi)) in names.iter().zip(&ranges.0) {
         let mut d = [0u8; EXTRA_BYTES_DESCRIPTOR];
         d[2] = 9; // data type: float
@@ -1007,6 +1092,10 @@ pub struct LasRowWriter {
     names: Vec<String>,
     ranges: Ranges,
     origin: [f64; 3],
+    /// Extra Bytes of the source records copied in front of the columns.
+    source_extra: usize,
+    /// Their descriptors (whole, padded to cover `source_extra`).
+    source_desc: Vec<u8>,
 }
 
 impl LasRowWriter {
@@ -1025,12 +1114,23 @@ impl LasRowWriter {
                 "use a shorter name for LAS extra bytes",
             ));
         }
-        if names.len() > MAX_LAS_COLUMNS {
+        // The source's Extra Bytes come first, described as the source described them.
+        let (source_extra, source_desc) = match &like.records {
+            Some(r) => (r.extra_bytes, source_descriptors(r, names)),
+            None => (0, Vec::new()),
+        };
+        let described = source_desc.len() / EXTRA_BYTES_DESCRIPTOR;
+        if names.len() + described > MAX_LAS_COLUMNS {
             return Err(Error::file(
                 path,
                 format!(
-                    "{} feature columns are more than the {MAX_LAS_COLUMNS} whose descriptions fit a LAS Extra Bytes record",
-                    names.len()
+                    "{} feature columns{} are more than the {MAX_LAS_COLUMNS} whose descriptions fit a LAS Extra Bytes record",
+                    names.len(),
+                    if described > 0 {
+                        format!(" after the input's {described} Extra Bytes fields")
+                    } else {
+                        String::new()
+                    }
                 ),
                 "write NPY or CSV (a .npy or .csv output), or ask for fewer invariants or scales",
             ));
@@ -1042,11 +1142,7 @@ impl LasRowWriter {
             .point_format
             .unwrap_or(if like.color.is_some() { 7 } else { 6 })
         {
-            4 => 1,
-            5 => 3,
-            9 => 6,
-            10 => 8,
-            f if f <= 10 => f,
+            f if f <= 10 => without_waveform(f),
             f => {
                 return Err(Error::file(
                     path,
@@ -1056,7 +1152,7 @@ impl LasRowWriter {
             }
         };
         let mut format = las::point::Format::new(fmt_no).map_err(|e| las_err(path, e))?;
-        format.extra_bytes = (names.len() * 4) as u16;
+        format.extra_bytes = (source_extra + names.len() * 4) as u16;
         format.is_compressed = compress;
         let scale = options.scale.unwrap_or([0.001; 3]);
         let offset = options.offset.unwrap_or(like.origin);
@@ -1085,11 +1181,18 @@ impl LasRowWriter {
         // straight from one instrument (the spec also names MERGE, MODIFICATION, EXTRACTION, …).
         builder.system_identifier = "OTHER".to_string();
         builder.vlrs = options.crs_records.clone();
+        // LAS 1.4 R15, Table 4: global encoding bit 4 marks a WKT CRS (required with one).
+        builder.has_wkt_crs = options
+            .crs_records
+            .iter()
+            .any(|v| v.user_id == "LASF_Projection" && v.record_id == 2112);
         builder.vlrs.extend(options.own_records.iter().cloned());
         let ranges = Ranges::new(names.len());
-        if !names.is_empty() {
+        if !names.is_empty() || !source_desc.is_empty() {
             // Same length as the final record; the ranges are written by `finish`.
-            builder.vlrs.push(extra_bytes_vlr(names, &ranges));
+            builder
+                .vlrs
+                .push(extra_bytes_vlr(&source_desc, names, &ranges));
         }
         let header = builder.into_header().map_err(|e| las_err(path, e))?;
         let mut temp = super::TempFile::create(path)?;
@@ -1109,6 +1212,8 @@ impl LasRowWriter {
             names: names.to_vec(),
             ranges,
             origin: like.origin,
+            source_extra,
+            source_desc,
         })
     }
 
@@ -1123,10 +1228,32 @@ impl LasRowWriter {
     ) -> Result<()> {
         let nc = self.names.len();
         let path = &self.path;
+        let same = attrs.filter(|c| {
+            c.records.as_ref().is_some_and(|r| {
+                without_waveform(r.format) == self.fmt_no
+                    && r.extra_bytes == self.source_extra
+                    && r.len() == c.len()
+            })
+        });
+        if let Some(cloud) = same {
+            let bytes = self.copied_records(cloud, rows, values)?;
+            let pd = PointDataBuilder::new()
+                .for_header(self.writer.get().header())
+                .build_from_bytes(bytes)
+                .map_err(|e| las_err(path, e))?;
+            self.writer
+                .get()
+                .write_points(&pd)
+                .map_err(|e| las_err(path, e))?;
+            for r in 0..rows.len() {
+                self.ranges.add(&values[r * nc..(r + 1) * nc]);
+            }
+            return Ok(());
+        }
         let points = rows.iter().enumerate().map(|(r, &(i, p))| {
             let v = &values[r * nc..(r + 1) * nc];
             let g: [f64; 3] = std::array::from_fn(|k| self.origin[k] + p[k] as f64);
-            las_point(attrs.map(|c| (c, i)), g, v, &self.format)
+            las_point(attrs.map(|c| (c, i)), g, v, &self.format, self.source_extra)
         });
         let pd = PointDataBuilder::new()
             .for_header(self.writer.get().header())
@@ -1149,6 +1276,85 @@ impl LasRowWriter {
         Ok(())
     }
 
+    /// The rows as records of the cloud's own point format: each source record copied byte
+    /// for byte (every field, the source's Extra Bytes), its coordinates stored anew at this
+    /// file's scale and offset, the fields the cloud holds as columns (intensity, return
+    /// number, classification, GPS time, colour) written over it (flag bits kept), and the
+    /// column values appended as f32.
+    fn copied_records(
+        &self,
+        cloud: &Cloud,
+        rows: &[(usize, [f32; 3])],
+        values: &[f32],
+    ) -> Result<Vec<u8>> {
+        let Some(src) = cloud.records.as_ref() else {
+            return Ok(Vec::new());
+        };
+        let nc = self.names.len();
+        let t = *self
+            .writer
+            .0
+            .as_ref()
+            .map_or(&Default::default(), |w| w.header().transforms());
+        let t = [t.x, t.y, t.z];
+        // A waveform format written as its format without waveform: the 29-byte packet
+        // description follows the base record (LAS 1.4 R15, Tables 11, 12, 16, 17), so it is
+        // cut out and everything else kept.
+        let base = BASE_LEN[self.fmt_no as usize] as usize;
+        let cut = if src.format != self.fmt_no { 29 } else { 0 };
+        let layout = Layout::new(self.fmt_no, src.record_len - cut);
+        let mut out = Vec::with_capacity(rows.len() * (src.record_len - cut + 4 * nc));
+        for (r, &(i, p)) in rows.iter().enumerate() {
+            let start = out.len();
+            let record = src.record(i);
+            out.extend_from_slice(&record[..base]);
+            out.extend_from_slice(&record[base + cut..]);
+            let rec = &mut out[start..];
+            for k in 0..3 {
+                let g = self.origin[k] + p[k] as f64;
+                let stored = ((g - t[k].offset) / t[k].scale).round();
+                if !(stored >= i32::MIN as f64 && stored <= i32::MAX as f64) {
+                    return Err(Error::file(
+                        &self.path,
+                        "a coordinate does not fit the LAS integer range at this scale and offset",
+                        "choose a larger scale or an offset near the points",
+                    ));
+                }
+                rec[4 * k..4 * k + 4].copy_from_slice(&(stored as i32).to_le_bytes());
+            }
+            if let Some(v) = &cloud.intensity {
+                let v = v[i].round().clamp(0.0, 65535.0) as u16;
+                rec[12..14].copy_from_slice(&v.to_le_bytes());
+            }
+            if let Some(v) = &cloud.return_number {
+                if layout.extended {
+                    rec[14] = (rec[14] & 0xF0) | (v[i].min(15) & 0x0F);
+                } else {
+                    rec[14] = (rec[14] & 0xF8) | (v[i].min(7) & 0x07);
+                }
+            }
+            if let Some(v) = &cloud.classification {
+                if layout.extended {
+                    rec[16] = v[i];
+                } else if v[i] <= 31 {
+                    rec[15] = (rec[15] & 0xE0) | v[i];
+                }
+            }
+            if let (Some(v), Some(o)) = (&cloud.gps_time, layout.gps) {
+                rec[o..o + 8].copy_from_slice(&v[i].to_le_bytes());
+            }
+            if let (Some(v), Some(o)) = (&cloud.color, layout.rgb) {
+                for (k, c) in v[i].iter().enumerate() {
+                    rec[o + 2 * k..o + 2 * k + 2].copy_from_slice(&c.to_le_bytes());
+                }
+            }
+            for v in &values[r * nc..(r + 1) * nc] {
+                out.extend_from_slice(&v.to_le_bytes());
+            }
+        }
+        Ok(out)
+    }
+
     /// Closes the point data, writes the column ranges into the Extra Bytes record and, for
     /// formats 6–10, zeroes the legacy counts; returns the complete, synced temporary file.
     pub fn finish(self) -> Result<super::Finished> {
@@ -1163,8 +1369,8 @@ impl LasRowWriter {
                 .and_then(|_| file.write_all(&[0u8; 24]))
                 .map_err(|e| Error::io(path, &e))?;
         }
-        if !self.names.is_empty() {
-            let vlr = extra_bytes_vlr(&self.names, &self.ranges);
+        if !self.names.is_empty() || !self.source_desc.is_empty() {
+            let vlr = extra_bytes_vlr(&self.source_desc, &self.names, &self.ranges);
             let at = find_vlr_data(&mut file, "LASF_Spec", 4).map_err(|e| Error::io(path, &e))?;
             let at = at.ok_or_else(|| {
                 Error::file(
@@ -1255,55 +1461,117 @@ fn find_vlr_data(
     Ok(None)
 }
 
+/// The point format a writer uses for `f`: waveform formats without their waveform.
+fn without_waveform(f: u8) -> u8 {
+    match f {
+        4 => 1,
+        5 => 3,
+        9 => 6,
+        10 => 8,
+        f => f,
+    }
+}
+
+/// The source record of point `i` of `cloud` decoded by the `las` crate, when the cloud
+/// carries its LAS records (its coordinates are replaced by the caller).
+fn source_point(cloud: &Cloud, i: usize) -> Option<las::Point> {
+    let r = cloud.records.as_ref()?;
+    if r.len() != cloud.len() {
+        return None;
+    }
+    let mut format = las::point::Format::new(r.format).ok()?;
+    format.extra_bytes = r.extra_bytes as u16;
+    let raw = las::raw::Point::read_from(r.record(i), &format).ok()?;
+    let mut p = las::Point::new(raw, &Default::default());
+    if !format.is_extended {
+        // Formats 0–5 mark overlap with class 12 in the 5-bit class field (LAS 1.4 R15,
+        // Table 8); the `las` crate tests 4 bits and so also takes class 28 for overlap.
+        let class = r.record(i)[15] & 0x1F;
+        p.is_overlap = class == 12;
+        if class != 12 {
+            p.classification = las::point::Classification::new(class).unwrap_or(p.classification);
+        }
+    }
+    Some(p)
+}
+
+/// A point for a record of `format` at global `g`: every field of the source record when
+/// `attrs` carries LAS records ([`crate::cloud::SourceRecords`]), the cloud's columns over it
+/// (intensity, classification, return number, colour, GPS time), then the source's Extra Bytes
+/// (`source_extra` bytes: zeros when there is no source record) and `values` as f32.
 fn las_point(
     attrs: Option<(&Cloud, usize)>,
     g: [f64; 3],
     values: &[f32],
     format: &las::point::Format,
+    source_extra: usize,
 ) -> las::Point {
     let cloud = attrs.map(|(c, _)| c);
     let i = attrs.map_or(0, |(_, i)| i);
-    let class = cloud
-        .and_then(|c| c.classification.as_ref())
-        .map_or(1, |c| c[i]);
-    let ret = cloud
-        .and_then(|c| c.return_number.as_ref())
-        .map_or(1, |r| r[i]);
+    let source = attrs.and_then(|(c, i)| source_point(c, i));
     let max_ret = if format.is_extended { 15 } else { 7 };
-    let ret = ret.min(max_ret);
-    let mut extra = Vec::with_capacity(values.len() * 4);
+    let mut p = source.unwrap_or(las::Point {
+        return_number: 1,
+        number_of_returns: 1,
+        classification: las::point::Classification::CreatedNeverClassified,
+        ..Default::default()
+    });
+    let mut extra = Vec::with_capacity(source_extra + values.len() * 4);
+    let kept = p.extra_bytes.len().min(source_extra);
+    extra.extend_from_slice(&p.extra_bytes[..kept]);
+    extra.resize(source_extra, 0);
     for v in values {
         extra.extend_from_slice(&v.to_le_bytes());
     }
-    las::Point {
-        x: g[0],
-        y: g[1],
-        z: g[2],
-        intensity: cloud
-            .and_then(|c| c.intensity.as_ref())
-            .map_or(0, |v| v[i].round().clamp(0.0, 65535.0) as u16),
-        return_number: ret,
-        number_of_returns: ret,
-        classification: las::point::Classification::new(class)
-            .unwrap_or(las::point::Classification::CreatedNeverClassified),
-        is_overlap: class == 12,
-        gps_time: format.has_gps_time.then(|| {
-            cloud
-                .and_then(|c| c.gps_time.as_ref())
-                .map_or(0.0, |v| v[i])
-        }),
-        color: format.has_color.then(|| {
-            cloud
-                .and_then(|c| c.color.as_ref())
-                .map_or(Color::default(), |c| {
-                    let [red, green, blue] = c[i];
-                    Color { red, green, blue }
-                })
-        }),
-        nir: format.has_nir.then_some(0),
-        extra_bytes: extra,
-        ..Default::default()
+    p.extra_bytes = extra;
+    p.x = g[0];
+    p.y = g[1];
+    p.z = g[2];
+    if let Some(v) = cloud.and_then(|c| c.intensity.as_ref()) {
+        p.intensity = v[i].round().clamp(0.0, 65535.0) as u16;
     }
+    if let Some(c) = cloud.and_then(|c| c.classification.as_ref()) {
+        let class = c[i];
+        p.classification = las::point::Classification::new(class)
+            .unwrap_or(las::point::Classification::CreatedNeverClassified);
+        p.is_overlap |= class == 12;
+    }
+    if let Some(r) = cloud.and_then(|c| c.return_number.as_ref()) {
+        p.return_number = r[i];
+        if cloud.is_some_and(|c| c.records.is_none()) {
+            p.number_of_returns = r[i];
+        }
+    }
+    p.return_number = p.return_number.min(max_ret);
+    p.number_of_returns = p.number_of_returns.clamp(p.return_number, max_ret);
+    if !format.is_extended {
+        p.scanner_channel = 0;
+        if u8::from(p.classification) > 31 {
+            p.classification = las::point::Classification::CreatedNeverClassified;
+        }
+    }
+    p.gps_time = format.has_gps_time.then(|| {
+        cloud
+            .and_then(|c| c.gps_time.as_ref())
+            .map(|v| v[i])
+            .or(p.gps_time)
+            .unwrap_or(0.0)
+    });
+    p.color = format.has_color.then(|| {
+        cloud
+            .and_then(|c| c.color.as_ref())
+            .map(|c| {
+                let [red, green, blue] = c[i];
+                Color { red, green, blue }
+            })
+            .or(p.color)
+            .unwrap_or_default()
+    });
+    p.nir = format.has_nir.then(|| p.nir.unwrap_or(0));
+    // Waveform packets point into data the writer does not copy: formats with waveforms are
+    // written without them (4 → 1, 5 → 3, 9 → 6, 10 → 8).
+    p.waveform = None;
+    p
 }
 
 #[cfg(test)]
@@ -1353,7 +1621,7 @@ mod tests {
             let v: Vec<f32> = columns.iter().map(|c| c.values[i]).collect();
             let g: [f64; 3] =
                 std::array::from_fn(|k| cloud.origin[k] + cloud.positions[i][k] as f64);
-            las_point(Some((cloud, i)), g, &v, format)
+            las_point(Some((cloud, i)), g, &v, format, 0)
         });
         let pd = PointDataBuilder::new()
             .for_header(w.get().header())
@@ -1385,7 +1653,7 @@ mod tests {
                 b.version = Version::new(1, 4);
                 b.point_format = format;
                 b.vlrs
-                    .push(extra_bytes_vlr(&["a".to_string()], &Ranges::new(1)));
+                    .push(extra_bytes_vlr(&[], &["a".to_string()], &Ranges::new(1)));
                 b.into_header().unwrap()
             };
             // Enough room: written whole.
@@ -1412,4 +1680,247 @@ mod tests {
             }
         }
     }
+}
+
+/// What [`move_las`] wrote.
+#[derive(Debug, Clone, PartialEq)]
+pub(crate) struct MovedLas {
+    /// Points written.
+    pub points: u64,
+    /// Scale factors of the output (the input's).
+    pub scale: [f64; 3],
+    /// Offsets of the output (chosen near the moved points).
+    pub offset: [f64; 3],
+}
+
+/// Largest stored integer used for a coordinate; one step short of the i32 limits.
+const MAX_STORED: f64 = (i32::MAX - 1) as f64;
+
+/// Offsets for points within `lo..=hi` stored at `scale`: the centre rounded to whole units.
+/// Refuses, naming `output`, a span the 32-bit integers cannot hold at that scale.
+fn offsets_for(output: &Path, lo: [f64; 3], hi: [f64; 3], scale: [f64; 3]) -> Result<[f64; 3]> {
+    let mut offset = [0.0; 3];
+    for k in 0..3 {
+        let o = ((lo[k] + hi[k]) * 0.5).round();
+        let reach = (hi[k] - o).max(o - lo[k]) / scale[k];
+        // NaN fails too.
+        if reach.is_nan() || reach > MAX_STORED {
+            return Err(Error::file(
+                output,
+                format!(
+                    "the moved points span {} file units along {}, more than 32-bit integers hold at the input's scale {} (at most {} units)",
+                    super::compact(hi[k] - lo[k]),
+                    ["x", "y", "z"][k],
+                    scale[k],
+                    super::compact(2.0 * MAX_STORED * scale[k])
+                ),
+                "write a PLY output instead, or check the transform (its translation may be in other units)",
+            ));
+        }
+        offset[k] = o;
+    }
+    Ok(offset)
+}
+
+/// Writes the LAS/LAZ file `input` moved by `tf` to `output` (LAZ when it ends in `.laz`),
+/// record by record: coordinates are decoded to f64 (`offset + scale × stored`), moved in
+/// f64 and stored again at the input's scale about new offsets (the moved bounds' centre
+/// rounded to whole units), so each coordinate is within half a scale step of the exact moved
+/// value; every other byte of every record (every field of the point format and the Extra
+/// Bytes) is copied unchanged, and so are the header's records (CRS, Extra Bytes
+/// descriptions, others), with `extra` added. A span the input's scale cannot hold in 32-bit
+/// integers is refused before anything is written.
+pub(crate) fn move_las(
+    input: &Path,
+    output: &Path,
+    tf: &crate::geometry::Rigid,
+    extra: Option<Vlr>,
+) -> Result<MovedLas> {
+    use nalgebra::Vector3;
+    let moved_bounds = |lo: [f64; 3], hi: [f64; 3]| {
+        let mut a = [f64::INFINITY; 3];
+        let mut b = [f64::NEG_INFINITY; 3];
+        for c in 0..8 {
+            let p = Vector3::new(
+                if c & 1 == 0 { lo[0] } else { hi[0] },
+                if c & 2 == 0 { lo[1] } else { hi[1] },
+                if c & 4 == 0 { lo[2] } else { hi[2] },
+            );
+            let q = tf.apply(&p);
+            for k in 0..3 {
+                a[k] = a[k].min(q[k]);
+                b[k] = b[k].max(q[k]);
+            }
+        }
+        (a, b)
+    };
+    let mut r = LasReader::open(input)?;
+    let header = r.reader.header().clone();
+    let t_in = r.transforms;
+    let scale = [t_in[0].scale, t_in[1].scale, t_in[2].scale];
+    // Bounds of the input: the header's when usable, else a first pass over the points.
+    let (lo, hi) = if r.header_origin_ok {
+        (r.bounds.min, r.bounds.max)
+    } else {
+        let mut first = LasReader::open(input)?;
+        let mut lo = [f64::INFINITY; 3];
+        let mut hi = [f64::NEG_INFINITY; 3];
+        let mut c = first.empty_cloud(0);
+        loop {
+            c.positions.clear();
+            c.intensity.as_mut().map(Vec::clear);
+            c.classification.as_mut().map(Vec::clear);
+            c.return_number.as_mut().map(Vec::clear);
+            c.color.as_mut().map(Vec::clear);
+            c.gps_time.as_mut().map(Vec::clear);
+            if first.read_into(&mut c, 1 << 16)? == 0 {
+                break;
+            }
+            for i in 0..c.len() {
+                let g = c.global(i);
+                for k in 0..3 {
+                    lo[k] = lo[k].min(g[k]);
+                    hi[k] = hi[k].max(g[k]);
+                }
+            }
+        }
+        if lo[0] > hi[0] {
+            lo = [0.0; 3];
+            hi = [0.0; 3];
+        }
+        (lo, hi)
+    };
+    let (mlo, mhi) = moved_bounds(lo, hi);
+    let offset = offsets_for(output, mlo, mhi, scale)?;
+    let compress = output
+        .extension()
+        .is_some_and(|e| e.eq_ignore_ascii_case("laz"));
+    let mut builder = Builder::from(header.clone());
+    builder.point_format.is_compressed = compress;
+    let t = |k: usize| Transform {
+        scale: scale[k],
+        offset: offset[k],
+    };
+    builder.transforms = Vector {
+        x: t(0),
+        y: t(1),
+        z: t(2),
+    };
+    builder.generating_software = "equiscan".to_string();
+    builder.vlrs.retain(|v| !v.user_id.starts_with("laszip"));
+    builder.vlrs.extend(extra);
+    let out_header = builder.into_header().map_err(|e| las_err(output, e))?;
+    let out_format = *out_header.point_format();
+    let out_transforms = *out_header.transforms();
+    let mut temp = super::TempFile::create(output)?;
+    let file = temp
+        .writer()
+        .get_ref()
+        .try_clone()
+        .map_err(|e| Error::io(output, &e))?;
+    let writer = las::Writer::new(BufWriter::with_capacity(1 << 20, file), out_header)
+        .map_err(|e| las_err(output, e))?;
+    let mut writer = NoPanicWriter(Some(writer));
+    let record_len = header.point_format().len() as usize;
+    // Byte offset of the waveform's X(t) in formats 4, 5, 9, 10 (LAS 1.4 R15, Tables 11, 12,
+    // 16, 17: after the packet index u8, offset u64, size u32 and location f32).
+    let waveform_direction = match r.layout_format {
+        4 => Some(45),
+        5 => Some(51),
+        9 => Some(47),
+        10 => Some(55),
+        _ => None,
+    };
+    let mut points = 0u64;
+    while r.remaining() > 0 {
+        let want = r.natural_chunk().min(r.remaining());
+        let (reader, pd) = (&mut r.reader, &mut r.pd);
+        let compressed = r.compressed;
+        let got = guard(input, compressed, || {
+            reader.fill_points(want, pd).map_err(|e| {
+                if compressed {
+                    laz_data_err(input, e)
+                } else {
+                    las_err(input, e)
+                }
+            })
+        })?;
+        if got == 0 {
+            return Err(Error::file(
+                input,
+                format!(
+                    "the point data ends after {} of {} points (truncated)",
+                    r.done, r.n
+                ),
+                "copy or export the file again",
+            ));
+        }
+        r.done += got;
+        let mut bytes = r.pd.raw_bytes().to_vec();
+        for rec in bytes.chunks_exact_mut(record_len) {
+            let p = Vector3::from_fn(|k, _| {
+                let v = i32::from_le_bytes(rec[4 * k..4 * k + 4].try_into().unwrap_or([0; 4]));
+                t_in[k].offset + t_in[k].scale * v as f64
+            });
+            let q = tf.apply(&p);
+            for k in 0..3 {
+                let stored = ((q[k] - offset[k]) / scale[k]).round();
+                if stored.is_nan() || stored.abs() > MAX_STORED {
+                    return Err(Error::file(
+                        output,
+                        format!(
+                            "point {} moves to {} along {}, outside what 32-bit integers hold at scale {} about offset {} (the input's header bounds do not hold its points)",
+                            points,
+                            super::compact(q[k]),
+                            ["x", "y", "z"][k],
+                            scale[k],
+                            offset[k]
+                        ),
+                        "repair the input's header bounds, or write a PLY output instead",
+                    ));
+                }
+                rec[4 * k..4 * k + 4].copy_from_slice(&(stored as i32).to_le_bytes());
+            }
+            if let Some(o) = waveform_direction {
+                // The waveform's parametric line direction (X(t), Y(t), Z(t)) turns with
+                // the points.
+                let d = Vector3::from_fn(|k, _| {
+                    f32::from_le_bytes(rec[o + 4 * k..o + 4 * k + 4].try_into().unwrap_or([0; 4]))
+                        as f64
+                });
+                let d = tf.rotate(&d);
+                for k in 0..3 {
+                    rec[o + 4 * k..o + 4 * k + 4].copy_from_slice(&(d[k] as f32).to_le_bytes());
+                }
+            }
+            points += 1;
+        }
+        let pd = PointDataBuilder::new()
+            .with_format(out_format)
+            .with_transforms(out_transforms)
+            .build_from_bytes(bytes)
+            .map_err(|e| las_err(output, e))?;
+        writer
+            .get()
+            .write_points(&pd)
+            .map_err(|e| las_err(output, e))?;
+    }
+    let mut file = writer
+        .into_inner(output)?
+        .into_inner()
+        .map_err(|e| Error::io(output, e.error()))?;
+    if out_format.is_extended {
+        // Formats 6–10: legacy counts zero (LAS 1.4 R15, Table 3), as `LasRowWriter::finish`.
+        file.seek(SeekFrom::Start(107))
+            .and_then(|_| file.write_all(&[0u8; 24]))
+            .and_then(|_| file.seek(SeekFrom::End(0)).map(|_| ()))
+            .map_err(|e| Error::io(output, &e))?;
+    }
+    drop(file);
+    temp.finish()?.commit()?;
+    Ok(MovedLas {
+        points,
+        scale,
+        offset,
+    })
 }

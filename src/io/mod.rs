@@ -1,8 +1,11 @@
 //! Reading and writing point clouds and per-point feature matrices.
 //!
 //! Readers: [`read_cloud`] picks the format from the file's first bytes (`LASF` for LAS and
-//! LAZ, `ply` for PLY), not from the extension, and returns a [`Cloud`] plus a [`FileInfo`]
-//! describing the file as its header declares it. [`read_ply_mesh`] also returns triangles.
+//! LAZ, `ply` for PLY, `ASTM-E57` for E57, ASTM E2807), not from the extension, and returns a
+//! [`Cloud`] plus a [`FileInfo`] describing the file as its header declares it. An E57 file
+//! with several scans is read whole (every scan in the file's frame) or one scan at a time,
+//! named `FILE.e57#NAME` or `FILE.e57#INDEX` ([`split_scan`]). [`read_ply_mesh`] also returns
+//! triangles.
 //!
 //! Writers: [`write_ply`] (binary little-endian PLY), [`write_las`] (LAS 1.4, or LAZ when the
 //! path ends in `.laz`, with named f32 columns as Extra Bytes), [`write_npy`] and
@@ -19,8 +22,11 @@
 //!
 //! Every failure is an [`Error::File`] that reads `PATH: what is wrong; what to do`.
 
+pub mod apply;
 mod atomic;
+pub mod crs;
 mod csv;
+mod e57;
 pub mod guard;
 mod las;
 pub mod mesh;
@@ -43,6 +49,7 @@ pub use atomic::{
     write_atomic,
 };
 pub use csv::write_csv;
+pub use e57::split_scan;
 pub use las::{LasOptions, LasRowWriter, MAX_LAS_COLUMNS, write_las, write_las_with};
 pub use npy::{npy_header, write_npy, write_npy_with_sidecar};
 pub use ply::{PLY_TAKEN, PlyLayout, read_ply_mesh, write_ply, write_ply_with_comments};
@@ -79,7 +86,7 @@ pub struct Bounds {
 pub struct FileInfo {
     /// The file as named by the caller.
     pub path: String,
-    /// `"LAS"`, `"LAZ"` or `"PLY"`.
+    /// `"LAS"`, `"LAZ"`, `"PLY"` or `"E57"`.
     pub format: String,
     /// Format version, e.g. `"1.4"` (LAS) or `"1.0"` (PLY).
     pub version: String,
@@ -93,11 +100,15 @@ pub struct FileInfo {
     pub record_length: Option<u16>,
     /// Attributes the reader keeps in the [`Cloud`], in [`Cloud::attribute_names`] order.
     pub attributes: Vec<String>,
-    /// Other per-point fields present in the file but not kept: LAS extra-bytes names, other
-    /// PLY vertex properties.
+    /// Other per-point fields present in the file but not decoded into the cloud's columns:
+    /// LAS Extra Bytes names (kept all the same in the cloud's source records and written
+    /// again by LAS/LAZ writers), other PLY vertex properties, E57 fields such as row and
+    /// column indices.
     pub other_fields: Vec<String>,
-    /// Coordinate reference system as found: the WKT text of a LAS WKT record, or the GeoTIFF
-    /// keys as `id=value` pairs. `None` when the file carries none.
+    /// Coordinate reference system as found: the WKT text of a LAS WKT record or of an E57
+    /// file's `coordinateMetadata`, or LAS GeoTIFF keys as `GeoTIFF keys id=value, …`. `None`
+    /// when the file carries none. Plain text, so that any output (JSON, Parquet metadata, a
+    /// LAS WKT record) can hold it.
     pub crs: Option<String>,
     /// LAS scale factors x, y, z.
     pub scale: Option<[f64; 3]>,
@@ -107,6 +118,15 @@ pub struct FileInfo {
     pub header_bounds: Option<Bounds>,
     /// Other elements of a PLY file (e.g. `face 6`), as `name count`.
     pub other_elements: Vec<String>,
+    /// The scans of an E57 file, in file order (every scan, read or not); empty for other
+    /// formats.
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub scans: Vec<ScanInfo>,
+    /// Where the scanner stood, file coordinates, when the points come from one scan whose
+    /// position the file records (an E57 scan's pose translation): the viewpoint for
+    /// visibility checks and normal orientation.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub viewpoint: Option<[f64; 3]>,
     /// CRS records of a LAS file, kept so that a LAS writer can copy them.
     #[serde(skip)]
     pub(crate) crs_records: Vec<::las::Vlr>,
@@ -129,9 +149,35 @@ impl FileInfo {
             offset: None,
             header_bounds: None,
             other_elements: Vec::new(),
+            scans: Vec::new(),
+            viewpoint: None,
             crs_records: Vec::new(),
         }
     }
+}
+
+/// One scan of an E57 file.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct ScanInfo {
+    /// Position in the file, from 0 (`FILE.e57#INDEX`).
+    pub index: usize,
+    /// The scan's name (`FILE.e57#NAME`); empty when the file gives none.
+    pub name: String,
+    /// Points the scan declares (invalid points included).
+    pub points: u64,
+    /// Row-major 4×4 carrying the scan's own coordinates into the file's frame (the identity
+    /// when the file gives no pose).
+    pub pose: [[f64; 4]; 4],
+    /// False when the file gives no pose for the scan.
+    pub has_pose: bool,
+    /// Where the scanner stood, file coordinates (the pose's translation).
+    pub scanner_position: [f64; 3],
+    /// `cartesian`, `spherical` or `cartesian+spherical`.
+    pub coordinates: String,
+    /// Every per-point field the scan stores, as the standard names them.
+    pub fields: Vec<String>,
+    /// True when this read includes the scan.
+    pub selected: bool,
 }
 
 /// The formats [`read_cloud`] recognises by content.
@@ -139,6 +185,7 @@ impl FileInfo {
 pub(crate) enum Kind {
     Las,
     Ply,
+    E57,
 }
 
 /// Opens `path` for reading, with a clear message for folders and missing or empty files.
@@ -149,7 +196,7 @@ pub(crate) fn open_input(path: &Path) -> Result<(File, u64)> {
         return Err(Error::file(
             path,
             "is a folder, not a point-cloud file",
-            "give a .las, .laz or .ply file",
+            "give a .las, .laz, .ply or .e57 file",
         ));
     }
     if meta.len() == 0 {
@@ -165,7 +212,7 @@ pub(crate) fn open_input(path: &Path) -> Result<(File, u64)> {
 
 pub(crate) fn sniff(path: &Path) -> Result<Kind> {
     let (mut file, _) = open_input(path)?;
-    let mut head = [0u8; 4];
+    let mut head = [0u8; 8];
     let mut n = 0;
     while n < head.len() {
         match file.read(&mut head[n..]) {
@@ -176,8 +223,10 @@ pub(crate) fn sniff(path: &Path) -> Result<Kind> {
         }
     }
     let head = &head[..n];
-    if head == b"LASF" {
+    if head.starts_with(b"LASF") {
         Ok(Kind::Las)
+    } else if head == e57::SIGNATURE {
+        Ok(Kind::E57)
     } else if head.starts_with(b"ply") && matches!(head.get(3), Some(b'\n' | b'\r')) {
         Ok(Kind::Ply)
     } else {
@@ -193,13 +242,15 @@ pub(crate) fn sniff(path: &Path) -> Result<Kind> {
             .collect();
         Err(Error::file(
             path,
-            format!("not a LAS, LAZ or PLY file (it starts with \"{shown}\")"),
-            "give a .las, .laz or .ply file",
+            format!("not a LAS, LAZ, PLY or E57 file (it starts with \"{shown}\")"),
+            "give a .las, .laz, .ply or .e57 file",
         ))
     }
 }
 
-/// Reads a LAS, LAZ or PLY file into a [`Cloud`], choosing the reader from the file's content.
+/// Reads a LAS, LAZ, PLY or E57 file into a [`Cloud`], choosing the reader from the file's
+/// content. `FILE.e57#NAME` or `FILE.e57#INDEX` reads one scan of an E57 file; without it
+/// every scan is read, each placed by its pose.
 ///
 /// LAS and LAZ keep intensity, colour (when the point format has it), classification, return
 /// number and GPS time (when present). PLY keeps x/y/z, `nx ny nz`, `red green blue` (uchar
@@ -212,10 +263,22 @@ pub(crate) fn sniff(path: &Path) -> Result<Kind> {
 /// rather than failing later inside spacing estimates and registration. [`PointSource`]
 /// reads the same file in chunks, header first.
 pub fn read_cloud(path: &Path) -> Result<(Cloud, FileInfo)> {
-    match sniff(path)? {
-        Kind::Las => las::read_las(path),
-        Kind::Ply => ply::read_ply(path, false).map(|(c, _, i)| (c, i)),
+    let (file, sel) = split_scan(path);
+    match (sniff(&file)?, sel) {
+        (Kind::E57, sel) => e57::read_e57(path, &file, sel.as_deref()),
+        (_, Some(sel)) => Err(no_scans(&file, &sel)),
+        (Kind::Las, None) => las::read_las(path),
+        (Kind::Ply, None) => ply::read_ply(path, false).map(|(c, _, i)| (c, i)),
     }
+}
+
+/// The error for `FILE#SEL` when FILE is not E57.
+pub(crate) fn no_scans(file: &Path, sel: &str) -> Error {
+    Error::file(
+        file,
+        format!("#{sel} selects a scan, but only E57 files hold several scans"),
+        "give the file name without #",
+    )
 }
 
 /// Largest extent of a cloud along any axis, file units. f32 offsets carry 24 significant

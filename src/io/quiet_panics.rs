@@ -3,7 +3,7 @@
 //!
 //! The standard panic hook would print the message and a backtrace note to stderr even when
 //! the panic is caught, breaking the one-line error promise. A hook installed once wraps the
-//! previous one and stays silent only for panics raised inside the `las` or `laz` crates'
+//! previous one and stays silent only for panics raised inside the `las`, `laz` or `e57` crates'
 //! source while a guarded call is running; every other panic is reported as before.
 
 use std::panic::{AssertUnwindSafe, catch_unwind};
@@ -16,7 +16,9 @@ static INSTALL: Once = Once::new();
 
 fn from_decoder(file: &str) -> bool {
     let f = file.replace('\\', "/");
-    f.contains("/laz-") || f.contains("/las-") || f.contains("/laz/") || f.contains("/las/")
+    ["/laz-", "/las-", "/laz/", "/las/", "/e57-", "/e57/"]
+        .iter()
+        .any(|d| f.contains(d))
 }
 
 /// Runs `f`; returns `None` when it panics.

@@ -12,17 +12,20 @@ use std::path::Path;
 use crate::cloud::Cloud;
 use crate::error::Result;
 
+use super::e57::E57Reader;
 use super::las::LasReader;
 use super::ply::PlyReader;
-use super::{Extent, FileInfo, Kind, sniff};
+use super::{Extent, FileInfo, Kind, no_scans, sniff, split_scan};
 
 enum Reader {
     Las(Box<LasReader>),
     Ply(Box<PlyReader>),
+    E57(Box<E57Reader>),
 }
 
-/// A LAS, LAZ or PLY file opened for chunked reading (format chosen by content, as
-/// [`super::read_cloud`] does).
+/// A LAS, LAZ, PLY or E57 file opened for chunked reading (format chosen by content, as
+/// [`super::read_cloud`] does; `FILE.e57#NAME` selects one scan). E57 scans are decoded on
+/// the first chunk and handed out from memory.
 ///
 /// ```
 /// use equiscan::io::PointSource;
@@ -47,9 +50,14 @@ pub struct PointSource {
 impl PointSource {
     /// Opens `path` and reads its header; no point is decoded yet.
     pub fn open(path: &Path) -> Result<PointSource> {
-        let reader = match sniff(path)? {
-            Kind::Las => Reader::Las(Box::new(LasReader::open(path)?)),
-            Kind::Ply => Reader::Ply(Box::new(PlyReader::open(path, false)?)),
+        let (file, sel) = split_scan(path);
+        let reader = match (sniff(&file)?, sel) {
+            (Kind::E57, sel) => {
+                Reader::E57(Box::new(E57Reader::open(path, &file, sel.as_deref())?))
+            }
+            (_, Some(sel)) => return Err(no_scans(&file, &sel)),
+            (Kind::Las, None) => Reader::Las(Box::new(LasReader::open(path)?)),
+            (Kind::Ply, None) => Reader::Ply(Box::new(PlyReader::open(path, false)?)),
         };
         Ok(PointSource {
             path: path.to_path_buf(),
@@ -64,6 +72,7 @@ impl PointSource {
         match &self.reader {
             Reader::Las(r) => r.info(),
             Reader::Ply(r) => r.info(),
+            Reader::E57(r) => r.info(),
         }
     }
 
@@ -72,6 +81,7 @@ impl PointSource {
         match &self.reader {
             Reader::Las(r) => r.remaining(),
             Reader::Ply(r) => r.remaining(),
+            Reader::E57(r) => r.remaining(),
         }
     }
 
@@ -81,6 +91,7 @@ impl PointSource {
         match &self.reader {
             Reader::Las(r) => r.empty_cloud(reserve as u64),
             Reader::Ply(r) => r.empty_cloud(reserve as u64),
+            Reader::E57(r) => r.empty_cloud(reserve as u64),
         }
     }
 
@@ -92,6 +103,7 @@ impl PointSource {
         let n = match &mut self.reader {
             Reader::Las(r) => r.read_into(out, max)?,
             Reader::Ply(r) => r.read_into(out, max)?,
+            Reader::E57(r) => r.read_into(out, max)?,
         };
         self.extent.add(&self.path, &out.positions[before..])?;
         Ok(n)

@@ -1,4 +1,5 @@
-//! Read speed of `read_cloud` for LAS, LAZ and binary PLY next to the raw file-read floor.
+//! Read speed of `read_cloud` for LAS, LAZ, binary PLY and E57 next to the raw file-read
+//! floor.
 //!
 //! ```text
 //! cargo run --release --example io_read_speed -- [POINTS] [FOLDER]
@@ -7,11 +8,14 @@
 //! Writes a seeded synthetic scan of POINTS points (default 5 000 000) into FOLDER (default: a
 //! new temporary folder, removed at the end) as LAS 1.4 (format 7), LAZ, binary PLY from
 //! `write_ply` (double x y z, uchar colour, float intensity, uchar classification and return
-//! number, double GPS time) and a plain float PLY (float x y z, float normals, uchar colour).
+//! number, double GPS time), a plain float PLY (float x y z, float normals, uchar colour) and
+//! an E57 (ASTM E2807) of one scan written by the `e57` crate (double x y z, 16-bit
+//! intensity, 8-bit colour, a pose).
 //! Files of the right size already in FOLDER are reused. Each file is first read once to warm
 //! the page cache; then the best of five runs is reported for (a) `cat FILE > /dev/null` and
 //! reading the raw bytes into a 1 MiB buffer (the floor), (b) for LAS/LAZ the las crate's own
-//! `fill_points` loop without decoding, and (c) `read_cloud`.
+//! `fill_points` loop without decoding, for E57 the e57 crate's own point iterator, and (c)
+//! `read_cloud`.
 
 use std::io::Read;
 use std::path::{Path, PathBuf};
@@ -87,6 +91,69 @@ fn write_float_ply(path: &Path, c: &Cloud) {
     .unwrap();
 }
 
+/// An E57 file of one scan, written by the `e57` crate: double x y z (about the scan's
+/// position, which the pose carries into the file frame), 16-bit intensity, 8-bit colour.
+fn write_e57(path: &Path, c: &Cloud) {
+    use e57::{Record, RecordValue as V};
+    let mut w = e57::E57Writer::from_file(path, "{5b0e3d1a-0000-4000-8000-00000000e570}").unwrap();
+    let proto = vec![
+        Record::CARTESIAN_X_F64,
+        Record::CARTESIAN_Y_F64,
+        Record::CARTESIAN_Z_F64,
+        Record::INTENSITY_U16,
+        Record::COLOR_RED_U8,
+        Record::COLOR_GREEN_U8,
+        Record::COLOR_BLUE_U8,
+    ];
+    let mut pc = w
+        .add_pointcloud("{5b0e3d1a-0000-4000-8000-00000000e571}", proto)
+        .unwrap();
+    pc.set_name(Some("speed".into()));
+    pc.set_transform(Some(e57::Transform {
+        rotation: e57::Quaternion {
+            w: 1.0,
+            x: 0.0,
+            y: 0.0,
+            z: 0.0,
+        },
+        translation: e57::Translation {
+            x: c.origin[0],
+            y: c.origin[1],
+            z: c.origin[2],
+        },
+    }));
+    let intensity = c.intensity.as_ref().unwrap();
+    let colour = c.color.as_ref().unwrap();
+    for (i, p) in c.positions.iter().enumerate() {
+        pc.add_point(vec![
+            V::Double(p[0] as f64),
+            V::Double(p[1] as f64),
+            V::Double(p[2] as f64),
+            V::Integer(intensity[i] as i64),
+            V::Integer(colour[i][0] as i64),
+            V::Integer(colour[i][1] as i64),
+            V::Integer(colour[i][2] as i64),
+        ])
+        .unwrap();
+    }
+    pc.finalize().unwrap();
+    w.finalize().unwrap();
+}
+
+/// The e57 crate's own point iterator (pose applied, nothing kept): the best an E57 reader
+/// built on it can do.
+fn e57_crate_only(path: &Path) -> u64 {
+    let mut r = e57::E57Reader::from_file(path).unwrap();
+    let mut n = 0;
+    for pc in r.pointclouds() {
+        for p in r.pointcloud_simple(&pc).unwrap() {
+            std::hint::black_box(p.unwrap());
+            n += 1;
+        }
+    }
+    n
+}
+
 /// Timed runs per measurement; the best is reported (least disturbed by other load).
 const RUNS: usize = 5;
 
@@ -147,6 +214,7 @@ fn main() {
         ("LAZ 1.4 format 7", dir.join("speed.laz")),
         ("PLY binary (write_ply)", dir.join("speed.ply")),
         ("PLY binary float+normals+rgb", dir.join("speed_float.ply")),
+        ("E57 double xyz+intensity+rgb", dir.join("speed.e57")),
     ];
     // Files of the right size from an earlier run in the same FOLDER are reused.
     let fresh = files
@@ -159,13 +227,15 @@ fn main() {
         write_las(&files[1].1, &cloud, &[]).unwrap();
         write_ply(&files[2].1, &cloud, &[]).unwrap();
         write_float_ply(&files[3].1, &cloud);
+        let _ = std::fs::remove_file(&files[4].1);
+        write_e57(&files[4].1, &cloud);
         eprintln!(
             "wrote {n}-point files in {:.1} s",
             t.elapsed().as_secs_f64()
         );
     }
     println!(
-        "| file | size MB | cat s | raw read s | las crate alone s | read_cloud s | Mpts/s | × cat | × raw read |"
+        "| file | size MB | cat s | raw read s | las / e57 crate alone s | read_cloud s | Mpts/s | × cat | × raw read |"
     );
     println!("|---|---|---|---|---|---|---|---|---|");
     for (name, path) in &files {
@@ -181,6 +251,8 @@ fn main() {
         });
         let crate_only = if name.starts_with("LA") {
             format!("{:.3}", best_of(RUNS, || las_crate_only(path)))
+        } else if name.starts_with("E57") {
+            format!("{:.3}", best_of(RUNS, || e57_crate_only(path)))
         } else {
             "–".to_string()
         };

@@ -20,7 +20,9 @@
 //! [`verify`] refuses a pair torn by a kill between the two renames.
 
 mod cost;
+mod parquet;
 mod plan;
+mod run;
 mod sidecar;
 mod sinks;
 
@@ -33,7 +35,9 @@ use crate::io::{FileInfo, LasOptions};
 use crate::spatial::KdIndex;
 
 pub use cost::{Cost, estimate};
+pub use parquet::{ROW_GROUP_BYTES, row_group_rows};
 pub use plan::{Job, plan};
+pub use run::{Budget, CentreChoice, Summary, check_budget, choose_centres, radius_from_spacing};
 pub use sidecar::{
     CentresInfo, CountSummary, Metadata, SIDECAR_VERSION, Sidecar, checksum, sidecar_path, verify,
 };
@@ -55,6 +59,8 @@ pub enum Format {
     Las,
     /// Compressed LAS 1.4 with Extra Bytes.
     Laz,
+    /// Apache Parquet: file coordinates (f64), point attributes, feature columns (f32).
+    Parquet,
 }
 
 impl Format {
@@ -67,6 +73,7 @@ impl Format {
             "csv" => Format::Csv,
             "las" => Format::Las,
             "laz" => Format::Laz,
+            "parquet" => Format::Parquet,
             _ => return None,
         })
     }
@@ -79,6 +86,7 @@ impl Format {
             Format::Csv => "csv",
             Format::Las => "las",
             Format::Laz => "laz",
+            Format::Parquet => "parquet",
         }
     }
 
@@ -100,10 +108,10 @@ impl Format {
 impl std::str::FromStr for Format {
     type Err = String;
 
-    /// `npy`, `ply`, `csv`, `las` or `laz`, without case.
+    /// `npy`, `ply`, `csv`, `las`, `laz` or `parquet`, without case.
     fn from_str(s: &str) -> std::result::Result<Format, String> {
         Format::from_path(Path::new(&format!("x.{s}"))).ok_or_else(|| {
-            format!("{s} is not a feature-file format; give npy, ply, csv, las or laz")
+            format!("{s} is not a feature-file format; give npy, ply, csv, las, laz or parquet")
         })
     }
 }
@@ -234,8 +242,9 @@ impl CountStats {
     }
 }
 
-/// Appends row `i` of `f` in file column order (local coordinates when `with_local`).
-fn push_row(f: &Features, i: usize, with_local: bool, out: &mut Vec<f32>) {
+/// Appends row `i` of `f` in file column order ([`column_names`]; the local coordinates first
+/// when `with_local`, as in NPY and CSV files).
+pub fn push_row(f: &Features, i: usize, with_local: bool, out: &mut Vec<f32>) {
     if with_local {
         out.extend_from_slice(&f.positions[i]);
     }
@@ -357,6 +366,13 @@ impl<'a> FeatureWriter<'a> {
                                  bispectrum n, l1 <= l2, l), then coefficients \
                                  [scale][n][l^2 + l + m]"
                             .to_string(),
+                        crs: self.spec.input.crs.clone(),
+                        units: self
+                            .spec
+                            .input
+                            .crs
+                            .as_deref()
+                            .and_then(crate::io::crs::units_label),
                     },
                 };
                 let text = serde_json::to_string_pretty(&doc)

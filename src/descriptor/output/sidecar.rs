@@ -77,6 +77,15 @@ pub struct Metadata {
     pub counts: Vec<CountSummary>,
     /// Column order, in words.
     pub layout: String,
+    /// The input's coordinate reference system as the reader found it (WKT text, or LAS
+    /// GeoTIFF keys as `GeoTIFF keys id=value, …`; see `io::FileInfo::crs`); left out when the
+    /// input has none.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub crs: Option<String>,
+    /// Unit of the coordinates named by that CRS (`m`, `ft`, `US survey ft`); left out when
+    /// it names none.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub units: Option<String>,
 }
 
 /// The sidecar document.

@@ -9,6 +9,7 @@ use crate::descriptor::Features;
 use crate::error::{Error, Result};
 use crate::io::{Finished, LasRowWriter, PlyLayout, TempFile, npy_header};
 
+use super::parquet::ParquetSink;
 use super::{CentreList, FileSpec, Format, las_options, push_row};
 
 /// A data file being written.
@@ -24,6 +25,7 @@ pub(super) enum Sink {
         writer: Box<LasRowWriter>,
         points: bool,
     },
+    Parquet(Box<ParquetSink>),
 }
 
 /// A data file that is complete under its temporary name.
@@ -130,6 +132,9 @@ impl Sink {
                     points,
                 }
             }
+            Format::Parquet => {
+                Sink::Parquet(Box::new(ParquetSink::create(cloud, spec, names, points)?))
+            }
         })
     }
 
@@ -213,6 +218,7 @@ impl Sink {
                 }
                 writer.write_rows(points.then_some(cloud), &rows, &vals)
             }
+            Sink::Parquet(p) => p.push(cloud, f),
         }
     }
 
@@ -221,6 +227,7 @@ impl Sink {
             Sink::Npy(h) | Sink::Csv(h) => h.done(),
             Sink::Ply { file, .. } => Ok(Done::Alone(file.finish()?)),
             Sink::Las { writer, .. } => Ok(Done::Alone(writer.finish()?)),
+            Sink::Parquet(p) => Ok(Done::Alone(p.finish()?)),
         }
     }
 }

@@ -1,0 +1,72 @@
+//! Stage 1 of registration, hypotheses: descriptor matches between two prepared scans and the
+//! pose hypotheses they propose, each scored by the matches it explains.
+//!
+//! Matching ([`super::matching`]) keeps nearest neighbours in descriptor space that pass the
+//! mutual check and the ratio test. The harmonic method turns every match into one pose (two
+//! for a locally symmetric neighbourhood) from the equivariant coefficients
+//! ([`super::equivariant::hypotheses`]); the FPFH baseline draws 3-point RANSAC samples
+//! ([`super::consensus::ransac`]). Poses map SOURCE local into TARGET local coordinates; a
+//! match counts for a pose when the pose brings its keypoints within the inlier threshold τ.
+
+use super::consensus::{self, Hypothesis, Pairs};
+use super::equivariant;
+use super::matching::{Correspondence, MatchParams, match_features};
+use super::pipeline::{AlignParams, Method};
+use super::prepared_scan::PreparedScan;
+
+/// The matches of two prepared scans, as index pairs and as point pairs.
+pub struct Matches {
+    /// Keypoint index pairs (SOURCE, TARGET), most distinctive first.
+    pub correspondences: Vec<Correspondence>,
+    /// The matched keypoint positions, in the same order.
+    pub pairs: Pairs,
+}
+
+/// Matches the descriptor rows of `source` against those of `target` with the matching values
+/// of `params.tuning`.
+pub fn matches(source: &PreparedScan, target: &PreparedScan, params: &AlignParams) -> Matches {
+    let tu = &params.tuning;
+    let correspondences = match_features(
+        &source.descriptors.rows,
+        &target.descriptors.rows,
+        source.descriptors.dim,
+        &MatchParams {
+            max_ratio: tu.match_max_ratio,
+            mutual: tu.match_mutual,
+            min_keep: tu.match_min_keep,
+            max_keep: tu.match_max_keep,
+        },
+    );
+    let pairs = Pairs::new(&source.keypoints, &target.keypoints, &correspondences);
+    Matches {
+        correspondences,
+        pairs,
+    }
+}
+
+/// Pose hypotheses from the matches, each with the number of matches it explains within `tau`.
+pub fn propose(
+    source: &PreparedScan,
+    target: &PreparedScan,
+    matches: &Matches,
+    params: &AlignParams,
+    tau: f64,
+) -> Vec<Hypothesis> {
+    match params.method {
+        Method::Fpfh => {
+            consensus::ransac(&matches.pairs, tau, params.ransac_iterations, params.seed)
+        }
+        Method::Equivariant => {
+            let searcher = equivariant::searcher(params.tuning.descriptor_degree);
+            let poses = equivariant::hypotheses(
+                &matches.correspondences,
+                &source.keypoints,
+                &target.keypoints,
+                &source.descriptors,
+                &target.descriptors,
+                &searcher,
+            );
+            consensus::score(&matches.pairs, &poses, tau)
+        }
+    }
+}

@@ -1,0 +1,157 @@
+//! Stage 4 of registration, judge: how sure the answer is, in figures and a verdict, with its
+//! closest rivals listed.
+//!
+//! Rivalry: every distinct coarse pose is compared with the best
+//! ([`super::candidates::rivalry`]), and so are the ranked hypotheses that were not polished,
+//! on the ranking subsample (a symmetric shape splits its matches among its symmetric poses,
+//! which then rank alike); the margin is one minus the strongest rival. The overlap is the
+//! share of SOURCE keypoints within τ of a TARGET keypoint under the answer; the RMSE is taken
+//! on the full-resolution clouds over pairs closer than [`super::Tuning::rmse_pairing_spacings`]
+//! TARGET point spacings (at most one fine voxel). [`super::quality`] turns inliers, overlap and
+//! margin into a confidence and the verdict; a fit with a weakly constrained motion is never
+//! confident. Candidates are given in file coordinates, the first being the answer.
+
+use nalgebra::Vector3;
+
+use super::candidates::{Candidate, difference, rivalry};
+use super::consensus::{self, Pairs};
+use super::icp::fit_quality;
+use super::pipeline::AlignParams;
+use super::prepared_scan::PreparedScan;
+use super::quality::{self, Figures, Verdict};
+use super::rank::Ranked;
+use super::refine::Refined;
+use super::residual::full_resolution_rmse;
+use crate::error::Result;
+
+/// The figures, the verdict and the listed candidates of a refined registration.
+pub struct Judgement {
+    /// Quality figures.
+    pub figures: Figures,
+    /// The plain outcome.
+    pub verdict: Verdict,
+    /// The answer and its closest rivals, file coordinates.
+    pub candidates: Vec<Candidate>,
+}
+
+/// Judges the refined answer of `source` onto `target`.
+#[allow(clippy::too_many_arguments)]
+pub fn judge(
+    refined: &Refined,
+    ranked: &Ranked,
+    pairs: &Pairs,
+    correspondences: usize,
+    source: &PreparedScan,
+    target: &PreparedScan,
+    params: &AlignParams,
+    tau: f64,
+) -> Result<Judgement> {
+    let tu = &params.tuning;
+    let Refined {
+        polished,
+        order,
+        most,
+        best,
+        coarse,
+        local,
+        constraint,
+        ..
+    } = refined;
+    let (most, best, local) = (*most, *best, *local);
+    // How close each distinct pose comes to the best (1 for the best itself). The candidates
+    // are the best and its closest rivals.
+    let mut rivals: Vec<(usize, f64)> = order
+        .iter()
+        .map(|&i| {
+            let r = best.map_or(0.0, |b| rivalry(&polished[i], &b, most));
+            (i, r)
+        })
+        .collect();
+    if rivals.len() > 1 {
+        rivals[1..].sort_by(|x, y| y.1.total_cmp(&x.1).then(x.0.cmp(&y.0)));
+    }
+    let rival = rivals.get(1).map_or(0.0, |r| r.1);
+    let listed: Vec<(usize, f64)> = rivals
+        .iter()
+        .take(tu.candidates)
+        .enumerate()
+        .filter(|(k, r)| *k == 0 || r.1 >= tu.list_rivalry)
+        .map(|(_, r)| *r)
+        .collect();
+    let tight = best.map_or(0.0, |b| b.overlap);
+    let support = best.map_or(1, |b| b.explained.max(1)) as f64;
+    // The shortlist holds more poses than were polished: compare them on the same subsample.
+    let sample_tight = ranked.on_surface(target, coarse, tau, tu);
+    let rival = ranked
+        .poses
+        .iter()
+        .filter(|(_, h)| {
+            !consensus::same_pose(
+                &h.transform,
+                coarse,
+                tu.distinct_angle_deg,
+                tu.distinct_distance_taus * tau,
+            )
+        })
+        .map(|(n, h)| {
+            let o = *n as f64 / sample_tight.max(1) as f64;
+            o.min(h.support as f64 / support)
+        })
+        .fold(rival, f64::max);
+    let margin = if tight > 0.0 {
+        (1.0 - rival).clamp(0.0, 1.0)
+    } else {
+        0.0
+    };
+
+    let n = source.keypoints.len() as f64;
+    let overlap = fit_quality(&source.keypoints, target.keypoint_index(), &local, tau).1 as f64 / n;
+    let full = target.full()?;
+    let pairing = full.spacing.map_or(target.fine_voxel, |s| {
+        (tu.rmse_pairing_spacings * s as f64).min(target.fine_voxel)
+    });
+    let (rmse, _) =
+        full_resolution_rmse(&source.points, &target.points, &full.index, &local, pairing);
+    let inliers = pairs.support(&local, tau);
+    let mut figures = Figures {
+        rmse,
+        overlap,
+        correspondences,
+        inliers,
+        margin,
+        confidence: 0.0,
+    };
+    figures.confidence = quality::confidence(inliers, overlap, margin);
+    let mut verdict = quality::verdict(&figures);
+    if verdict == Verdict::Confident && !constraint.weak.is_empty() {
+        verdict = Verdict::Ambiguous(quality::Reason::WeaklyConstrained);
+    }
+    let centroid = source
+        .keypoints
+        .iter()
+        .fold(Vector3::zeros(), |a, p| a + crate::geometry::vec3(*p))
+        / n;
+    let candidates = listed
+        .iter()
+        .enumerate()
+        .map(|(k, &(i, rivalry))| {
+            let p = &polished[i];
+            let pose = if k == 0 { local } else { p.pose };
+            let (angle_deg, distance) = difference(&local, &pose, &centroid);
+            Candidate {
+                transform: pose.between_origins(source.origin, target.origin),
+                score: p.score(most),
+                rivalry,
+                overlap: p.overlap,
+                explained: p.explained,
+                angle_deg,
+                distance,
+            }
+        })
+        .collect();
+    Ok(Judgement {
+        figures,
+        verdict,
+        candidates,
+    })
+}

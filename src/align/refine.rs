@@ -1,0 +1,240 @@
+//! Stage 3 of registration, refine: point-to-plane ICP with a robust loss from the best ranked
+//! poses and from the near-symmetric alternatives of the leader, then a fine fit of the best.
+//!
+//! Coarse: up to [`super::AlignParams::refine_best`] ranked poses that differ by more than
+//! [`super::Tuning::start_angle_deg`] (or one τ) start an ICP on the keypoints; the leader's
+//! alternatives ([`super::candidates::alternatives`]: turns about the principal axes of the
+//! overlap, flips, slides along weakly constrained directions) are refined too, since the drawn
+//! hypotheses need not contain them. Each result is scored by its tight overlap (the share of
+//! SOURCE keypoints on the TARGET surface within the plane tolerance, normals agreeing) and the
+//! matches it explains. Fine: ICP on the fine points from the best distinct pose; the 6×6
+//! normal matrix of the fit ([`super::constraint`], Gelfand, Ikemoto, Rusinkiewicz & Levoy
+//! 2003) names weakly constrained motions, and where one looks weak the fit is redone on a
+//! stability-aware sample and judged on every point again.
+
+use nalgebra::Vector3;
+
+use super::candidates::{Scored, alternatives, distinct_best};
+use super::consensus::{self, Pairs};
+use super::constraint::{Constraint, Motion, analyse, paired, stable_sample};
+use super::icp::{IcpParams, icp_point_to_plane, oriented_fit};
+use super::pipeline::AlignParams;
+use super::prepared_scan::PreparedScan;
+use super::rank::Ranked;
+use super::rigid::Rigid;
+
+/// The coarse ICP settings of `params` for inlier threshold `tau` and voxel size `voxel`.
+fn coarse_icp(params: &AlignParams, tau: f64, voxel: f64) -> IcpParams {
+    let tu = &params.tuning;
+    IcpParams {
+        max_distance: tu.icp_max_distance_taus * tau,
+        min_scale: tu.icp_min_scale_voxels * voxel,
+        loss: params.loss,
+        max_iterations: tu.icp_max_iterations,
+        tolerance: tu.icp_tolerance,
+    }
+}
+
+/// The tight overlap of `pose`: the share of SOURCE keypoints within the plane tolerance of the
+/// TARGET surface, normals agreeing.
+pub fn tight_overlap(
+    source: &PreparedScan,
+    target: &PreparedScan,
+    pose: &Rigid,
+    params: &AlignParams,
+    tau: f64,
+) -> f64 {
+    let tu = &params.tuning;
+    oriented_fit(
+        &source.keypoints,
+        &source.normals,
+        &target.keypoints,
+        &target.normals,
+        target.keypoint_index(),
+        pose,
+        tau,
+        tu.plane_tolerance_voxels * source.voxel,
+        tu.normal_angle_deg,
+    ) as f64
+        / source.keypoints.len() as f64
+}
+
+/// Coarse ICP from the distinct ranked poses and from the leader's alternatives, scored.
+pub fn coarse(
+    ranked: &Ranked,
+    pairs: &Pairs,
+    source: &PreparedScan,
+    target: &PreparedScan,
+    params: &AlignParams,
+    tau: f64,
+) -> Vec<Scored> {
+    let tu = &params.tuning;
+    let icp = coarse_icp(params, tau, source.voxel);
+    // Least squares on the inliers came first (cheap); poses that then coincide are polished
+    // once.
+    let mut starts: Vec<Rigid> = Vec::new();
+    for (_, h) in ranked.poses.iter().take(tu.shortlist) {
+        if starts.len() >= params.refine_best {
+            break;
+        }
+        if starts
+            .iter()
+            .all(|s| !consensus::same_pose(s, &h.transform, tu.start_angle_deg, tau))
+        {
+            starts.push(h.transform);
+        }
+    }
+    let polish = |start: &Rigid| {
+        let out = icp_point_to_plane(
+            &source.keypoints,
+            &target.keypoints,
+            &target.normals,
+            target.keypoint_index(),
+            start,
+            &icp,
+        );
+        Scored {
+            pose: out.transform,
+            overlap: tight_overlap(source, target, &out.transform, params, tau),
+            explained: pairs.support(&out.transform, tau),
+            iterations: out.iterations,
+        }
+    };
+    let mut polished: Vec<Scored> = starts.iter().map(polish).collect();
+    let leader = distinct_best(
+        &polished,
+        1,
+        tu.distinct_angle_deg,
+        tu.distinct_distance_taus * tau,
+        0.0,
+    )
+    .first()
+    .map(|&i| polished[i].pose);
+    if let Some(leader) = leader {
+        let (pts, nrm, _) = paired(
+            &source.keypoints,
+            &target.normals,
+            target.keypoint_index(),
+            &leader,
+            tau,
+        );
+        let slides: Vec<Vector3<f64>> = analyse(&pts, &nrm, [0.0; 3])
+            .weak
+            .iter()
+            .filter(|w| w.motion == Motion::Slide)
+            .map(|w| Vector3::from(w.axis))
+            .collect();
+        let alts = alternatives(
+            &leader,
+            &source.keypoints,
+            target.keypoint_index(),
+            tau,
+            &slides,
+        );
+        polished.extend(alts.iter().map(polish));
+    }
+    polished
+}
+
+/// The coarse poses in ranking order and the fine fit of the best.
+pub struct Refined {
+    /// Every coarse pose, in the order [`coarse`] produced them.
+    pub polished: Vec<Scored>,
+    /// Indices into `polished` of the distinct poses, best first.
+    pub order: Vec<usize>,
+    /// Most matches explained by any coarse pose.
+    pub most: usize,
+    /// The best coarse pose (`None` when there was none).
+    pub best: Option<Scored>,
+    /// The best pose before the fine fit (the identity when there was none).
+    pub coarse: Rigid,
+    /// The answer: SOURCE local → TARGET local after the fine fit.
+    pub local: Rigid,
+    /// ICP iterations of the fine fit (and of the refit on the stable sample).
+    pub icp_iterations: usize,
+    /// Constraint analysis of the fine fit.
+    pub constraint: Constraint,
+}
+
+/// Orders the coarse poses and fits the best one on the fine points.
+pub fn fine(
+    polished: Vec<Scored>,
+    source: &PreparedScan,
+    target: &PreparedScan,
+    params: &AlignParams,
+    tau: f64,
+) -> Refined {
+    let tu = &params.tuning;
+    let order = distinct_best(
+        &polished,
+        polished.len(),
+        tu.distinct_angle_deg,
+        tu.distinct_distance_taus * tau,
+        0.0,
+    );
+    let most = polished.iter().map(|p| p.explained).max().unwrap_or(0);
+    let best = order.first().map(|&i| polished[i]);
+    let coarse = best.map_or(Rigid::identity(), |b| b.pose);
+    let fine_icp = IcpParams {
+        max_distance: tu.fine_max_distance_taus * tau,
+        min_scale: tu.fine_min_scale_voxels * source.voxel,
+        ..coarse_icp(params, tau, source.voxel)
+    };
+    let (fs, ft) = (source, target);
+    let fit = icp_point_to_plane(
+        &fs.fine_points,
+        &ft.fine_points,
+        &ft.fine_normals,
+        ft.fine_index(),
+        &coarse,
+        &fine_icp,
+    );
+    let mut local = fit.transform;
+    let mut icp_iterations = fit.iterations;
+    let (pts, nrm, idx) = paired(
+        &fs.fine_points,
+        &ft.fine_normals,
+        ft.fine_index(),
+        &local,
+        tau,
+    );
+    let mut constraint = analyse(&pts, &nrm, target.origin);
+    if !constraint.weak.is_empty() && pts.len() > tu.stable_sample {
+        let keep = stable_sample(
+            &pts,
+            &nrm,
+            tu.stable_sample.max(pts.len() / tu.stable_one_in),
+        );
+        let chosen: Vec<[f32; 3]> = keep.iter().map(|&k| fs.fine_points[idx[k]]).collect();
+        let again = icp_point_to_plane(
+            &chosen,
+            &ft.fine_points,
+            &ft.fine_normals,
+            ft.fine_index(),
+            &local,
+            &fine_icp,
+        );
+        local = again.transform;
+        icp_iterations += again.iterations;
+        // Judged on every point again: on the sample, the few most tilted normals of a noisy
+        // plane would pass for a constraint.
+        let (p2, n2, _) = paired(
+            &fs.fine_points,
+            &ft.fine_normals,
+            ft.fine_index(),
+            &local,
+            tau,
+        );
+        constraint = analyse(&p2, &n2, target.origin);
+    }
+    Refined {
+        polished,
+        order,
+        most,
+        best,
+        coarse,
+        local,
+        icp_iterations,
+        constraint,
+    }
+}
