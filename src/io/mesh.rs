@@ -35,7 +35,7 @@ pub enum Surface {
     /// A triangle mesh.
     Mesh(Mesh),
     /// A point cloud (possibly with normals).
-    Cloud(Cloud),
+    Cloud(Box<Cloud>),
 }
 
 impl Mesh {
@@ -118,7 +118,7 @@ pub fn read_surface(path: &Path) -> Result<Surface> {
     let mesh = if bytes.starts_with(b"ply") {
         let (cloud, triangles) = super::read_ply_mesh(path)?;
         if triangles.is_empty() {
-            return Ok(Surface::Cloud(cloud));
+            return Ok(Surface::Cloud(Box::new(cloud)));
         }
         let vertices = (0..cloud.len()).map(|i| cloud.global(i)).collect();
         Mesh {
@@ -126,7 +126,7 @@ pub fn read_surface(path: &Path) -> Result<Surface> {
             triangles,
         }
     } else if bytes.starts_with(b"LASF") {
-        return super::read_cloud(path).map(|(c, _)| Surface::Cloud(c));
+        return super::read_cloud(path).map(|(c, _)| Surface::Cloud(Box::new(c)));
     } else if is_binary_stl(&bytes) {
         read_binary_stl(&bytes)
     } else if bytes.starts_with(b"solid") && contains(&bytes, b"facet") {
