@@ -8,8 +8,8 @@
 
 pub mod align;
 pub mod align_checks;
-pub mod batch;
 pub mod apply;
+pub mod batch;
 pub mod common;
 pub mod features;
 pub mod info;
