@@ -26,6 +26,7 @@ pub mod apply;
 mod atomic;
 pub mod crs;
 mod csv;
+pub mod describe;
 mod e57;
 pub mod guard;
 mod las;
