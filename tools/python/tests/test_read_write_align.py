@@ -80,7 +80,7 @@ def test_read_errors_name_the_file_and_kind(tmp_path):
     assert "\n" not in str(e.value)
     text = tmp_path / "notes.txt"
     text.write_text("hello\n")
-    with pytest.raises(equiscan.InputError, match="not a LAS, LAZ or PLY file"):
+    with pytest.raises(equiscan.InputError, match="not a LAS, LAZ, PLY or E57 file"):
         equiscan.read(text)
 
 

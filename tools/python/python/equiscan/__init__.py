@@ -7,7 +7,7 @@ library's one-line message and its kind.
 
 - :func:`features`: descriptors of an ``(n, 3)`` array, the columns and values of
   ``equiscan features`` (NPY layout);
-- :func:`read`: a LAS, LAZ or PLY file as arrays, with its attributes and header summary;
+- :func:`read`: a LAS, LAZ, PLY or E57 file as arrays, with its attributes and header summary;
 - :func:`write`: an array (and attributes) as a LAS, LAZ or PLY file;
 - :func:`align`: registration of two scan files, the report of ``equiscan align --json``;
 - :mod:`equiscan.dask`: ``extract`` runs ``equiscan batch``'s tiles on a Dask cluster.
@@ -61,7 +61,7 @@ class Scan:
 
 
 def read(path):
-    """Reads a LAS, LAZ or PLY file (the reader is chosen by the file's content).
+    """Reads a LAS, LAZ, PLY or E57 file (the reader is chosen by the file's content).
 
     Returns a :class:`Scan`. Raises :class:`~equiscan.errors.InputError` for a corrupt,
     truncated or unsupported file and :class:`~equiscan.errors.IoError` for a missing or
@@ -203,7 +203,7 @@ def _path_of(scan, name):
     except TypeError:
         raise RecipeError(
             f"{name}: expected a file path or a Scan read from a file, got {type(scan).__name__}; "
-            "give the path of a LAS, LAZ or PLY file",
+            "give the path of a LAS, LAZ, PLY or E57 file",
             "recipe",
         ) from None
 
