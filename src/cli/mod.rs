@@ -36,7 +36,7 @@ pub enum Command {
     /// suggested support radius.
     Info(info::InfoArgs),
     /// Compute rotation-invariant local descriptors (spherical harmonics × radial shells) at
-    /// every point, a voxel subsample or keypoints, and write them as NPY, PLY, CSV or LAS/LAZ.
+    /// every point, a voxel subsample or keypoints, and write them as NPY, PLY, CSV, LAS/LAZ or Parquet.
     Features(features::FeaturesArgs),
     /// Register scans with no initial guess: the rigid transform carrying SOURCE onto TARGET
     /// (or every scan onto the first), with quality figures and a verdict.
