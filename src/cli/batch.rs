@@ -9,9 +9,9 @@ use std::path::PathBuf;
 use equiscan::Result;
 use equiscan::batch::{BatchOptions, Plan, Shard, Summary, TileGrid, plan, run_tile_with};
 use equiscan::descriptor::output::Format;
-use equiscan::descriptor::{Invariants, Recipe};
 
 use super::common::{CommonArgs, group, plural, seconds_text};
+use super::recipe_args::RecipeArgs;
 
 /// Arguments of `equiscan batch`.
 #[derive(Debug, clap::Args)]
@@ -39,24 +39,10 @@ pub struct BatchArgs {
         allow_negative_numbers = true
     )]
     pub radius: Vec<f32>,
-    /// Maximum degree L of the spherical harmonics (0 to 12).
-    #[arg(long, default_value_t = equiscan::descriptor::DEFAULT_DEGREE, value_name = "L")]
-    pub degree: usize,
-    /// Number of radial shells N.
-    #[arg(long, default_value_t = equiscan::descriptor::DEFAULT_SHELLS, value_name = "N")]
-    pub shells: usize,
-    /// Descriptor version (1 or 2).
-    #[arg(long, value_name = "V", default_value_t = equiscan::descriptor::RECIPE_VERSION)]
-    pub descriptor_version: u32,
-    /// Keep only the K nearest neighbours within the support radius (default: all).
-    #[arg(long, value_name = "K")]
-    pub max_neighbours: Option<usize>,
-    /// Invariants to output, comma separated: norms, power, bispectrum.
-    #[arg(long, default_value = "norms,power", value_name = "LIST")]
-    pub invariants: String,
-    /// Also output the equivariant coefficients c_nlm.
-    #[arg(long)]
-    pub keep_coefficients: bool,
+    /// `--degree`, `--shells`, `--descriptor-version`, `--max-neighbours`, `--invariants`,
+    /// `--keep-coefficients`.
+    #[command(flatten)]
+    pub recipe: RecipeArgs,
     /// auto: tiles whose header bounds come within the largest radius of each other lend
     /// each other their points as neighbours (halo); off: every input alone.
     #[arg(long, value_name = "MODE", default_value = "auto", value_parser = str::parse::<TileGrid>)]
@@ -78,15 +64,7 @@ pub struct BatchArgs {
 /// bad arguments (returned as an error).
 pub fn run(args: &BatchArgs) -> Result<u8> {
     let c = &args.common;
-    let recipe = Recipe::builder()
-        .radii(args.radius.clone())
-        .version(args.descriptor_version)
-        .degree(args.degree)
-        .shells(args.shells)
-        .max_neighbours(args.max_neighbours)
-        .invariants(Invariants::parse(&args.invariants)?)
-        .keep_coefficients(args.keep_coefficients)
-        .build()?;
+    let recipe = args.recipe.recipe(args.radius.clone())?;
     let pool = c.pool()?;
     let mut opts = BatchOptions::new(recipe);
     opts.format = args.format;

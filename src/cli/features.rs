@@ -10,12 +10,13 @@ use equiscan::descriptor::output::{
     Budget, CentreChoice, FeatureWriter, FileSpec, Format, Job, Summary, check_budget,
     choose_centres, plan, radius_from_spacing, write_features,
 };
-use equiscan::descriptor::{Engine, Invariants, Recipe};
+use equiscan::descriptor::{Engine, Recipe};
 use equiscan::io::read_cloud;
 use equiscan::spatial::KdIndex;
 use equiscan::{Cloud, Error, Result};
 
 use super::common::{CommonArgs, Size, default_memory_budget};
+use super::recipe_args::RecipeArgs;
 
 /// Longest estimated run (wall clock) started without `--force`, seconds.
 const TIME_BUDGET: f64 = 3600.0;
@@ -48,25 +49,10 @@ pub struct FeaturesArgs {
         allow_negative_numbers = true
     )]
     pub radius: Vec<f32>,
-    /// Maximum degree L of the spherical harmonics (0 to 12).
-    #[arg(long, default_value_t = equiscan::descriptor::DEFAULT_DEGREE, value_name = "L")]
-    pub degree: usize,
-    /// Number of radial shells N.
-    #[arg(long, default_value_t = equiscan::descriptor::DEFAULT_SHELLS, value_name = "N")]
-    pub shells: usize,
-    /// Descriptor version (1: the original definition; 2: degrees l ≥ 1 fade out at the
-    /// centre). The output's recipe records it.
-    #[arg(long, value_name = "V", default_value_t = equiscan::descriptor::RECIPE_VERSION)]
-    pub descriptor_version: u32,
-    /// Keep only the K nearest neighbours within the support radius (default: all).
-    #[arg(long, value_name = "K")]
-    pub max_neighbours: Option<usize>,
-    /// Invariants to output, comma separated: norms, power, bispectrum.
-    #[arg(long, default_value = "norms,power", value_name = "LIST")]
-    pub invariants: String,
-    /// Also output the equivariant coefficients c_nlm.
-    #[arg(long)]
-    pub keep_coefficients: bool,
+    /// `--degree`, `--shells`, `--descriptor-version`, `--max-neighbours`, `--invariants`,
+    /// `--keep-coefficients`.
+    #[command(flatten)]
+    pub recipe: RecipeArgs,
     /// Descriptors at one point per voxel of this size (file units) instead of every point.
     #[arg(
         long,
@@ -98,14 +84,11 @@ pub struct FeaturesArgs {
 pub fn run(args: &FeaturesArgs) -> Result<u8> {
     let c = &args.common;
     // The recipe is checked before any file is read (a placeholder radius when none is given).
-    let check = recipe(
-        args,
-        if args.radius.is_empty() {
-            vec![1.0]
-        } else {
-            args.radius.clone()
-        },
-    )?;
+    let check = args.recipe.recipe(if args.radius.is_empty() {
+        vec![1.0]
+    } else {
+        args.radius.clone()
+    })?;
     if let Some(v) = args.voxel
         && !(v.is_finite() && v > 0.0)
     {
@@ -151,18 +134,6 @@ pub fn run(args: &FeaturesArgs) -> Result<u8> {
     Ok(code)
 }
 
-fn recipe(args: &FeaturesArgs, radii: Vec<f32>) -> Result<Recipe> {
-    Recipe::builder()
-        .radii(radii)
-        .version(args.descriptor_version)
-        .degree(args.degree)
-        .shells(args.shells)
-        .max_neighbours(args.max_neighbours)
-        .invariants(Invariants::parse(&args.invariants)?)
-        .keep_coefficients(args.keep_coefficients)
-        .build()
-}
-
 /// Reads one input, estimates the cost, computes and writes in chunks.
 fn one(
     args: &FeaturesArgs,
@@ -185,7 +156,7 @@ fn one(
     } else {
         check.radii().to_vec()
     };
-    let recipe = recipe(args, radii.clone())?;
+    let recipe = args.recipe.recipe(radii.clone())?;
     let file = args.keypoints.as_ref().map(|p| p.display().to_string());
     let choice = match (keypoints, args.voxel) {
         (Some(cloud), _) => CentreChoice::Keypoints {

@@ -16,6 +16,7 @@ pub mod features;
 pub mod identify;
 pub mod info;
 pub mod inspect;
+pub mod recipe_args;
 
 use clap::{Parser, Subcommand};
 use equiscan::Result;
