@@ -72,6 +72,15 @@ pub struct Tuning {
     /// Full-resolution pairs count in the RMSE when closer than this many TARGET point
     /// spacings (and at most one fine voxel).
     pub rmse_pairing_spacings: f64,
+    /// Free-space test ([`super::visibility`]): a point counts as seen through when it lies in
+    /// front of the nearest measured surface in its direction by more than this, in voxel
+    /// sizes.
+    pub free_space_margin_voxels: f64,
+    /// Direction cells of the free-space test span this many fine voxels at the median range
+    /// of the scan's fine points.
+    pub free_space_cell_voxels: f64,
+    /// Most keypoints of each scan tested for free space per pose (a strided sample).
+    pub free_space_sample: usize,
 }
 
 impl Default for Tuning {
@@ -104,6 +113,9 @@ impl Default for Tuning {
             candidates: 5,
             list_rivalry: 0.3,
             rmse_pairing_spacings: 3.0,
+            free_space_margin_voxels: 1.5,
+            free_space_cell_voxels: 2.0,
+            free_space_sample: 2000,
         }
     }
 }
