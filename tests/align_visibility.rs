@@ -92,6 +92,14 @@ fn virtual_pair(shape: usize, sensors: [[f64; 3]; 2], points: usize, seed: u64) 
     pair_from(s, [at(sensors[0]), at(sensors[1])], points, 0.001, seed)
 }
 
+/// `tf` (SOURCE file → TARGET file coordinates) between the clouds' local frames
+/// (`x_local = x_file − origin`).
+fn local(p: &Pair, tf: &Rigid) -> Rigid {
+    let so = Vector3::from(p.source.origin);
+    let to = Vector3::from(p.target.origin);
+    Rigid::new(tf.rotation, tf.rotation * so + tf.translation - to)
+}
+
 /// The pose `rot` about SOURCE's centroid after the truth (a wrong pose for the tests).
 fn turned(p: &Pair, axis: Vector3<f64>, deg: f64) -> Rigid {
     let c = p.truth.apply(&p.source.centroid());
@@ -120,12 +128,7 @@ fn a_turned_pose_lies_in_seen_through_space_and_the_truth_does_not() {
     let s = PreparedScan::prepare("s", &p.source, &params, voxel).unwrap();
     let t = PreparedScan::prepare("t", &p.target, &params, voxel).unwrap();
     let seen = Visibility::new(&s, &t, &params.viewpoints, &params.tuning);
-    let local = |tf: &Rigid| {
-        // File → local frames: x_local = x_file − origin.
-        let so = Vector3::from(p.source.origin);
-        let to = Vector3::from(p.target.origin);
-        Rigid::new(tf.rotation, tf.rotation * so + tf.translation - to)
-    };
+    let local = |tf: &Rigid| local(&p, tf);
     let truth = seen.violation(&local(&p.truth)).unwrap();
     let view = Vector3::from(p.viewpoints[1]) - p.truth.apply(&p.source.centroid());
     let wrong = seen.violation(&local(&turned(&p, view, 180.0))).unwrap();
@@ -246,6 +249,17 @@ fn free_space_on_benchmark_pairs() {
                     ..AlignParams::default()
                 };
                 let a = align_pair(&p.source, &p.target, &params).unwrap();
+                if known {
+                    let s = PreparedScan::prepare("s", &p.source, &params, a.voxel).unwrap();
+                    let t = PreparedScan::prepare("t", &p.target, &params, a.voxel).unwrap();
+                    let seen = Visibility::new(&s, &t, &params.viewpoints, &params.tuning);
+                    let truth = seen.violation(&local(&p, &p.truth)).unwrap();
+                    line += &format!(
+                        " noise {:.4} margin/voxel {:.2} truth free space {truth:.3}",
+                        p.noise_frac,
+                        seen.margin() / a.voxel
+                    );
+                }
                 let (rot, trans) = errors(&p.source, &a.transform, &p.truth);
                 let right = rot <= 2.0 && trans <= 0.01 * p.diagonal;
                 let confident = a.verdict == Verdict::Confident;
@@ -283,4 +297,113 @@ fn free_space_on_benchmark_pairs() {
             "{name} sensor positions: right {right}, confident {confident} (wrong {wrong}), truth listed {listed}"
         );
     }
+}
+
+/// Prints the sensor positions (shape frame), size and noise of a benchmark pair, for building
+/// a fixed test pair with `pair_from`.
+#[test]
+#[ignore = "helper: EQUISCAN_PAIR=shape,seed --ignored --nocapture"]
+fn print_pair_conditions() {
+    let spec = std::env::var("EQUISCAN_PAIR").unwrap_or_else(|_| "6,6000".into());
+    let (k, seed) = spec.split_once(',').unwrap();
+    let (k, seed): (usize, u64) = (k.parse().unwrap(), seed.parse().unwrap());
+    let s = &shapes()[k];
+    let p = common::shapes::pair(s, seed);
+    let sv = p.truth.apply(&Vector3::from(p.viewpoints[0]));
+    let c = s.centre();
+    println!(
+        "{} source sensor dir {:?} target sensor dir {:?} points {} {} noise {}",
+        s.name,
+        (sv - c).normalize(),
+        (Vector3::from(p.viewpoints[1]) - c).normalize(),
+        p.source.len(),
+        p.target.len(),
+        p.noise_frac
+    );
+}
+
+/// A tee seen from two known sensor positions 30° apart (the conditions of a benchmark pair):
+/// without the positions, a pose turned by about 25° about the branch lays SOURCE on TARGET
+/// nearly as well as the truth (overlap alone does not separate them) and the verdict is
+/// `ambiguous`; with them, that pose puts several per cent of the tested points where a sensor
+/// saw through, the truth puts none, and the answer is the truth, `confident`. Sensor
+/// directions, size and noise of benchmark pair `tee` seed 6000 (`print_pair_conditions`).
+#[test]
+fn free_space_resolves_a_pose_that_overlap_alone_does_not() {
+    let seed = std::env::var("EQUISCAN_TEE_SEED")
+        .ok()
+        .and_then(|v| v.parse().ok())
+        .unwrap_or(11);
+    let p = virtual_pair(
+        6,
+        [[-0.1624, 0.9458, -0.2811], [0.2279, 0.7785, -0.5848]],
+        26_000,
+        seed,
+    );
+    let run = |known: bool| {
+        let params = AlignParams {
+            viewpoints: if known {
+                Viewpoints {
+                    source: Some(p.viewpoints[0]),
+                    target: Some(p.viewpoints[1]),
+                }
+            } else {
+                Viewpoints::default()
+            },
+            ..AlignParams::default()
+        };
+        align_pair(&p.source, &p.target, &params).unwrap()
+    };
+    let right = |tf: &Rigid| {
+        let (r, t) = errors(&p.source, tf, &p.truth);
+        r <= 2.0 && t <= 0.01 * p.diagonal
+    };
+    let (without, with) = (run(false), run(true));
+    for (name, a) in [("without", &without), ("with", &with)] {
+        eprintln!(
+            "{name}: {:?}, right {}, candidates {:?}",
+            a.verdict,
+            right(&a.transform),
+            a.candidates
+                .iter()
+                .map(|c| (
+                    c.angle_deg,
+                    c.overlap,
+                    c.score,
+                    c.rivalry,
+                    c.free_space_violation,
+                    right(&c.transform)
+                ))
+                .collect::<Vec<_>>()
+        );
+    }
+    assert!(right(&without.transform) && right(&with.transform));
+    // Overlap alone: a wrong pose comes within 15 % of the truth's tight overlap and within
+    // 0.8 of it in rivalry, so the verdict is ambiguous.
+    let truth_overlap = without.candidates[0].overlap;
+    let rival = without
+        .candidates
+        .iter()
+        .find(|c| !right(&c.transform) && c.overlap >= 0.85 * truth_overlap)
+        .expect("a wrong pose that overlaps nearly as well");
+    assert!(rival.rivalry >= 0.8, "rivalry {}", rival.rivalry);
+    assert!(matches!(without.verdict, Verdict::Ambiguous(_)));
+    // Free space: the same pose is now contradicted, no rival comes within 0.8, and the answer
+    // is confident.
+    assert!(with.candidates[1..].iter().all(|c| c.rivalry < 0.8));
+    assert_eq!(with.verdict, Verdict::Confident);
+    assert!(with.candidates[0].free_space_violation.unwrap() < 0.01);
+    let wrong = Visibility::new(
+        &PreparedScan::prepare("s", &p.source, &AlignParams::default(), with.voxel).unwrap(),
+        &PreparedScan::prepare("t", &p.target, &AlignParams::default(), with.voxel).unwrap(),
+        &Viewpoints {
+            source: Some(p.viewpoints[0]),
+            target: Some(p.viewpoints[1]),
+        },
+        &AlignParams::default().tuning,
+    )
+    .violation(&local(&p, &rival.transform))
+    .unwrap();
+    eprintln!("rival free space {wrong:.3}");
+    assert!(wrong > 0.03, "the rival puts {wrong} in free space");
 }

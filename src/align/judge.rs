@@ -11,7 +11,8 @@
 //! margin into a confidence and the verdict; a fit with a weakly constrained motion is never
 //! confident. Where a sensor position is known, every rival's overlap is reduced by the points
 //! it puts in space a sensor saw through ([`super::visibility`], [`super::candidates::Scored::consistent_overlap`]),
-//! and each candidate carries its free-space violation share. Candidates are given in file
+//! and each candidate carries its free-space violation share; an answer whose share exceeds
+//! [`super::Tuning::free_space_max_share`] is `not_found` (`contradicts_free_space`). Candidates are given in file
 //! coordinates, the first being the answer.
 
 use nalgebra::Vector3;
@@ -138,6 +139,12 @@ pub fn judge(
     if verdict == Verdict::Confident && !constraint.weak.is_empty() {
         verdict = Verdict::Ambiguous(quality::Reason::WeaklyConstrained);
     }
+    let answer_free_space = seen.violation(&local);
+    if answer_free_space.is_some_and(|v| v > tu.free_space_max_share)
+        && !matches!(verdict, Verdict::NotFound(_))
+    {
+        verdict = Verdict::NotFound(quality::Reason::ContradictsFreeSpace);
+    }
     let centroid = source
         .keypoints
         .iter()
@@ -150,7 +157,7 @@ pub fn judge(
             let p = &polished[i];
             let pose = if k == 0 { local } else { p.pose };
             let free_space_violation = if k == 0 {
-                seen.violation(&local)
+                answer_free_space
             } else {
                 p.free_space
             };

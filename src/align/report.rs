@@ -226,7 +226,7 @@ pub struct PairReport {
     /// `confident`, `ambiguous` or `not_found`.
     pub verdict: String,
     /// Why nothing confident was found (`too_few_distinctive_points`, `too_little_overlap`,
-    /// `ambiguous_symmetric_shape`, `weakly_constrained`).
+    /// `ambiguous_symmetric_shape`, `weakly_constrained`, `contradicts_free_space`).
     pub reason: Option<Reason>,
     /// The reason in words.
     pub reason_text: Option<String>,
@@ -1014,16 +1014,7 @@ fn write_candidates_picture(
         .take(2)
         .enumerate()
         .map(|(k, c)| ViewRow {
-            label: if k == 0 {
-                format!("candidate 1, score {:.2}", c.score)
-            } else {
-                format!(
-                    "candidate {}, score {:.2}, {:.0} deg off",
-                    k + 1,
-                    c.score,
-                    c.angle_deg
-                )
-            },
+            label: format!("candidate {}", k + 1),
             transforms: vec![Some(c.transform.compose(unshift)), None],
             values: false,
             flag: String::new(),

@@ -15,7 +15,8 @@
 //! component, the two cell indices are `⌊atan(dₐ/|dₖ|)/δ⌋` and `⌊atan(d_b/|dₖ|)/δ⌋` for a cell
 //! angle δ (radians). Each cell keeps the smallest measured range (the nearest surface seen in
 //! it), which makes the test conservative: a point counts as a violation only when it lies in
-//! front of the nearest surface measured in its cell by more than the margin. Cells with no
+//! front of the nearest surface measured in its cell and the eight cells around it by more
+//! than the margin (the neighbours keep a thin foreground edge from passing for free space). Cells with no
 //! measurement (outside the field of view, no return) are unknown and never count. Lengths are
 //! in file units.
 
@@ -102,8 +103,8 @@ impl RangeImage {
     }
 
     /// Whether `p` (local frame) lies in space the sensor saw through: `Some(true)` when it is
-    /// closer to the sensor than the nearest surface measured in its direction cell by more
-    /// than `margin`, `Some(false)` when it is not, `None` when nothing was measured in that
+    /// closer to the sensor than the nearest surface measured in its direction cell and the
+    /// eight cells around it by more than `margin`, `Some(false)` when it is not, `None` when nothing was measured in that
     /// direction.
     pub fn seen_through(&self, p: &Vector3<f64>, margin: f64) -> Option<bool> {
         let d = p - self.centre;
@@ -111,7 +112,17 @@ impl RangeImage {
         if !(r > 0.0 && r.is_finite()) {
             return None;
         }
-        let measured = *self.nearest.get(&cell_key(&d, self.cell))? as f64;
+        let key = cell_key(&d, self.cell);
+        self.nearest.get(&key)?;
+        // The nearest surface over the cell and its eight neighbours on the same face: a thin
+        // foreground edge whose fine points fell in the next cell still counts.
+        let measured = (-1i64..=1)
+            .flat_map(|a| (-1i64..=1).map(move |b| (a, b)))
+            .filter_map(|(a, b)| {
+                let k = key.wrapping_add_signed((a << 20) + b);
+                self.nearest.get(&k).copied()
+            })
+            .fold(f32::INFINITY, f32::min) as f64;
         Some(r < measured - margin)
     }
 
@@ -158,8 +169,10 @@ pub struct Visibility {
 impl Visibility {
     /// The test for `source` onto `target` with the sensor positions of `viewpoints` (file
     /// coordinates); cells of [`Tuning::free_space_cell_voxels`] fine voxels at the median
-    /// range of each scan's fine points, margin [`Tuning::free_space_margin_voxels`] voxels,
-    /// at most [`Tuning::free_space_sample`] keypoints of each scan tested.
+    /// range of each scan's fine points; margin [`Tuning::free_space_margin_voxels`] voxels or
+    /// [`Tuning::free_space_noise_sigmas`] × the two scans' noise estimates added in
+    /// quadrature ([`noise`]), whichever is larger; at most [`Tuning::free_space_sample`]
+    /// keypoints of each scan tested.
     pub fn new(
         source: &PreparedScan,
         target: &PreparedScan,
@@ -186,13 +199,25 @@ impl Visibility {
             let stride = pts.len().div_ceil(tu.free_space_sample.max(1)).max(1);
             pts.iter().step_by(stride).copied().collect::<Vec<_>>()
         };
+        let known = !viewpoints.is_empty();
+        let sigma = if known {
+            noise(source).hypot(noise(target))
+        } else {
+            0.0
+        };
         Visibility {
             target: image(target, viewpoints.target),
             source: image(source, viewpoints.source),
-            margin: tu.free_space_margin_voxels * source.voxel,
+            margin: (tu.free_space_margin_voxels * source.voxel)
+                .max(tu.free_space_noise_sigmas * sigma),
             source_sample: sample(&source.keypoints),
             target_sample: sample(&target.keypoints),
         }
+    }
+
+    /// The margin in front of a measured surface beyond which a point counts (file units).
+    pub fn margin(&self) -> f64 {
+        self.margin
     }
 
     /// True when at least one sensor position is known.
@@ -233,6 +258,34 @@ impl Visibility {
             .par_iter_mut()
             .for_each(|s| s.free_space = self.violation(&s.pose));
     }
+}
+
+/// Robust estimate of a scan's noise along the surface normal (file units): for a strided
+/// sample of at most 500 fine points, the distances of their 8 nearest fine points to the
+/// point's tangent plane (its PCA normal); a difference of two noisy points, so σ̂ = 1.4826 ×
+/// median / √2 (median absolute deviation of a normal distribution). Curvature and edges add
+/// to it, which only widens the margin.
+pub fn noise(scan: &PreparedScan) -> f64 {
+    let pts = &scan.fine_points;
+    if pts.len() < 9 {
+        return 0.0;
+    }
+    let stride = pts.len().div_ceil(500).max(1);
+    let mut d: Vec<f64> = Vec::new();
+    for i in (0..pts.len()).step_by(stride) {
+        let (p, n) = (vec3(pts[i]), vec3(scan.fine_normals[i]));
+        for (j, _) in scan.fine_index().nearest(pts[i], 9) {
+            if j != i {
+                d.push(n.dot(&(vec3(pts[j]) - p)).abs());
+            }
+        }
+    }
+    if d.is_empty() {
+        return 0.0;
+    }
+    let mid = d.len() / 2;
+    let (_, median, _) = d.select_nth_unstable_by(mid, f64::total_cmp);
+    1.4826 * *median / std::f64::consts::SQRT_2
 }
 
 #[cfg(test)]
