@@ -648,6 +648,12 @@ impl PairReport {
                 f.confidence, f.lead, r.settings.voxel, r.settings.support_radius
             ),
         ];
+        for w in &r.constraint.weak {
+            lines.push(format!(
+                "weak direction (TARGET frame, {u}): {}",
+                w.describe()
+            ));
+        }
         if let Some(v) = r.candidates.first().and_then(|c| c.free_space_violation) {
             let known = |p: &Option<[f64; 3]>| if p.is_some() { "known" } else { "not known" };
             lines.push(format!(
@@ -1020,8 +1026,14 @@ fn write_candidates_picture(
             flag: String::new(),
         })
         .collect();
+    // The candidates and the fit figures; the answer's rotation and translation are in the
+    // report (six lines fit one column).
     let mut lines = r.candidate_lines();
-    lines.extend(r.figure_lines());
+    lines.extend(
+        r.figure_lines()
+            .into_iter()
+            .filter(|l| !l.starts_with("rotation ") && !l.starts_with("translation ")),
+    );
     let why = r.reason_text.clone().unwrap_or_default();
     let text = FigureText {
         title: format!(
