@@ -407,3 +407,32 @@ fn free_space_resolves_a_pose_that_overlap_alone_does_not() {
     eprintln!("rival free space {wrong:.3}");
     assert!(wrong > 0.03, "the rival puts {wrong} in free space");
 }
+
+/// An ambiguous result on the command line (the plain plate of tests/align_benchmark.rs, whose
+/// 180° turn fits as well as the truth): the summary lists the first two candidates under the
+/// result line, and the picture is written.
+#[test]
+fn an_ambiguous_summary_lists_two_candidates_and_draws_them() {
+    use equiscan::io::write_ply;
+    let [plate, _] = common::shapes::test_shapes();
+    let c = plate.centre();
+    let up = Vector3::new(0.05, 0.0, 1.0).normalize() * 300.0;
+    let other = Vector3::new(-0.12, 0.05, 1.0).normalize() * 300.0;
+    let p = pair_from(&plate, [c + up, c + other], 12_000, 0.001, 7);
+    let dir = tempfile::tempdir().unwrap();
+    write_ply(&dir.path().join("s.ply"), &p.source, &[]).unwrap();
+    write_ply(&dir.path().join("t.ply"), &p.target, &[]).unwrap();
+    let out = equiscan(
+        &["align", "s.ply", "t.ply", "--units", "mm", "--picture", "pic.png"],
+        dir.path(),
+    );
+    let text = String::from_utf8_lossy(&out.stdout);
+    eprintln!("{text}");
+    assert_eq!(out.status.code(), Some(1));
+    let lines: Vec<&str> = text.lines().collect();
+    assert!(lines[1].starts_with("result: ambiguous"), "{}", lines[1]);
+    assert!(lines[2].starts_with("  candidate 1 (the transform below): score"));
+    assert!(lines[3].starts_with("  candidate 2: turned"), "{}", lines[3]);
+    let png = std::fs::read(dir.path().join("pic.png")).unwrap();
+    assert!(png.starts_with(b"\x89PNG") && png.len() > 10_000);
+}

@@ -1169,4 +1169,63 @@ mod tests {
         };
         assert!(draw_alignment_views(&[bad], &text).is_err());
     }
+
+    /// Rows of the alignment picture: each row draws the layer under its own transform (a
+    /// point moved in the second row lands in the second row's panels only), and a non-finite
+    /// row transform is refused.
+    #[test]
+    fn each_row_draws_the_layers_under_its_own_transform() {
+        let pts: Vec<[f32; 3]> = (0..400)
+            .map(|i| [(i % 20) as f32, (i / 20) as f32, 0.0])
+            .collect();
+        let layer = Layer {
+            name: "a".into(),
+            colour: [200, 0, 0],
+            origin: [0.0; 3],
+            points: &pts,
+            after: None,
+            on_top: false,
+            after_values: None,
+        };
+        let row = |t: Option<Transform>| ViewRow {
+            label: "row".into(),
+            transforms: vec![t],
+            values: false,
+            flag: String::new(),
+        };
+        let shift = Transform::translation(nalgebra::Vector3::new(100.0, 0.0, 0.0));
+        let text = FigureText::default();
+        let c = draw_alignment_rows(
+            std::slice::from_ref(&layer),
+            &[row(None), row(Some(shift))],
+            &text,
+        )
+        .unwrap();
+        // Top view panels: row 0 shows the square at the left of the shared extent, row 1 at
+        // the right; count red pixels in the left and right halves of each top-view panel.
+        let panels = grid(
+            c.width() as i64,
+            draw_header(&mut c.clone(), &text),
+            c.height() as i64 - MARGIN - FOOTER_HEIGHT,
+            2,
+        );
+        let red = |p: &PanelLayout, left: bool| {
+            let (x0, x1) = if left {
+                (p.x, p.x + p.w / 2)
+            } else {
+                (p.x + p.w / 2, p.x + p.w)
+            };
+            (x0..x1)
+                .flat_map(|x| (p.y..p.y + p.h).map(move |y| (x, y)))
+                .filter(|&(x, y)| {
+                    c.pixel(x, y)
+                        .is_some_and(|[r, g, b]| r > 100 && g < 60 && b < 60)
+                })
+                .count()
+        };
+        assert!(red(&panels[0], true) > 50 && red(&panels[0], false) < 5);
+        assert!(red(&panels[3], false) > 50 && red(&panels[3], true) < 5);
+        let nan = Transform::translation(nalgebra::Vector3::from_element(f64::NAN));
+        assert!(draw_alignment_rows(&[layer], &[row(Some(nan))], &text).is_err());
+    }
 }
