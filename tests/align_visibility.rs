@@ -423,7 +423,15 @@ fn an_ambiguous_summary_lists_two_candidates_and_draws_them() {
     write_ply(&dir.path().join("s.ply"), &p.source, &[]).unwrap();
     write_ply(&dir.path().join("t.ply"), &p.target, &[]).unwrap();
     let out = equiscan(
-        &["align", "s.ply", "t.ply", "--units", "mm", "--picture", "pic.png"],
+        &[
+            "align",
+            "s.ply",
+            "t.ply",
+            "--units",
+            "mm",
+            "--picture",
+            "pic.png",
+        ],
         dir.path(),
     );
     let text = String::from_utf8_lossy(&out.stdout);
@@ -432,7 +440,11 @@ fn an_ambiguous_summary_lists_two_candidates_and_draws_them() {
     let lines: Vec<&str> = text.lines().collect();
     assert!(lines[1].starts_with("result: ambiguous"), "{}", lines[1]);
     assert!(lines[2].starts_with("  candidate 1 (the transform below): score"));
-    assert!(lines[3].starts_with("  candidate 2: turned"), "{}", lines[3]);
+    assert!(
+        lines[3].starts_with("  candidate 2: turned"),
+        "{}",
+        lines[3]
+    );
     let png = std::fs::read(dir.path().join("pic.png")).unwrap();
     assert!(png.starts_with(b"\x89PNG") && png.len() > 10_000);
 }

@@ -10,10 +10,11 @@
 //! TARGET point spacings (at most one fine voxel). [`super::quality`] turns inliers, overlap and
 //! margin into a confidence and the verdict; a fit with a weakly constrained motion is never
 //! confident. Where a sensor position is known, every rival's overlap is reduced by the points
-//! it puts in space a sensor saw through ([`super::visibility`], [`super::candidates::Scored::consistent_overlap`]),
-//! and each candidate carries its free-space violation share; an answer whose share exceeds
-//! [`super::Tuning::free_space_max_share`] is `not_found` (`contradicts_free_space`). Candidates are given in file
-//! coordinates, the first being the answer.
+//! it puts in space a sensor saw through ([`super::visibility`],
+//! [`super::candidates::Scored::consistent_overlap`]), and each candidate carries its
+//! free-space violation share; an answer whose share exceeds
+//! [`super::Tuning::free_space_max_share`] is `not_found` (`contradicts_free_space`).
+//! Candidates are given in file coordinates, the first being the answer.
 
 use nalgebra::Vector3;
 

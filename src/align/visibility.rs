@@ -16,9 +16,9 @@
 //! angle δ (radians). Each cell keeps the smallest measured range (the nearest surface seen in
 //! it), which makes the test conservative: a point counts as a violation only when it lies in
 //! front of the nearest surface measured in its cell and the eight cells around it by more
-//! than the margin (the neighbours keep a thin foreground edge from passing for free space). Cells with no
-//! measurement (outside the field of view, no return) are unknown and never count. Lengths are
-//! in file units.
+//! than the margin (the neighbours keep a thin foreground edge from passing for free space).
+//! Cells with no measurement (outside the field of view, no return) are unknown and never
+//! count. Lengths are in file units.
 
 use std::collections::HashMap;
 
@@ -104,8 +104,8 @@ impl RangeImage {
 
     /// Whether `p` (local frame) lies in space the sensor saw through: `Some(true)` when it is
     /// closer to the sensor than the nearest surface measured in its direction cell and the
-    /// eight cells around it by more than `margin`, `Some(false)` when it is not, `None` when nothing was measured in that
-    /// direction.
+    /// eight cells around it by more than `margin`, `Some(false)` when it is not, `None` when
+    /// nothing was measured in that direction.
     pub fn seen_through(&self, p: &Vector3<f64>, margin: f64) -> Option<bool> {
         let d = p - self.centre;
         let r = d.norm();
