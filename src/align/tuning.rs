@@ -85,8 +85,9 @@ pub struct Tuning {
     /// Most keypoints of each scan tested for free space per pose (a strided sample).
     pub free_space_sample: usize,
     /// An answer that puts more than this share of the tested points in seen-through space is
-    /// not a result (`contradicts_free_space`): true poses of the depot stations and of 24
-    /// benchmark pairs put at most 0.2 % there (DEVELOPERS.md, Registration).
+    /// not a result (`contradicts_free_space`): the true poses of the depot stations and of
+    /// 32 benchmark pairs put at most 0.1 % there (DEVELOPERS.md, Registration, free space;
+    /// set on those pairs).
     pub free_space_max_share: f64,
 }
 
