@@ -30,6 +30,10 @@ pub struct Candidate {
     /// Distance between where this pose and the best one put SOURCE's keypoint centroid, file
     /// units.
     pub distance: f64,
+    /// Share of the tested keypoints, 0 to 1, that this pose puts in space a sensor saw
+    /// through (in front of the surface it measured, [`super::visibility`]); `null` when no
+    /// sensor position is known.
+    pub free_space_violation: Option<f64>,
 }
 
 fn rows<S: Serializer>(tf: &Rigid, s: S) -> Result<S::Ok, S::Error> {
@@ -48,14 +52,29 @@ pub struct Scored {
     pub explained: usize,
     /// ICP iterations.
     pub iterations: usize,
+    /// Share of the tested keypoints that the pose puts in space a sensor saw through
+    /// ([`super::visibility`]); `None` when no sensor position is known.
+    pub free_space: Option<f64>,
 }
 
+/// Each keypoint a pose puts in seen-through space cancels this many keypoints on the
+/// surface (see [`Scored::consistent_overlap`]).
+pub const FREE_SPACE_WEIGHT: f64 = 2.0;
+
 impl Scored {
-    /// The ranking score `overlap × explained / most explained`: geometry alone prefers a
-    /// pose that stacks two partial views of a near-symmetric part; the matched features are
-    /// what separates it from the true, side-by-side pose.
+    /// The tight overlap less [`FREE_SPACE_WEIGHT`] × the free-space violation share (when a
+    /// sensor position is known), at least 0: a point the pose lays on the other surface is
+    /// evidence for it, a point it puts where a sensor saw through is evidence against it.
+    pub fn consistent_overlap(&self) -> f64 {
+        (self.overlap - FREE_SPACE_WEIGHT * self.free_space.unwrap_or(0.0)).max(0.0)
+    }
+
+    /// The ranking score `overlap × explained / most explained` (overlap as
+    /// [`Scored::consistent_overlap`]): geometry alone prefers a pose that stacks two partial
+    /// views of a near-symmetric part; the matched features, and what the sensors saw through,
+    /// are what separate it from the true, side-by-side pose.
     pub fn score(&self, most_explained: usize) -> f64 {
-        self.overlap * self.explained as f64 / most_explained.max(1) as f64
+        self.consistent_overlap() * self.explained as f64 / most_explained.max(1) as f64
     }
 }
 
@@ -166,9 +185,11 @@ pub const MIN_RIVAL_SUPPORT: f64 = 5.0;
 /// overlap but not the matches; a symmetric shape keeps both). When the two explained counts
 /// differ by no more than three standard deviations of a count (`3 √(k₁ + k₂)`, Poisson) and the
 /// rival has real support (at least [`MIN_RIVAL_SUPPORT`] matches), the matches do not tell
-/// the poses apart and the overlap ratio alone is used.
+/// the poses apart and the overlap ratio alone is used. Overlaps are
+/// [`Scored::consistent_overlap`]s: a pose that puts points where a sensor saw through is a
+/// weaker rival.
 pub fn rivalry(other: &Scored, best: &Scored, most_explained: usize) -> f64 {
-    let o = other.overlap / best.overlap.max(f64::MIN_POSITIVE);
+    let o = other.consistent_overlap() / best.consistent_overlap().max(f64::MIN_POSITIVE);
     let (k1, k2) = (best.explained as f64, other.explained as f64);
     let k = k2 / k1.max(1.0);
     let s = other.score(most_explained) / best.score(most_explained).max(f64::MIN_POSITIVE);

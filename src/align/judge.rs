@@ -9,11 +9,16 @@
 //! on the full-resolution clouds over pairs closer than [`super::Tuning::rmse_pairing_spacings`]
 //! TARGET point spacings (at most one fine voxel). [`super::quality`] turns inliers, overlap and
 //! margin into a confidence and the verdict; a fit with a weakly constrained motion is never
-//! confident. Candidates are given in file coordinates, the first being the answer.
+//! confident. Where a sensor position is known, every rival's overlap is reduced by the points
+//! it puts in space a sensor saw through ([`super::visibility`],
+//! [`super::candidates::Scored::consistent_overlap`]), and each candidate carries its
+//! free-space violation share; an answer whose share exceeds
+//! [`super::Tuning::free_space_max_share`] is `not_found` (`contradicts_free_space`).
+//! Candidates are given in file coordinates, the first being the answer.
 
 use nalgebra::Vector3;
 
-use super::candidates::{Candidate, difference, rivalry};
+use super::candidates::{Candidate, FREE_SPACE_WEIGHT, difference, rivalry};
 use super::consensus::{self, Pairs};
 use super::icp::fit_quality;
 use super::pipeline::AlignParams;
@@ -22,6 +27,7 @@ use super::quality::{self, Figures, Verdict};
 use super::rank::Ranked;
 use super::refine::Refined;
 use super::residual::full_resolution_rmse;
+use super::visibility::Visibility;
 use crate::error::Result;
 
 /// The figures, the verdict and the listed candidates of a refined registration.
@@ -44,6 +50,7 @@ pub fn judge(
     source: &PreparedScan,
     target: &PreparedScan,
     params: &AlignParams,
+    seen: &Visibility,
     tau: f64,
 ) -> Result<Judgement> {
     let tu = &params.tuning;
@@ -81,7 +88,14 @@ pub fn judge(
     let tight = best.map_or(0.0, |b| b.overlap);
     let support = best.map_or(1, |b| b.explained.max(1)) as f64;
     // The shortlist holds more poses than were polished: compare them on the same subsample.
-    let sample_tight = ranked.on_surface(target, coarse, tau, tu);
+    // With a sensor position known, a hypothesis's surface points are reduced by the points it
+    // puts in seen-through space, as in [`super::candidates::Scored::consistent_overlap`].
+    let sample_n = ranked.sample.len() as f64;
+    let consistent = |n: usize, pose: &super::rigid::Rigid| {
+        let bad = seen.violation(pose).unwrap_or(0.0);
+        (n as f64 - FREE_SPACE_WEIGHT * bad * sample_n).max(0.0)
+    };
+    let sample_tight = consistent(ranked.on_surface(target, coarse, tau, tu), coarse);
     let rival = ranked
         .poses
         .iter()
@@ -94,7 +108,7 @@ pub fn judge(
             )
         })
         .map(|(n, h)| {
-            let o = *n as f64 / sample_tight.max(1) as f64;
+            let o = consistent(*n, &h.transform) / sample_tight.max(1.0);
             o.min(h.support as f64 / support)
         })
         .fold(rival, f64::max);
@@ -126,6 +140,12 @@ pub fn judge(
     if verdict == Verdict::Confident && !constraint.weak.is_empty() {
         verdict = Verdict::Ambiguous(quality::Reason::WeaklyConstrained);
     }
+    let answer_free_space = seen.violation(&local);
+    if answer_free_space.is_some_and(|v| v > tu.free_space_max_share)
+        && !matches!(verdict, Verdict::NotFound(_))
+    {
+        verdict = Verdict::NotFound(quality::Reason::ContradictsFreeSpace);
+    }
     let centroid = source
         .keypoints
         .iter()
@@ -137,6 +157,11 @@ pub fn judge(
         .map(|(k, &(i, rivalry))| {
             let p = &polished[i];
             let pose = if k == 0 { local } else { p.pose };
+            let free_space_violation = if k == 0 {
+                answer_free_space
+            } else {
+                p.free_space
+            };
             let (angle_deg, distance) = difference(&local, &pose, &centroid);
             Candidate {
                 transform: pose.between_origins(source.origin, target.origin),
@@ -146,6 +171,7 @@ pub fn judge(
                 explained: p.explained,
                 angle_deg,
                 distance,
+                free_space_violation,
             }
         })
         .collect();

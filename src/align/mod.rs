@@ -24,6 +24,9 @@
 //!    overlap × explained matches; fine ICP from the best pose; [`constraint`]: the 6×6 normal
 //!    matrix of the fit, its weak directions, and a refit on a stability-aware sample when a
 //!    direction looks weak (Gelfand, Ikemoto, Rusinkiewicz & Levoy 2003);
+//!    Where a sensor position is known ([`AlignParams::viewpoints`]), every refined pose is
+//!    also tested for free-space consistency ([`visibility`]): points it moves into space a
+//!    sensor saw through count against it in the ranking and in the rivalry;
 //! 4. [`judge`]: rivals ([`candidates::rivalry`]) and margin, the inlier RMSE on the
 //!    full-resolution clouds ([`residual`]), overlap, a confidence figure and the verdict
 //!    ([`quality`]: `confident`, `ambiguous` with the candidates listed, or `not_found`).
@@ -53,6 +56,7 @@ pub mod report;
 pub mod residual;
 pub mod truth;
 pub mod tuning;
+pub mod visibility;
 
 /// The rigid-transform type and closed-form fits live in [`crate::geometry`]; this path is
 /// kept so that `align::rigid::…` and `align::Rigid` keep working.
@@ -69,3 +73,4 @@ pub use prepared_scan::PreparedScan;
 pub use quality::{Figures, Reason, Verdict};
 pub use rigid::{Rigid, horn, rotation_error_deg, umeyama};
 pub use tuning::Tuning;
+pub use visibility::Viewpoints;

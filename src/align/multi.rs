@@ -74,6 +74,10 @@ pub fn align_many(clouds: &[Cloud], params: &AlignParams) -> Result<MultiAlignme
 /// results are those of [`super::align_named`] on every pair; a pair's timings include the
 /// preparations it triggered.
 pub fn align_many_named(scans: &[(&str, &Cloud)], params: &AlignParams) -> Result<MultiAlignment> {
+    let params = &AlignParams {
+        viewpoints: Default::default(),
+        ..*params
+    };
     let n = scans.len();
     if n < 2 {
         return Err(Error::invalid(

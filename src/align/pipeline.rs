@@ -13,6 +13,7 @@ use super::prepared_scan::{Geometry, PreparedScan, pair_voxel, support_radius};
 use super::quality::{Figures, Verdict};
 use super::rigid::Rigid;
 use super::tuning::Tuning;
+use super::visibility::{Viewpoints, Visibility};
 use super::{hypotheses, judge, rank, refine};
 use crate::cloud::Cloud;
 use crate::error::{Error, Result};
@@ -72,6 +73,11 @@ pub struct AlignParams {
     pub descriptor_version: u32,
     /// Every other tuning value of the pipeline.
     pub tuning: Tuning,
+    /// Sensor positions of SOURCE and TARGET where known (each in its own file's coordinates):
+    /// refined poses are then tested for free-space consistency ([`super::visibility`]). Used
+    /// by the pair functions; [`super::align_many`] ignores them (one pair of positions does not
+    /// describe many scans).
+    pub viewpoints: Viewpoints,
 }
 
 impl Default for AlignParams {
@@ -87,6 +93,7 @@ impl Default for AlignParams {
             seed: 1,
             descriptor_version: 1,
             tuning: Tuning::default(),
+            viewpoints: Viewpoints::default(),
         }
     }
 }
@@ -129,6 +136,8 @@ pub struct Alignment {
     pub constraint: Constraint,
     /// The tuning values used.
     pub tuning: Tuning,
+    /// The sensor positions used by the free-space test (file coordinates).
+    pub viewpoints: Viewpoints,
 }
 
 /// Wall time per stage, lap by lap.
@@ -231,7 +240,9 @@ pub(crate) fn register(
     let proposed = hypotheses::propose(source, target, &found, params, tau);
     let ranked = rank::rank(proposed, &found.pairs, source, target, &params.tuning, tau);
     clock.lap("hypotheses");
-    let polished = refine::coarse(&ranked, &found.pairs, source, target, params, tau);
+    let mut polished = refine::coarse(&ranked, &found.pairs, source, target, params, tau);
+    let seen = Visibility::new(source, target, &params.viewpoints, &params.tuning);
+    seen.assess(&mut polished);
     clock.lap("refinement");
     let refined = refine::fine(polished, source, target, params, tau);
     clock.lap("fine ICP");
@@ -243,6 +254,7 @@ pub(crate) fn register(
         source,
         target,
         params,
+        &seen,
         tau,
     )?;
     clock.lap("verdict");
@@ -260,5 +272,6 @@ pub(crate) fn register(
         candidates: judged.candidates,
         constraint: refined.constraint,
         tuning: params.tuning,
+        viewpoints: params.viewpoints,
     })
 }

@@ -38,6 +38,9 @@ pub enum Reason {
     /// The fit is free along a direction: no surface opposes a slide or a turn (see
     /// [`super::constraint`]).
     WeaklyConstrained,
+    /// The best pose puts part of one scan where the other scan's sensor saw through (see
+    /// [`super::visibility`]).
+    ContradictsFreeSpace,
 }
 
 impl Reason {
@@ -52,6 +55,9 @@ impl Reason {
             }
             Reason::AmbiguousSymmetricShape => {
                 "the shape is symmetric or repetitive: a clearly different pose fits almost as well; see the candidates"
+            }
+            Reason::ContradictsFreeSpace => {
+                "the best pose puts part of one scan where the other scan's sensor saw through (see free_space_violation of the candidates); check the sensor positions given, or whether the scans show the same objects in the same state"
             }
             Reason::WeaklyConstrained => {
                 "the fit is free along a direction (see weak directions): nothing in the overlap stops a slide or turn; give scans that share an edge, hole or corner across it"

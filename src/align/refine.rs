@@ -98,6 +98,7 @@ pub fn coarse(
             overlap: tight_overlap(source, target, &out.transform, params, tau),
             explained: pairs.support(&out.transform, tau),
             iterations: out.iterations,
+            free_space: None,
         }
     };
     let mut polished: Vec<Scored> = starts.iter().map(polish).collect();

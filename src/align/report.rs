@@ -21,7 +21,8 @@ use crate::geometry::Rigid;
 use crate::geometry::{to_f32, vec3};
 use crate::io::FileInfo;
 use crate::report::{
-    ColourMap, FigureText, Layer, SOURCE_COLOUR, ScalarField, TARGET_COLOUR, render_alignment_views,
+    ColourMap, FigureText, Layer, SOURCE_COLOUR, ScalarField, TARGET_COLOUR, ViewRow,
+    draw_alignment_rows, render_alignment_views,
 };
 use crate::spatial::KdIndex;
 use nalgebra::Vector3;
@@ -174,6 +175,21 @@ pub struct Settings {
     pub tuning: super::tuning::Tuning,
 }
 
+/// The sensor positions the free-space test used ([`super::visibility`]), each in its own
+/// file's coordinates, with where they came from.
+#[derive(Debug, Clone, Serialize)]
+pub struct SensorPositions {
+    /// SOURCE's sensor position; `null` when not known.
+    pub source: Option<[f64; 3]>,
+    /// Where it came from (`given (--source-viewpoint)`, the scan's pose in an E57 file, or
+    /// not known).
+    pub source_from: String,
+    /// TARGET's sensor position; `null` when not known.
+    pub target: Option<[f64; 3]>,
+    /// Where it came from.
+    pub target_from: String,
+}
+
 /// How well the found pose fits, in our own words (file units where a length).
 #[derive(Debug, Clone, Serialize)]
 pub struct FitFigures {
@@ -210,7 +226,7 @@ pub struct PairReport {
     /// `confident`, `ambiguous` or `not_found`.
     pub verdict: String,
     /// Why nothing confident was found (`too_few_distinctive_points`, `too_little_overlap`,
-    /// `ambiguous_symmetric_shape`, `weakly_constrained`).
+    /// `ambiguous_symmetric_shape`, `weakly_constrained`, `contradicts_free_space`).
     pub reason: Option<Reason>,
     /// The reason in words.
     pub reason_text: Option<String>,
@@ -230,6 +246,8 @@ pub struct PairReport {
     pub fit: FitFigures,
     /// Every setting of the run.
     pub settings: Settings,
+    /// The sensor positions of the free-space test (`null` positions: not tested).
+    pub sensors: SensorPositions,
     /// Keypoints in SOURCE and TARGET.
     pub keypoints: [usize; 2],
     /// Seconds per stage (reading the files included); left out when `SOURCE_DATE_EPOCH` is
@@ -366,6 +384,9 @@ pub struct RunContext {
     pub crs: Option<String>,
     /// The warning of `io::crs::mixed_crs_warning` when the inputs' CRSs differ.
     pub crs_warning: Option<String>,
+    /// Where the sensor positions of SOURCE and TARGET came from, when known (see
+    /// [`SensorPositions`]); set by the caller that supplies them.
+    pub viewpoints_from: [Option<String>; 2],
 }
 
 impl RunContext {
@@ -424,6 +445,7 @@ impl RunContext {
             job: Job::decide(units, diagonal, any_las),
             crs: frame.and_then(|(_, _, i)| i.crs.clone()),
             crs_warning: crate::io::crs::mixed_crs_warning(&named),
+            viewpoints_from: [None, None],
         }
     }
 
@@ -536,6 +558,23 @@ impl PairReport {
                 job: ctx.job,
                 tuning: a.tuning,
             },
+            sensors: {
+                let from =
+                    |k: usize, known: bool, option: &str| match (&ctx.viewpoints_from[k], known) {
+                        (_, false) => format!(
+                            "not known (give {option} X,Y,Z in file coordinates to test free space)"
+                        ),
+                        (Some(f), true) => f.clone(),
+                        (None, true) => "given".to_string(),
+                    };
+                let vp = &a.viewpoints;
+                SensorPositions {
+                    source: vp.source,
+                    source_from: from(0, vp.source.is_some(), "--source-viewpoint"),
+                    target: vp.target,
+                    target_from: from(1, vp.target.is_some(), "--target-viewpoint"),
+                }
+            },
             keypoints: a.keypoints,
             timings: if ctx.reproducible {
                 Vec::new()
@@ -609,6 +648,21 @@ impl PairReport {
                 f.confidence, f.lead, r.settings.voxel, r.settings.support_radius
             ),
         ];
+        for w in &r.constraint.weak {
+            lines.push(format!(
+                "weak direction (TARGET frame, {u}): {}",
+                w.describe()
+            ));
+        }
+        if let Some(v) = r.candidates.first().and_then(|c| c.free_space_violation) {
+            let known = |p: &Option<[f64; 3]>| if p.is_some() { "known" } else { "not known" };
+            lines.push(format!(
+                "free space: {:.1} % of the tested points lie where a sensor saw through (source sensor {}, target sensor {})",
+                100.0 * v,
+                known(&r.sensors.source),
+                known(&r.sensors.target)
+            ));
+        }
         if let Some(t) = &r.truth {
             lines.push(format!(
                 "against the truth: rotation error {:.4} deg, translation error {:.4} {u}",
@@ -618,6 +672,52 @@ impl PairReport {
         lines
     }
 
+    /// The verdict in words: `confident alignment`, `ambiguous: WHY` or `not found: WHY`.
+    pub fn verdict_line(&self) -> String {
+        match (self.verdict.as_str(), &self.reason_text) {
+            ("confident", _) => "confident alignment".to_string(),
+            ("ambiguous", Some(why)) => format!("ambiguous, no confident alignment: {why}"),
+            (_, Some(why)) => format!("not found, no confident alignment: {why}"),
+            (v, None) => v.replace('_', " "),
+        }
+    }
+
+    /// One line per candidate of an ambiguous result, the first two (empty otherwise):
+    /// `candidate 1 (the transform below): score …` and `candidate 2: turned … deg, moved …
+    /// from candidate 1: score …`.
+    pub fn candidate_lines(&self) -> Vec<String> {
+        if self.verdict != "ambiguous" {
+            return Vec::new();
+        }
+        let u = self.settings.units.label();
+        self.candidates
+            .iter()
+            .take(2)
+            .enumerate()
+            .map(|(k, c)| {
+                let head = if k == 0 {
+                    "candidate 1 (the transform below)".to_string()
+                } else {
+                    format!(
+                        "candidate {}: turned {:.1} deg, moved {:.4} {u} from candidate 1",
+                        k + 1,
+                        c.angle_deg,
+                        c.distance
+                    )
+                };
+                let free = c.free_space_violation.map_or(String::new(), |v| {
+                    format!(", free space {:.1} %", 100.0 * v)
+                });
+                format!(
+                    "{head}: score {:.2}, coverage {:.0} %, {} agreeing pairs{free}",
+                    c.score,
+                    100.0 * c.overlap,
+                    c.explained
+                )
+            })
+            .collect()
+    }
+
     /// The summary printed on the terminal.
     pub fn summary(&self) -> String {
         let r = self;
@@ -625,9 +725,9 @@ impl PairReport {
             "{} onto {} ({})\n",
             r.source.file, r.target.file, r.settings.method
         );
-        match &r.reason_text {
-            None => s.push_str("result: confident alignment\n"),
-            Some(why) => s.push_str(&format!("result: no confident alignment: {why}\n")),
+        s.push_str(&format!("result: {}\n", r.verdict_line()));
+        for l in r.candidate_lines() {
+            s.push_str(&format!("  {l}\n"));
         }
         s.push_str("transform (source into target, row-major):\n");
         if let Some(c) = &r.target_crs {
@@ -868,6 +968,10 @@ pub fn write_pair_picture(
         fixed.on_top = true;
         fixed.after_values = Some(field);
     }
+    if r.verdict == "ambiguous" && r.candidates.len() >= 2 {
+        let names = [file_name(source.path), file_name(target.path)];
+        return write_candidates_picture(path, [moving, fixed], names, r, &unshift);
+    }
     let layers = [moving, fixed];
     let mut lines = r.figure_lines();
     lines.push("before: source shifted so that the centroids coincide, not rotated".into());
@@ -893,4 +997,53 @@ pub fn write_pair_picture(
         warning,
     };
     render_alignment_views(&layers, &text, path)
+}
+
+/// The picture of an ambiguous result: the first two candidates in two rows (three views
+/// each), their scores and how they differ in the heading. `layers` are SOURCE (shifted by
+/// `unshift`'s inverse, as in the before row of the usual picture) and TARGET, `names` their
+/// file names.
+fn write_candidates_picture(
+    path: &Path,
+    layers: [Layer<'_>; 2],
+    names: [String; 2],
+    r: &PairReport,
+    unshift: &Rigid,
+) -> Result<()> {
+    let [mut moving, mut fixed] = layers;
+    moving.after = None;
+    moving.after_values = None;
+    fixed.after_values = None;
+    let rows: Vec<ViewRow> = r
+        .candidates
+        .iter()
+        .take(2)
+        .enumerate()
+        .map(|(k, c)| ViewRow {
+            label: format!("candidate {}", k + 1),
+            transforms: vec![Some(c.transform.compose(unshift)), None],
+            values: false,
+            flag: String::new(),
+        })
+        .collect();
+    // The candidates and the fit figures; the answer's rotation and translation are in the
+    // report (six lines fit one column).
+    let mut lines = r.candidate_lines();
+    lines.extend(
+        r.figure_lines()
+            .into_iter()
+            .filter(|l| !l.starts_with("rotation ") && !l.starts_with("translation ")),
+    );
+    let why = r.reason_text.clone().unwrap_or_default();
+    let text = FigureText {
+        title: format!(
+            "{} onto {} ({}): ambiguous, first two candidates",
+            names[0], names[1], r.settings.method
+        ),
+        lines,
+        footer: r.caution.clone(),
+        unit: r.settings.units.label().to_string(),
+        warning: format!("{why}; choose between the rows with what you know about the scans"),
+    };
+    draw_alignment_rows(&[moving, fixed], &rows, &text)?.save_png(path)
 }

@@ -72,6 +72,23 @@ pub struct Tuning {
     /// Full-resolution pairs count in the RMSE when closer than this many TARGET point
     /// spacings (and at most one fine voxel).
     pub rmse_pairing_spacings: f64,
+    /// Free-space test ([`super::visibility`]): a point counts as seen through when it lies in
+    /// front of the nearest measured surface in its direction by more than this, in voxel
+    /// sizes.
+    pub free_space_margin_voxels: f64,
+    /// … or this many times the two scans' noise estimates added in quadrature, whichever is
+    /// larger.
+    pub free_space_noise_sigmas: f64,
+    /// Direction cells of the free-space test span this many fine voxels at the median range
+    /// of the scan's fine points.
+    pub free_space_cell_voxels: f64,
+    /// Most keypoints of each scan tested for free space per pose (a strided sample).
+    pub free_space_sample: usize,
+    /// An answer that puts more than this share of the tested points in seen-through space is
+    /// not a result (`contradicts_free_space`): the true poses of the depot stations and of
+    /// 32 benchmark pairs put at most 0.1 % there (DEVELOPERS.md, Registration, free space;
+    /// set on those pairs).
+    pub free_space_max_share: f64,
 }
 
 impl Default for Tuning {
@@ -104,6 +121,11 @@ impl Default for Tuning {
             candidates: 5,
             list_rivalry: 0.3,
             rmse_pairing_spacings: 3.0,
+            free_space_margin_voxels: 1.5,
+            free_space_noise_sigmas: 3.0,
+            free_space_cell_voxels: 2.0,
+            free_space_sample: 2000,
+            free_space_max_share: 0.02,
         }
     }
 }

@@ -9,7 +9,9 @@
 use std::path::{Path, PathBuf};
 use std::time::Instant;
 
-use super::align_checks::{busy, check_cost, context, occupied_voxels, positive};
+use super::align_checks::{
+    busy, check_cost, context, occupied_voxels, positive, viewpoint, viewpoints,
+};
 use super::common::{CommonArgs, Size, default_memory_budget, print_stdout};
 use equiscan::align::export::write_moved;
 use equiscan::align::report::{
@@ -74,6 +76,15 @@ pub struct AlignArgs {
     /// Run even when the estimate exceeds --max-memory.
     #[arg(long)]
     pub force: bool,
+    /// Position of SOURCE's sensor, X,Y,Z in SOURCE's file coordinates (default: the scan's
+    /// pose in an E57 file; LAS and PLY record none): poses that put TARGET where this sensor
+    /// saw through count against it. Two scans only.
+    #[arg(long, value_name = "X,Y,Z", value_parser = viewpoint, allow_hyphen_values = true)]
+    pub source_viewpoint: Option<[f64; 3]>,
+    /// Position of TARGET's sensor, X,Y,Z in TARGET's file coordinates (default as for
+    /// --source-viewpoint).
+    #[arg(long, value_name = "X,Y,Z", value_parser = viewpoint, allow_hyphen_values = true)]
+    pub target_viewpoint: Option<[f64; 3]>,
     /// Version of the harmonic descriptors (1: the original definition, the default here;
     /// 2: degrees l ≥ 1 fade out at the centre).
     #[arg(long, value_name = "V", default_value_t = AlignParams::default().descriptor_version)]
@@ -109,11 +120,11 @@ pub enum UnitsArg {
 pub fn run(args: &AlignArgs) -> Result<u8> {
     positive(args.voxel, "--voxel", "0.05")?;
     positive(args.radius, "--radius", "0.5")?;
-    if args.scans.len() > 2
-        && (args.write.is_some() || args.picture.is_some() || args.truth.is_some())
-    {
+    let two_only = args.write.is_some() || args.picture.is_some() || args.truth.is_some();
+    let sensors = args.source_viewpoint.is_some() || args.target_viewpoint.is_some();
+    if args.scans.len() > 2 && (two_only || sensors) {
         return Err(Error::invalid(
-            "--write, --picture and --truth work with two scans",
+            "--write, --picture, --truth and the viewpoints work with two scans",
             "give SOURCE and TARGET only, or drop those options",
         ));
     }
@@ -165,12 +176,18 @@ fn registered(args: &AlignArgs) -> Result<u8> {
         descriptor_version: args.descriptor_version,
         ..AlignParams::default()
     };
+    let (sensors, sensors_from) = viewpoints(args, &read);
+    let p = AlignParams {
+        viewpoints: sensors,
+        ..p
+    };
     if let (Some(v), false) = (args.voxel, args.force) {
         let keypoints = read.iter().map(|(cl, _)| occupied_voxels(cl, v)).sum();
         let budget = args.max_memory.map_or_else(default_memory_budget, |s| s.0);
         check_cost(keypoints, v, budget)?;
     }
-    let ctx = context(args, &read);
+    let mut ctx = context(args, &read);
+    ctx.viewpoints_from = sensors_from;
     let inputs: Vec<Input<'_>> = args
         .scans
         .iter()

@@ -3,6 +3,7 @@
 //! context from the arguments, and a ticker for stages that report no item counts (the shared
 //! [`super::common::Progress`] counts items).
 
+use equiscan::align::Viewpoints;
 use equiscan::align::report::{RunContext, Units};
 use equiscan::io::FileInfo;
 use equiscan::{Cloud, Error, Result};
@@ -110,5 +111,41 @@ pub fn context(args: &AlignArgs, read: &[(Cloud, FileInfo)]) -> RunContext {
         args.radius.is_some(),
         units,
         &scans,
+    )
+}
+
+/// Parses a sensor position `X,Y,Z` (three finite numbers, file coordinates).
+pub fn viewpoint(text: &str) -> std::result::Result<[f64; 3], String> {
+    let parts: Vec<Option<f64>> = text
+        .split(',')
+        .map(|t| t.trim().parse::<f64>().ok().filter(|v| v.is_finite()))
+        .collect();
+    match parts.as_slice() {
+        [Some(x), Some(y), Some(z)] => Ok([*x, *y, *z]),
+        _ => Err(format!(
+            "{text:?} is not a position; give three numbers separated by commas, X,Y,Z in the scan's file coordinates, e.g. 12.5,-3,1.6"
+        )),
+    }
+}
+
+/// The sensor positions of SOURCE and TARGET for the free-space test and where each came
+/// from ([`Viewpoints::pick`]: the options, else an E57 scan's recorded pose).
+pub fn viewpoints(
+    args: &AlignArgs,
+    read: &[(Cloud, FileInfo)],
+) -> (Viewpoints, [Option<String>; 2]) {
+    let recorded = |k: usize| read.get(k).and_then(|(_, info)| info.viewpoint);
+    let file = |k: usize| {
+        args.scans
+            .get(k)
+            .map(|p| p.display().to_string())
+            .unwrap_or_default()
+    };
+    let files = [file(0), file(1)];
+    Viewpoints::pick(
+        [args.source_viewpoint, args.target_viewpoint],
+        [recorded(0), recorded(1)],
+        ["--source-viewpoint", "--target-viewpoint"],
+        [&files[0], &files[1]],
     )
 }

@@ -47,6 +47,6 @@ pub mod views;
 pub use canvas::{Canvas, Rgb, Share, Splat, ViewAxis, Viewport};
 pub use colour::{ColourMap, LAYER_PALETTE, SOURCE_COLOUR, TARGET_COLOUR};
 pub use views::{
-    FigureText, Layer, ScalarField, Transform, draw_alignment_views, draw_cloud_views, nice_length,
-    render_alignment_views, render_cloud_views,
+    FigureText, Layer, ScalarField, Transform, ViewRow, draw_alignment_rows, draw_alignment_views,
+    draw_cloud_views, nice_length, render_alignment_views, render_cloud_views,
 };

@@ -548,22 +548,81 @@ fn check_transform(layer: &Layer<'_>) -> Result<()> {
     Ok(())
 }
 
+/// One row of the alignment picture: a label and, per layer, the transform it is drawn under.
+#[derive(Debug, Clone)]
+pub struct ViewRow {
+    /// Printed before each panel's view name, e.g. `before` or `candidate 2 (score 0.58)`.
+    pub label: String,
+    /// Per layer (same order as the layers): the transform of that layer in this row, `None`
+    /// to draw it in place.
+    pub transforms: Vec<Option<Transform>>,
+    /// Colour layers by their [`Layer::after_values`] in this row (when they have them).
+    pub values: bool,
+    /// Frame this row's panels in red with a short note (e.g. `NOT ALIGNED`); empty for none.
+    pub flag: String,
+}
+
 /// Draws the alignment picture (see [`render_alignment_views`]) without writing it.
 pub fn draw_alignment_views(layers: &[Layer<'_>], text: &FigureText) -> Result<Canvas> {
+    let flag = if text.warning.is_empty() {
+        String::new()
+    } else {
+        "NOT ALIGNED".to_string()
+    };
+    let rows = [
+        ViewRow {
+            label: "before".into(),
+            transforms: vec![None; layers.len()],
+            values: false,
+            flag: String::new(),
+        },
+        ViewRow {
+            label: "after".into(),
+            transforms: layers.iter().map(|l| l.after).collect(),
+            values: true,
+            flag,
+        },
+    ];
+    draw_alignment_rows(layers, &rows, text)
+}
+
+/// Draws `layers` in `rows` (each row three orthographic views, the layers under that row's
+/// transforms), with `text` above and the legend and caution below. Panels in a column share
+/// their extents (the union over every row).
+pub fn draw_alignment_rows(
+    layers: &[Layer<'_>],
+    rows: &[ViewRow],
+    text: &FigureText,
+) -> Result<Canvas> {
     let [width, height] = ALIGNMENT_SIZE;
     let mut canvas = Canvas::new(width, height, BACKGROUND);
     for layer in layers {
         check_transform(layer)?;
     }
+    for row in rows {
+        for t in row.transforms.iter().flatten() {
+            if !(t.rotation.iter().chain(t.translation.iter())).all(|v| v.is_finite()) {
+                return Err(Error::invalid(
+                    format!("a transform of the row {} is not finite", row.label),
+                    "pass finite 4x4 transforms",
+                ));
+            }
+        }
+    }
     let reference = layers.first().map(|l| l.origin).unwrap_or([0.0; 3]);
-    let before: Vec<Vec<[f64; 3]>> = layers.iter().map(|l| prepare(l, reference, None)).collect();
-    let after: Vec<Vec<[f64; 3]>> = layers
+    let drawn: Vec<Vec<Vec<[f64; 3]>>> = rows
         .iter()
-        .map(|l| prepare(l, reference, l.after.as_ref()))
+        .map(|row| {
+            layers
+                .iter()
+                .enumerate()
+                .map(|(k, l)| prepare(l, reference, row.transforms.get(k).and_then(|t| t.as_ref())))
+                .collect()
+        })
         .collect();
-    let bounds = before
+    let bounds = drawn
         .iter()
-        .chain(after.iter())
+        .flatten()
         .map(|pts| Bounds::of(pts.iter()))
         .fold(None, Bounds::union)
         .unwrap_or(Bounds {
@@ -572,29 +631,34 @@ pub fn draw_alignment_views(layers: &[Layer<'_>], text: &FigureText) -> Result<C
         });
 
     let top = draw_header(&mut canvas, text);
-    let bar_field = layers.iter().find_map(|l| l.after_values.as_ref());
+    let bar_field = layers
+        .iter()
+        .find_map(|l| l.after_values.as_ref())
+        .filter(|_| rows.iter().any(|r| r.values));
     let footer = if bar_field.is_some() {
         FOOTER_HEIGHT + 56
     } else {
         FOOTER_HEIGHT
     };
     let bottom = height as i64 - MARGIN - footer;
-    let panels = grid(width as i64, top, bottom, 2);
-    for (row, (row_name, points)) in [("before", &before), ("after", &after)]
-        .into_iter()
-        .enumerate()
-    {
+    let panels = grid(width as i64, top, bottom, rows.len().max(1) as i64);
+    for (r_index, (row, points)) in rows.iter().zip(&drawn).enumerate() {
         for (col, view) in ViewAxis::ALL.into_iter().enumerate() {
             let extent = bounds.in_view(view);
             let (r, u) = view.axis_names();
-            let label = format!("{row_name}: {} view, {r}-{u}", view.name());
-            let panel = &panels[row * 3 + col];
+            let label = format!("{}: {} view, {r}-{u}", row.label, view.name());
+            let panel = &panels[r_index * 3 + col];
             let vp = draw_panel(&mut canvas, panel, &label, view, extent, &text.unit);
-            if row == 1 && !text.warning.is_empty() {
+            if !row.flag.is_empty() {
                 canvas.stroke_rect(panel.x, panel.y, panel.w as u32, panel.h as u32, 5, WARNING);
-                let note = "NOT ALIGNED";
-                let w = Canvas::text_width(note, 2) as i64;
-                canvas.text(panel.x + panel.w - PAD - w, panel.y + 12, note, 2, WARNING);
+                let w = Canvas::text_width(&row.flag, 2) as i64;
+                canvas.text(
+                    panel.x + panel.w - PAD - w,
+                    panel.y + 12,
+                    &row.flag,
+                    2,
+                    WARNING,
+                );
             }
             let (dlo, dhi) = (extent.0[2], extent.1[2]);
             for (k, (layer, pts)) in layers.iter().zip(points.iter()).enumerate() {
@@ -613,8 +677,8 @@ pub fn draw_alignment_views(layers: &[Layer<'_>], text: &FigureText) -> Result<C
                     },
                 };
                 let colour = layer.colour;
-                match (&layer.after_values, row) {
-                    (Some(field), 1) => {
+                match (&layer.after_values, row.values) {
+                    (Some(field), true) => {
                         let step = stride(layer.points.len());
                         let [lo, hi] = value_range(field);
                         let map = field.map;
@@ -1104,5 +1168,64 @@ mod tests {
             after_values: None,
         };
         assert!(draw_alignment_views(&[bad], &text).is_err());
+    }
+
+    /// Rows of the alignment picture: each row draws the layer under its own transform (a
+    /// point moved in the second row lands in the second row's panels only), and a non-finite
+    /// row transform is refused.
+    #[test]
+    fn each_row_draws_the_layers_under_its_own_transform() {
+        let pts: Vec<[f32; 3]> = (0..400)
+            .map(|i| [(i % 20) as f32, (i / 20) as f32, 0.0])
+            .collect();
+        let layer = Layer {
+            name: "a".into(),
+            colour: [200, 0, 0],
+            origin: [0.0; 3],
+            points: &pts,
+            after: None,
+            on_top: false,
+            after_values: None,
+        };
+        let row = |t: Option<Transform>| ViewRow {
+            label: "row".into(),
+            transforms: vec![t],
+            values: false,
+            flag: String::new(),
+        };
+        let shift = Transform::translation(nalgebra::Vector3::new(100.0, 0.0, 0.0));
+        let text = FigureText::default();
+        let c = draw_alignment_rows(
+            std::slice::from_ref(&layer),
+            &[row(None), row(Some(shift))],
+            &text,
+        )
+        .unwrap();
+        // Top view panels: row 0 shows the square at the left of the shared extent, row 1 at
+        // the right; count red pixels in the left and right halves of each top-view panel.
+        let panels = grid(
+            c.width() as i64,
+            draw_header(&mut c.clone(), &text),
+            c.height() as i64 - MARGIN - FOOTER_HEIGHT,
+            2,
+        );
+        let red = |p: &PanelLayout, left: bool| {
+            let (x0, x1) = if left {
+                (p.x, p.x + p.w / 2)
+            } else {
+                (p.x + p.w / 2, p.x + p.w)
+            };
+            (x0..x1)
+                .flat_map(|x| (p.y..p.y + p.h).map(move |y| (x, y)))
+                .filter(|&(x, y)| {
+                    c.pixel(x, y)
+                        .is_some_and(|[r, g, b]| r > 100 && g < 60 && b < 60)
+                })
+                .count()
+        };
+        assert!(red(&panels[0], true) > 50 && red(&panels[0], false) < 5);
+        assert!(red(&panels[3], false) > 50 && red(&panels[3], true) < 5);
+        let nan = Transform::translation(nalgebra::Vector3::from_element(f64::NAN));
+        assert!(draw_alignment_rows(&[layer], &[row(Some(nan))], &text).is_err());
     }
 }
