@@ -209,6 +209,45 @@ fn closed8(x: __m256, y: __m256, z: __m256, out: &mut [__m256; 25]) {
     out[24] = mul!(k44, c4);
 }
 
+/// The power-spectrum block sums of [`super::invariants`] in four-wide f64 vectors, the eight
+/// blocks of a group side by side in registers: block `(n, n')` gives `Σ_rows row[n] ·
+/// row[n' + j]` (`j < 4`), each from `zero` in row order as `acc + x·v` (a product, then a
+/// sum: the scalar loop's bits).
+///
+/// # Panics
+/// If a block reads beyond a row (`n ≥ stride` or `n' + 4 > stride`) or `rows` is not whole
+/// rows.
+#[target_feature(enable = "avx2,fma")]
+pub(crate) fn block_sums(
+    rows: &[f64],
+    stride: usize,
+    group: &[(usize, usize); super::invariants::GROUP],
+    zero: f64,
+) -> [[f64; 4]; super::invariants::GROUP] {
+    const G: usize = super::invariants::GROUP;
+    assert!(stride > 0 && rows.len().is_multiple_of(stride));
+    assert!(group.iter().all(|&(n, n2)| n < stride && n2 + 4 <= stride));
+    let mut acc = [_mm256_set1_pd(zero); G];
+    for r0 in (0..rows.len()).step_by(stride) {
+        // SAFETY: `r0 + stride ≤ rows.len()` and every block reads inside its row (asserted).
+        unsafe {
+            let row = rows.as_ptr().add(r0);
+            for b in 0..G {
+                let (n, n2) = group[b];
+                let x = _mm256_broadcast_sd(&*row.add(n));
+                let v = _mm256_loadu_pd(row.add(n2));
+                acc[b] = _mm256_add_pd(acc[b], _mm256_mul_pd(x, v));
+            }
+        }
+    }
+    let mut out = [[0.0f64; 4]; G];
+    for (o, a) in out.iter_mut().zip(acc) {
+        // SAFETY: four f64 into a [f64; 4].
+        unsafe { _mm256_storeu_pd(o.as_mut_ptr(), a) };
+    }
+    out
+}
+
 /// Reduces lane sums to single sums: `acc[i] = ((l0 + l1) + (l2 + l3)) + ((l4 + l5) + (l6 +
 /// l7))` of `lanes[i]`, eight sums at a time with horizontal adds (each pair sum is the same
 /// IEEE sum whichever operand comes first, so the bytes are those of the scalar tree).

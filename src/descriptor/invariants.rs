@@ -111,17 +111,27 @@ impl InvariantPlan {
             // SAFETY: the processor reported AVX2.
             return unsafe { self.spectrum_avx2(c, t, out) };
         }
-        self.spectrum_impl(c, t, out)
+        self.spectrum_impl(c, t, out, block_sums)
     }
 
     #[cfg(target_arch = "x86_64")]
-    #[target_feature(enable = "avx2")]
+    #[target_feature(enable = "avx2,fma")]
     fn spectrum_avx2(&self, c: &[f32], t: &mut Vec<f64>, out: &mut [f32]) -> usize {
-        self.spectrum_impl(c, t, out)
+        // The closure inherits this function's AVX2 and FMA.
+        self.spectrum_impl(c, t, out, |rows, stride, group, zero| {
+            super::avx2::block_sums(rows, stride, group, zero)
+        })
     }
 
+    /// `sums(rows, stride, group, zero)` gives the [`block_sums`] of one group of blocks.
     #[inline(always)]
-    fn spectrum_impl(&self, c: &[f32], t: &mut Vec<f64>, out: &mut [f32]) -> usize {
+    fn spectrum_impl(
+        &self,
+        c: &[f32],
+        t: &mut Vec<f64>,
+        out: &mut [f32],
+        sums: impl Fn(&[f64], usize, &[(usize, usize); GROUP], f64) -> [[f64; 4]; GROUP],
+    ) -> usize {
         let nk = (self.degree + 1) * (self.degree + 1);
         let ns = self.shells;
         // Shells innermost, padded with zeros so that a block of four starting at any shell
@@ -152,16 +162,8 @@ impl InvariantPlan {
         for l in 0..=self.degree {
             let rows = &t[l * l * stride..(l + 1) * (l + 1) * stride];
             for group in self.blocks.chunks_exact(GROUP) {
-                let mut acc = [[zero; 4]; GROUP];
-                for row in rows.chunks_exact(stride) {
-                    for (a, &(n, n2)) in acc.iter_mut().zip(group) {
-                        let x = row[n];
-                        let v: &[f64; 4] = row[n2..n2 + 4].try_into().expect("four shells");
-                        for j in 0..4 {
-                            a[j] += x * v[j];
-                        }
-                    }
-                }
+                let group: &[(usize, usize); GROUP] = group.try_into().expect("a group");
+                let acc = sums(rows, stride, group, zero);
                 for (a, &(n, n2)) in acc.iter().zip(group) {
                     if n2 == n && n_norms > 0 {
                         norms[l * ns + n] = a[0].sqrt() as f32;
@@ -180,7 +182,29 @@ impl InvariantPlan {
 }
 
 /// Blocks of the power-spectrum sums computed side by side.
-const GROUP: usize = 8;
+pub(crate) const GROUP: usize = 8;
+
+/// The sums of one group of blocks over `rows` (rows of `stride` f64 values, shells
+/// innermost): block `(n, n')` gives `Σ_rows row[n] · row[n' + j]` for `j < 4`, each sum from
+/// `zero` in row order (`acc + x·v`, a product then a sum, as everywhere here).
+fn block_sums(
+    rows: &[f64],
+    stride: usize,
+    group: &[(usize, usize); GROUP],
+    zero: f64,
+) -> [[f64; 4]; GROUP] {
+    let mut acc = [[zero; 4]; GROUP];
+    for row in rows.chunks_exact(stride) {
+        for (a, &(n, n2)) in acc.iter_mut().zip(group) {
+            let x = row[n];
+            let v: &[f64; 4] = row[n2..n2 + 4].try_into().expect("four shells");
+            for j in 0..4 {
+                a[j] += x * v[j];
+            }
+        }
+    }
+    acc
+}
 
 /// The blocks `(n, n')` of four sums `(n, n'..n' + 4)` covering every pair `n ≤ n'` of `shells`
 /// shells (`n'` from `n` in steps of four), padded to a multiple of [`GROUP`] with blocks that
@@ -265,10 +289,15 @@ mod tests {
                         })
                         .collect();
                     let want = plain(&c, shells, degree, which);
+                    let bits = |v: &[f32]| v.iter().map(|x| x.to_bits()).collect::<Vec<_>>();
+                    // The build this processor runs, then the portable one.
                     let mut got = vec![f32::NAN; want.len()];
                     plan.compute(&c, &mut scratch, &mut got);
-                    let bits = |v: &[f32]| v.iter().map(|x| x.to_bits()).collect::<Vec<_>>();
                     assert_eq!(bits(&got), bits(&want), "N {shells}, L {degree}, {which:?}");
+                    let mut got = vec![f32::NAN; want.len()];
+                    let k = plan.spectrum_impl(&c, &mut scratch, &mut got, block_sums);
+                    assert_eq!(k, want.len());
+                    assert_eq!(bits(&got), bits(&want), "portable: N {shells}, L {degree}");
                 }
             }
         }
