@@ -248,39 +248,111 @@ pub(crate) fn block_sums(
     out
 }
 
-/// Reduces lane sums to single sums: `acc[i] = ((l0 + l1) + (l2 + l3)) + ((l4 + l5) + (l6 +
-/// l7))` of `lanes[i]`, eight sums at a time with horizontal adds (each pair sum is the same
-/// IEEE sum whichever operand comes first, so the bytes are those of the scalar tree).
+/// The projection `acc[n·K + k] = Σ_j w[n·J + j] · y[k·J + j]` of [`super::kernel::project`]
+/// on AVX2: lane `i` sums the neighbours `j ≡ i (mod 8)` in ascending `j` with fused
+/// multiply-adds, then the eight lanes are added in the tree `((l0 + l1) + (l2 + l3)) + ((l4 +
+/// l5) + (l6 + l7))`. Tiles of two shells × four harmonics keep their eight lane sums in
+/// registers and reduce them together with horizontal adds (each pair sum is the same IEEE sum
+/// whichever operand comes first), so nothing goes through memory between the sums and the
+/// tree; the bytes are those of the lane-by-lane code.
 ///
 /// # Panics
-/// If `acc` is longer than `lanes`.
+/// If `J` is not a multiple of [`LANES`] or a slice is too short.
 #[target_feature(enable = "avx2,fma")]
-pub(crate) fn reduce_lanes(lanes: &[[f32; LANES]], acc: &mut [f32]) {
-    assert!(acc.len() <= lanes.len());
-    let n = acc.len();
-    let full = n / 8 * 8;
-    for i0 in (0..full).step_by(8) {
-        // SAFETY: `i0 + 8 ≤ n ≤ lanes.len()`, each `[f32; 8]` is one unaligned 256-bit load;
-        // the store writes `acc[i0..i0 + 8]`.
+pub(crate) fn project(w: &[f32], y: &[f32], jp: usize, n_sh: usize, nk: usize, acc: &mut [f32]) {
+    assert!(jp.is_multiple_of(LANES));
+    assert!(w.len() >= n_sh * jp && y.len() >= nk * jp && acc.len() >= n_sh * nk);
+    let mut n = 0;
+    while n < n_sh {
+        let two = n + 2 <= n_sh;
+        let mut k = 0;
+        while k + 4 <= nk {
+            if two {
+                let s = lane_sums::<2, 4>(w, y, jp, n, k);
+                let t = tree8([
+                    s[0][0], s[0][1], s[0][2], s[0][3], s[1][0], s[1][1], s[1][2], s[1][3],
+                ]);
+                // SAFETY: `n + 1 < n_sh` and `k + 4 ≤ nk`, inside `acc` (asserted above).
+                unsafe {
+                    _mm_storeu_ps(acc.as_mut_ptr().add(n * nk + k), _mm256_castps256_ps128(t));
+                    _mm_storeu_ps(
+                        acc.as_mut_ptr().add((n + 1) * nk + k),
+                        _mm256_extractf128_ps::<1>(t),
+                    );
+                }
+            } else {
+                let s = lane_sums::<1, 4>(w, y, jp, n, k);
+                let t = tree8([
+                    s[0][0], s[0][1], s[0][2], s[0][3], s[0][0], s[0][1], s[0][2], s[0][3],
+                ]);
+                // SAFETY: `n < n_sh` and `k + 4 ≤ nk`.
+                unsafe {
+                    _mm_storeu_ps(acc.as_mut_ptr().add(n * nk + k), _mm256_castps256_ps128(t))
+                };
+            }
+            k += 4;
+        }
+        for k in k..nk {
+            let rows = if two { 2 } else { 1 };
+            for a in 0..rows {
+                let s = lane_sums::<1, 1>(w, y, jp, n + a, k);
+                let mut l = [0.0f32; LANES];
+                // SAFETY: eight f32 into a [f32; 8].
+                unsafe { _mm256_storeu_ps(l.as_mut_ptr(), s[0][0]) };
+                acc[(n + a) * nk + k] =
+                    ((l[0] + l[1]) + (l[2] + l[3])) + ((l[4] + l[5]) + (l[6] + l[7]));
+            }
+        }
+        n += if two { 2 } else { 1 };
+    }
+}
+
+/// Lane sums of shells `n..n + NB` against harmonics `k..k + KB` (fused multiply-adds, `j`
+/// ascending), in registers.
+#[target_feature(enable = "avx2,fma")]
+#[inline]
+fn lane_sums<const NB: usize, const KB: usize>(
+    w: &[f32],
+    y: &[f32],
+    jp: usize,
+    n: usize,
+    k: usize,
+) -> [[__m256; KB]; NB] {
+    let mut s = [[_mm256_setzero_ps(); KB]; NB];
+    let (wp, yp) = (w.as_ptr(), y.as_ptr());
+    for j0 in (0..jp).step_by(LANES) {
+        // SAFETY: rows `n..n + NB` of `w` and `k..k + KB` of `y` hold `jp` values each (the
+        // caller's assertions), `j0 + 8 ≤ jp`.
         unsafe {
-            let v: [__m256; 8] = std::array::from_fn(|t| _mm256_loadu_ps(lanes[i0 + t].as_ptr()));
-            // [v0: 01 23, v1: 01 23, v0: 45 67, v1: 45 67] and so on.
-            let a = _mm256_hadd_ps(v[0], v[1]);
-            let b = _mm256_hadd_ps(v[2], v[3]);
-            let c = _mm256_hadd_ps(v[4], v[5]);
-            let d = _mm256_hadd_ps(v[6], v[7]);
-            // [v0: 0123, v1: 0123, v2: 0123, v3: 0123 | v0: 4567, ...]
-            let ab = _mm256_hadd_ps(a, b);
-            let cd = _mm256_hadd_ps(c, d);
-            // low halves hold the 0123 sums of v0..v3 (ab) and v4..v7 (cd), high the 4567 sums.
-            let lo = _mm256_permute2f128_ps::<0x20>(ab, cd);
-            let hi = _mm256_permute2f128_ps::<0x31>(ab, cd);
-            _mm256_storeu_ps(acc.as_mut_ptr().add(i0), _mm256_add_ps(lo, hi));
+            let wv: [__m256; NB] =
+                std::array::from_fn(|a| _mm256_loadu_ps(wp.add((n + a) * jp + j0)));
+            for b in 0..KB {
+                let yv = _mm256_loadu_ps(yp.add((k + b) * jp + j0));
+                for a in 0..NB {
+                    s[a][b] = _mm256_fmadd_ps(wv[a], yv, s[a][b]);
+                }
+            }
         }
     }
-    for (o, l) in acc[full..].iter_mut().zip(&lanes[full..]) {
-        *o = ((l[0] + l[1]) + (l[2] + l[3])) + ((l[4] + l[5]) + (l[6] + l[7]));
-    }
+    s
+}
+
+/// The eight lane sums of `v[0..8]` reduced by the tree, as one vector `[t0, …, t7]`.
+#[target_feature(enable = "avx2,fma")]
+#[inline]
+fn tree8(v: [__m256; 8]) -> __m256 {
+    // [v0: 01 23, v1: 01 23, v0: 45 67, v1: 45 67] and so on.
+    let a = _mm256_hadd_ps(v[0], v[1]);
+    let b = _mm256_hadd_ps(v[2], v[3]);
+    let c = _mm256_hadd_ps(v[4], v[5]);
+    let d = _mm256_hadd_ps(v[6], v[7]);
+    // [v0: 0123, v1: 0123, v2: 0123, v3: 0123 | v0: 4567, ...]
+    let ab = _mm256_hadd_ps(a, b);
+    let cd = _mm256_hadd_ps(c, d);
+    // low halves hold the 0123 sums of v0..v3 (ab) and v4..v7 (cd), high the 4567 sums.
+    let lo = _mm256_permute2f128_ps::<0x20>(ab, cd);
+    let hi = _mm256_permute2f128_ps::<0x31>(ab, cd);
+    _mm256_add_ps(lo, hi)
 }
 
 #[cfg(test)]
@@ -303,12 +375,19 @@ mod tests {
                     })
                 })
                 .collect();
-            let mut got = vec![0.0f32; n];
-            // SAFETY: AVX2 and FMA are present (checked above).
-            unsafe { reduce_lanes(&lanes, &mut got) };
-            for (g, l) in got.iter().zip(&lanes) {
-                let want = ((l[0] + l[1]) + (l[2] + l[3])) + ((l[4] + l[5]) + (l[6] + l[7]));
-                assert_eq!(g.to_bits(), want.to_bits(), "{l:?}");
+            for l8 in lanes.chunks(8) {
+                let mut v = [[0.0f32; LANES]; 8];
+                v[..l8.len()].copy_from_slice(l8);
+                let mut got = [0.0f32; 8];
+                // SAFETY: AVX2 and FMA are present (checked above).
+                unsafe {
+                    let t = tree8(std::array::from_fn(|i| _mm256_loadu_ps(v[i].as_ptr())));
+                    _mm256_storeu_ps(got.as_mut_ptr(), t);
+                }
+                for (g, l) in got.iter().zip(&v) {
+                    let want = ((l[0] + l[1]) + (l[2] + l[3])) + ((l[4] + l[5]) + (l[6] + l[7]));
+                    assert_eq!(g.to_bits(), want.to_bits(), "{l:?}");
+                }
             }
         }
     }

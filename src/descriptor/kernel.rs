@@ -306,11 +306,10 @@ fn project_avx2(
     jp: usize,
     n_sh: usize,
     nk: usize,
-    lanes: &mut [[f32; LANES]],
+    _lanes: &mut [[f32; LANES]],
     acc: &mut [f32],
 ) {
-    project_impl::<true>(w, y, jp, n_sh, nk, lanes);
-    super::avx2::reduce_lanes(lanes, acc)
+    super::avx2::project(w, y, jp, n_sh, nk, acc)
 }
 
 /// The lane sums `lanes[n·K + k][i]` of [`project`], before the tree.
@@ -412,6 +411,56 @@ mod tests {
                         "{k:?} n {n} col {c}"
                     );
                 }
+            }
+        }
+    }
+
+    #[test]
+    fn avx2_projection_is_the_lane_by_lane_fused_sum() {
+        // The AVX2 tiles against the same sums written lane by lane with `f32::mul_add` (one
+        // rounding, as the FMA instruction) and the scalar tree: the same bits.
+        if Kernel::detect() == Kernel::Portable {
+            return;
+        }
+        for (count, n_sh, nk) in [
+            (37usize, 3usize, 27usize),
+            (8, 6, 25),
+            (80, 6, 25),
+            (3, 1, 9),
+        ] {
+            let jp = count.div_ceil(LANES) * LANES;
+            let w: Vec<f32> = (0..n_sh * jp)
+                .map(|i| {
+                    if i % jp < count {
+                        ((i * 7919) % 101) as f32 / 101.0
+                    } else {
+                        0.0
+                    }
+                })
+                .collect();
+            let y: Vec<f32> = (0..nk * jp)
+                .map(|i| ((i * 104_729) % 97) as f32 / 48.0 - 1.0)
+                .collect();
+            let mut got = vec![0.0f32; n_sh * nk];
+            project(
+                Kernel::detect(),
+                &w,
+                &y,
+                jp,
+                n_sh,
+                nk,
+                &mut Vec::new(),
+                &mut got,
+            );
+            let mut lanes = vec![[0.0f32; LANES]; n_sh * nk];
+            project_impl::<true>(&w, &y, jp, n_sh, nk, &mut lanes);
+            for (g, l) in got.iter().zip(&lanes) {
+                let want = ((l[0] + l[1]) + (l[2] + l[3])) + ((l[4] + l[5]) + (l[6] + l[7]));
+                assert_eq!(
+                    g.to_bits(),
+                    want.to_bits(),
+                    "count {count}, N {n_sh}, K {nk}"
+                );
             }
         }
     }
