@@ -328,8 +328,8 @@ fn lane_sums<const NB: usize, const KB: usize>(
                 std::array::from_fn(|a| _mm256_loadu_ps(wp.add((n + a) * jp + j0)));
             for b in 0..KB {
                 let yv = _mm256_loadu_ps(yp.add((k + b) * jp + j0));
-                for a in 0..NB {
-                    s[a][b] = _mm256_fmadd_ps(wv[a], yv, s[a][b]);
+                for (sa, wa) in s.iter_mut().zip(&wv) {
+                    sa[b] = _mm256_fmadd_ps(*wa, yv, sa[b]);
                 }
             }
         }

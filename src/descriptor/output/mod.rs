@@ -43,8 +43,9 @@ pub use sidecar::{
 };
 
 /// Bytes of output rows computed per chunk (each chunk is computed in parallel, then written;
-/// the engine reuses one chunk's buffers for the next, so only the first chunk's pages are
-/// fresh: 4 MB rather than 16 MB halved the page faults of a 50 000-point run).
+/// the engine reuses one chunk's buffers for the next ([`Engine::recycle`]), so only the first
+/// chunk's pages are fresh: a 50 000-point `features` run took 8 530 page faults with 16 MB
+/// chunks and fresh buffers, 3 360 with these).
 const CHUNK_BYTES: usize = 4 << 20;
 
 /// Feature-file formats.
