@@ -117,7 +117,13 @@ pub struct Engine {
     /// Neighbours from the k-d tree, centres in the order given (the engine before the cell
     /// grid; for comparison, same bytes).
     tree_only: bool,
+    /// Output buffers of a finished run handed back by [`Engine::recycle`], reused by the next
+    /// run (their pages are already mapped: no page faults and no fresh zero pages).
+    spare: std::sync::Mutex<Option<Buffers>>,
 }
+
+/// The output vectors of one run: invariants, counts, flags, coefficients.
+type Buffers = (Vec<f32>, Vec<u32>, Vec<u8>, Vec<f32>);
 
 /// A cloud made ready for repeated [`Engine`] runs: the points, their k-d tree and the cell
 /// grid of the engine's largest support radius, built once ([`Engine::prepare`]) and reused by
@@ -241,6 +247,8 @@ struct Scratch {
     w: Vec<f32>,
     /// Harmonics, layout `[l² + l + m][neighbour]`.
     y: Vec<f32>,
+    /// Lane sums of the projection (before the tree), `[n][l² + l + m]`.
+    lanes: Vec<[f32; kernel::LANES]>,
     /// Unnormalised sums, `[n][l² + l + m]`.
     acc: Vec<f32>,
     /// Coefficients `c[n][l² + l + m]` of the current scale.
@@ -257,6 +265,7 @@ impl Engine {
         Engine {
             fade,
             tree_only: false,
+            spare: std::sync::Mutex::new(None),
             columns: recipe.column_names(),
             recipe,
             plan,
@@ -388,6 +397,20 @@ impl Engine {
         self.run(cloud, centres.to_vec(), progress)
     }
 
+    /// Hands the buffers of `spent` (a result of this engine that is no longer needed) back
+    /// for the next run to reuse, as [`super::output::write_features`] does between chunks.
+    /// Optional: results are the same bytes either way.
+    pub fn recycle(&self, spent: Features) {
+        if let Ok(mut g) = self.spare.lock() {
+            *g = Some((
+                spent.values,
+                spent.counts,
+                spent.flags,
+                spent.coefficients.unwrap_or_default(),
+            ));
+        }
+    }
+
     /// The neighbour query radius: the largest support radius, with [`QUERY_SLACK`].
     fn query_radius(&self) -> f32 {
         let r_max = self.recipe.radii().iter().copied().fold(0.0f32, f32::max);
@@ -448,6 +471,7 @@ impl Engine {
             step: v(),
             w: Vec::new(),
             y: Vec::new(),
+            lanes: Vec::new(),
             acc: vec![0.0; self.recipe.shells() * nk],
             c: vec![0.0; self.recipe.shells() * nk],
             c64: Vec::with_capacity(self.recipe.shells() * nk),
@@ -465,14 +489,22 @@ impl Engine {
         let nc = self.columns.len();
         let kc = self.recipe.coefficients_per_scale();
         let keep = self.recipe.keep_coefficients();
-        let mut values = vec![0.0f32; rows * nc];
-        let mut counts = vec![0u32; rows * ns];
-        let mut flag_bits = vec![0u8; rows * ns];
-        let mut coeffs = if keep {
-            vec![0.0f32; rows * ns * kc]
-        } else {
-            Vec::new()
-        };
+        let (mut values, mut counts, mut flag_bits, mut coeffs) = self
+            .spare
+            .lock()
+            .ok()
+            .and_then(|mut g| g.take())
+            .unwrap_or_default();
+        values.clear();
+        values.resize(rows * nc, 0.0);
+        counts.clear();
+        counts.resize(rows * ns, 0);
+        flag_bits.clear();
+        flag_bits.resize(rows * ns, 0);
+        coeffs.clear();
+        if keep {
+            coeffs.resize(rows * ns * kc, 0.0);
+        }
         let points = cloud.points;
         // The cloud's grid serves when it was built for this engine's query radius; otherwise
         // (a cloud prepared by an engine with another largest radius) the grid is built here.
@@ -696,7 +728,16 @@ impl Engine {
         // cutoffs add exact zeros to the sum.
         s.rho[count..].fill(1.0);
         let wsum = kernel::weights(self.kernel, &s.rho, n_sh, &mut s.fc, &mut s.step, &mut s.w);
-        kernel::project(self.kernel, &s.w, &s.y, jp, n_sh, nk, &mut s.acc);
+        kernel::project(
+            self.kernel,
+            &s.w,
+            &s.y,
+            jp,
+            n_sh,
+            nk,
+            &mut s.lanes,
+            &mut s.acc,
+        );
         let w = 1.0 + wsum + coincident as f32;
         for (o, a) in s.c.iter_mut().zip(&s.acc) {
             *o = a / w;

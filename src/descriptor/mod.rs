@@ -33,6 +33,8 @@
 //! - Coefficients ([`Features::coefficients`]): `[centre][scale][n][l² + l + m]`, column names
 //!   `{s}_c_n{n}_l{l}_m{m}` ([`Recipe::coefficient_names`], `mn2` for `m = −2`).
 
+#[cfg(target_arch = "x86_64")]
+mod avx2;
 mod engine;
 mod invariants;
 mod kernel;

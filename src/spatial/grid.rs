@@ -202,9 +202,10 @@ impl CellGrid {
         for &(a, b) in &query.runs {
             let (a, b) = (a as usize, b as usize);
             let base = out.len();
-            // Branch-free compaction: every candidate is written, the end advances on a hit.
-            out.resize(base + (b - a), 0);
-            let dst = &mut out[base..];
+            // Branch-free compaction: every candidate is written, the end advances on a hit
+            // (into spare capacity: no zero-filling of the candidates first).
+            out.reserve(b - a);
+            let dst = &mut out.spare_capacity_mut()[..b - a];
             let mut m = 0;
             for (((&x, &y), &z), &i) in self.xs[a..b]
                 .iter()
@@ -214,10 +215,12 @@ impl CellGrid {
             {
                 let (dx, dy, dz) = (x - p[0], y - p[1], z - p[2]);
                 let d2 = dx * dx + dy * dy + dz * dz;
-                dst[m] = i;
+                dst[m.min(b - a - 1)].write(i);
                 m += (d2 <= r2) as usize;
             }
-            out.truncate(base + m);
+            // SAFETY: the first `m` spare values were written above (`m ≤ b − a`; a value is
+            // kept only when written at its own position, before `m` moves past it).
+            unsafe { out.set_len(base + m) };
         }
     }
 }

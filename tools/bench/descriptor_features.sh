@@ -3,7 +3,8 @@
 # reference on a 50 000-point surface sample (tools/bench/scene.rs, seed 42, written by the
 # descriptor_run example), L = 4, N = 6, norms + power spectrum, version 2, at support radii
 # of 2.5 and 5 x the measured point spacing (about 20 and 80 neighbours per centre), one
-# thread, CPU seconds (user + system) of the whole process (read, index, descriptors, write):
+# thread, CPU seconds of the whole process (read, index, descriptors, write; perf stat's task
+# clock when perf is installed, else GNU time's user + system in hundredths):
 # median of RUNS runs for each equiscan binary given, one run of the reference, all in one go
 # so that the ratios share the machine's load. Prints each output's sha256 prefix, and that of
 # a 2-thread run (the bytes must not depend on the thread count).
@@ -21,7 +22,13 @@ trap 'rm -rf "$dir"' EXIT
 target/release/examples/descriptor_run 50000 1 --search-only --write "$dir/scene.ply" > "$dir/scene.txt"
 spacing=$(sed -n 's/.*spacing \([0-9.]*\),.*/\1/p' "$dir/scene.txt")
 echo "scene: 50000 points, measured spacing $spacing"
-cpu() { /usr/bin/time -f "%U %S" -o "$dir/t" "$@" > /dev/null 2>&1; awk '{printf "%.3f\n", $1 + $2}' "$dir/t"; }
+# CPU seconds of a command: `perf stat`'s task clock where perf is installed (microseconds),
+# else GNU time's user + system (hundredths of a second only).
+if command -v perf > /dev/null 2>&1 && perf stat -x, -e task-clock true > /dev/null 2>&1; then
+    cpu() { perf stat -x, -e task-clock -o "$dir/t" "$@" > /dev/null 2>&1; awk -F, '/task-clock/ {printf "%.4f\n", $1 / 1000}' "$dir/t"; }
+else
+    cpu() { /usr/bin/time -f "%U %S" -o "$dir/t" "$@" > /dev/null 2>&1; awk '{printf "%.3f\n", $1 + $2}' "$dir/t"; }
+fi
 median() { sort -n | awk '{a[NR] = $1} END {print (NR % 2) ? a[(NR + 1) / 2] : (a[NR / 2] + a[NR / 2 + 1]) / 2}'; }
 for k in 2.5 5; do
     r=$(awk -v s="$spacing" -v k="$k" 'BEGIN {printf "%.4g", s * k}')

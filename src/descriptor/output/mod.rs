@@ -42,8 +42,11 @@ pub use sidecar::{
     CentresInfo, CountSummary, Metadata, SIDECAR_VERSION, Sidecar, checksum, sidecar_path, verify,
 };
 
-/// Bytes of output rows computed per chunk (each chunk is computed in parallel, then written).
-const CHUNK_BYTES: usize = 16 << 20;
+/// Bytes of output rows computed per chunk (each chunk is computed in parallel, then written;
+/// the engine reuses one chunk's buffers for the next ([`Engine::recycle`]), so only the first
+/// chunk's pages are fresh: a 50 000-point `features` run took 8 530 page faults with 16 MB
+/// chunks and fresh buffers, 3 360 with these).
+const CHUNK_BYTES: usize = 4 << 20;
 
 /// Feature-file formats.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
@@ -401,7 +404,7 @@ impl<'a> FeatureWriter<'a> {
     }
 }
 
-/// Rows per chunk for `columns` f32 columns: about 16 MiB of output, 1 024 to 65 536.
+/// Rows per chunk for `columns` f32 columns: about 4 MiB of output, 1 024 to 65 536.
 pub fn chunk_rows(columns: usize) -> usize {
     (CHUNK_BYTES / (4 * columns.max(1))).clamp(1 << 10, 1 << 16)
 }
@@ -454,6 +457,7 @@ fn write_features_in(
             }
         };
         writer.push(&chunk)?;
+        engine.recycle(chunk);
         start = end;
     }
     Ok(())

@@ -45,6 +45,8 @@ pub(super) struct Hashed {
     file: TempFile,
     crc: crc32fast::Hasher,
     bytes: u64,
+    /// Rows encoded before they are written (NPY), reused between chunks.
+    buffer: Vec<u8>,
 }
 
 impl Hashed {
@@ -53,6 +55,7 @@ impl Hashed {
             file,
             crc: crc32fast::Hasher::new(),
             bytes: 0,
+            buffer: Vec::new(),
         }
     }
 
@@ -144,19 +147,25 @@ impl Sink {
         match self {
             Sink::Npy(h) => {
                 let mut vals = Vec::with_capacity(nc);
-                let mut bytes = Vec::with_capacity(4 * nc * f.len().min(4096));
+                // One buffer for the whole file (about 1 MB, kept between chunks).
+                let mut bytes = std::mem::take(&mut h.buffer);
+                bytes.clear();
                 for i in 0..f.len() {
                     vals.clear();
                     push_row(f, i, true, &mut vals);
-                    for v in &vals {
-                        bytes.extend_from_slice(&v.to_le_bytes());
+                    let at = bytes.len();
+                    bytes.resize(at + 4 * vals.len(), 0);
+                    for (d, v) in bytes[at..].chunks_exact_mut(4).zip(&vals) {
+                        d.copy_from_slice(&v.to_le_bytes());
                     }
                     if bytes.len() >= 1 << 20 {
                         h.put(&bytes)?;
                         bytes.clear();
                     }
                 }
-                h.put(&bytes)
+                let done = h.put(&bytes);
+                h.buffer = bytes;
+                done
             }
             Sink::Csv(h) => {
                 // Lines are formatted in parallel and written in order.

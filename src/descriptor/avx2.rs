@@ -1,0 +1,394 @@
+//! The AVX2 build of the per-neighbour pass and of the projection's lane reduction, written
+//! with explicit 256-bit instructions (x86-64 only, chosen at run time by
+//! [`super::kernel::Kernel::detect`]).
+//!
+//! Every value is computed by the same IEEE operations, in the same order, as the portable
+//! code it replaces (no fused multiply-add here: a product and a sum are two roundings, as in
+//! the scalar source), so the harmonics, radii and version-2 fade are bit-identical to
+//! [`crate::so3::sh::real_sh_f32`], [`super::kernel::fade_factor`] and
+//! [`super::radial::exp`], and the lane sums are reduced in the same tree
+//! `((l0 + l1) + (l2 + l3)) + ((l4 + l5) + (l6 + l7))`. The compiler left to itself turned the
+//! eight-lane closed form into many shuffles (a quarter of the engine's time at ~80
+//! neighbours, DEVELOPERS.md "Descriptor engine"); written out here each harmonic is a handful
+//! of vector products.
+
+use std::arch::x86_64::*;
+
+use super::kernel::LANES;
+
+/// `1/(2√π)`, the constant `Y_00` (as in so3's closed form).
+const Y00: f64 = 0.282_094_791_773_878_14;
+
+/// A constant in every lane, rounded from `f64` as so3's `Poly::constant` rounds it.
+#[target_feature(enable = "avx2,fma")]
+#[inline]
+fn k(v: f64) -> __m256 {
+    _mm256_set1_ps(v as f32)
+}
+
+macro_rules! mul {
+    ($a:expr, $b:expr $(,)?) => {
+        _mm256_mul_ps($a, $b)
+    };
+}
+macro_rules! add {
+    ($a:expr, $b:expr $(,)?) => {
+        _mm256_add_ps($a, $b)
+    };
+}
+macro_rules! sub {
+    ($a:expr, $b:expr $(,)?) => {
+        _mm256_sub_ps($a, $b)
+    };
+}
+
+/// `e^x` lane by lane, the operations of [`super::radial::exp`] one for one.
+#[target_feature(enable = "avx2,fma")]
+#[inline]
+fn exp8(x: __m256) -> __m256 {
+    const ROUND: f32 = 12_582_912.0;
+    const LOG2E: f32 = std::f32::consts::LOG2_E;
+    const C1: f32 = 0.693_359_4;
+    const C2: f32 = -2.121_944_4e-4;
+    let lo = _mm256_set1_ps(-87.0);
+    let xc = _mm256_max_ps(x, lo);
+    let v = add!(mul!(xc, _mm256_set1_ps(LOG2E)), _mm256_set1_ps(ROUND));
+    let k_bits = _mm256_sub_epi32(
+        _mm256_castps_si256(v),
+        _mm256_set1_epi32(ROUND.to_bits() as i32),
+    );
+    let kf = sub!(v, _mm256_set1_ps(ROUND));
+    let r = sub!(
+        sub!(xc, mul!(kf, _mm256_set1_ps(C1))),
+        mul!(kf, _mm256_set1_ps(C2))
+    );
+    let mut p = _mm256_set1_ps(1.987_569_1e-4);
+    for c in [
+        1.398_199_9e-3,
+        8.333_452e-3,
+        4.166_579_6e-2,
+        1.666_666_5e-1,
+        0.5,
+    ] {
+        p = add!(mul!(p, r), _mm256_set1_ps(c));
+    }
+    let y = add!(add!(mul!(mul!(p, r), r), r), _mm256_set1_ps(1.0));
+    let scale = _mm256_castsi256_ps(_mm256_slli_epi32::<23>(_mm256_add_epi32(
+        k_bits,
+        _mm256_set1_epi32(127),
+    )));
+    let below = _mm256_cmp_ps::<_CMP_LT_OQ>(x, lo);
+    _mm256_andnot_ps(below, mul!(y, scale))
+}
+
+/// The version-2 fade of [`super::kernel::fade_factor`] lane by lane.
+#[target_feature(enable = "avx2,fma")]
+#[inline]
+fn fade8(sv: __m256) -> __m256 {
+    let c = _mm256_set1_ps;
+    let x = mul!(sv, sv);
+    let inner = sub!(c(0.5), mul!(x, c(1.0 / 6.0)));
+    let series = mul!(x, sub!(c(1.0), mul!(x, inner)));
+    let direct = sub!(c(1.0), exp8(_mm256_xor_ps(x, c(-0.0))));
+    let small = _mm256_cmp_ps::<_CMP_LT_OQ>(x, c(1.0 / 64.0));
+    _mm256_blendv_ps(direct, series, small)
+}
+
+/// [`super::kernel::directions`] for `l_max ≤ 4` on AVX2: `rho[j] = min(|d_j|·inv_r, 1)` and
+/// the harmonics `y[k·J + j]` (`J = d2.len()`, a multiple of [`LANES`]), degrees `l ≥ 1` times
+/// the fade when `fade = Some(1/ρ₀)`.
+///
+/// # Panics
+/// If `l_max > 4`, the offsets differ in length, or `rho`/`y` are shorter than `J` / `(L+1)²·J`.
+#[target_feature(enable = "avx2,fma")]
+#[allow(clippy::too_many_arguments)]
+pub(crate) fn directions_closed(
+    l_max: usize,
+    inv_r: f32,
+    fade: Option<f32>,
+    dx: &[f32],
+    dy: &[f32],
+    dz: &[f32],
+    d2: &[f32],
+    rho: &mut [f32],
+    y: &mut [f32],
+) {
+    let jp = d2.len();
+    let nk = (l_max + 1) * (l_max + 1);
+    assert!(l_max <= 4 && jp.is_multiple_of(LANES));
+    assert!(dx.len() == jp && dy.len() == jp && dz.len() == jp);
+    assert!(rho.len() >= jp && y.len() >= nk * jp);
+    let s = _mm256_set1_ps;
+    let one = s(1.0);
+    let inv_r8 = s(inv_r);
+    let mut sh = [s(0.0); 25];
+    for j0 in (0..jp).step_by(LANES) {
+        // SAFETY: `j0 + 8 ≤ jp` and every slice holds at least `jp` values (asserted above);
+        // the stores to `y` stay below `nk·jp`.
+        unsafe {
+            let q = _mm256_loadu_ps(d2.as_ptr().add(j0));
+            let dist = _mm256_sqrt_ps(q);
+            let r8 = _mm256_min_ps(_mm256_mul_ps(dist, inv_r8), one);
+            _mm256_storeu_ps(rho.as_mut_ptr().add(j0), r8);
+            let inv = _mm256_div_ps(one, dist);
+            let x = _mm256_mul_ps(_mm256_loadu_ps(dx.as_ptr().add(j0)), inv);
+            let yv = _mm256_mul_ps(_mm256_loadu_ps(dy.as_ptr().add(j0)), inv);
+            let z = _mm256_mul_ps(_mm256_loadu_ps(dz.as_ptr().add(j0)), inv);
+            closed8(x, yv, z, &mut sh);
+            if let Some(inv_rho0) = fade {
+                let h = fade8(_mm256_mul_ps(r8, s(inv_rho0)));
+                for v in sh[1..nk].iter_mut() {
+                    *v = _mm256_mul_ps(*v, h);
+                }
+            }
+            for (kk, v) in sh[..nk].iter().enumerate() {
+                _mm256_storeu_ps(y.as_mut_ptr().add(kk * jp + j0), *v);
+            }
+        }
+    }
+}
+
+/// so3's closed form of the harmonics up to degree 4 (`sh_closed`), operation for operation,
+/// on eight unit directions.
+#[target_feature(enable = "avx2,fma")]
+#[inline]
+fn closed8(x: __m256, y: __m256, z: __m256, out: &mut [__m256; 25]) {
+    let unit = _mm256_set1_ps(1.0);
+    out[0] = k(Y00);
+    let k1 = k(0.488_602_511_902_919_9);
+    out[1] = mul!(k1, y);
+    out[2] = mul!(k1, z);
+    out[3] = mul!(k1, x);
+    let z2 = mul!(z, z);
+    let c2 = sub!(mul!(x, x), mul!(y, y));
+    let s2 = mul!(add!(x, x), y);
+    let k22 = k(0.546_274_215_296_039_6);
+    let k21 = k(1.092_548_430_592_079_2);
+    let k20 = k(0.315_391_565_252_520_05);
+    out[4] = mul!(k22, s2);
+    out[5] = mul!(mul!(k21, z), y);
+    out[6] = mul!(k20, sub!(mul!(k(3.0), z2), unit));
+    out[7] = mul!(mul!(k21, z), x);
+    out[8] = mul!(k22, c2);
+    let c3 = sub!(mul!(x, c2), mul!(y, s2));
+    let s3 = add!(mul!(x, s2), mul!(y, c2));
+    let k33 = k(0.590_043_589_926_643_6);
+    let k32 = k(1.445_305_721_320_277_3);
+    let p31 = mul!(k(0.457_045_799_464_465_8), sub!(mul!(k(5.0), z2), unit));
+    let k32z = mul!(k32, z);
+    out[9] = mul!(k33, s3);
+    out[10] = mul!(k32z, s2);
+    out[11] = mul!(p31, y);
+    out[12] = mul!(
+        mul!(k(0.373_176_332_590_115_4), z),
+        sub!(mul!(k(5.0), z2), k(3.0)),
+    );
+    out[13] = mul!(p31, x);
+    out[14] = mul!(k32z, c2);
+    out[15] = mul!(k33, c3);
+    let c4 = sub!(mul!(x, c3), mul!(y, s3));
+    let s4 = add!(mul!(x, s3), mul!(y, c3));
+    let k44 = k(0.625_835_735_449_176_3);
+    let k43z = mul!(k(1.770_130_769_779_930_7), z);
+    let p42 = mul!(k(0.473_087_347_878_78), sub!(mul!(k(7.0), z2), unit));
+    let p41 = mul!(
+        mul!(k(0.669_046_543_557_289_2), z),
+        sub!(mul!(k(7.0), z2), k(3.0)),
+    );
+    out[16] = mul!(k44, s4);
+    out[17] = mul!(k43z, s3);
+    out[18] = mul!(p42, s2);
+    out[19] = mul!(p41, y);
+    out[20] = mul!(
+        k(0.105_785_546_915_204_31),
+        add!(mul!(sub!(mul!(k(35.0), z2), k(30.0)), z2), k(3.0)),
+    );
+    out[21] = mul!(p41, x);
+    out[22] = mul!(p42, c2);
+    out[23] = mul!(k43z, c3);
+    out[24] = mul!(k44, c4);
+}
+
+/// The power-spectrum block sums of [`super::invariants`] in four-wide f64 vectors, the eight
+/// blocks of a group side by side in registers: block `(n, n')` gives `Σ_rows row[n] ·
+/// row[n' + j]` (`j < 4`), each from `zero` in row order as `acc + x·v` (a product, then a
+/// sum: the scalar loop's bits).
+///
+/// # Panics
+/// If a block reads beyond a row (`n ≥ stride` or `n' + 4 > stride`) or `rows` is not whole
+/// rows.
+#[target_feature(enable = "avx2,fma")]
+pub(crate) fn block_sums(
+    rows: &[f64],
+    stride: usize,
+    group: &[(usize, usize); super::invariants::GROUP],
+    zero: f64,
+) -> [[f64; 4]; super::invariants::GROUP] {
+    const G: usize = super::invariants::GROUP;
+    assert!(stride > 0 && rows.len().is_multiple_of(stride));
+    assert!(group.iter().all(|&(n, n2)| n < stride && n2 + 4 <= stride));
+    let mut acc = [_mm256_set1_pd(zero); G];
+    for r0 in (0..rows.len()).step_by(stride) {
+        // SAFETY: `r0 + stride ≤ rows.len()` and every block reads inside its row (asserted).
+        unsafe {
+            let row = rows.as_ptr().add(r0);
+            for b in 0..G {
+                let (n, n2) = group[b];
+                let x = _mm256_broadcast_sd(&*row.add(n));
+                let v = _mm256_loadu_pd(row.add(n2));
+                acc[b] = _mm256_add_pd(acc[b], _mm256_mul_pd(x, v));
+            }
+        }
+    }
+    let mut out = [[0.0f64; 4]; G];
+    for (o, a) in out.iter_mut().zip(acc) {
+        // SAFETY: four f64 into a [f64; 4].
+        unsafe { _mm256_storeu_pd(o.as_mut_ptr(), a) };
+    }
+    out
+}
+
+/// The projection `acc[n·K + k] = Σ_j w[n·J + j] · y[k·J + j]` of [`super::kernel::project`]
+/// on AVX2: lane `i` sums the neighbours `j ≡ i (mod 8)` in ascending `j` with fused
+/// multiply-adds, then the eight lanes are added in the tree `((l0 + l1) + (l2 + l3)) + ((l4 +
+/// l5) + (l6 + l7))`. Tiles of two shells × four harmonics keep their eight lane sums in
+/// registers and reduce them together with horizontal adds (each pair sum is the same IEEE sum
+/// whichever operand comes first), so nothing goes through memory between the sums and the
+/// tree; the bytes are those of the lane-by-lane code.
+///
+/// # Panics
+/// If `J` is not a multiple of [`LANES`] or a slice is too short.
+#[target_feature(enable = "avx2,fma")]
+pub(crate) fn project(w: &[f32], y: &[f32], jp: usize, n_sh: usize, nk: usize, acc: &mut [f32]) {
+    assert!(jp.is_multiple_of(LANES));
+    assert!(w.len() >= n_sh * jp && y.len() >= nk * jp && acc.len() >= n_sh * nk);
+    let mut n = 0;
+    while n < n_sh {
+        let two = n + 2 <= n_sh;
+        let mut k = 0;
+        while k + 4 <= nk {
+            if two {
+                let s = lane_sums::<2, 4>(w, y, jp, n, k);
+                let t = tree8([
+                    s[0][0], s[0][1], s[0][2], s[0][3], s[1][0], s[1][1], s[1][2], s[1][3],
+                ]);
+                // SAFETY: `n + 1 < n_sh` and `k + 4 ≤ nk`, inside `acc` (asserted above).
+                unsafe {
+                    _mm_storeu_ps(acc.as_mut_ptr().add(n * nk + k), _mm256_castps256_ps128(t));
+                    _mm_storeu_ps(
+                        acc.as_mut_ptr().add((n + 1) * nk + k),
+                        _mm256_extractf128_ps::<1>(t),
+                    );
+                }
+            } else {
+                let s = lane_sums::<1, 4>(w, y, jp, n, k);
+                let t = tree8([
+                    s[0][0], s[0][1], s[0][2], s[0][3], s[0][0], s[0][1], s[0][2], s[0][3],
+                ]);
+                // SAFETY: `n < n_sh` and `k + 4 ≤ nk`.
+                unsafe {
+                    _mm_storeu_ps(acc.as_mut_ptr().add(n * nk + k), _mm256_castps256_ps128(t))
+                };
+            }
+            k += 4;
+        }
+        for k in k..nk {
+            let rows = if two { 2 } else { 1 };
+            for a in 0..rows {
+                let s = lane_sums::<1, 1>(w, y, jp, n + a, k);
+                let mut l = [0.0f32; LANES];
+                // SAFETY: eight f32 into a [f32; 8].
+                unsafe { _mm256_storeu_ps(l.as_mut_ptr(), s[0][0]) };
+                acc[(n + a) * nk + k] =
+                    ((l[0] + l[1]) + (l[2] + l[3])) + ((l[4] + l[5]) + (l[6] + l[7]));
+            }
+        }
+        n += if two { 2 } else { 1 };
+    }
+}
+
+/// Lane sums of shells `n..n + NB` against harmonics `k..k + KB` (fused multiply-adds, `j`
+/// ascending), in registers.
+#[target_feature(enable = "avx2,fma")]
+#[inline]
+fn lane_sums<const NB: usize, const KB: usize>(
+    w: &[f32],
+    y: &[f32],
+    jp: usize,
+    n: usize,
+    k: usize,
+) -> [[__m256; KB]; NB] {
+    let mut s = [[_mm256_setzero_ps(); KB]; NB];
+    let (wp, yp) = (w.as_ptr(), y.as_ptr());
+    for j0 in (0..jp).step_by(LANES) {
+        // SAFETY: rows `n..n + NB` of `w` and `k..k + KB` of `y` hold `jp` values each (the
+        // caller's assertions), `j0 + 8 ≤ jp`.
+        unsafe {
+            let wv: [__m256; NB] =
+                std::array::from_fn(|a| _mm256_loadu_ps(wp.add((n + a) * jp + j0)));
+            for b in 0..KB {
+                let yv = _mm256_loadu_ps(yp.add((k + b) * jp + j0));
+                for (sa, wa) in s.iter_mut().zip(&wv) {
+                    sa[b] = _mm256_fmadd_ps(*wa, yv, sa[b]);
+                }
+            }
+        }
+    }
+    s
+}
+
+/// The eight lane sums of `v[0..8]` reduced by the tree, as one vector `[t0, …, t7]`.
+#[target_feature(enable = "avx2,fma")]
+#[inline]
+fn tree8(v: [__m256; 8]) -> __m256 {
+    // [v0: 01 23, v1: 01 23, v0: 45 67, v1: 45 67] and so on.
+    let a = _mm256_hadd_ps(v[0], v[1]);
+    let b = _mm256_hadd_ps(v[2], v[3]);
+    let c = _mm256_hadd_ps(v[4], v[5]);
+    let d = _mm256_hadd_ps(v[6], v[7]);
+    // [v0: 0123, v1: 0123, v2: 0123, v3: 0123 | v0: 4567, ...]
+    let ab = _mm256_hadd_ps(a, b);
+    let cd = _mm256_hadd_ps(c, d);
+    // low halves hold the 0123 sums of v0..v3 (ab) and v4..v7 (cd), high the 4567 sums.
+    let lo = _mm256_permute2f128_ps::<0x20>(ab, cd);
+    let hi = _mm256_permute2f128_ps::<0x31>(ab, cd);
+    _mm256_add_ps(lo, hi)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::so3::rng::SplitMix64;
+
+    #[test]
+    fn lane_reduction_is_the_scalar_tree() {
+        if !(is_x86_feature_detected!("avx2") && is_x86_feature_detected!("fma")) {
+            return;
+        }
+        let mut rng = SplitMix64::new(3);
+        for n in [0usize, 1, 7, 8, 9, 150, 151] {
+            let lanes: Vec<[f32; LANES]> = (0..n)
+                .map(|_| {
+                    std::array::from_fn(|_| {
+                        let v = rng.next_f64() * 2.0 - 1.0;
+                        (v * 10f64.powf(rng.next_f64() * 8.0 - 4.0)) as f32
+                    })
+                })
+                .collect();
+            for l8 in lanes.chunks(8) {
+                let mut v = [[0.0f32; LANES]; 8];
+                v[..l8.len()].copy_from_slice(l8);
+                let mut got = [0.0f32; 8];
+                // SAFETY: AVX2 and FMA are present (checked above).
+                unsafe {
+                    let t = tree8(std::array::from_fn(|i| _mm256_loadu_ps(v[i].as_ptr())));
+                    _mm256_storeu_ps(got.as_mut_ptr(), t);
+                }
+                for (g, l) in got.iter().zip(&v) {
+                    let want = ((l[0] + l[1]) + (l[2] + l[3])) + ((l[4] + l[5]) + (l[6] + l[7]));
+                    assert_eq!(g.to_bits(), want.to_bits(), "{l:?}");
+                }
+            }
+        }
+    }
+}
