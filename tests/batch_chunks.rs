@@ -85,7 +85,7 @@ fn a_file_above_the_budget_equals_the_whole_file() {
     opts.memory_budget = Some(RESERVE_BYTES + 15_000 * 64 * 5 / 4);
     assert!((14_000..=15_000).contains(&block_points(opts.memory_budget.unwrap())));
     let out = dir.path().join("out");
-    let p = plan(&[input.clone()], &out, &opts).unwrap();
+    let p = plan(std::slice::from_ref(&input), &out, &opts).unwrap();
     let o = run_tile(&p, 0).unwrap();
     assert!(o.blocks >= 6, "{} blocks", o.blocks);
     assert_eq!(o.rows as usize, n);

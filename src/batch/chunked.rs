@@ -526,8 +526,7 @@ pub(super) fn run(
     let ncols = column_names(&recipe, plan.options.format).len();
     let step = chunk_rows(ncols);
     let rows_path = |b: usize| work.join(format!("rows{b}.bin"));
-    for b in 0..blocks.len() {
-        let (nc, nh) = sizes[b];
+    for (b, &(nc, nh)) in sizes.iter().enumerate() {
         let bp = block_path(b);
         let rp = rows_path(b);
         let mut out =

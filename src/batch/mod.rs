@@ -592,7 +592,7 @@ fn compute_tile(
     let (cloud, info) = match cached {
         Some(c) => c,
         None => match read_or_chunk(plan, index, record, progress, budget)? {
-            Whole::Read(c, i) => (c, i),
+            Whole::Read(whole) => *whole,
             Whole::Chunked(blocks) => return Ok(blocks),
         },
     };
@@ -650,7 +650,7 @@ fn compute_tile(
 /// How [`compute_tile`] gets a tile not cached whole.
 enum Whole {
     /// Read whole.
-    Read(crate::cloud::Cloud, crate::io::FileInfo),
+    Read(Box<(crate::cloud::Cloud, crate::io::FileInfo)>),
     /// Done in this many spatial blocks.
     Chunked(usize),
 }
@@ -677,8 +677,10 @@ fn read_or_chunk(
     };
     let whole = chunked::whole_bytes(points, record_len);
     if whole > budget {
-        let can =
-            chunked::format_chunks(plan.options.format) && tile.bounds.is_some() && format != "E57";
+        let can = chunked::format_chunks(plan.options.format)
+            && points > 0
+            && tile.bounds.is_some()
+            && format != "E57";
         if can {
             let halo = gather_halo(plan, index, record, budget);
             let done = chunked::run(
@@ -707,7 +709,7 @@ fn read_or_chunk(
     }
     drop(src);
     let (cloud, info) = read_cloud(&tile.input)?;
-    Ok(Whole::Read(cloud, info))
+    Ok(Whole::Read(Box::new((cloud, info))))
 }
 
 /// The points the halo neighbours of tile `index` lend it (global coordinates, neighbours in
