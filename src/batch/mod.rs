@@ -143,6 +143,17 @@ pub struct BatchOptions {
     /// the rows.
     #[serde(default)]
     pub memory_budget: Option<u64>,
+    /// Read a halo neighbour that this process runs later (after the current tile in
+    /// [`Plan::todo`]) whole, and keep it for its turn, so that it is decoded once, not twice
+    /// (within a quarter of the memory budget). Right for one process running the tiles of
+    /// `todo` in order (the CLI); turn it off when the tiles are spread over processes (one
+    /// task per tile on a cluster), where the kept tile would mostly run elsewhere.
+    #[serde(default = "yes")]
+    pub keep_neighbours_whole: bool,
+}
+
+fn yes() -> bool {
+    true
 }
 
 impl BatchOptions {
@@ -156,6 +167,7 @@ impl BatchOptions {
             restart: false,
             halo_cache_points: HALO_CACHE_POINTS,
             memory_budget: None,
+            keep_neighbours_whole: true,
         }
     }
 }
@@ -732,11 +744,12 @@ fn gather_halo(plan: &Plan, index: usize, record: &mut TileRecord, budget: u64) 
             let nb = &plan.tiles[j];
             let boxes: Vec<Bbox> = nb.halo.iter().filter_map(|&k| plan.reach(k)).collect();
             let small = chunked::whole_bytes(nb.points, 64) <= whole_limit as u64;
-            let keep = if later.contains(&j) && small && limit > 0 {
-                whole_limit
-            } else {
-                0
-            };
+            let keep =
+                if plan.options.keep_neighbours_whole && later.contains(&j) && small && limit > 0 {
+                    whole_limit
+                } else {
+                    0
+                };
             match HaloCache::points_for(&nb.input, nb.stamp.as_ref(), &want, boxes, limit, keep) {
                 Ok(pts) => {
                     record.halo_points += pts.len() as u64;
