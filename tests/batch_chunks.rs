@@ -15,6 +15,7 @@ use batch_tiles::{cut, read_npy, thin};
 use equiscan::Cloud;
 use equiscan::batch::chunked::{RESERVE_BYTES, block_points};
 use equiscan::batch::{BatchOptions, JOURNAL_DIR, plan, run_tile};
+use equiscan::descriptor::output::Format;
 use equiscan::descriptor::{Centres, Engine, Features, Recipe};
 use equiscan::io::{read_cloud, write_las};
 
@@ -166,4 +167,115 @@ fn tiles_in_blocks_keep_their_halos() {
         worst = worst.max(compare(&t.output, &want, n));
     }
     println!("9 tiles in blocks: largest deviation {worst:.2e} of the column maximum");
+}
+
+/// Runs `input` through `batch` in `format`, whole and in blocks of at most about 15 000
+/// points; returns the two outputs.
+fn both_ways(input: &Path, dir: &Path, format: Format) -> (std::path::PathBuf, std::path::PathBuf) {
+    let recipe = Recipe::builder().radius(RADIUS).build().unwrap();
+    let mut opts = BatchOptions::new(recipe);
+    opts.format = format;
+    let whole = plan(
+        &[input.to_path_buf()],
+        &dir.join(format!("whole_{}", format.ext())),
+        &opts,
+    )
+    .unwrap();
+    assert_eq!(run_tile(&whole, 0).unwrap().blocks, 0);
+    opts.memory_budget = Some(RESERVE_BYTES + 15_000 * 64 * 5 / 4);
+    let cut = plan(
+        &[input.to_path_buf()],
+        &dir.join(format!("cut_{}", format.ext())),
+        &opts,
+    )
+    .unwrap();
+    assert!(run_tile(&cut, 0).unwrap().blocks >= 6);
+    no_chunk_folders(&dir.join(format!("cut_{}", format.ext())));
+    (whole.tiles[0].output.clone(), cut.tiles[0].output.clone())
+}
+
+/// Largest |a − b| over each column's largest |a|, columns given as rows × cols values.
+fn assert_close(a: &[f32], b: &[f32], cols: usize, what: &str) {
+    assert_eq!(a.len(), b.len(), "{what}");
+    let rows = a.len() / cols;
+    for c in 0..cols {
+        let m = (0..rows)
+            .map(|r| a[r * cols + c].abs())
+            .fold(0.0f32, f32::max);
+        for r in 0..rows {
+            let d = (a[r * cols + c] - b[r * cols + c]).abs();
+            assert!(
+                d <= 1e-5 * m,
+                "{what}: row {r} column {c}: {} vs {}",
+                a[r * cols + c],
+                b[r * cols + c]
+            );
+        }
+    }
+}
+
+#[test]
+fn outputs_with_point_attributes_in_blocks_equal_the_whole_run() {
+    // LAS records (every field and the feature columns as Extra Bytes), CSV text and PLY
+    // layout: blocks give the whole run's points in order, values to rounding.
+    let cloud = station(8);
+    let dir = tempfile::tempdir().unwrap();
+    let input = dir.path().join("big.las");
+    write_las(&input, &cloud, &[]).unwrap();
+
+    let (w, c) = both_ways(&input, dir.path(), Format::Las);
+    let ((a, ia), (b, ib)) = (read_cloud(&w).unwrap(), read_cloud(&c).unwrap());
+    assert_eq!(a.len(), cloud.len());
+    assert_eq!((a.origin, &a.positions), (b.origin, &b.positions));
+    assert_eq!(a.intensity, b.intensity);
+    assert_eq!(a.classification, b.classification);
+    assert_eq!(a.gps_time, b.gps_time);
+    assert_eq!(ia.other_fields, ib.other_fields);
+    let (ra, rb) = (a.records.unwrap(), b.records.unwrap());
+    let (len, extra) = (ra.record_len, ra.extra_bytes);
+    assert_eq!((len, extra), (rb.record_len, rb.extra_bytes));
+    assert!(extra >= 4 * 7, "{extra} extra bytes");
+    let floats = |r: &equiscan::cloud::SourceRecords| -> Vec<f32> {
+        (0..r.len())
+            .flat_map(|i| {
+                r.record(i)[len - extra..]
+                    .chunks_exact(4)
+                    .map(|c| f32::from_le_bytes([c[0], c[1], c[2], c[3]]))
+                    .collect::<Vec<_>>()
+            })
+            .collect()
+    };
+    for i in 0..ra.len() {
+        // Every field but the Extra Bytes, exactly.
+        assert_eq!(
+            &ra.record(i)[..len - extra],
+            &rb.record(i)[..len - extra],
+            "record {i}"
+        );
+    }
+    assert_close(&floats(&ra), &floats(&rb), extra / 4, "LAS Extra Bytes");
+
+    let (w, c) = both_ways(&input, dir.path(), Format::Csv);
+    let parse = |p: &Path| -> (String, Vec<f32>) {
+        let t = std::fs::read_to_string(p).unwrap();
+        let (head, body) = t.split_once('\n').unwrap();
+        let v = body
+            .lines()
+            .flat_map(|l| {
+                l.split(',')
+                    .map(|x| x.parse::<f32>().unwrap())
+                    .collect::<Vec<_>>()
+            })
+            .collect();
+        (head.to_string(), v)
+    };
+    let ((ha, va), (hb, vb)) = (parse(&w), parse(&c));
+    assert_eq!(ha, hb);
+    assert_close(&va, &vb, ha.split(',').count(), "CSV");
+
+    let (w, c) = both_ways(&input, dir.path(), Format::Ply);
+    let (a, b) = (std::fs::read(&w).unwrap(), std::fs::read(&c).unwrap());
+    assert_eq!(a.len(), b.len());
+    let end = a.windows(11).position(|x| x == b"end_header\n").unwrap() + 11;
+    assert_eq!(a[..end], b[..end], "PLY header");
 }

@@ -367,6 +367,10 @@ pub(super) fn run(
     let mut lend: Option<Vec<[f64; 3]>> =
         (tile.stamp.is_some() && !lend_boxes.is_empty() && limit > 0).then(Vec::new);
     let mut actual: Option<Bbox> = None;
+    // Which attributes the points carry (for the output's layout) and whether a colour
+    // exceeds 8 bits (PLY writes 16-bit colour then).
+    let presence = src.empty_cloud(0);
+    let mut wide = false;
     let mut chunk = src.empty_cloud(READ_CHUNK);
     loop {
         chunk.positions.clear();
@@ -374,6 +378,10 @@ pub(super) fn run(
         if src.read_into(&mut chunk, READ_CHUNK)? == 0 {
             break;
         }
+        wide |= chunk
+            .color
+            .as_ref()
+            .is_some_and(|c| c.iter().flatten().any(|&v| v > 255));
         let o = *origin.get_or_insert(chunk.origin);
         let g = *grid.get_or_insert_with(|| Grid::new(&bounds, o));
         if let Some(b) = Bbox::of_cloud(&chunk) {
@@ -523,7 +531,8 @@ pub(super) fn run(
 
     // 4. Compute block by block.
     let engine = Engine::new(recipe.clone());
-    let ncols = column_names(&recipe, plan.options.format).len();
+    // Rows files hold the local position first whatever the output format.
+    let ncols = column_names(&recipe, Format::Npy).len();
     let step = chunk_rows(ncols);
     let rows_path = |b: usize| work.join(format!("rows{b}.bin"));
     for (b, &(nc, nh)) in sizes.iter().enumerate() {
@@ -571,7 +580,9 @@ pub(super) fn run(
         let _ = fs::remove_file(&bp);
     }
 
-    // 5. Merge by input index into the feature file.
+    // 5. Merge by input index into the feature file. Formats whose rows carry the points'
+    // attributes (PLY, LAS, LAZ, Parquet) read the input a second time, in order, beside
+    // the merge.
     let spec = FileSpec {
         path: tile.output.clone(),
         format: plan.options.format,
@@ -580,74 +591,117 @@ pub(super) fn run(
         centres: CentresInfo::All,
         radius_suggested: false,
     };
-    let frame = Cloud::new(origin, Vec::new());
     let centres = CentreList::All(n);
-    let mut writer = FeatureWriter::create(&frame, spec, &centres)?;
-    let mut readers: Vec<BufReader<File>> = Vec::with_capacity(blocks.len());
-    for b in 0..blocks.len() {
-        let rp = rows_path(b);
-        readers.push(BufReader::with_capacity(
-            64 << 10,
-            File::open(&rp).map_err(|e| io_err(&rp, e))?,
-        ));
-    }
-    let row_bytes = 4 * ncols;
-    let mut heads: Vec<Vec<u8>> = vec![vec![0u8; row_bytes]; blocks.len()];
-    let mut heap = BinaryHeap::new();
-    let next = |r: &mut BufReader<File>, row: &mut [u8], b: usize| -> Result<Option<u64>> {
-        let mut ib = [0u8; 8];
-        match r.read_exact(&mut ib) {
-            Ok(()) => {}
-            Err(e) if e.kind() == std::io::ErrorKind::UnexpectedEof => return Ok(None),
-            Err(e) => return Err(io_err(&rows_path(b), e)),
-        }
-        r.read_exact(row).map_err(|e| io_err(&rows_path(b), e))?;
-        Ok(Some(u64::from_le_bytes(ib)))
-    };
-    for b in 0..blocks.len() {
-        if let Some(i) = next(&mut readers[b], &mut heads[b], b)? {
-            heap.push(Reverse((i, b)));
-        }
-    }
+    let mut frame = presence;
+    frame.origin = origin;
+    let mut writer = FeatureWriter::create_streaming(&frame, spec, &centres, wide)?;
+    let mut merge = Merge::open(blocks.len(), ncols, &rows_path)?;
     let mut pending: Vec<f32> = Vec::with_capacity(step * ncols);
-    let mut expect = 0u64;
-    while let Some(Reverse((i, b))) = heap.pop() {
-        if i != expect {
-            return Err(Error::internal(
-                format!("the chunked rows skip from point {expect} to {i}"),
-                "report this as a bug",
-            ));
-        }
-        expect += 1;
-        pending.extend(
-            heads[b]
-                .chunks_exact(4)
-                .map(|c| f32::from_le_bytes([c[0], c[1], c[2], c[3]])),
-        );
-        if pending.len() >= step * ncols {
+    if plan.options.format.has_sidecar() {
+        while merge.take(step, &mut pending)? {
             writer.push(&features_from_rows(&recipe, &pending, ncols))?;
-            pending.clear();
         }
-        if let Some(j) = next(&mut readers[b], &mut heads[b], b)? {
-            heap.push(Reverse((j, b)));
+    } else {
+        let mut again = PointSource::open(&tile.input)?;
+        let mut chunk = again.empty_cloud(step);
+        loop {
+            chunk.positions.clear();
+            clear_attributes(&mut chunk);
+            let m = again.read_into(&mut chunk, step)?;
+            if m == 0 {
+                break;
+            }
+            if !merge.take(m, &mut pending)? || pending.len() != m * ncols {
+                return Err(Error::internal(
+                    "the chunked rows end before the input",
+                    "report this as a bug",
+                ));
+            }
+            let mut f = features_from_rows(&recipe, &pending, ncols);
+            f.indices = Some((0..m).collect());
+            writer.push_with(&chunk, &f)?;
         }
     }
-    if !pending.is_empty() {
-        writer.push(&features_from_rows(&recipe, &pending, ncols))?;
-    }
-    if expect != n as u64 {
+    if merge.taken != n as u64 || merge.take(1, &mut pending)? {
         return Err(Error::internal(
-            format!("the chunked rows hold {expect} points of {n}"),
+            format!("the chunked rows hold {} points of {n}", merge.taken),
             "report this as a bug",
         ));
     }
-    drop(readers);
+    drop(merge);
     let written = writer.finish()?;
     record.rows = written.rows as u64;
     record.files = journal::file_records(&written.files)?;
     Ok(ChunkedOutcome {
         blocks: blocks.len(),
     })
+}
+
+/// A k-way merge of the blocks' rows files by input index.
+struct Merge {
+    readers: Vec<(PathBuf, BufReader<File>)>,
+    heads: Vec<Vec<u8>>,
+    heap: BinaryHeap<Reverse<(u64, usize)>>,
+    /// Rows taken so far (the next expected input index).
+    taken: u64,
+}
+
+impl Merge {
+    fn open(blocks: usize, ncols: usize, path: &dyn Fn(usize) -> PathBuf) -> Result<Merge> {
+        let mut m = Merge {
+            readers: Vec::with_capacity(blocks),
+            heads: vec![vec![0u8; 4 * ncols]; blocks],
+            heap: BinaryHeap::new(),
+            taken: 0,
+        };
+        for b in 0..blocks {
+            let p = path(b);
+            let f = File::open(&p).map_err(|e| io_err(&p, e))?;
+            m.readers.push((p, BufReader::with_capacity(64 << 10, f)));
+            m.advance(b)?;
+        }
+        Ok(m)
+    }
+
+    /// Reads block `b`'s next row into its head and queues it.
+    fn advance(&mut self, b: usize) -> Result<()> {
+        let (path, r) = &mut self.readers[b];
+        let mut ib = [0u8; 8];
+        match r.read_exact(&mut ib) {
+            Ok(()) => {}
+            Err(e) if e.kind() == std::io::ErrorKind::UnexpectedEof => return Ok(()),
+            Err(e) => return Err(io_err(path, e)),
+        }
+        r.read_exact(&mut self.heads[b])
+            .map_err(|e| io_err(path, e))?;
+        self.heap.push(Reverse((u64::from_le_bytes(ib), b)));
+        Ok(())
+    }
+
+    /// Replaces `out` with the next (up to) `count` rows in input order; false when none is
+    /// left.
+    fn take(&mut self, count: usize, out: &mut Vec<f32>) -> Result<bool> {
+        out.clear();
+        for _ in 0..count {
+            let Some(Reverse((i, b))) = self.heap.pop() else {
+                break;
+            };
+            if i != self.taken {
+                return Err(Error::internal(
+                    format!("the chunked rows skip from point {} to {i}", self.taken),
+                    "report this as a bug",
+                ));
+            }
+            self.taken += 1;
+            out.extend(
+                self.heads[b]
+                    .chunks_exact(4)
+                    .map(|c| f32::from_le_bytes([c[0], c[1], c[2], c[3]])),
+            );
+            self.advance(b)?;
+        }
+        Ok(!out.is_empty())
+    }
 }
 
 /// Empties every attribute column of a chunk cloud (kept present, so the reader fills them).
@@ -737,9 +791,13 @@ fn features_from_rows(recipe: &Recipe, rows: &[f32], ncols: usize) -> Features {
     f
 }
 
-/// True when outputs of `format` can be written in chunks.
+/// True when outputs of `format` can be written in chunks (every format: NPY and CSV rows
+/// from the merge alone, the others with each point's attributes from a second read).
 pub fn format_chunks(format: Format) -> bool {
-    matches!(format, Format::Npy | Format::Csv)
+    matches!(
+        format,
+        Format::Npy | Format::Csv | Format::Ply | Format::Las | Format::Laz | Format::Parquet
+    )
 }
 
 #[cfg(test)]
