@@ -37,9 +37,11 @@
 //! bytes per point (split), then 20 bytes per point and halo point (blocks), then the rows
 //! files (the output's size plus 8 bytes per row).
 //!
-//! Outputs written in chunks: NPY and CSV (their rows carry no point attributes). A PLY, LAS,
-//! LAZ or Parquet output copies each point's attributes and is still computed on the whole
-//! input, with a warning when that exceeds the budget.
+//! Every output format: NPY and CSV rows come from the merge alone; PLY, LAS, LAZ and Parquet
+//! rows copy each point's attributes (LAS: its whole record), so the merge reads the input a
+//! second time, in order, a chunk at a time, beside the rows (a second decode for LAZ
+//! inputs). E57 inputs (decoded whole by their reader) and inputs without bounds are read
+//! whole, with a warning when that exceeds the budget.
 
 use std::cmp::Reverse;
 use std::collections::BinaryHeap;
@@ -789,15 +791,6 @@ fn features_from_rows(recipe: &Recipe, rows: &[f32], ncols: usize) -> Features {
         }
     }
     f
-}
-
-/// True when outputs of `format` can be written in chunks (every format: NPY and CSV rows
-/// from the merge alone, the others with each point's attributes from a second read).
-pub fn format_chunks(format: Format) -> bool {
-    matches!(
-        format,
-        Format::Npy | Format::Csv | Format::Ply | Format::Las | Format::Laz | Format::Parquet
-    )
 }
 
 #[cfg(test)]

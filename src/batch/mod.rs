@@ -688,12 +688,8 @@ fn read_or_chunk(
         )
     };
     let whole = chunked::whole_bytes(points, record_len);
-    if whole > budget {
-        let can = chunked::format_chunks(plan.options.format)
-            && points > 0
-            && tile.bounds.is_some()
-            && format != "E57";
-        if can {
+    if whole > budget && points > 0 {
+        if tile.bounds.is_some() && format != "E57" {
             let halo = gather_halo(plan, index, record, budget);
             let done = chunked::run(
                 plan,
@@ -712,10 +708,8 @@ fn read_or_chunk(
             budget >> 20,
             if format == "E57" {
                 "E57 scans are not read in chunks"
-            } else if tile.bounds.is_none() {
-                "its bounds are unknown"
             } else {
-                "only npy and csv outputs are written in chunks"
+                "its bounds are unknown"
             }
         ));
     }

@@ -57,7 +57,7 @@ pub struct BatchArgs {
     pub restart: bool,
     /// Memory one tile may take, e.g. 800M or 4G (default: half the memory available). A
     /// file that would need more whole is read in one pass, cut into spatial blocks with
-    /// halos and merged back in point order (npy and csv outputs; same rows).
+    /// halos and merged back in point order (same rows, any format).
     #[arg(long, value_name = "SIZE", value_parser = equiscan::batch::chunked::parse_size)]
     pub memory_budget: Option<u64>,
     /// `-q`, `--json` (the summary as one JSON object), `--threads`.
