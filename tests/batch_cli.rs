@@ -445,3 +445,87 @@ fn tile_grid_off_writes_the_bytes_of_features() {
         std::fs::read(p.join("one.npy")).unwrap()
     );
 }
+
+#[test]
+fn a_memory_budget_cuts_tiles_in_blocks_with_the_same_rows() {
+    let dir = tiles(16);
+    let d = dir.path();
+    // A chunk folder left by a killed run of this host is removed at the next plan; one of
+    // another host sharing the folder is kept.
+    let journal = d.join("cut").join(equiscan::batch::JOURNAL_DIR);
+    std::fs::create_dir_all(&journal).unwrap();
+    let host = equiscan::io::host_label();
+    let dead = journal.join(format!("chunks.{host}.{}.0", u32::MAX - 1));
+    let other = journal.join(format!("chunks.{host}-b.{}.0", u32::MAX - 1));
+    for f in [&dead, &other] {
+        std::fs::create_dir(f).unwrap();
+        std::fs::write(f.join("block0.bin"), b"left").unwrap();
+    }
+    let bad = equiscan(
+        &[
+            "batch",
+            "tiles",
+            "-o",
+            "cut",
+            "-r",
+            "0.12",
+            "--memory-budget",
+            "lots",
+        ],
+        d,
+    );
+    assert_eq!(bad.status.code(), Some(2), "{}", text(&bad.stderr));
+    assert!(
+        text(&bad.stderr).contains("memory size"),
+        "{}",
+        text(&bad.stderr)
+    );
+    // 48 MiB is the fixed reserve: every tile goes in blocks of the smallest size.
+    let cut = equiscan(
+        &[
+            "batch",
+            "tiles",
+            "-o",
+            "cut",
+            "-r",
+            "0.12",
+            "--memory-budget",
+            "48M",
+        ],
+        d,
+    );
+    assert!(cut.status.success(), "{}", text(&cut.stderr));
+    assert!(
+        text(&cut.stderr).contains("blocks (memory budget)"),
+        "{}",
+        text(&cut.stderr)
+    );
+    assert!(!dead.exists() && other.exists());
+    let whole = equiscan(&["batch", "tiles", "-o", "whole", "-r", "0.12"], d);
+    assert!(whole.status.success(), "{}", text(&whole.stderr));
+    assert!(!text(&whole.stderr).contains("blocks (memory budget)"));
+    let (a, b) = (contents(&d.join("cut")), contents(&d.join("whole")));
+    assert_eq!(a.len(), b.len());
+    for ((na, ba), (nb, bb)) in a.iter().zip(&b) {
+        assert_eq!(na, nb);
+        if na.ends_with(".npy") {
+            // Same shape and header; positions, counts and flags equal, values to rounding.
+            assert_eq!(ba.len(), bb.len(), "{na}");
+            let (ra, ca, va) = batch_tiles::read_npy(&d.join("cut").join(na));
+            let (_, _, vb) = batch_tiles::read_npy(&d.join("whole").join(na));
+            let colmax: Vec<f32> = (0..ca)
+                .map(|c| (0..ra).map(|r| vb[r * ca + c].abs()).fold(0.0, f32::max))
+                .collect();
+            for r in 0..ra {
+                for c in 0..ca {
+                    let (x, y) = (va[r * ca + c], vb[r * ca + c]);
+                    if c < 5 {
+                        assert_eq!(x, y, "{na} row {r} column {c}");
+                    } else {
+                        assert!((x - y).abs() <= 1e-5 * colmax[c], "{na} row {r} column {c}");
+                    }
+                }
+            }
+        }
+    }
+}

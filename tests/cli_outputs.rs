@@ -99,15 +99,20 @@ fn sigint_while_writing_removes_the_temporary_file_and_exits_130() {
 fn stale_temporary_files_of_dead_runs_are_removed() {
     let dir = tempfile::tempdir().unwrap();
     sphere(dir.path(), "s.ply", 2_000);
-    let stale = format!(".s.npy.{}.0{}", u32::MAX - 1, equiscan::io::TEMP_SUFFIX);
+    let host = equiscan::io::host_label();
+    let suffix = equiscan::io::TEMP_SUFFIX;
+    let stale = format!(".s.npy.{host}.{}.0{suffix}", u32::MAX - 1);
     std::fs::write(dir.path().join(&stale), b"left by a killed run").unwrap();
+    // The same pid on another host sharing the folder: maybe still writing there, kept.
+    let elsewhere = format!(".t.npy.{host}-b.{}.0{suffix}", u32::MAX - 1);
+    std::fs::write(dir.path().join(&elsewhere), b"in flight on host b").unwrap();
     let out = equiscan(&["features", "s.ply", "-o", "s.npy", "-r", "2"], dir.path());
     assert!(
         out.status.success(),
         "{}",
         String::from_utf8_lossy(&out.stderr)
     );
-    assert_eq!(temp_files(dir.path()), Vec::<String>::new());
+    assert_eq!(temp_files(dir.path()), vec![elsewhere]);
 }
 
 #[test]

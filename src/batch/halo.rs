@@ -13,6 +13,11 @@
 //! overlap), is kept in a process-wide cache bounded in points ([`HaloCache`]), so a tile read
 //! once, as a neighbour or for itself, is not read again for the next neighbour while its
 //! strip stays in the cache.
+//!
+//! A neighbour that this process runs later is read whole when it is first needed (one
+//! decode instead of a streaming pass now and a whole read at its turn, which doubled the
+//! cost of compressed tiles) and kept whole, within a memory bound, until its own turn takes
+//! it ([`HaloCache::take_whole`]).
 
 use std::path::Path;
 use std::sync::Mutex;
@@ -21,7 +26,7 @@ use serde::{Deserialize, Serialize};
 
 use crate::cloud::Cloud;
 use crate::error::Result;
-use crate::io::PointSource;
+use crate::io::{FileInfo, PointSource, read_cloud};
 
 use super::journal::Stamp;
 
@@ -95,13 +100,42 @@ struct Share {
     points: Vec<[f64; 3]>,
 }
 
-/// Process-wide cache of tiles' shares, least recently used dropped first, at most
-/// `limit` points in all.
-pub struct HaloCache {
-    shares: Vec<Share>,
+/// A tile read whole as a neighbour before its own turn.
+struct Whole {
+    path: std::path::PathBuf,
+    stamp: Stamp,
+    cloud: Cloud,
+    info: FileInfo,
+    bytes: usize,
 }
 
-static CACHE: Mutex<HaloCache> = Mutex::new(HaloCache { shares: Vec::new() });
+/// Process-wide cache of tiles' shares, least recently used dropped first, at most
+/// `limit` points in all; and of tiles read whole before their turn, oldest dropped first,
+/// at most a given number of bytes in all.
+pub struct HaloCache {
+    shares: Vec<Share>,
+    wholes: Vec<Whole>,
+}
+
+static CACHE: Mutex<HaloCache> = Mutex::new(HaloCache {
+    shares: Vec::new(),
+    wholes: Vec::new(),
+});
+
+/// Bytes a cloud holds in memory (positions, attributes, LAS records).
+pub fn cloud_bytes(c: &Cloud) -> usize {
+    fn sz<T>(v: &Option<Vec<T>>) -> usize {
+        v.as_ref().map_or(0, |v| v.len() * std::mem::size_of::<T>())
+    }
+    c.positions.len() * 12
+        + sz(&c.intensity)
+        + sz(&c.color)
+        + sz(&c.normals)
+        + sz(&c.classification)
+        + sz(&c.return_number)
+        + sz(&c.gps_time)
+        + c.records.as_ref().map_or(0, |r| r.bytes.len())
+}
 
 fn cache() -> std::sync::MutexGuard<'static, HaloCache> {
     CACHE.lock().unwrap_or_else(|p| p.into_inner())
@@ -129,7 +163,13 @@ impl HaloCache {
 
     /// Keeps `points` as the share of `path` cut for `boxes`, dropping the oldest shares
     /// beyond `limit` points.
-    fn keep(path: &Path, stamp: Stamp, boxes: Vec<Bbox>, points: Vec<[f64; 3]>, limit: usize) {
+    pub(super) fn keep(
+        path: &Path,
+        stamp: Stamp,
+        boxes: Vec<Bbox>,
+        points: Vec<[f64; 3]>,
+        limit: usize,
+    ) {
         if points.len() > limit {
             return;
         }
@@ -164,21 +204,66 @@ impl HaloCache {
         Self::keep(path, stamp, boxes, pts, limit);
     }
 
+    /// The whole tile `path` (with `stamp`) if it was read as a neighbour before its turn;
+    /// it leaves the cache.
+    pub fn take_whole(path: &Path, stamp: &Stamp) -> Option<(Cloud, FileInfo)> {
+        let mut c = cache();
+        let k = c
+            .wholes
+            .iter()
+            .position(|w| w.path == path && w.stamp == *stamp)?;
+        let w = c.wholes.remove(k);
+        Some((w.cloud, w.info))
+    }
+
+    /// Keeps a tile read whole, dropping the oldest beyond `limit` bytes.
+    fn keep_whole(path: &Path, stamp: Stamp, cloud: Cloud, info: FileInfo, limit: usize) {
+        let bytes = cloud_bytes(&cloud);
+        if bytes > limit {
+            return;
+        }
+        let mut c = cache();
+        c.wholes.retain(|w| w.path != path);
+        let mut total: usize = c.wholes.iter().map(|w| w.bytes).sum::<usize>() + bytes;
+        while total > limit && !c.wholes.is_empty() {
+            total -= c.wholes.remove(0).bytes;
+        }
+        c.wholes.push(Whole {
+            path: path.to_path_buf(),
+            stamp,
+            cloud,
+            info,
+            bytes,
+        });
+    }
+
     /// The points of neighbour `path` inside `want`: from the cache, or by reading the file
-    /// once and keeping its share for all of `boxes` (its neighbours' grown boxes).
+    /// once and keeping its share for all of `boxes` (its neighbours' grown boxes). With
+    /// `whole_limit` > 0 (a tile this process runs later, small enough) the file is read
+    /// whole and kept whole too, within `whole_limit` bytes of whole tiles, for its turn.
     pub(super) fn points_for(
         path: &Path,
         stamp: Option<&Stamp>,
         want: &Bbox,
         boxes: Vec<Bbox>,
         limit: usize,
+        whole_limit: usize,
     ) -> Result<Vec<[f64; 3]>> {
         if let Some(st) = stamp
             && let Some(p) = Self::take(path, st, want)
         {
             return Ok(p);
         }
-        let pts = read_points_in(path, &boxes)?;
+        let pts = match stamp {
+            Some(st) if whole_limit > 0 => {
+                let (cloud, info) = read_cloud(path)?;
+                let mut pts = Vec::new();
+                points_in(&cloud, &boxes, &mut pts);
+                Self::keep_whole(path, st.clone(), cloud, info, whole_limit);
+                pts
+            }
+            _ => read_points_in(path, &boxes)?,
+        };
         let got = pts.iter().copied().filter(|p| want.contains(*p)).collect();
         if let Some(st) = stamp
             && limit > 0
@@ -190,7 +275,9 @@ impl HaloCache {
 
     /// Empties the cache (tests and benchmarks).
     pub fn clear() {
-        cache().shares.clear();
+        let mut c = cache();
+        c.shares.clear();
+        c.wholes.clear();
     }
 }
 

@@ -34,13 +34,15 @@
 //! Rows: one per point of the input, in the input's point order, with the columns of
 //! `features` (see [`crate::descriptor::output`]); halo points are neighbours, never rows
 //! ([`halo`] states the rule). Memory: one tile, its halo and the halo cache at a time; a
-//! tile is held whole, so a single file larger than memory must be cut into tiles first.
+//! tile that would need more than [`BatchOptions::memory_budget`] whole is cut into spatial
+//! blocks with the same halo rule and never held whole ([`chunked`]).
 //!
 //! Concurrency: [`run_tile`] may run for different tiles at once, in threads of one process
 //! (the halo cache is shared under a lock) or in separate processes, even on several hosts
 //! sharing OUTDIR (each output has its own journal record); the engine inside uses the
 //! current rayon pool. Run one process per tile or per shard, not two for the same tile.
 
+pub mod chunked;
 pub mod halo;
 pub mod inputs;
 pub mod journal;
@@ -135,6 +137,23 @@ pub struct BatchOptions {
     pub restart: bool,
     /// Bound of the halo cache, points (0: no cache).
     pub halo_cache_points: usize,
+    /// Memory a tile may take, bytes; a tile that would need more whole is processed in
+    /// spatial blocks ([`chunked`]). `None`: [`chunked::default_budget`] (half the memory
+    /// available when the tile starts). Not part of the run's settings: it never changes
+    /// the rows.
+    #[serde(default)]
+    pub memory_budget: Option<u64>,
+    /// Read a halo neighbour that this process runs later (after the current tile in
+    /// [`Plan::todo`]) whole, and keep it for its turn, so that it is decoded once, not twice
+    /// (within a quarter of the memory budget). Right for one process running the tiles of
+    /// `todo` in order (the CLI); turn it off when the tiles are spread over processes (one
+    /// task per tile on a cluster), where the kept tile would mostly run elsewhere.
+    #[serde(default = "yes")]
+    pub keep_neighbours_whole: bool,
+}
+
+fn yes() -> bool {
+    true
 }
 
 impl BatchOptions {
@@ -147,6 +166,8 @@ impl BatchOptions {
             shard: None,
             restart: false,
             halo_cache_points: HALO_CACHE_POINTS,
+            memory_budget: None,
+            keep_neighbours_whole: true,
         }
     }
 }
@@ -313,6 +334,7 @@ pub fn plan(inputs: &[PathBuf], outdir: &Path, opts: &BatchOptions) -> Result<Pl
     let files: Vec<PathBuf> = tiles.iter().flat_map(|t| format.files(&t.output)).collect();
     let files: Vec<&Path> = files.iter().map(PathBuf::as_path).collect();
     std::fs::create_dir_all(journal::dir(outdir)).map_err(|e| Error::io(outdir, &e))?;
+    chunked::remove_stale_chunk_dirs(outdir);
     check_outputs(&read, &files)?;
     let mut plan = Plan {
         outdir: outdir.to_path_buf(),
@@ -481,6 +503,9 @@ pub struct TileOutcome {
     pub seconds: f64,
     /// Warnings (an unreadable neighbour: incomplete halo).
     pub warnings: Vec<String>,
+    /// Spatial blocks the tile was processed in (0: read whole).
+    #[serde(default)]
+    pub blocks: usize,
 }
 
 /// Runs tile `index` of `plan` with the current rayon pool (see the module documentation).
@@ -522,7 +547,7 @@ pub fn run_tile_with(
         warnings: Vec::new(),
     };
     match compute_tile(plan, index, &mut record, progress) {
-        Ok(()) => {
+        Ok(blocks) => {
             record.status = Status::Done;
             record.seconds = t0.elapsed().as_secs_f64();
             journal::write_json(&record_path, &record)?;
@@ -538,6 +563,7 @@ pub fn run_tile_with(
                 halo_points: record.halo_points,
                 seconds: record.seconds,
                 warnings: record.warnings,
+                blocks,
             })
         }
         Err(e) => {
@@ -550,13 +576,14 @@ pub fn run_tile_with(
     }
 }
 
-/// Reads, computes and writes one tile; fills the record's figures.
+/// Reads, computes and writes one tile; fills the record's figures. Returns the number of
+/// spatial blocks it was processed in (0: whole).
 fn compute_tile(
     plan: &Plan,
     index: usize,
     record: &mut TileRecord,
     progress: Option<&(dyn Fn(usize) + Sync)>,
-) -> Result<()> {
+) -> Result<usize> {
     let tile = &plan.tiles[index];
     if let Some(p) = &tile.problem {
         // The header's own message already names the file and the fix.
@@ -565,7 +592,22 @@ fn compute_tile(
             .unwrap_or((p.as_str(), "repair or remove the file, then run again"));
         return Err(Error::invalid(what, fix).with_kind(crate::error::Kind::Input));
     }
-    let (cloud, info) = read_cloud(&tile.input)?;
+    let budget = plan
+        .options
+        .memory_budget
+        .unwrap_or_else(chunked::default_budget);
+    // Read whole already, as a neighbour of an earlier tile.
+    let cached = tile
+        .stamp
+        .as_ref()
+        .and_then(|st| HaloCache::take_whole(&tile.input, st));
+    let (cloud, info) = match cached {
+        Some(c) => c,
+        None => match read_or_chunk(plan, index, record, progress, budget)? {
+            Whole::Read(whole) => *whole,
+            Whole::Chunked(blocks) => return Ok(blocks),
+        },
+    };
     // Neighbours were chosen from the header bounds: points outside them may be missed.
     if let (Some(b), Some(actual)) = (tile.bounds, Bbox::of_cloud(&cloud))
         && plan.halo_width > 0.0
@@ -585,25 +627,11 @@ fn compute_tile(
         HaloCache::keep_from_cloud(&tile.input, st.clone(), &cloud, boxes, limit);
     }
     let mut points = cloud.positions.clone();
-    if let Some(want) = plan.reach(index) {
-        for &j in &tile.halo {
-            let nb = &plan.tiles[j];
-            let boxes: Vec<Bbox> = nb.halo.iter().filter_map(|&k| plan.reach(k)).collect();
-            match HaloCache::points_for(&nb.input, nb.stamp.as_ref(), &want, boxes, limit) {
-                Ok(pts) => {
-                    record.halo_points += pts.len() as u64;
-                    points.extend(
-                        pts.iter()
-                            .map(|g| std::array::from_fn(|k| (g[k] - cloud.origin[k]) as f32)),
-                    );
-                }
-                Err(e) => record.warnings.push(format!(
-                    "incomplete halo: neighbour {} could not be read ({e})",
-                    nb.input.display()
-                )),
-            }
-        }
-    }
+    points.extend(
+        gather_halo(plan, index, record, budget)
+            .iter()
+            .map(|g| std::array::from_fn(|k| (g[k] - cloud.origin[k]) as f32)),
+    );
     let recipe = plan.options.recipe.clone();
     let engine = Engine::new(recipe.clone());
     let spec = FileSpec {
@@ -628,7 +656,107 @@ fn compute_tile(
     let written = writer.finish()?;
     record.rows = written.rows as u64;
     record.files = journal::file_records(&written.files)?;
-    Ok(())
+    Ok(0)
+}
+
+/// How [`compute_tile`] gets a tile not cached whole.
+enum Whole {
+    /// Read whole.
+    Read(Box<(crate::cloud::Cloud, crate::io::FileInfo)>),
+    /// Done in this many spatial blocks.
+    Chunked(usize),
+}
+
+/// Reads tile `index` whole, or, when that would take more than `budget` bytes and its
+/// output can be written in chunks, runs it in spatial blocks ([`chunked`]).
+fn read_or_chunk(
+    plan: &Plan,
+    index: usize,
+    record: &mut TileRecord,
+    progress: Option<&(dyn Fn(usize) + Sync)>,
+    budget: u64,
+) -> Result<Whole> {
+    let tile = &plan.tiles[index];
+    // Whole or in blocks: the estimated memory of a whole read against the budget.
+    let src = PointSource::open(&tile.input)?;
+    let (points, record_len, format) = {
+        let i = src.info();
+        (
+            i.point_count,
+            i.record_length.unwrap_or(0) as u64,
+            i.format.clone(),
+        )
+    };
+    let whole = chunked::whole_bytes(points, record_len);
+    if whole > budget && points > 0 {
+        if tile.bounds.is_some() && format != "E57" {
+            let halo = gather_halo(plan, index, record, budget);
+            let done = chunked::run(
+                plan,
+                index,
+                src,
+                &halo,
+                chunked::block_points(budget),
+                record,
+                progress,
+            )?;
+            return Ok(Whole::Chunked(done.blocks));
+        }
+        record.warnings.push(format!(
+            "read whole although it needs about {} MB, above the memory budget of {} MB: {}",
+            whole >> 20,
+            budget >> 20,
+            if format == "E57" {
+                "E57 scans are not read in chunks"
+            } else {
+                "its bounds are unknown"
+            }
+        ));
+    }
+    drop(src);
+    let (cloud, info) = read_cloud(&tile.input)?;
+    Ok(Whole::Read(Box::new((cloud, info))))
+}
+
+/// The points the halo neighbours of tile `index` lend it (global coordinates, neighbours in
+/// plan order, each in its file order); counts them in the record and warns of unreadable
+/// neighbours.
+fn gather_halo(plan: &Plan, index: usize, record: &mut TileRecord, budget: u64) -> Vec<[f64; 3]> {
+    let tile = &plan.tiles[index];
+    let limit = plan.options.halo_cache_points;
+    // Neighbours this process runs later are read whole and kept for their turn, within a
+    // quarter of the budget.
+    let whole_limit = (budget / 4).min(usize::MAX as u64) as usize;
+    let later: &[usize] = plan
+        .todo
+        .iter()
+        .position(|&k| k == index)
+        .map_or(&[], |p| &plan.todo[p + 1..]);
+    let mut out = Vec::new();
+    if let Some(want) = plan.reach(index) {
+        for &j in &tile.halo {
+            let nb = &plan.tiles[j];
+            let boxes: Vec<Bbox> = nb.halo.iter().filter_map(|&k| plan.reach(k)).collect();
+            let small = chunked::whole_bytes(nb.points, 64) <= whole_limit as u64;
+            let keep =
+                if plan.options.keep_neighbours_whole && later.contains(&j) && small && limit > 0 {
+                    whole_limit
+                } else {
+                    0
+                };
+            match HaloCache::points_for(&nb.input, nb.stamp.as_ref(), &want, boxes, limit, keep) {
+                Ok(pts) => {
+                    record.halo_points += pts.len() as u64;
+                    out.extend_from_slice(&pts);
+                }
+                Err(e) => record.warnings.push(format!(
+                    "incomplete halo: neighbour {} could not be read ({e})",
+                    nb.input.display()
+                )),
+            }
+        }
+    }
+    out
 }
 
 /// One failed tile.

@@ -55,6 +55,11 @@ pub struct BatchArgs {
     /// settings; needed when the recipe, format or tile grid changed.
     #[arg(long)]
     pub restart: bool,
+    /// Memory one tile may take, e.g. 800M or 4G (default: half the memory available). A
+    /// file that would need more whole is read in one pass, cut into spatial blocks with
+    /// halos and merged back in point order (same rows, any format).
+    #[arg(long, value_name = "SIZE", value_parser = equiscan::batch::chunked::parse_size)]
+    pub memory_budget: Option<u64>,
     /// `-q`, `--json` (the summary as one JSON object), `--threads`.
     #[command(flatten)]
     pub common: CommonArgs,
@@ -71,6 +76,7 @@ pub fn run(args: &BatchArgs) -> Result<u8> {
     opts.tile_grid = args.tile_grid;
     opts.shard = args.shard;
     opts.restart = args.restart;
+    opts.memory_budget = args.memory_budget;
     let plan = pool.install(|| plan(&args.inputs, &args.output, &opts))?;
     for n in &plan.notes {
         c.note(n);
@@ -200,12 +206,17 @@ impl Ticker {
     fn done(&self, c: &CommonArgs, k: usize, res: &Result<equiscan::batch::TileOutcome>) {
         let line = match res {
             Ok(o) => format!(
-                "tile {}/{} {}: {} (+ {} from neighbours) in {}, wrote {}",
+                "tile {}/{} {}: {} (+ {} from neighbours){} in {}, wrote {}",
                 k + 1,
                 self.tiles,
                 o.input,
                 plural(o.rows as usize, "point", "points"),
                 group(o.halo_points as usize),
+                if o.blocks > 0 {
+                    format!(", {} (memory budget)", plural(o.blocks, "block", "blocks"))
+                } else {
+                    String::new()
+                },
                 seconds_text(o.seconds),
                 o.outputs.first().map_or("", String::as_str)
             ),

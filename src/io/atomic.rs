@@ -5,11 +5,15 @@
 //! complete. The temporary file lives in the target's folder (a rename across file systems
 //! would not be atomic) and is removed when writing fails.
 //!
-//! Temporary files are named `.NAME.PID.N.equiscan-tmp` (`N` counts within the process), so
-//! that a later run recognises its own stale ones: before the first temporary file in a folder,
-//! [`TempFile::create`] removes every `*.equiscan-tmp` there whose process is gone (Linux:
-//! no `/proc/PID`). Live temporary paths are kept in a process-wide registry;
-//! [`remove_live_temp_files`] deletes them, for a signal handler that then exits.
+//! Temporary files are named `.NAME.HOST.PID.N.equiscan-tmp` (`HOST` the first label of this
+//! machine's host name, with anything but letters, digits and `-` replaced by `-`; `N` counts
+//! within the process), so that a later run recognises its own stale ones: before the first
+//! temporary file in a folder, [`TempFile::create`] removes every `*.equiscan-tmp` there that
+//! was made on this host by a process that is gone (Linux: no `/proc/PID`). Files of other
+//! hosts are never removed: a folder shared by several machines (shards of one run writing
+//! into one network OUTDIR) holds their in-flight files, whose process ids mean nothing here.
+//! Live temporary paths are kept in a process-wide registry; [`remove_live_temp_files`]
+//! deletes them, for a signal handler that then exits.
 
 use std::collections::HashSet;
 use std::fs::{self, File};
@@ -51,36 +55,94 @@ fn unregister(path: &Path) {
     }
 }
 
-/// The process id encoded in a temporary file name of ours, if `name` is one.
-pub fn temp_owner(name: &str) -> Option<u32> {
-    let stem = name.strip_prefix('.')?.strip_suffix(TEMP_SUFFIX)?;
-    let mut parts = stem.rsplitn(3, '.');
-    let _counter: u64 = parts.next()?.parse().ok()?;
-    let pid: u32 = parts.next()?.parse().ok()?;
-    parts.next().filter(|n| !n.is_empty())?;
-    Some(pid)
+/// This machine's host name as temporary names carry it: the first label of the kernel's
+/// host name (Linux `/proc/sys/kernel/hostname`, else the `HOSTNAME` variable), letters,
+/// digits and `-` kept, anything else replaced by `-`, at most 63 bytes; `unknown-host` when
+/// neither gives one.
+pub fn host_label() -> &'static str {
+    static HOST: std::sync::OnceLock<String> = std::sync::OnceLock::new();
+    HOST.get_or_init(|| {
+        let raw = fs::read_to_string("/proc/sys/kernel/hostname")
+            .ok()
+            .or_else(|| std::env::var("HOSTNAME").ok())
+            .unwrap_or_default();
+        let label = sanitize_host(&raw);
+        if label.is_empty() {
+            "unknown-host".to_string()
+        } else {
+            label
+        }
+    })
 }
 
-/// True when process `pid` is known to be gone (Linux: `/proc` is mounted and has no entry for
-/// it). Where that cannot be told, the process is taken to be alive and its files kept.
-fn process_gone(pid: u32) -> bool {
+/// The first label of `raw` (up to the first `.`), trimmed, with characters other than ASCII
+/// letters, digits and `-` replaced by `-`, at most 63 bytes.
+fn sanitize_host(raw: &str) -> String {
+    let first = raw.trim().split('.').next().unwrap_or("");
+    first
+        .chars()
+        .map(|c| {
+            if c.is_ascii_alphanumeric() || c == '-' {
+                c
+            } else {
+                '-'
+            }
+        })
+        .take(63)
+        .collect()
+}
+
+/// Who made a temporary file: the host label and the process id its name carries.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct TempOwner {
+    /// [`host_label`] of the machine that made it.
+    pub host: String,
+    /// Its process id on that machine.
+    pub pid: u32,
+}
+
+/// The host and process encoded in a temporary file name of ours
+/// (`.NAME.HOST.PID.N.equiscan-tmp`), if `name` is one.
+pub fn temp_owner(name: &str) -> Option<TempOwner> {
+    let stem = name.strip_prefix('.')?.strip_suffix(TEMP_SUFFIX)?;
+    let mut parts = stem.rsplitn(4, '.');
+    let _counter: u64 = parts.next()?.parse().ok()?;
+    let pid: u32 = parts.next()?.parse().ok()?;
+    let host = parts.next().filter(|h| !h.is_empty())?;
+    parts.next().filter(|n| !n.is_empty())?;
+    Some(TempOwner {
+        host: host.to_string(),
+        pid,
+    })
+}
+
+/// True when process `pid` of this host is known to be gone (Linux: `/proc` is mounted and
+/// has no entry for it). Where that cannot be told, the process is taken to be alive and its
+/// files kept.
+pub fn process_gone(pid: u32) -> bool {
     Path::new("/proc/self").exists() && !Path::new(&format!("/proc/{pid}")).exists()
 }
 
-/// Removes the stale temporary files of dead equiscan processes in `dir`; returns their
-/// number. Errors (unreadable folder, a file removed meanwhile) are ignored.
+/// True when a file or folder made by `owner` may be removed as stale by this process: it was
+/// made on this host, by another process, which is gone.
+pub fn owner_is_stale(owner: &TempOwner) -> bool {
+    owner.host == host_label() && owner.pid != std::process::id() && process_gone(owner.pid)
+}
+
+/// Removes the stale temporary files in `dir` (made on this host by equiscan processes that
+/// are gone; files of other hosts are kept); returns their number. Errors (unreadable folder,
+/// a file removed meanwhile) are ignored.
 pub fn remove_stale_temp_files(dir: &Path) -> usize {
     let Ok(entries) = fs::read_dir(dir) else {
         return 0;
     };
-    let me = std::process::id();
     entries
         .flatten()
         .filter(|e| {
             e.file_name()
                 .to_str()
                 .and_then(temp_owner)
-                .is_some_and(|pid| pid != me && process_gone(pid))
+                .is_some_and(|o| owner_is_stale(&o))
         })
         .filter(|e| fs::remove_file(e.path()).is_ok())
         .count()
@@ -94,7 +156,7 @@ fn sweep_once(dir: &Path) {
     }
 }
 
-/// A temporary path in the folder of `path`: `.NAME.PID.N.equiscan-tmp`.
+/// A temporary path in the folder of `path`: `.NAME.HOST.PID.N.equiscan-tmp`.
 fn temp_path_for(path: &Path) -> Result<PathBuf> {
     static COUNTER: AtomicU64 = AtomicU64::new(0);
     let name = path.file_name().ok_or_else(|| {
@@ -106,8 +168,9 @@ fn temp_path_for(path: &Path) -> Result<PathBuf> {
     })?;
     let n = COUNTER.fetch_add(1, Ordering::Relaxed);
     let tmp_name = format!(
-        ".{}.{}.{}{TEMP_SUFFIX}",
+        ".{}.{}.{}.{}{TEMP_SUFFIX}",
         name.to_string_lossy(),
+        host_label(),
         std::process::id(),
         n
     );
@@ -290,10 +353,33 @@ mod tests {
     fn temp_names_are_recognised() {
         let t = temp_path_for(Path::new("a/b.x.npy")).unwrap();
         let name = t.file_name().unwrap().to_str().unwrap();
-        assert_eq!(temp_owner(name), Some(std::process::id()));
+        assert_eq!(
+            temp_owner(name),
+            Some(TempOwner {
+                host: host_label().to_string(),
+                pid: std::process::id()
+            })
+        );
+        assert_eq!(
+            temp_owner(".b.npy.node-7.12.3.equiscan-tmp"),
+            Some(TempOwner {
+                host: "node-7".into(),
+                pid: 12
+            })
+        );
         assert_eq!(temp_owner(".b.npy.12.3.tmp"), None);
         assert_eq!(temp_owner("b.npy"), None);
-        assert_eq!(temp_owner("..12.3.equiscan-tmp"), None);
+        assert_eq!(temp_owner("..h.12.3.equiscan-tmp"), None);
+        assert_eq!(temp_owner(".x..12.3.equiscan-tmp"), None);
+    }
+
+    #[test]
+    fn host_labels_are_one_safe_label() {
+        assert_eq!(sanitize_host("node7.cluster.example\n"), "node7");
+        assert_eq!(sanitize_host(" rack_2 host\n"), "rack-2-host");
+        assert_eq!(sanitize_host(""), "");
+        let h = host_label();
+        assert!(!h.is_empty() && !h.contains('.'), "{h}");
     }
 
     #[test]
@@ -302,17 +388,49 @@ mod tests {
             return;
         }
         let dir = tempfile::tempdir().unwrap();
+        let here = host_label();
         // No process has the pid u32::MAX - 1 (Linux caps pids at 2^22).
         let dead = dir
             .path()
-            .join(format!(".x.npy.{}.0{TEMP_SUFFIX}", u32::MAX - 1));
-        let alive = dir.path().join(format!(".x.npy.1.0{TEMP_SUFFIX}"));
+            .join(format!(".x.npy.{here}.{}.0{TEMP_SUFFIX}", u32::MAX - 1));
+        let alive = dir.path().join(format!(".x.npy.{here}.1.0{TEMP_SUFFIX}"));
         let foreign = dir.path().join(".x.npy.99999999.0.tmp");
-        for p in [&dead, &alive, &foreign] {
+        // The same dead pid on another host sharing the folder: its process may well be
+        // running there, so the file is kept.
+        let other_host = format!("{here}-other");
+        let elsewhere = dir.path().join(format!(
+            ".x.npy.{other_host}.{}.0{TEMP_SUFFIX}",
+            u32::MAX - 1
+        ));
+        // A name of the earlier form without host (`.NAME.PID.N`) reads as host `npy`: kept.
+        let old_form = dir
+            .path()
+            .join(format!(".x.npy.{}.0{TEMP_SUFFIX}", u32::MAX - 1));
+        for p in [&dead, &alive, &foreign, &elsewhere, &old_form] {
             fs::write(p, b"left over").unwrap();
         }
         assert_eq!(remove_stale_temp_files(dir.path()), 1);
         assert!(!dead.exists() && alive.exists() && foreign.exists());
+        assert!(elsewhere.exists() && old_form.exists());
+    }
+
+    #[test]
+    fn a_live_file_of_another_host_survives_this_hosts_first_write() {
+        if !Path::new("/proc/self").exists() {
+            return;
+        }
+        // Two hosts share an output folder: host B is writing `.t.npy.B.PID.0.equiscan-tmp`
+        // with a pid that does not exist here; this host's first atomic write in the folder
+        // sweeps it and must leave B's file alone.
+        let dir = tempfile::tempdir().unwrap();
+        let b = format!("{}-b", host_label());
+        let inflight = dir
+            .path()
+            .join(format!(".t.npy.{b}.{}.0{TEMP_SUFFIX}", u32::MAX - 2));
+        fs::write(&inflight, b"rows of host b").unwrap();
+        let target = dir.path().join("mine.npy");
+        write_atomic(&target, |w| put(w, &target, b"rows of this host")).unwrap();
+        assert_eq!(fs::read(&inflight).unwrap(), b"rows of host b");
     }
 
     #[test]

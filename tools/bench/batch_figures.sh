@@ -13,8 +13,8 @@ RUNS=${1:-3}
 R=${2:-0.05}
 TH=()
 if [ -n "${THREADS:-}" ]; then TH=(--threads "$THREADS"); fi
-BIN=target/release/equiscan
-CUT=target/release/examples/cut_tiles
+BIN=${BIN:-target/release/equiscan}
+CUT=${CUT:-target/release/examples/cut_tiles}
 # Outputs in memory (/dev/shm when there is one): on a shared disk, syncing the 390 MB of
 # outputs dominated the wall-clock time (CPU 5 s, wall 19–35 s with one thread).
 T=$(mktemp -d -p "$( [ -d /dev/shm ] && echo /dev/shm || echo "${TMPDIR:-/tmp}")")

@@ -282,9 +282,31 @@ impl<'a> FeatureWriter<'a> {
     /// whether rows carry point attributes (PLY, LAS) and, for voxel centres, the sidecar's
     /// `centre_indices`.
     pub fn create(cloud: &'a Cloud, spec: FileSpec, centres: &CentreList) -> Result<Self> {
+        Self::start(cloud, spec, centres, None)
+    }
+
+    /// Starts a feature file of `centres.len()` rows whose point attributes come with each
+    /// chunk ([`FeatureWriter::push_with`]) rather than from one cloud held whole: `frame`
+    /// gives the origin (the sidecar's) and which attributes are present (its columns may be
+    /// empty); `wide_colour` tells a PLY output that some colour exceeds 255.
+    pub fn create_streaming(
+        frame: &'a Cloud,
+        spec: FileSpec,
+        centres: &CentreList,
+        wide_colour: bool,
+    ) -> Result<Self> {
+        Self::start(frame, spec, centres, Some(wide_colour))
+    }
+
+    fn start(
+        cloud: &'a Cloud,
+        spec: FileSpec,
+        centres: &CentreList,
+        wide: Option<bool>,
+    ) -> Result<Self> {
         let names = column_names(&spec.recipe, spec.format);
         let rows = centres.len();
-        let sink = sinks::Sink::create(cloud, &spec, &names, centres)?;
+        let sink = sinks::Sink::create(cloud, &spec, &names, centres, wide)?;
         let indices = match (&spec.centres, centres) {
             (CentresInfo::Voxel { .. }, CentreList::Points(ix)) => Some(ix.clone()),
             _ => None,
@@ -309,6 +331,14 @@ impl<'a> FeatureWriter<'a> {
     /// Writes the rows of `chunk` (the next rows in order). For centres that are cloud points,
     /// `chunk.indices` must hold their point indices.
     pub fn push(&mut self, chunk: &Features) -> Result<()> {
+        let cloud = self.cloud;
+        self.push_with(cloud, chunk)
+    }
+
+    /// [`FeatureWriter::push`] with the point attributes of these rows taken from `cloud`
+    /// (`chunk.indices` index into it): for a writer made by
+    /// [`FeatureWriter::create_streaming`], `cloud` holds the rows' points in order.
+    pub fn push_with(&mut self, cloud: &Cloud, chunk: &Features) -> Result<()> {
         if self.written + chunk.len() > self.rows {
             return Err(Error::file(
                 &self.spec.path,
@@ -316,7 +346,7 @@ impl<'a> FeatureWriter<'a> {
                 "report this as a bug",
             ));
         }
-        self.sink.push(self.cloud, chunk, &self.names)?;
+        self.sink.push(cloud, chunk, &self.names)?;
         self.stats.add(chunk);
         self.written += chunk.len();
         Ok(())

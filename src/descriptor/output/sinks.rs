@@ -79,11 +79,14 @@ impl Hashed {
 }
 
 impl Sink {
+    /// `wide`: whether a PLY colour exceeds 255, when the caller knows it (`cloud` is then a
+    /// frame without points); `None`: found from `cloud`'s colours.
     pub(super) fn create(
         cloud: &Cloud,
         spec: &FileSpec,
         names: &[String],
         centres: &CentreList,
+        wide: Option<bool>,
     ) -> Result<Sink> {
         let path = &spec.path;
         let points = centres.are_points();
@@ -100,12 +103,12 @@ impl Sink {
             }
             Format::Ply => {
                 // The colour is written as ushort when a centre's colour exceeds 255.
-                let wide = |c: &[[u16; 3]]| match centres {
+                let any_wide = |c: &[[u16; 3]]| match centres {
                     CentreList::All(_) => c.iter().flatten().any(|&v| v > 255),
                     CentreList::Points(ix) => ix.iter().any(|&i| c[i].iter().any(|&v| v > 255)),
                     CentreList::Positions(_) => false,
                 };
-                let wide = cloud.color.as_deref().is_some_and(wide);
+                let wide = wide.unwrap_or_else(|| cloud.color.as_deref().is_some_and(any_wide));
                 let like = if points {
                     attribute_presence(cloud)
                 } else {

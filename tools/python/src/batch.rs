@@ -88,6 +88,9 @@ impl BatchRun {
                 ),
             };
             opts.restart = restart;
+            // One task per tile, spread over workers: a neighbour kept whole for its turn
+            // would mostly run in another process.
+            opts.keep_neighbours_whole = false;
             Ok(opts)
         })()
         .map_err(|e| to_py(py, e))?;
