@@ -14,6 +14,7 @@
 //!    [`super::register::min_evidence`] of them and twice the reverse count. If the scan shows
 //!    none of the difference, the verdict is `ambiguous` between them, not a guess.
 
+use rayon::prelude::*;
 use serde::Serialize;
 
 use super::catalogue::Catalogue;
@@ -191,7 +192,7 @@ pub fn identify(scan: &PreparedScan, cat: &Catalogue, params: &IdentifyParams) -
         .take(params.shortlist)
         .collect();
     let mut fitted: Vec<(usize, Fit, PartFit)> = shortlisted
-        .iter()
+        .par_iter()
         .map(|&i| {
             let r = &cat.parts[i];
             let f = fit(scan, r, &params.fit);
