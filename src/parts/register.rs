@@ -5,18 +5,26 @@
 //! scan point must lie on it, and a plain global search works on parts with few distinctive
 //! features (plates, turned parts):
 //! 1. coarse search: for every rotation of an SO(3) grid ([`HopfGrid`] level 1, 576 rotations,
-//!    covering radius 27°) the scan's centroid is put on the reference's, then a few trimmed
-//!    point-to-point ICP steps (Horn's closed form) on the coarse samples; each start is scored
-//!    by its mean distance to the coarse reference (capped at one coarse voxel);
-//! 2. medium stage: the best distinct starts go through point-to-plane ICP of an 800-point
-//!    sample with a wide window, scored by [`Residuals::score`]; so do the winner's turns about
-//!    the reference's principal axes (every 10°, the best dozen by their fit before ICP, and
-//!    every quarter and half turn) and its quarter and half turns of the scan about the scan's
-//!    own principal axes (a partial view often fits upside down on a face of the part);
-//! 3. the best distinct poses are refined by robust point-to-plane ICP ([`icp_point_to_plane`])
-//!    on the fine sample against all reference points with their normals, and the pose verdict
-//!    compares the winner with its best distinct rival by the points only one of them
-//!    explains ([`super::evidence`]).
+//!    covering radius 27°) the scan's centroid is put on the reference's centroid and on six
+//!    places around it (± half the reference's half extent along each principal axis: a
+//!    partial view's centroid lies off the part's); each start gets two trimmed point-to-point
+//!    ICP steps (Horn's closed form) on 150 coarse scan points, scored by the mean distance to
+//!    the paired reference points (capped at one coarse voxel); the best 96 distinct go on for
+//!    six more steps. Every pairing in the search goes through the reference's closest-point
+//!    lookup grid ([`super::lookup::ClosestGrid`], constant time) instead of a k-d tree;
+//! 2. medium stage: the best 48 distinct poses go through point-to-plane ICP (Tukey, through
+//!    the lookup grid) of an 800-point sample with a wide window, scored by
+//!    [`Residuals::score`] on exact nearest points; so do the winner's turns about the
+//!    reference's principal axes (every 10°, the best dozen by their fit before ICP, and every
+//!    quarter and half turn) and its quarter and half turns of the scan about the scan's own
+//!    principal axes (a partial view often fits upside down on a face of the part); then the
+//!    best 8 distinct poses are moved on a 7 × 7 × 7 lattice of coarse-voxel shifts along the
+//!    principal axes and the best shift of each, when it fits better, goes through the medium
+//!    stage too (a view of a plate-like part settles one plate thickness off);
+//! 3. the best 6 distinct poses are refined on the fine sample (point-to-plane through the
+//!    grid, then robust point-to-plane ICP against the exact nearest reference points with
+//!    their normals, [`icp_point_to_plane`]), and the pose verdict compares the winner with
+//!    its best distinct rival by the points only one of them explains ([`super::evidence`]).
 //!
 //! Transforms map the scan's local frame to the reference's local frame here; callers turn
 //! them into file coordinates with [`Rigid::between_origins`]. Everything is deterministic.
@@ -42,6 +50,8 @@ pub struct FitParams {
     pub offset_share: f64,
     /// Trimmed point-to-point ICP steps from every grid rotation before the screening.
     pub screen_steps: usize,
+    /// Most scan points used in the screening steps (a stride of the coarse sample).
+    pub screen_points: usize,
     /// Distinct screened starts kept for the rest of the coarse steps.
     pub screen_keep: usize,
     /// Further trimmed point-to-point ICP steps of the kept starts.
@@ -63,12 +73,13 @@ impl Default for FitParams {
             grid_level: 1,
             offset_share: 0.5,
             screen_steps: 2,
+            screen_points: 150,
             screen_keep: 96,
             coarse_steps: 6,
             refine: 48,
             turn_step_deg: 10.0,
             shift_tops: 8,
-            finals: 8,
+            finals: 6,
         }
     }
 }
@@ -299,9 +310,8 @@ fn grid_cost(points: &[[f32; 3]], r: &Prepared, tf: &Rigid, cap: f64) -> f64 {
 
 /// The best of `tf` moved by `(a, b, c)` coarse voxels along the reference's principal axes,
 /// `a, b, c` in −3..=3 (not all zero), by [`grid_cost`]; `None` when none beats `tf` itself.
-fn best_shift(points: &[[f32; 3]], r: &Prepared, tf: &Rigid, tau: f64) -> Option<Rigid> {
+fn best_shift(points: &[[f32; 3]], r: &Prepared, tf: &Rigid) -> Option<Rigid> {
     let cap = r.coarse_voxel;
-    let _ = tau;
     let mut best = (grid_cost(points, r, tf, cap), None);
     for a in -3i32..=3 {
         for b in -3i32..=3 {
@@ -361,8 +371,10 @@ fn refine(scan: &PreparedScan, r: &Prepared, start: &Rigid, tau: f64) -> Pose {
         max_iterations: 10,
         tolerance: 1e-5,
     };
+    // Every second point is plenty for the last few steps; the figures use them all.
+    let half: Vec<[f32; 3]> = scan.fine.iter().step_by(2).copied().collect();
     let out = icp_point_to_plane(
-        &scan.fine,
+        &half,
         &r.reference.points,
         &r.reference.normals,
         &r.index,
@@ -379,86 +391,36 @@ fn distinct(a: &Rigid, b: &Rigid, at: &Vector3<f64>, shift: f64) -> bool {
     rotation_error_deg(&a.rotation, &b.rotation) > 5.0 || (a.apply(at) - b.apply(at)).norm() > shift
 }
 
-#[doc(hidden)]
-pub static DEBUG_TRUTH: std::sync::Mutex<Option<Rigid>> = std::sync::Mutex::new(None);
-fn dbg(stage: &str, t0: &std::time::Instant, c: &[(Rigid, f64)]) {
-    if std::env::var_os("EQ_TRACE").is_none() {
-        return;
-    }
-    let truth = *DEBUG_TRUTH.lock().unwrap();
-    let mut o: Vec<&(Rigid, f64)> = c.iter().collect();
-    o.sort_by(|a, b| a.1.total_cmp(&b.1));
-    let near = truth.map(|t| {
-        o.iter()
-            .position(|x| rotation_error_deg(&x.0.rotation, &t.rotation) < 20.0)
-            .map(|k| {
-                (
-                    k,
-                    o[k].1,
-                    rotation_error_deg(&o[k].0.rotation, &t.rotation),
-                    (o[k].0.translation - t.translation).norm(),
-                )
-            })
-    });
-    let best = o.first().map(|x| {
-        (
-            x.1,
-            truth.map(|t| rotation_error_deg(&x.0.rotation, &t.rotation)),
-        )
-    });
-    eprintln!(
-        "  [{stage}] {:.3}s n={} best={best:?} truth-near(rank,cost)={near:?}",
-        t0.elapsed().as_secs_f64(),
-        c.len()
-    );
-}
-
-#[doc(hidden)]
-pub fn debug_refine(scan: &PreparedScan, r: &Prepared, start: &Rigid) -> (Pose, Pose) {
-    let tau = inlier_distance(scan, r);
-    let step = scan.fine.len().div_ceil(800).max(1);
-    let mid: Vec<[f32; 3]> = scan.fine.iter().step_by(step).copied().collect();
-    let medium_icp = PlaneIcp {
-        max_distance: coarse_tolerance(r),
-        min_scale: (0.25 * r.coarse_voxel).max(tau),
-        iterations: 12,
-    };
-    let tf = plane_icp(&mid, r, start, &medium_icp);
-    let a = Pose {
-        local: tf,
-        residuals: residuals(&scan.fine, r, &tf, tau),
-    };
-    (a, refine(scan, r, start, tau))
-}
-
 /// Registers `scan` onto the reference `r` (module docs).
 pub fn fit(scan: &PreparedScan, r: &Prepared, params: &FitParams) -> Fit {
     let tau = inlier_distance(scan, r);
-    let t0 = std::time::Instant::now();
-    r.lookup();
-    dbg("lookup", &t0, &[]);
     let grid = HopfGrid::new(params.grid_level);
     let coarse_apart = |a: &Rigid, b: &Rigid| distinct(a, b, &scan.centroid, 2.0 * r.coarse_voxel);
     // Coarse stage: a couple of trimmed ICP steps from every grid rotation (centroid on
     // centroid), the best distinct few continued.
     let places = start_places(r, params.offset_share);
+    let stride = scan
+        .coarse
+        .len()
+        .div_ceil(params.screen_points.max(1))
+        .max(1);
+    let few: Vec<[f32; 3]> = scan.coarse.iter().step_by(stride).copied().collect();
     let screened: Vec<(Rigid, f64)> = grid
         .matrices()
         .par_iter()
         .flat_map_iter(|rot| {
+            let few = &few;
             places.iter().map(move |c| {
                 let t = c - rot * scan.centroid;
-                coarse_icp(&scan.coarse, r, Rigid::new(*rot, t), params.screen_steps)
+                coarse_icp(few, r, Rigid::new(*rot, t), params.screen_steps)
             })
         })
         .collect();
-    dbg("screen", &t0, &screened);
     let kept = best_distinct(&screened, params.screen_keep, coarse_apart);
     let starts: Vec<(Rigid, f64)> = kept
         .par_iter()
         .map(|tf| coarse_icp(&scan.coarse, r, *tf, params.coarse_steps))
         .collect();
-    dbg("coarse", &t0, &starts);
     let picked = best_distinct(&starts, params.refine, coarse_apart);
     // Medium stage: point-to-plane ICP of a mid-size sample with a wide window and a robust
     // scale of at least a quarter coarse voxel, scored by the exact residuals; then the
@@ -468,10 +430,7 @@ pub fn fit(scan: &PreparedScan, r: &Prepared, params: &FitParams) -> Fit {
     let medium_icp = PlaneIcp {
         max_distance: coarse_tolerance(r),
         min_scale: (0.25 * r.coarse_voxel).max(tau),
-        iterations: std::env::var("EQ_MIT")
-            .ok()
-            .map(|s| s.parse().unwrap())
-            .unwrap_or(12),
+        iterations: 12,
     };
     let medium = |start: &Rigid| {
         let tf = plane_icp(&mid, r, start, &medium_icp);
@@ -480,7 +439,6 @@ pub fn fit(scan: &PreparedScan, r: &Prepared, params: &FitParams) -> Fit {
     };
     let mut mids: Vec<(Rigid, f64)> = picked.par_iter().map(medium).collect();
     mids.sort_by(|a, b| a.1.total_cmp(&b.1));
-    dbg("medium", &t0, &mids);
     if params.turn_step_deg > 0.0 && !mids.is_empty() {
         let best = mids[0].0;
         let n = (360.0 / params.turn_step_deg).round() as usize;
@@ -546,7 +504,6 @@ pub fn fit(scan: &PreparedScan, r: &Prepared, params: &FitParams) -> Fit {
         mids.extend(turned);
         mids.sort_by(|a, b| a.1.total_cmp(&b.1));
     }
-    dbg("turns", &t0, &mids);
     // Shifts: the best distinct medium poses moved on a small lattice along the reference's
     // principal axes; a better-fitting shift goes through the medium stage too. A view of a
     // plate-like part settles with one face on the plate's other face (a thickness off) and
@@ -557,7 +514,7 @@ pub fn fit(scan: &PreparedScan, r: &Prepared, params: &FitParams) -> Fit {
         });
         let shifted: Vec<(Rigid, f64)> = tops
             .par_iter()
-            .filter_map(|tf| best_shift(&mid, r, tf, tau).map(|t| medium(&t)))
+            .filter_map(|tf| best_shift(&mid, r, tf).map(|t| medium(&t)))
             .collect();
         mids.extend(shifted);
         mids.sort_by(|a, b| a.1.total_cmp(&b.1));
@@ -574,13 +531,7 @@ pub fn fit(scan: &PreparedScan, r: &Prepared, params: &FitParams) -> Fit {
             finals.push(*tf);
         }
     }
-    dbg("shifts", &t0, &mids);
     let mut poses: Vec<Pose> = finals.par_iter().map(|s| refine(scan, r, s, tau)).collect();
-    let pp: Vec<(Rigid, f64)> = poses
-        .iter()
-        .map(|p| (p.local, p.residuals.score()))
-        .collect();
-    dbg("fine", &t0, &pp);
     sort_poses(&mut poses);
     let best = poses.remove(0);
     let mut rivals: Vec<(Pose, usize, usize)> = Vec::new();
