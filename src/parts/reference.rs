@@ -261,7 +261,12 @@ impl Prepared {
     pub fn lookup(&self) -> &ClosestGrid {
         self.lookup.get_or_init(|| {
             let cell = (self.diagonal / LOOKUP_CELLS_PER_DIAGONAL).max(self.spacing);
-            ClosestGrid::new(&self.reference.points, cell, 0.1 * self.diagonal)
+            ClosestGrid::new(
+                &self.reference.points,
+                &self.index,
+                cell,
+                0.1 * self.diagonal,
+            )
         })
     }
 }
