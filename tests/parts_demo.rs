@@ -82,13 +82,8 @@ fn tray_scans_are_named_and_posed() {
             id.verdict != Verdict::Identified || got == Some(name),
             "{name} identified as {got:?}"
         );
-        // Today the bracket's single view is registered upside down (83 % of the scan on the
-        // reference against 99 % at the true pose) and the nut's search does not converge:
-        // both stay `unknown`, never a wrong name (README, DEVELOPERS Parts). Every other part
-        // must be named.
-        if name != "bracket" && name != "nut" {
-            assert_eq!(id.verdict, Verdict::Identified, "{name}");
-        }
+        // Every tray part must be named (README: "every part named").
+        assert_eq!(id.verdict, Verdict::Identified, "{name}");
         if !symmetric && id.pose_verdict == Some(PoseVerdict::Confident) {
             assert!(rot <= 2.0 && shift <= 1.0, "{name}: {rot}° {shift} mm");
         }

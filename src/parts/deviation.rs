@@ -62,18 +62,23 @@ impl Residuals {
 
 /// Residuals of `points` (scan local) moved by `tf` onto the reference (module docs).
 pub fn residuals(points: &[[f32; 3]], r: &Prepared, tf: &Rigid, tau: f64) -> Residuals {
-    let distance = points
-        .par_iter()
-        .map(|p| {
-            let m = tf.apply(&vec3(*p));
-            let (j, d2) = r.index.nearest_one([m.x as f32, m.y as f32, m.z as f32]);
-            let n = vec3(r.reference.normals[j]);
-            let q = vec3(r.reference.points[j]);
-            let plane = n.dot(&(m - q)).abs();
-            plane.max((d2 as f64).sqrt() - r.spacing) as f32
-        })
-        .collect();
+    let distance = points.par_iter().map(|p| residual(p, r, tf)).collect();
     Residuals { distance, tau }
+}
+
+/// [`residuals`] on the calling thread (for loops that are already parallel over poses).
+pub fn residuals_seq(points: &[[f32; 3]], r: &Prepared, tf: &Rigid, tau: f64) -> Residuals {
+    let distance = points.iter().map(|p| residual(p, r, tf)).collect();
+    Residuals { distance, tau }
+}
+
+fn residual(p: &[f32; 3], r: &Prepared, tf: &Rigid) -> f32 {
+    let m = tf.apply(&vec3(*p));
+    let (j, d2) = r.index.nearest_one([m.x as f32, m.y as f32, m.z as f32]);
+    let n = vec3(r.reference.normals[j]);
+    let q = vec3(r.reference.points[j]);
+    let plane = n.dot(&(m - q)).abs();
+    plane.max((d2 as f64).sqrt() - r.spacing) as f32
 }
 
 /// Signed deviation of every point (scan local, moved by `tf` into the reference's local

@@ -3,7 +3,8 @@
 //! 1. Shortlist: parts whose size admits the scan (its diameter at most the part's, plus
 //!    noise, and at least [`IdentifyParams::min_size_share`] of it) ranked by the χ² distance
 //!    between the scan's D2 histogram and the part's ([`super::signature`]); the best
-//!    [`IdentifyParams::shortlist`] go on.
+//!    [`IdentifyParams::shortlist`] go on, except those farther than
+//!    [`IdentifyParams::signature_gap`] times the best part's distance.
 //! 2. Registration of the scan onto each shortlisted part ([`super::register::fit`]). A part
 //!    *explains* the scan when at least [`IdentifyParams::min_share`] of the scan's sample lies
 //!    within the inlier distance of its surface and the scan covers at least
@@ -14,6 +15,7 @@
 //!    [`super::register::min_evidence`] of them and twice the reverse count. If the scan shows
 //!    none of the difference, the verdict is `ambiguous` between them, not a guess.
 
+use rayon::prelude::*;
 use serde::Serialize;
 
 use super::catalogue::Catalogue;
@@ -28,6 +30,9 @@ use crate::spatial::KdIndex;
 pub struct IdentifyParams {
     /// Parts registered after the signature shortlist.
     pub shortlist: usize,
+    /// Signature gap: a part whose χ² distance exceeds this many times the best part's is not
+    /// registered (the gap is clear; see DEVELOPERS.md "Parts" for the measured distances).
+    pub signature_gap: f64,
     /// Smallest share of scan points within the inlier distance for a part to explain it.
     pub min_share: f64,
     /// Smallest share of the reference the scan must cover.
@@ -42,6 +47,7 @@ impl Default for IdentifyParams {
     fn default() -> Self {
         IdentifyParams {
             shortlist: 4,
+            signature_gap: 3.0,
             min_share: 0.9,
             min_coverage: 0.15,
             min_size_share: 0.5,
@@ -184,14 +190,19 @@ pub fn identify(scan: &PreparedScan, cat: &Catalogue, params: &IdentifyParams) -
             .unwrap_or(std::cmp::Ordering::Equal)
             .then(a.cmp(&b))
     });
+    let best_chi = order
+        .first()
+        .filter(|&&i| ranking[i].stage == "signature")
+        .map_or(0.0, |&i| ranking[i].signature_distance);
     let shortlisted: Vec<usize> = order
         .iter()
         .copied()
         .filter(|&i| ranking[i].stage == "signature")
         .take(params.shortlist)
+        .filter(|&i| ranking[i].signature_distance <= params.signature_gap * best_chi + 1e-3)
         .collect();
     let mut fitted: Vec<(usize, Fit, PartFit)> = shortlisted
-        .iter()
+        .par_iter()
         .map(|&i| {
             let r = &cat.parts[i];
             let f = fit(scan, r, &params.fit);

@@ -7,6 +7,8 @@
 //! - [`signature`]: whole-shape rotation invariants (diameter, D2 shape distribution) for the
 //!   shortlist;
 //! - [`scan`]: a scan's samples, noise level and size;
+//! - [`lookup`]: closest-point lookup grid of a reference (constant-time pairing in the
+//!   global pose search);
 //! - [`register`]: partial scan onto a complete reference, global search + ICP, pose verdict;
 //! - [`identify`]: shortlist, registration, verdict (`identified`, `ambiguous`, `unknown`);
 //! - [`deviation`], [`triangles`]: residuals and signed deviations (positive outside the
@@ -24,6 +26,7 @@ pub mod catalogue;
 pub mod deviation;
 pub mod identify;
 pub mod inspect;
+pub mod lookup;
 pub mod reference;
 pub mod register;
 pub mod report;

@@ -13,6 +13,7 @@ use std::path::Path;
 
 use nalgebra::Vector3;
 
+use super::lookup::ClosestGrid;
 use crate::cloud::Cloud;
 use crate::error::{Error, Result};
 use crate::geometry::vec3;
@@ -221,6 +222,9 @@ pub struct Prepared {
     pub diagonal: f64,
     /// Principal axes of the reference points (columns), largest spread first.
     pub axes: nalgebra::Matrix3<f64>,
+    /// Closest-point lookup grid over `reference.points`, built on first use
+    /// ([`Prepared::lookup`]): only the parts a scan is registered against pay for it.
+    lookup: std::sync::OnceLock<ClosestGrid>,
 }
 
 impl Prepared {
@@ -247,9 +251,28 @@ impl Prepared {
             centroid,
             diagonal,
             axes,
+            lookup: std::sync::OnceLock::new(),
+        })
+    }
+
+    /// The closest-point lookup grid of the reference points (built on first use, then
+    /// shared): cells of [`LOOKUP_CELLS_PER_DIAGONAL`]-th of the diagonal (at least the point
+    /// spacing), over the bounds widened by a tenth of the diagonal on every side.
+    pub fn lookup(&self) -> &ClosestGrid {
+        self.lookup.get_or_init(|| {
+            let cell = (self.diagonal / LOOKUP_CELLS_PER_DIAGONAL).max(self.spacing);
+            ClosestGrid::new(
+                &self.reference.points,
+                &self.index,
+                cell,
+                0.1 * self.diagonal,
+            )
         })
     }
 }
+
+/// Cells of the closest-point lookup grid along the reference's diagonal.
+pub const LOOKUP_CELLS_PER_DIAGONAL: f64 = 64.0;
 
 /// Principal axes (eigenvectors of the covariance, columns, largest eigenvalue first).
 pub fn principal_axes(points: &[[f32; 3]], c: &Vector3<f64>) -> nalgebra::Matrix3<f64> {
