@@ -144,6 +144,7 @@ pub fn judge(
                 rivalry,
                 overlap: p.overlap,
                 explained: p.explained,
+                evidence: p.evidence,
                 angle_deg,
                 distance,
             }

@@ -231,7 +231,15 @@ pub(crate) fn register(
     let proposed = hypotheses::propose(source, target, &found, params, tau);
     let ranked = rank::rank(proposed, &found.pairs, source, target, &params.tuning, tau);
     clock.lap("hypotheses");
-    let polished = refine::coarse(&ranked, &found.pairs, source, target, params, tau);
+    let polished = refine::coarse(
+        &ranked,
+        &found.pairs,
+        &found.distinctive,
+        source,
+        target,
+        params,
+        tau,
+    );
     clock.lap("refinement");
     let refined = refine::fine(polished, source, target, params, tau);
     clock.lap("fine ICP");

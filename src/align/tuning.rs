@@ -56,6 +56,12 @@ pub struct Tuning {
     /// ICP has converged when an update rotates less than this (radians) and moves less than
     /// this times its largest pairing distance.
     pub icp_tolerance: f64,
+    /// Most SOURCE keypoints paired in each coarse ICP run (an even stride through them);
+    /// the refined poses are then scored on every keypoint.
+    pub icp_sample: usize,
+    /// Convergence tolerance of the coarse ICP runs (as [`Tuning::icp_tolerance`]); their
+    /// poses only need to be told apart and ranked, the best is fitted again on the fine points.
+    pub icp_coarse_tolerance: f64,
     /// Largest pairing distance of the fine ICP, in τ.
     pub fine_max_distance_taus: f64,
     /// Smallest scale of the robust loss of the fine ICP, in voxel sizes.
@@ -97,6 +103,8 @@ impl Default for Tuning {
             icp_min_scale_voxels: 0.05,
             icp_max_iterations: 40,
             icp_tolerance: 1e-6,
+            icp_sample: 1500,
+            icp_coarse_tolerance: 1e-4,
             fine_max_distance_taus: 1.0,
             fine_min_scale_voxels: 0.02,
             stable_sample: 2000,
