@@ -67,8 +67,9 @@ pub struct AlignParams {
     /// Seed of every random choice (the run is deterministic for a given seed).
     pub seed: u64,
     /// Version of the harmonic descriptors (design, "the descriptor, exactly"). Default 1:
-    /// with version 2 the elbow of the demo part scans no longer aligns (tests/align_parts.rs),
-    /// so registration stays on version 1 until it is tuned for version 2.
+    /// with version 2 the benchmark subset and the depot stations come out the same, but the
+    /// elbow of the demo part scans is no longer `confident` (tests/align_parts.rs;
+    /// DEVELOPERS.md, Registration), so registration stays on version 1.
     pub descriptor_version: u32,
     /// Every other tuning value of the pipeline.
     pub tuning: Tuning,

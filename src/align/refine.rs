@@ -2,8 +2,8 @@
 //! poses and from the near-symmetric alternatives of the leader, then a fine fit of the best.
 //!
 //! Coarse: up to [`super::AlignParams::refine_best`] ranked poses that differ by more than
-//! [`super::Tuning::start_angle_deg`] (or one τ) start an ICP on the keypoints (at most [`super::Tuning::icp_sample`], evenly strided; the runs in
-//! parallel); the leader's
+//! [`super::Tuning::start_angle_deg`] (or one τ) start an ICP on the keypoints (at most
+//! [`super::Tuning::icp_sample`], evenly strided; the runs in parallel); the leader's
 //! alternatives ([`super::candidates::alternatives`]: turns about the principal axes of the
 //! overlap, flips, slides along weakly constrained directions) are refined too, since the drawn
 //! hypotheses need not contain them. Each result is scored by its tight overlap (the share of
