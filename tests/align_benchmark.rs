@@ -39,6 +39,12 @@ struct Run {
     listed: Vec<(f64, f64, usize, bool)>,
     /// Weak directions of the final fit.
     weak: usize,
+    /// Margin, smallest eigenvalue ratio of the fit's normal matrix, explained matches and
+    /// overlap of the answer (the figures behind the verdict).
+    margin: f64,
+    stiffness: f64,
+    inliers: usize,
+    overlap: f64,
 }
 
 /// Fraction of (a sample of) SOURCE points that `tf` puts within `gate` of a TARGET point.
@@ -67,10 +73,11 @@ fn offered(a: &Alignment) -> Vec<Rigid> {
     v
 }
 
-fn run(p: &Pair, method: Method, seed: u64) -> Run {
+fn run(p: &Pair, method: Method, seed: u64, version: u32) -> Run {
     let params = AlignParams {
         method,
         seed,
+        descriptor_version: version,
         ..AlignParams::default()
     };
     let t = Instant::now();
@@ -99,6 +106,10 @@ fn run(p: &Pair, method: Method, seed: u64) -> Run {
             })
             .collect(),
         weak: a.constraint.weak.len(),
+        margin: a.figures.margin,
+        stiffness: a.constraint.ratios[0],
+        inliers: a.figures.inliers,
+        overlap: a.figures.overlap,
         poses,
     }
 }
@@ -147,10 +158,15 @@ struct Row {
 }
 
 fn evaluate(ps: &[Pair], methods: &[Method]) -> Vec<Row> {
+    evaluate_version(ps, methods, AlignParams::default().descriptor_version)
+}
+
+/// [`evaluate`] with harmonic descriptors of the given version.
+fn evaluate_version(ps: &[Pair], methods: &[Method], version: u32) -> Vec<Row> {
     ps.iter()
         .enumerate()
         .map(|(i, p)| {
-            let runs: Vec<Run> = methods.iter().map(|&m| run(p, m, 1 + i as u64)).collect();
+            let runs: Vec<Run> = methods.iter().map(|&m| run(p, m, 1 + i as u64, version)).collect();
             let poses: Vec<Rigid> = runs.iter().flat_map(|r| r.poses.clone()).collect();
             let row = Row {
                 shape: p.shape,
@@ -173,7 +189,7 @@ fn evaluate(ps: &[Pair], methods: &[Method]) -> Vec<Row> {
                     .iter()
                     .zip(methods)
                     .map(|(r, m)| format!(
-                        "{} right {} confident {} ambiguous {} listed {} conf {:.2} rot {:.1} {:.2}s weak {} cands {:?}",
+                        "{} right {} confident {} ambiguous {} listed {} conf {:.2} rot {:.1} {:.2}s weak {} margin {:.3} stiff {:.4} inliers {} ovl {:.3} cands {:?}",
                         m.name(),
                         r.right,
                         r.confident,
@@ -183,6 +199,10 @@ fn evaluate(ps: &[Pair], methods: &[Method]) -> Vec<Row> {
                         r.rot,
                         r.seconds,
                         r.weak,
+                        r.margin,
+                        r.stiffness,
+                        r.inliers,
+                        r.overlap,
                         r.listed
                             .iter()
                             .map(|c| format!("{:.2}/{:.2}/{}/{}", c.0, c.1, c.2, u8::from(c.3)))
@@ -337,6 +357,31 @@ fn benchmark_subset_has_no_confident_wrong_answer() {
             "pair {i} ({}): confident but {:.1}° off",
             r.shape,
             x.rot
+        );
+    }
+}
+
+/// The subset of [`benchmark_subset_has_no_confident_wrong_answer`] with descriptor versions 1
+/// and 2, for the choice of the version `align` uses (DEVELOPERS.md, Registration).
+#[test]
+#[ignore = "comparison run: --release --ignored --nocapture"]
+fn benchmark_subset_by_descriptor_version() {
+    let ps = pairs(2, 1, 1);
+    for version in [1, 2] {
+        let rows = evaluate_version(&ps, &[Method::Equivariant], version);
+        let plain: Vec<&Row> = rows.iter().filter(|r| !r.stacked).collect();
+        let right = plain.iter().filter(|r| r.runs[0].right).count();
+        let cw = rows
+            .iter()
+            .filter(|r| r.runs[0].confident && !r.runs[0].right)
+            .count();
+        let conf = rows.iter().filter(|r| r.runs[0].confident).count();
+        let listed = rows.iter().filter(|r| r.runs[0].truth_listed).count();
+        println!(
+            "version {version}: {} pairs ({} stacked), right {right} of {} not stacked, confident {conf}, confident and wrong {cw}, truth listed {listed}",
+            rows.len(),
+            rows.len() - plain.len(),
+            plain.len()
         );
     }
 }

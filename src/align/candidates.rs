@@ -25,6 +25,10 @@ pub struct Candidate {
     pub overlap: f64,
     /// Matched keypoint pairs that this pose brings within the inlier threshold.
     pub explained: usize,
+    /// Distinctive evidence, in [0, 1]: the weighted share of the distinctive SOURCE keypoints
+    /// in the overlap whose detail agrees where this pose lays them (see [`super::evidence`]);
+    /// reported beside the ranking figures, not used by them.
+    pub evidence: f64,
     /// Rotation angle between this pose and the best one, degrees.
     pub angle_deg: f64,
     /// Distance between where this pose and the best one put SOURCE's keypoint centroid, file
@@ -48,8 +52,10 @@ pub struct Scored {
     /// Tight overlap fraction (see [`super::icp::oriented_fit`]).
     pub overlap: f64,
     /// Correspondences explained (matched keypoints that the pose brings within the inlier
-    /// threshold): the distinctive evidence.
+    /// threshold).
     pub explained: usize,
+    /// Distinctive evidence, in [0, 1] ([`super::evidence`]).
+    pub evidence: f64,
     /// ICP iterations.
     pub iterations: usize,
     /// Share of the tested keypoints that the pose puts in space a sensor saw through
@@ -60,6 +66,26 @@ pub struct Scored {
 /// Each keypoint a pose puts in seen-through space cancels this many keypoints on the
 /// surface (see [`Scored::consistent_overlap`]).
 pub const FREE_SPACE_WEIGHT: f64 = 2.0;
+
+/// The most evidence of either kind that any refined pose has: the scale of
+/// [`Scored::score`].
+#[derive(Debug, Clone, Copy, Default, PartialEq)]
+pub struct Most {
+    /// Most explained matches.
+    pub explained: usize,
+    /// Most distinctive evidence.
+    pub evidence: f64,
+}
+
+impl Most {
+    /// The largest of each figure over `scored`.
+    pub fn of(scored: &[Scored]) -> Most {
+        Most {
+            explained: scored.iter().map(|p| p.explained).max().unwrap_or(0),
+            evidence: scored.iter().map(|p| p.evidence).fold(0.0, f64::max),
+        }
+    }
+}
 
 impl Scored {
     /// The tight overlap less [`FREE_SPACE_WEIGHT`] × the free-space violation share (when a
@@ -72,9 +98,11 @@ impl Scored {
     /// The ranking score `overlap × explained / most explained` (overlap as
     /// [`Scored::consistent_overlap`]): geometry alone prefers a pose that stacks two partial
     /// views of a near-symmetric part; the matched features, and what the sensors saw through,
-    /// are what separate it from the true, side-by-side pose.
-    pub fn score(&self, most_explained: usize) -> f64 {
-        self.consistent_overlap() * self.explained as f64 / most_explained.max(1) as f64
+    /// are what separate it from the true, side-by-side pose. (Weighing in the distinctive
+    /// evidence, `overlap × √(k × e)`, was tried and made more stacked poses win on the
+    /// benchmark subset; DEVELOPERS.md, Registration.)
+    pub fn score(&self, most: Most) -> f64 {
+        self.consistent_overlap() * self.explained as f64 / most.explained.max(1) as f64
     }
 }
 
@@ -94,8 +122,9 @@ pub fn alternatives(
         .iter()
         .map(|p| best.apply_f32(*p))
         .filter(|q| {
-            let (_, d2) = target_index.nearest_one([q.x as f32, q.y as f32, q.z as f32]);
-            (d2 as f64) <= tau * tau
+            target_index
+                .nearest_within([q.x as f32, q.y as f32, q.z as f32], tau * tau)
+                .is_some()
         })
         .collect();
     if near.len() < 10 {
@@ -141,7 +170,7 @@ pub fn distinct_best(
     distance: f64,
     floor: f64,
 ) -> Vec<usize> {
-    let most = scored.iter().map(|s| s.explained).max().unwrap_or(0);
+    let most = Most::of(scored);
     let mut order: Vec<usize> = (0..scored.len()).collect();
     order.sort_by(|&a, &b| {
         scored[b]
@@ -188,11 +217,11 @@ pub const MIN_RIVAL_SUPPORT: f64 = 5.0;
 /// the poses apart and the overlap ratio alone is used. Overlaps are
 /// [`Scored::consistent_overlap`]s: a pose that puts points where a sensor saw through is a
 /// weaker rival.
-pub fn rivalry(other: &Scored, best: &Scored, most_explained: usize) -> f64 {
+pub fn rivalry(other: &Scored, best: &Scored, most: Most) -> f64 {
     let o = other.consistent_overlap() / best.consistent_overlap().max(f64::MIN_POSITIVE);
     let (k1, k2) = (best.explained as f64, other.explained as f64);
     let k = k2 / k1.max(1.0);
-    let s = other.score(most_explained) / best.score(most_explained).max(f64::MIN_POSITIVE);
+    let s = other.score(most) / best.score(most).max(f64::MIN_POSITIVE);
     let indistinct = k2 >= MIN_RIVAL_SUPPORT && k1 - k2 <= 3.0 * (k1 + k2).sqrt();
     let r = if indistinct { o } else { o.min(k) };
     r.max(s).clamp(0.0, 1.0)

@@ -127,31 +127,7 @@ pub fn analyse(points: &[Vector3<f64>], normals: &[Vector3<f64>], origin: [f64; 
     let o = Vector3::from(origin);
     let weak = (0..6)
         .filter(|&k| ratios[k] < WEAK_RATIO)
-        .map(|k| {
-            let x = vecs.column(k);
-            // Parameters are (ω L, t): see the module docs.
-            let w = Vector3::new(x[0], x[1], x[2]);
-            let t = Vector3::new(x[3], x[4], x[5]);
-            if w.norm() < t.norm() {
-                let a = signed_axis(t);
-                WeakDirection {
-                    motion: Motion::Slide,
-                    axis: [a.x, a.y, a.z],
-                    through: (c + o).into(),
-                    ratio: ratios[k],
-                }
-            } else {
-                let omega = w / l;
-                let through = c + omega.cross(&t) / omega.norm_squared();
-                let a = signed_axis(omega);
-                WeakDirection {
-                    motion: Motion::Turn,
-                    axis: [a.x, a.y, a.z],
-                    through: (through + o).into(),
-                    ratio: ratios[k],
-                }
-            }
-        })
+        .map(|k| direction(&vecs.column(k).into_owned(), c, l, o, ratios[k]))
         .collect();
     Constraint {
         condition: if vals[0] > 0.0 {
@@ -162,6 +138,38 @@ pub fn analyse(points: &[Vector3<f64>], normals: &[Vector3<f64>], origin: [f64; 
         ratios,
         weak,
         pairs: points.len(),
+    }
+}
+
+/// The motion `x = (ω L, t)` (an eigenvector of the normal matrix of points about `c` at mean
+/// distance `l`) described as a slide or a turn, reported with `origin` added.
+fn direction(
+    x: &Vector6<f64>,
+    c: Vector3<f64>,
+    l: f64,
+    origin: Vector3<f64>,
+    ratio: f64,
+) -> WeakDirection {
+    let w = Vector3::new(x[0], x[1], x[2]);
+    let t = Vector3::new(x[3], x[4], x[5]);
+    if w.norm() < t.norm() {
+        let a = signed_axis(t);
+        WeakDirection {
+            motion: Motion::Slide,
+            axis: [a.x, a.y, a.z],
+            through: (c + origin).into(),
+            ratio,
+        }
+    } else {
+        let omega = w / l;
+        let through = c + omega.cross(&t) / omega.norm_squared();
+        let a = signed_axis(omega);
+        WeakDirection {
+            motion: Motion::Turn,
+            axis: [a.x, a.y, a.z],
+            through: (through + origin).into(),
+            ratio,
+        }
     }
 }
 
@@ -181,10 +189,13 @@ pub fn paired(
     let mut idx = Vec::new();
     for (i, p) in source.iter().enumerate() {
         let q = tf.apply_f32(*p);
-        let (j, d2) = target_index.nearest_one([q.x as f32, q.y as f32, q.z as f32]);
-        let n = target_normals[j];
-        let n = crate::geometry::vec3(n);
-        if (d2 as f64) <= cutoff2 && n.norm_squared() > 0.5 {
+        let Some((j, _)) =
+            target_index.nearest_within([q.x as f32, q.y as f32, q.z as f32], cutoff2)
+        else {
+            continue;
+        };
+        let n = crate::geometry::vec3(target_normals[j]);
+        if n.norm_squared() > 0.5 {
             pts.push(q);
             nrm.push(n);
             idx.push(i);

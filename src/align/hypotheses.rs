@@ -10,7 +10,8 @@
 
 use super::consensus::{self, Hypothesis, Pairs};
 use super::equivariant;
-use super::matching::{Correspondence, MatchParams, match_features};
+use super::evidence::Distinctive;
+use super::matching::{Correspondence, MatchParams, match_features_with_nearest};
 use super::pipeline::{AlignParams, Method};
 use super::prepared_scan::PreparedScan;
 
@@ -20,13 +21,15 @@ pub struct Matches {
     pub correspondences: Vec<Correspondence>,
     /// The matched keypoint positions, in the same order.
     pub pairs: Pairs,
+    /// The distinctive SOURCE keypoints, weighted (see [`super::evidence`]).
+    pub distinctive: Distinctive,
 }
 
 /// Matches the descriptor rows of `source` against those of `target` with the matching values
 /// of `params.tuning`.
 pub fn matches(source: &PreparedScan, target: &PreparedScan, params: &AlignParams) -> Matches {
     let tu = &params.tuning;
-    let correspondences = match_features(
+    let (correspondences, nearest) = match_features_with_nearest(
         &source.descriptors.rows,
         &target.descriptors.rows,
         source.descriptors.dim,
@@ -41,6 +44,7 @@ pub fn matches(source: &PreparedScan, target: &PreparedScan, params: &AlignParam
     Matches {
         correspondences,
         pairs,
+        distinctive: Distinctive::new(&nearest, tu.match_max_ratio),
     }
 }
 

@@ -125,10 +125,10 @@ pub fn fit_quality(
             let mut n = 0;
             for p in chunk {
                 let q = tf.apply_f32(*p);
-                let (_, d2) = target_index.nearest_one([q.x as f32, q.y as f32, q.z as f32]);
-                let d2 = d2 as f64;
-                if d2 <= cutoff2 {
-                    s += d2;
+                if let Some((_, d2)) =
+                    target_index.nearest_within([q.x as f32, q.y as f32, q.z as f32], cutoff2)
+                {
+                    s += d2 as f64;
                     n += 1;
                 }
             }
@@ -174,10 +174,11 @@ pub fn oriented_fit(
             let mut tight = 0usize;
             for (p, ns) in chunk.iter().zip(normals) {
                 let pm = tf.apply_f32(*p);
-                let (j, d2) = target_index.nearest_one([pm.x as f32, pm.y as f32, pm.z as f32]);
-                if d2 as f64 > cutoff2 {
+                let Some((j, _)) =
+                    target_index.nearest_within([pm.x as f32, pm.y as f32, pm.z as f32], cutoff2)
+                else {
                     continue;
-                }
+                };
                 let n = target_normals[j];
                 let q = target[j];
                 let d: f64 = (0..3).map(|k| n[k] as f64 * (pm[k] - q[k] as f64)).sum();
@@ -210,11 +211,11 @@ fn collect_pairs(
             let mut out = Vec::with_capacity(chunk.len());
             for p in chunk {
                 let pm = tf.apply_f32(*p);
-                let (j, d2) = index.nearest_one([pm.x as f32, pm.y as f32, pm.z as f32]);
-                let d2 = d2 as f64;
-                if d2 > cutoff2 {
+                let Some((j, _)) =
+                    index.nearest_within([pm.x as f32, pm.y as f32, pm.z as f32], cutoff2)
+                else {
                     continue;
-                }
+                };
                 let n = normals[j];
                 let n = crate::geometry::vec3(n);
                 if n.norm_squared() < 0.5 {

@@ -169,6 +169,7 @@ pub fn judge(
                 rivalry,
                 overlap: p.overlap,
                 explained: p.explained,
+                evidence: p.evidence,
                 angle_deg,
                 distance,
                 free_space_violation,

@@ -96,8 +96,19 @@ pub fn match_features(
     dim: usize,
     params: &MatchParams,
 ) -> Vec<Correspondence> {
+    match_features_with_nearest(source, target, dim, params).0
+}
+
+/// [`match_features`], and for every source row (in order) its nearest target row with the
+/// squared distances to the nearest and second-nearest target rows `(target, d₁², d₂²)`.
+pub fn match_features_with_nearest(
+    source: &[f32],
+    target: &[f32],
+    dim: usize,
+    params: &MatchParams,
+) -> (Vec<Correspondence>, Vec<(u32, f32, f32)>) {
     if dim == 0 || source.len() < dim || target.len() < dim {
-        return Vec::new();
+        return (Vec::new(), Vec::new());
     }
     let (fwd, back) = nearest_both(source, target, dim);
     let mut all: Vec<Correspondence> = fwd
@@ -126,7 +137,7 @@ pub fn match_features(
         keep.sort_by(|a, b| a.ratio.total_cmp(&b.ratio).then(a.source.cmp(&b.source)));
     }
     keep.truncate(params.max_keep);
-    keep
+    (keep, fwd)
 }
 
 #[cfg(test)]

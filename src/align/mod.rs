@@ -39,6 +39,7 @@ pub mod candidates;
 pub mod consensus;
 pub mod constraint;
 pub mod equivariant;
+pub mod evidence;
 pub mod export;
 pub mod fpfh;
 pub mod hypotheses;

@@ -68,8 +68,9 @@ pub struct AlignParams {
     /// Seed of every random choice (the run is deterministic for a given seed).
     pub seed: u64,
     /// Version of the harmonic descriptors (design, "the descriptor, exactly"). Default 1:
-    /// with version 2 the elbow of the demo part scans no longer aligns (tests/align_parts.rs),
-    /// so registration stays on version 1 until it is tuned for version 2.
+    /// with version 2 the benchmark subset and the depot stations come out the same, but the
+    /// elbow of the demo part scans is no longer `confident` (tests/align_parts.rs;
+    /// DEVELOPERS.md, Registration), so registration stays on version 1.
     pub descriptor_version: u32,
     /// Every other tuning value of the pipeline.
     pub tuning: Tuning,
@@ -240,7 +241,15 @@ pub(crate) fn register(
     let proposed = hypotheses::propose(source, target, &found, params, tau);
     let ranked = rank::rank(proposed, &found.pairs, source, target, &params.tuning, tau);
     clock.lap("hypotheses");
-    let mut polished = refine::coarse(&ranked, &found.pairs, source, target, params, tau);
+    let mut polished = refine::coarse(
+        &ranked,
+        &found.pairs,
+        &found.distinctive,
+        source,
+        target,
+        params,
+        tau,
+    );
     let seen = Visibility::new(source, target, &params.viewpoints, &params.tuning);
     seen.assess(&mut polished);
     clock.lap("refinement");

@@ -2,7 +2,8 @@
 //! poses and from the near-symmetric alternatives of the leader, then a fine fit of the best.
 //!
 //! Coarse: up to [`super::AlignParams::refine_best`] ranked poses that differ by more than
-//! [`super::Tuning::start_angle_deg`] (or one τ) start an ICP on the keypoints; the leader's
+//! [`super::Tuning::start_angle_deg`] (or one τ) start an ICP on the keypoints (at most
+//! [`super::Tuning::icp_sample`], evenly strided; the runs in parallel); the leader's
 //! alternatives ([`super::candidates::alternatives`]: turns about the principal axes of the
 //! overlap, flips, slides along weakly constrained directions) are refined too, since the drawn
 //! hypotheses need not contain them. Each result is scored by its tight overlap (the share of
@@ -13,10 +14,12 @@
 //! stability-aware sample and judged on every point again.
 
 use nalgebra::Vector3;
+use rayon::prelude::*;
 
-use super::candidates::{Scored, alternatives, distinct_best};
+use super::candidates::{Most, Scored, alternatives, distinct_best};
 use super::consensus::{self, Pairs};
 use super::constraint::{Constraint, Motion, analyse, paired, stable_sample};
+use super::evidence::Distinctive;
 use super::icp::{IcpParams, icp_point_to_plane, oriented_fit};
 use super::pipeline::AlignParams;
 use super::prepared_scan::PreparedScan;
@@ -63,13 +66,19 @@ pub fn tight_overlap(
 pub fn coarse(
     ranked: &Ranked,
     pairs: &Pairs,
+    distinctive: &Distinctive,
     source: &PreparedScan,
     target: &PreparedScan,
     params: &AlignParams,
     tau: f64,
 ) -> Vec<Scored> {
     let tu = &params.tuning;
-    let icp = coarse_icp(params, tau, source.voxel);
+    let icp = IcpParams {
+        tolerance: tu.icp_coarse_tolerance,
+        ..coarse_icp(params, tau, source.voxel)
+    };
+    let stride = source.keypoints.len().div_ceil(tu.icp_sample.max(1)).max(1);
+    let sample: Vec<[f32; 3]> = source.keypoints.iter().step_by(stride).copied().collect();
     // Least squares on the inliers came first (cheap); poses that then coincide are polished
     // once.
     let mut starts: Vec<Rigid> = Vec::new();
@@ -86,7 +95,7 @@ pub fn coarse(
     }
     let polish = |start: &Rigid| {
         let out = icp_point_to_plane(
-            &source.keypoints,
+            &sample,
             &target.keypoints,
             &target.normals,
             target.keypoint_index(),
@@ -97,11 +106,12 @@ pub fn coarse(
             pose: out.transform,
             overlap: tight_overlap(source, target, &out.transform, params, tau),
             explained: pairs.support(&out.transform, tau),
+            evidence: distinctive.agreement(source, target, &out.transform, tau),
             iterations: out.iterations,
             free_space: None,
         }
     };
-    let mut polished: Vec<Scored> = starts.iter().map(polish).collect();
+    let mut polished: Vec<Scored> = starts.par_iter().map(polish).collect();
     let leader = distinct_best(
         &polished,
         1,
@@ -132,7 +142,7 @@ pub fn coarse(
             tau,
             &slides,
         );
-        polished.extend(alts.iter().map(polish));
+        polished.extend(alts.par_iter().map(polish).collect::<Vec<_>>());
     }
     polished
 }
@@ -143,8 +153,8 @@ pub struct Refined {
     pub polished: Vec<Scored>,
     /// Indices into `polished` of the distinct poses, best first.
     pub order: Vec<usize>,
-    /// Most matches explained by any coarse pose.
-    pub most: usize,
+    /// Most evidence of any coarse pose.
+    pub most: Most,
     /// The best coarse pose (`None` when there was none).
     pub best: Option<Scored>,
     /// The best pose before the fine fit (the identity when there was none).
@@ -173,7 +183,7 @@ pub fn fine(
         tu.distinct_distance_taus * tau,
         0.0,
     );
-    let most = polished.iter().map(|p| p.explained).max().unwrap_or(0);
+    let most = Most::of(&polished);
     let best = order.first().map(|&i| polished[i]);
     let coarse = best.map_or(Rigid::identity(), |b| b.pose);
     let fine_icp = IcpParams {

@@ -102,6 +102,26 @@ impl KdIndex {
             .execute();
         (h.item as usize, h.distance)
     }
+
+    /// The nearest point as `(index, squared_distance)` when its squared distance is at most
+    /// `max_d2`, else `None`. The same point as [`KdIndex::nearest_one`] whenever that one is
+    /// within reach (up to ties of exactly equal distance); the search is cut off at the bound,
+    /// which makes it much cheaper for centres far from the cloud (a wrong pose in ICP).
+    #[inline]
+    pub fn nearest_within(&self, centre: [f32; 3], max_d2: f64) -> Option<(usize, f32)> {
+        // The f32 bound is rounded up a little, and the f64 test decides, so that the boundary
+        // is the caller's.
+        let bound = (max_d2 as f32) * (1.0 + 4.0 * f32::EPSILON) + f32::MIN_POSITIVE;
+        let hits = self
+            .tree
+            .query(&centre)
+            .nearest_n::<SquaredEuclidean<f32>>(NonZeroUsize::MIN)
+            .within(bound)
+            .execute();
+        hits.first()
+            .filter(|h| h.distance as f64 <= max_d2)
+            .map(|h| (h.item as usize, h.distance))
+    }
 }
 
 #[cfg(test)]
@@ -114,6 +134,29 @@ mod tests {
         (0..n)
             .map(|_| std::array::from_fn(|_| rng.next_f64() as f32))
             .collect()
+    }
+
+    /// Bounded nearest = the unbounded nearest when it is within reach, none otherwise
+    /// (centres on, near and far from the cloud, bounds on either side of the distance).
+    #[test]
+    fn bounded_nearest_agrees_with_nearest() {
+        let pts = points(3000, 11);
+        let index = KdIndex::new(&pts).unwrap();
+        let mut rng = crate::so3::rng::SplitMix64::new(12);
+        for _ in 0..2000 {
+            let c: [f32; 3] = std::array::from_fn(|_| (rng.next_f64() * 3.0 - 1.0) as f32);
+            let (j, d2) = index.nearest_one(c);
+            for bound in [0.0001f64, 0.001, 0.01, 0.1, d2 as f64, 10.0] {
+                match index.nearest_within(c, bound) {
+                    Some((k, e2)) => {
+                        assert!(e2 as f64 <= bound);
+                        assert_eq!(e2, d2);
+                        assert!(k == j || pts[k] == pts[j]);
+                    }
+                    None => assert!(d2 as f64 > bound, "{d2} within {bound} missed"),
+                }
+            }
+        }
     }
 
     #[test]
