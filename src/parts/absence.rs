@@ -269,3 +269,73 @@ pub fn fine_area(scan: &PreparedScan, r: &Prepared, coverage: f64) -> f64 {
     }
     coverage * r.reference.points.len() as f64 / rho / scan.fine.len() as f64
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::cloud::Cloud;
+    use crate::parts::reference::Reference;
+
+    /// Points of the square [0, 40]² at height 0, normal +z, on a grid of `step`, leaving out
+    /// those within `hole` of (20, 20).
+    fn face(step: f32, hole: f32, jitter: bool) -> Vec<[f32; 3]> {
+        let n = (40.0 / step) as usize;
+        let mut out = Vec::new();
+        for i in 0..=n {
+            for j in 0..=n {
+                // Deterministic jitter of a third of the step (a raster is never exact).
+                let (dx, dy) = if jitter {
+                    let h = ((i * 7919 + j * 104_729) % 997) as f32 / 997.0 - 0.5;
+                    let g = ((i * 6151 + j * 3571) % 991) as f32 / 991.0 - 0.5;
+                    (h * step / 3.0, g * step / 3.0)
+                } else {
+                    (0.0, 0.0)
+                };
+                let (x, y) = (i as f32 * step + dx, j as f32 * step + dy);
+                if ((x - 20.0).powi(2) + (y - 20.0).powi(2)).sqrt() >= hole {
+                    out.push([x, y, 0.0]);
+                }
+            }
+        }
+        out
+    }
+
+    fn part(hole: f32) -> Prepared {
+        let p = face(0.4, hole, false);
+        let n = vec![[0.0, 0.0, 1.0]; p.len()];
+        Prepared::new(Reference::from_points([0.0; 3], p, n)).unwrap()
+    }
+
+    /// A scan of a face with a Ø10 hole: the solid face's reference points inside the hole
+    /// are missing (and not on the holed part's surface); the holed part misses nothing.
+    #[test]
+    fn a_hole_seen_straight_on_is_missing_surface_of_the_solid_part() {
+        let scan = PreparedScan::new(&Cloud::new([0.0; 3], face(0.8, 5.0, true)), "scan").unwrap();
+        let (solid, holed) = (part(0.0), part(5.0));
+        let id = Rigid::identity();
+        let tau = 0.2;
+        let ms = missing(&scan, &solid, &id, tau);
+        let mh = missing(&scan, &holed, &id, tau);
+        assert!(mh.points.is_empty(), "{} missing", mh.points.len());
+        assert!(!ms.points.is_empty());
+        for p in &ms.points {
+            let r = ((p[0] - 20.0).powi(2) + (p[1] - 20.0).powi(2)).sqrt();
+            assert!(r < 5.0, "missing point {p:?} outside the hole");
+        }
+        // At least half the hole's area (the rim within the gap radius is not counted).
+        let area = ms.points.len() as f64 * ms.area_per_point;
+        let hole = std::f64::consts::PI * 25.0;
+        assert!(area > 0.4 * hole && area < 1.1 * hole, "area {area}");
+        let fine = 1600.0 / scan.fine.len() as f64;
+        assert!(against(&ms, &id, &holed, &id, fine) > 0);
+        assert_eq!(against(&ms, &id, &solid, &id, fine), 0);
+    }
+
+    /// The same face without a hole: nothing is missing (its random gaps are too small).
+    #[test]
+    fn a_face_seen_whole_misses_nothing() {
+        let scan = PreparedScan::new(&Cloud::new([0.0; 3], face(0.8, 0.0, true)), "scan").unwrap();
+        let m = missing(&scan, &part(0.0), &Rigid::identity(), 0.2);
+        assert!(m.points.is_empty(), "{} missing", m.points.len());
+    }
+}
