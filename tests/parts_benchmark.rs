@@ -448,7 +448,7 @@ fn run(seeds: &[u64], kinds: &[bool], only: Option<&[&str]>) -> (Tally, Vec<(Str
                         Verdict::Unknown => "unknown",
                     };
                     eprintln!(
-                        "{:<13} {:<7} seed {seed:>3} {:>6} pts cover {:>3.0} % noise {:.2} %: {verdict} {got} {} {pose_note} ({secs:.2} s) [{}]",
+                        "{:<13} {:<7} seed {seed:>3} {:>6} pts cover {:>3.0} % noise {:.2} %: {verdict} {got} {} {pose_note} ({secs:.2} s) [{}] evidence {}",
                         s.name,
                         ts.kind,
                         ts.cloud.len(),
@@ -459,7 +459,15 @@ fn run(seeds: &[u64], kinds: &[bool], only: Option<&[&str]>) -> (Tally, Vec<(Str
                         } else {
                             format!("with {}", id.confused_with.join(","))
                         },
-                        sig.join(" ")
+                        sig.join(" "),
+                        id.evidence
+                            .iter()
+                            .zip(&id.gaps)
+                            .map(|((p, a, b), (_, ga, gb))| format!(
+                                "{p} {a}({ga} gap)/{b}({gb} gap)"
+                            ))
+                            .collect::<Vec<_>>()
+                            .join("; ")
                     );
                     if in_cat {
                         tally.scans += 1;

@@ -12,12 +12,15 @@
 //! 3. Verdict: `unknown` when no part explains the scan; otherwise the best-fitting part must
 //!    beat every other explaining part by [`super::evidence`]: points it explains and the
 //!    other does not (a hole the other lacks, a longer step), at least
-//!    [`super::register::min_evidence`] of them and twice the reverse count. If the scan shows
+//!    [`super::register::min_evidence`] of them and twice the reverse count. Absence evidence
+//!    counts too ([`super::absence`]): surface of the other part inside a face the scan saw,
+//!    with no scan point, where the best part has none (a hole seen straight on). If the scan shows
 //!    none of the difference, the verdict is `ambiguous` between them, not a guess.
 
 use rayon::prelude::*;
 use serde::Serialize;
 
+use super::absence::{self, Missing};
 use super::catalogue::Catalogue;
 use super::register::{Fit, FitParams, PoseVerdict, fit, min_evidence};
 use super::scan::PreparedScan;
@@ -123,8 +126,13 @@ pub struct Identification {
     /// Registration figures of every registered part, best first.
     pub fits: Vec<PartFit>,
     /// Evidence counts `(part, for the named part, for the other)` against the other
-    /// explaining parts.
+    /// explaining parts: sample points one explains and the other does not, plus absence
+    /// evidence in sample-point equivalents (`gaps`).
     pub evidence: Vec<(String, usize, usize)>,
+    /// The absence part of `evidence` (`(part, for the named part, for the other)`):
+    /// reference surface of one part inside a face the scan saw, with no scan point, where
+    /// the other part has no surface ([`super::absence`]).
+    pub gaps: Vec<(String, usize, usize)>,
     /// Estimated scan noise σ, file units.
     pub noise: f64,
     /// Why, in one sentence.
@@ -248,6 +256,7 @@ pub fn identify(scan: &PreparedScan, cat: &Catalogue, params: &IdentifyParams) -
         ranking: ranking.clone(),
         fits: fits.clone(),
         evidence: Vec::new(),
+        gaps: Vec::new(),
         noise: scan.noise,
         reason,
     };
@@ -269,12 +278,30 @@ pub fn identify(scan: &PreparedScan, cat: &Catalogue, params: &IdentifyParams) -
     let mut out = base(Verdict::Identified, String::new());
     let (bi, bf, bpf) = (best.0, &best.1, &best.2);
     let mut weakest = f64::INFINITY;
-    for other in explaining.iter().skip(1) {
+    let missing: Vec<Missing> = if explaining.len() > 1 {
+        explaining
+            .iter()
+            .map(|(i, f, _)| absence::missing(scan, &cat.parts[*i], &f.best.local, f.tau))
+            .collect()
+    } else {
+        Vec::new()
+    };
+    let fine_area = if explaining.len() > 1 {
+        absence::fine_area(scan, &cat.parts[bi], bpf.coverage)
+    } else {
+        0.0
+    };
+    for (k, other) in explaining.iter().enumerate().skip(1) {
         let tau = bf.tau.max(other.1.tau);
-        let (for_best, for_other) =
+        let (seen_best, seen_other) =
             super::evidence(&bf.best.residuals, &other.1.best.residuals, tau);
+        let (pb, po) = (&bf.best.local, &other.1.best.local);
+        let gap_best = absence::against(&missing[k], po, &cat.parts[bi], pb, fine_area);
+        let gap_other = absence::against(&missing[0], pb, &cat.parts[other.0], po, fine_area);
+        let (for_best, for_other) = (seen_best + gap_best, seen_other + gap_other);
         out.evidence
             .push((other.2.part.clone(), for_best, for_other));
+        out.gaps.push((other.2.part.clone(), gap_best, gap_other));
         if for_best < need || for_best < 2 * for_other {
             out.confused_with.push(other.2.part.clone());
         }

@@ -3,6 +3,7 @@
 //!
 //! - [`reference`](mod@reference): a part's reference surface (points with outward normals, the mesh when
 //!   there is one) and its search structures ([`reference::Prepared`]);
+//! - [`absence`]: absence evidence (reference surface inside a seen face with no scan point);
 //! - [`catalogue`]: the versioned catalogue file (`catalogue build` / `show`);
 //! - [`signature`]: whole-shape rotation invariants (diameter, D2 shape distribution) for the
 //!   shortlist;
@@ -22,6 +23,7 @@
 //! Results support, and do not replace, inspection with calibrated equipment: see
 //! [`CAUTION`].
 
+pub mod absence;
 pub mod catalogue;
 pub mod deviation;
 pub mod identify;

@@ -34,6 +34,11 @@ pub struct Evidence {
     pub points_for_named: usize,
     /// Sample points the other explains and the named part does not.
     pub points_for_other: usize,
+    /// Of `points_for_named`: absence evidence (the other part's surface inside a face the
+    /// scan saw, with no scan point, where the named part has none), in sample points.
+    pub gap_points_for_named: usize,
+    /// Of `points_for_other`: the same the other way round.
+    pub gap_points_for_other: usize,
 }
 
 /// One line of `identify --json`.
@@ -98,10 +103,13 @@ impl IdentifyRecord {
             evidence: id
                 .evidence
                 .iter()
-                .map(|(p, a, b)| Evidence {
+                .zip(&id.gaps)
+                .map(|((p, a, b), (_, ga, gb))| Evidence {
                     part: p.clone(),
                     points_for_named: *a,
                     points_for_other: *b,
+                    gap_points_for_named: *ga,
+                    gap_points_for_other: *gb,
                 })
                 .collect(),
             noise: id.noise,

@@ -16,6 +16,8 @@ use crate::spatial::{KdIndex, estimate_spacing_with, voxel_downsample};
 pub const COARSE_POINTS: usize = 300;
 /// Points of the fine sample (refinement, fit figures, evidence).
 pub const FINE_POINTS: usize = 3000;
+/// Most points of the dense sample (absence evidence, [`super::absence`]).
+pub const DENSE_POINTS: usize = 30_000;
 /// Fewest points a scan must have.
 pub const MIN_POINTS: usize = 50;
 
@@ -28,6 +30,9 @@ pub struct PreparedScan {
     pub coarse: Vec<[f32; 3]>,
     /// Fine sample, local.
     pub fine: Vec<[f32; 3]>,
+    /// Dense sample (voxel of diagonal / 1000 or half the spacing, at most [`DENSE_POINTS`]), local: where the scan
+    /// saw surface, for absence evidence.
+    pub dense: Vec<[f32; 3]>,
     /// Estimated noise σ along the surface normal (median local plane residual), file units.
     pub noise: f64,
     /// Median nearest-neighbour spacing of the scan.
@@ -69,6 +74,9 @@ impl PreparedScan {
         }
         let fine_keep = voxel_downsample(&scan.positions, (diag / 150.0).max(spacing) as f32);
         let fine = take_stride(&scan.positions, &fine_keep, FINE_POINTS);
+        let dense_keep =
+            voxel_downsample(&scan.positions, (diag / 1000.0).max(0.5 * spacing) as f32);
+        let dense = take_stride(&scan.positions, &dense_keep, DENSE_POINTS);
         let coarse_keep = voxel_downsample(&scan.positions, (diag / 30.0) as f32);
         let coarse = take_stride(&scan.positions, &coarse_keep, COARSE_POINTS);
         let noise = noise_level(&scan.positions, &index, &fine);
@@ -78,6 +86,7 @@ impl PreparedScan {
             origin: scan.origin,
             coarse,
             fine,
+            dense,
             noise,
             spacing,
             diameter,
