@@ -49,9 +49,13 @@ fn cyl(c: V, axis: V, r: f64, half: f64) -> Solid {
     Solid::Cylinder(c, axis.normalize(), r, half)
 }
 /// Parts with a rotational symmetry (their pose is not unique): both plates and shafts, the
-/// tube (half turn about its axis: the cross hole goes through both walls) and the tee (half
-/// turn about its stem). Pose accuracy is counted on the others.
-const SYMMETRIC: [&str; 6] = ["plate2", "plate3", "shaft40", "shaft48", "tube", "tee"];
+/// tube (half turn about its axis: the cross hole goes through both walls), the tee (half
+/// turn about its stem) and disc4 (half turn about the in-plane diagonal through its marker
+/// hole and the middle of its thickness: (x, y, z − 5) ↦ (y, x, 5 − z) maps the disc, its four
+/// through holes and the marker hole onto themselves). Pose accuracy is counted on the others.
+const SYMMETRIC: [&str; 7] = [
+    "plate2", "plate3", "shaft40", "shaft48", "tube", "tee", "disc4",
+];
 
 fn shape(name: &'static str, solid: Solid, lo: V, hi: V) -> Shape {
     Shape {
