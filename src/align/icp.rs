@@ -86,14 +86,11 @@ pub fn icp_point_to_plane(
         }
         let scale = robust_scale(&pairs).max(params.min_scale);
         let (a, b) = normal_equations(&pairs, scale, params.loss);
-        let a = a + Matrix6::identity() * (1e-9 * a.trace().max(1e-12));
-        let Some(chol) = a.cholesky() else { break };
-        let x = chol.solve(&(-b));
-        let omega = Vector3::new(x[0], x[1], x[2]);
-        let dt = Vector3::new(x[3], x[4], x[5]);
-        let step = *Rotation3::new(omega).matrix();
-        tf = Rigid::new(step * tf.rotation, step * tf.translation + dt);
-        if omega.norm() < params.tolerance && dt.norm() < params.tolerance * params.max_distance {
+        let Some((next, turn, shift)) = point_to_plane_step(&a, &b, &tf) else {
+            break;
+        };
+        tf = next;
+        if turn < params.tolerance && shift < params.tolerance * params.max_distance {
             converged = true;
             break;
         }
@@ -260,6 +257,28 @@ fn weight(r: f64, scale: f64, loss: RobustLoss) -> f64 {
             }
         }
     }
+}
+
+/// One Gauss–Newton step of point-to-plane ICP from the normal equations `a x = −b` of the
+/// linearised motion `x = (ω, δt)` (small rotation vector first, then translation; a tiny
+/// ridge, 1e-9 of the trace, keeps a degenerate system solvable): the updated pose
+/// `R(ω) · tf + δt` with `|ω|` (radians) and `|δt|` (file units), or `None` when the system
+/// cannot be solved.
+pub fn point_to_plane_step(
+    a: &Matrix6<f64>,
+    b: &Vector6<f64>,
+    tf: &Rigid,
+) -> Option<(Rigid, f64, f64)> {
+    let a = a + Matrix6::identity() * (1e-9 * a.trace().max(1e-12));
+    let x = a.cholesky()?.solve(&(-b));
+    let omega = Vector3::new(x[0], x[1], x[2]);
+    let dt = Vector3::new(x[3], x[4], x[5]);
+    let step = *Rotation3::new(omega).matrix();
+    Some((
+        Rigid::new(step * tf.rotation, step * tf.translation + dt),
+        omega.norm(),
+        dt.norm(),
+    ))
 }
 
 fn normal_equations(pairs: &[Pair], scale: f64, loss: RobustLoss) -> (Matrix6<f64>, Vector6<f64>) {

@@ -55,7 +55,7 @@ use crate::descriptor::output::{
 };
 use crate::descriptor::{Centres, Engine, Features, Recipe};
 use crate::error::{Error, Result};
-use crate::io::{PointSource, TempOwner, host_label, owner_is_stale};
+use crate::io::{PointSource, TempOwner, host_label, remove_stale_entries};
 use crate::spatial::KdIndex;
 
 use super::Plan;
@@ -163,19 +163,7 @@ fn dir_owner(name: &str) -> Option<TempOwner> {
 /// Removes the chunk folders in the journal folder of `outdir` left by processes of this host
 /// that are gone (other hosts' are kept); returns their number.
 pub fn remove_stale_chunk_dirs(outdir: &Path) -> usize {
-    let Ok(entries) = fs::read_dir(journal::dir(outdir)) else {
-        return 0;
-    };
-    entries
-        .flatten()
-        .filter(|e| {
-            e.file_name()
-                .to_str()
-                .and_then(dir_owner)
-                .is_some_and(|o| owner_is_stale(&o))
-        })
-        .filter(|e| fs::remove_dir_all(e.path()).is_ok())
-        .count()
+    remove_stale_entries(&journal::dir(outdir), dir_owner, |p| fs::remove_dir_all(p))
 }
 
 /// A folder removed with everything in it when dropped.

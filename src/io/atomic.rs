@@ -133,6 +133,17 @@ pub fn owner_is_stale(owner: &TempOwner) -> bool {
 /// are gone; files of other hosts are kept); returns their number. Errors (unreadable folder,
 /// a file removed meanwhile) are ignored.
 pub fn remove_stale_temp_files(dir: &Path) -> usize {
+    remove_stale_entries(dir, temp_owner, |p| fs::remove_file(p))
+}
+
+/// Removes the entries of `dir` whose name `owner_of` reads as made by a stale owner
+/// ([`owner_is_stale`]), each with `remove`; returns how many were removed. Errors (unreadable
+/// folder, an entry removed meanwhile) are ignored.
+pub fn remove_stale_entries(
+    dir: &Path,
+    owner_of: impl Fn(&str) -> Option<TempOwner>,
+    remove: impl Fn(&Path) -> std::io::Result<()>,
+) -> usize {
     let Ok(entries) = fs::read_dir(dir) else {
         return 0;
     };
@@ -141,10 +152,10 @@ pub fn remove_stale_temp_files(dir: &Path) -> usize {
         .filter(|e| {
             e.file_name()
                 .to_str()
-                .and_then(temp_owner)
+                .and_then(&owner_of)
                 .is_some_and(|o| owner_is_stale(&o))
         })
-        .filter(|e| fs::remove_file(e.path()).is_ok())
+        .filter(|e| remove(&e.path()).is_ok())
         .count()
 }
 

@@ -47,7 +47,8 @@ use crate::error::{Error, Result};
 
 pub use atomic::{
     Finished, TEMP_SUFFIX, TempFile, TempOwner, host_label, owner_is_stale, process_gone,
-    remove_live_temp_files, remove_stale_temp_files, temp_owner, write_atomic,
+    remove_live_temp_files, remove_stale_entries, remove_stale_temp_files, temp_owner,
+    write_atomic,
 };
 pub use csv::write_csv;
 pub use e57::split_scan;

@@ -36,7 +36,7 @@ use serde::Serialize;
 use super::deviation::{Residuals, residuals, residuals_seq};
 use super::reference::Prepared;
 use super::scan::PreparedScan;
-use crate::align::icp::{IcpParams, RobustLoss, icp_point_to_plane};
+use crate::align::icp::{IcpParams, RobustLoss, icp_point_to_plane, point_to_plane_step};
 use crate::geometry::{Rigid, horn, rotation_error_deg, vec3};
 use crate::so3::rotation::HopfGrid;
 
@@ -246,14 +246,11 @@ fn plane_icp(points: &[[f32; 3]], r: &Prepared, start: &Rigid, p: &PlaneIcp) -> 
             a += w * jac * jac.transpose();
             b += w * res * jac;
         }
-        let a = a + Matrix6::identity() * (1e-9 * a.trace().max(1e-12));
-        let Some(chol) = a.cholesky() else { break };
-        let x = chol.solve(&(-b));
-        let omega = Vector3::new(x[0], x[1], x[2]);
-        let dt = Vector3::new(x[3], x[4], x[5]);
-        let step = *Rotation3::new(omega).matrix();
-        tf = Rigid::new(step * tf.rotation, step * tf.translation + dt);
-        if omega.norm() < 1e-5 && dt.norm() < 1e-5 * p.max_distance {
+        let Some((next, turn, shift)) = point_to_plane_step(&a, &b, &tf) else {
+            break;
+        };
+        tf = next;
+        if turn < 1e-5 && shift < 1e-5 * p.max_distance {
             break;
         }
     }
