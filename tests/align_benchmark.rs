@@ -318,11 +318,39 @@ fn band(x: f64, edges: &[f64], fmt: &dyn Fn(f64) -> String) -> String {
     format!("≥ {}", fmt(*edges.last().unwrap()))
 }
 
+/// Benchmark size: `EQUISCAN_BENCH_PAIRS=PER_PART,BUNNIES,YARD` (default 34,24,10, the full
+/// 306 pairs); a smaller size draws the first seeds of the same pairs.
+fn bench_size() -> (u64, u64, u64) {
+    let Ok(v) = std::env::var("EQUISCAN_BENCH_PAIRS") else {
+        return (34, 24, 10);
+    };
+    let n: Vec<u64> = v
+        .split(',')
+        .map(|x| {
+            x.trim()
+                .parse()
+                .expect("EQUISCAN_BENCH_PAIRS: three counts, e.g. 8,6,3")
+        })
+        .collect();
+    assert_eq!(n.len(), 3, "EQUISCAN_BENCH_PAIRS: three counts, e.g. 8,6,3");
+    (n[0], n[1], n[2])
+}
+
+/// Methods to run: `EQUISCAN_BENCH_METHODS=equivariant` or `fpfh` (default both).
+fn bench_methods() -> Vec<Method> {
+    match std::env::var("EQUISCAN_BENCH_METHODS").as_deref() {
+        Ok("equivariant") => vec![Method::Equivariant],
+        Ok("fpfh") => vec![Method::Fpfh],
+        _ => vec![Method::Equivariant, Method::Fpfh],
+    }
+}
+
 #[test]
 #[ignore = "full benchmark, about 300 pairs and both methods: --release --ignored --nocapture"]
 fn registration_benchmark_tables() {
-    let methods = [Method::Equivariant, Method::Fpfh];
-    let ps = pairs(34, 24, 10);
+    let methods = bench_methods();
+    let (per_part, bunnies, yard) = bench_size();
+    let ps = pairs(per_part, bunnies, yard);
     println!("{} pairs", ps.len());
     let rows = evaluate(&ps, &methods);
     let pc = |x: f64| format!("{:.0} %", 100.0 * x);
