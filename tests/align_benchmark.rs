@@ -130,12 +130,24 @@ fn stacked(p: &Pair, poses: &[Rigid]) -> bool {
 /// `yard` scene pairs, generated in parallel (each from its own seed).
 fn pairs(per_part: u64, bunnies: u64, yard: u64) -> Vec<Pair> {
     let all = shapes();
+    // `EQUISCAN_BENCH_SHAPES=bracket,shaft` keeps only those shapes ("bunny" for the mesh).
+    let only: Option<Vec<String>> = std::env::var("EQUISCAN_BENCH_SHAPES")
+        .ok()
+        .map(|v| v.split(',').map(|x| x.trim().to_string()).collect());
+    let keep = |name: &str| only.as_ref().is_none_or(|o| o.iter().any(|x| x == name));
     let mut jobs: Vec<(usize, u64)> = Vec::new();
     for (k, s) in all.iter().enumerate() {
-        let n = if s.scene { yard } else { per_part };
+        let n = if !keep(s.name) {
+            0
+        } else if s.scene {
+            yard
+        } else {
+            per_part
+        };
         jobs.extend((0..n).map(|i| (k, 1000 * k as u64 + i)));
     }
     let mesh = bunny();
+    let bunnies = if keep("bunny") { bunnies } else { 0 };
     jobs.extend((0..bunnies).map(|i| (usize::MAX, 90_000 + i)));
     jobs.par_iter()
         .map(|&(k, seed)| {
@@ -319,7 +331,8 @@ fn band(x: f64, edges: &[f64], fmt: &dyn Fn(f64) -> String) -> String {
 }
 
 /// Benchmark size: `EQUISCAN_BENCH_PAIRS=PER_PART,BUNNIES,YARD` (default 34,24,10, the full
-/// 306 pairs); a smaller size draws the first seeds of the same pairs.
+/// 306 pairs); a smaller size draws the first seeds of the same pairs. `EQUISCAN_BENCH_SHAPES`
+/// (comma-separated shape names, "bunny" for the mesh) keeps only those shapes.
 fn bench_size() -> (u64, u64, u64) {
     let Ok(v) = std::env::var("EQUISCAN_BENCH_PAIRS") else {
         return (34, 24, 10);
