@@ -38,14 +38,13 @@ use super::rigid::Rigid;
 const FACE_ANGLE_DEG: f64 = 10.0;
 
 /// Up to three principal face orientations among unit `normals` (sign ignored), most populated
-/// first: repeatedly, among a strided sample of at most 200 normals, the one with the most
+/// first: repeatedly, among a strided sample of at most 200 unassigned normals, the one with the most
 /// unassigned normals within [`FACE_ANGLE_DEG`]; its members' mean (signs aligned) is the
 /// orientation, and every normal within twice that angle is assigned to it. An orientation
 /// needs at least 5 % of the normals.
 fn face_normals(normals: &[Vector3<f64>]) -> Vec<Vector3<f64>> {
     let near = FACE_ANGLE_DEG.to_radians().cos();
     let taken_cos = (2.0 * FACE_ANGLE_DEG).to_radians().cos();
-    let stride = normals.len().div_ceil(200).max(1);
     let mut free = vec![true; normals.len()];
     let mut out = Vec::new();
     while out.len() < 3 {
@@ -56,10 +55,17 @@ fn face_normals(normals: &[Vector3<f64>]) -> Vec<Vector3<f64>> {
                 .filter(|(n, f)| **f && n.dot(m).abs() >= near)
                 .count()
         };
-        let Some((seed, members)) = normals
+        let open: Vec<&Vector3<f64>> = normals
+            .iter()
+            .zip(&free)
+            .filter(|(_, f)| **f)
+            .map(|(n, _)| n)
+            .collect();
+        let stride = open.len().div_ceil(200).max(1);
+        let Some((seed, members)) = open
             .iter()
             .step_by(stride)
-            .map(|m| (m, count(m)))
+            .map(|&m| (m, count(m)))
             .max_by(|a, b| a.1.cmp(&b.1))
         else {
             break;
@@ -183,4 +189,32 @@ pub fn parallel_slides(
             }
         })
         .collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// The normals of an L-bracket's two plates (±x and ±z, both signs, 2° of scatter) and a
+    /// few hole-wall normals: two face orientations, x and z, the hole walls too few for a third.
+    #[test]
+    fn face_normals_are_the_plates_orientations() {
+        let mut n = Vec::new();
+        for k in 0..400 {
+            let a = (k as f64 * 0.37).sin() * 2f64.to_radians();
+            let s = if k % 2 == 0 { 1.0 } else { -1.0 };
+            n.push(Vector3::new(s * a.cos(), a.sin(), 0.0));
+            if k < 300 {
+                n.push(Vector3::new(a.sin(), 0.0, s * a.cos()));
+            }
+        }
+        for k in 0..30 {
+            let a = k as f64 * std::f64::consts::TAU / 30.0;
+            n.push(Vector3::new(a.cos(), a.sin(), 0.0).normalize());
+        }
+        let axes = face_normals(&n);
+        assert_eq!(axes.len(), 2, "{axes:?}");
+        assert!(axes[0].x.abs() > 0.999, "{:?}", axes[0]);
+        assert!(axes[1].z.abs() > 0.999, "{:?}", axes[1]);
+    }
 }
