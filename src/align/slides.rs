@@ -14,12 +14,13 @@
 //! an eigenvector of `Σ n nᵀ` mixes two faces whose populations are alike, and a slide along a
 //! mixed direction lifts one face off). Along
 //! each, the tight overlap ([`super::refine::tight_overlap`]) is sampled every half voxel over
-//! ± [`super::Tuning::slide_range_taus`] inlier thresholds; every local maximum beyond two
-//! voxels from the leader, separated from it by a dip and keeping at least
-//! [`super::Tuning::slide_min_share`] of the leader's tight overlap, is refined by ICP on the
-//! keypoints with the fine stage's pairing distance (one τ, so that it stays in its own basin)
-//! and scored like the other refined poses. The best such pose on each side of each direction
-//! is returned; the ranking and the judge then treat them as any other rival.
+//! ± [`super::Tuning::slide_range_taus`] inlier thresholds; on each side, the highest local
+//! maximum (of the mean of three neighbouring offsets) beyond two voxels from the leader that
+//! keeps at least [`super::Tuning::slide_min_share`] of the leader's tight overlap is refined by
+//! ICP on the keypoints with the fine stage's pairing distance (one τ, so that it stays in its
+//! own basin) and scored like the other refined poses; the ranking and the judge then treat
+//! them as any other rival ([`super::refine::fine`] drops one that ICP carried back to the
+//! leader).
 
 use nalgebra::Vector3;
 use rayon::prelude::*;
@@ -137,25 +138,21 @@ pub fn parallel_slides(
             .par_iter()
             .map(|&j| tight_overlap(source, target, &shifted(u, j), params, tau))
             .collect();
-        let at = |j: i64| profile[(j + reach) as usize];
-        let top = at(0);
+        // Three-tap mean: the tight overlap of a noisy scan wobbles from one offset to the next.
+        let at = |j: i64| {
+            let i = (j + reach) as usize;
+            let lo = i.saturating_sub(1);
+            let hi = (i + 1).min(profile.len() - 1);
+            profile[lo..=hi].iter().sum::<f64>() / (hi - lo + 1) as f64
+        };
+        let top = profile[reach as usize];
         for side in [-1i64, 1] {
-            let mut best: Option<(i64, f64)> = None;
-            let mut dip = top;
-            for d in 1..=reach {
-                let j = side * d;
-                let v = at(j);
-                dip = dip.min(v);
-                let peak = d < reach && v >= at(j - side) && v >= at(j + side);
-                if d >= near
-                    && peak
-                    && v >= tu.slide_min_share * top
-                    && dip < 0.9 * v
-                    && best.is_none_or(|b| v > b.1)
-                {
-                    best = Some((j, v));
-                }
-            }
+            let best = (near..reach)
+                .map(|d| (side * d, at(side * d)))
+                .filter(|&(j, v)| {
+                    v >= at(j - side) && v >= at(j + side) && v >= tu.slide_min_share * top
+                })
+                .max_by(|a, b| a.1.total_cmp(&b.1).then(b.0.abs().cmp(&a.0.abs())));
             if let Some((j, _)) = best {
                 starts.push(shifted(u, j));
             }
