@@ -11,7 +11,8 @@
 //! matches it explains. Fine: ICP on the fine points from the best distinct pose; the 6×6
 //! normal matrix of the fit ([`super::constraint`], Gelfand, Ikemoto, Rusinkiewicz & Levoy
 //! 2003) names weakly constrained motions, and where one looks weak the fit is redone on a
-//! stability-aware sample and judged on every point again.
+//! stability-aware sample and judged on every point again. Before the fine fit, the leader's
+//! parallel-face slides ([`super::slides`]) join the coarse poses as poses of their own.
 
 use nalgebra::Vector3;
 use rayon::prelude::*;
@@ -154,7 +155,8 @@ pub const SLIDE_DISTINCT_VOXELS: f64 = 1.0;
 
 /// The coarse poses in ranking order and the fine fit of the best.
 pub struct Refined {
-    /// Every coarse pose, in the order [`coarse`] produced them.
+    /// Every refined pose: the coarse poses in the order [`coarse`] produced them, then the
+    /// leader's parallel-face slides ([`super::slides`]).
     pub polished: Vec<Scored>,
     /// Indices into `polished` of the distinct poses, best first.
     pub order: Vec<usize>,
