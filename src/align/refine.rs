@@ -28,7 +28,7 @@ use super::rank::Ranked;
 use super::rigid::{Rigid, rotation_error_deg};
 
 /// The coarse ICP settings of `params` for inlier threshold `tau` and voxel size `voxel`.
-fn coarse_icp(params: &AlignParams, tau: f64, voxel: f64) -> IcpParams {
+pub(super) fn coarse_icp(params: &AlignParams, tau: f64, voxel: f64) -> IcpParams {
     let tu = &params.tuning;
     IcpParams {
         max_distance: tu.icp_max_distance_taus * tau,

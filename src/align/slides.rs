@@ -32,7 +32,7 @@ use super::evidence::Distinctive;
 use super::icp::{IcpParams, icp_point_to_plane};
 use super::pipeline::AlignParams;
 use super::prepared_scan::PreparedScan;
-use super::refine::tight_overlap;
+use super::refine::{coarse_icp, tight_overlap};
 use super::rigid::Rigid;
 
 /// Normals within this angle of a face orientation belong to the face.
@@ -160,10 +160,7 @@ pub fn parallel_slides(
     }
     let icp = IcpParams {
         max_distance: tu.fine_max_distance_taus * tau,
-        min_scale: tu.icp_min_scale_voxels * source.voxel,
-        loss: params.loss,
-        max_iterations: tu.icp_max_iterations,
-        tolerance: tu.icp_tolerance,
+        ..coarse_icp(params, tau, source.voxel)
     };
     starts
         .par_iter()
