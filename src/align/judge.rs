@@ -140,6 +140,9 @@ pub fn judge(
     if verdict == Verdict::Confident && !constraint.weak.is_empty() {
         verdict = Verdict::Ambiguous(quality::Reason::WeaklyConstrained);
     }
+    if verdict == Verdict::Confident && quality::slid_rival(refined.slide_rivalry) {
+        verdict = Verdict::Ambiguous(quality::Reason::AmbiguousSymmetricShape);
+    }
     let answer_free_space = seen.violation(&local);
     if answer_free_space.is_some_and(|v| v > tu.free_space_max_share)
         && !matches!(verdict, Verdict::NotFound(_))

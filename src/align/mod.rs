@@ -55,6 +55,7 @@ pub mod rank;
 pub mod refine;
 pub mod report;
 pub mod residual;
+pub mod slides;
 pub mod truth;
 pub mod tuning;
 pub mod visibility;

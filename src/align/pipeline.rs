@@ -14,7 +14,7 @@ use super::quality::{Figures, Verdict};
 use super::rigid::Rigid;
 use super::tuning::Tuning;
 use super::visibility::{Viewpoints, Visibility};
-use super::{hypotheses, judge, rank, refine};
+use super::{hypotheses, judge, rank, refine, slides};
 use crate::cloud::Cloud;
 use crate::error::{Error, Result};
 
@@ -250,10 +250,21 @@ pub(crate) fn register(
         params,
         tau,
     );
+    let coarse_count = polished.len();
+    let slid = slides::parallel_slides(
+        &polished,
+        &found.pairs,
+        &found.distinctive,
+        source,
+        target,
+        params,
+        tau,
+    );
+    polished.extend(slid);
     let seen = Visibility::new(source, target, &params.viewpoints, &params.tuning);
     seen.assess(&mut polished);
     clock.lap("refinement");
-    let refined = refine::fine(polished, source, target, params, tau);
+    let refined = refine::fine(polished, coarse_count, source, target, params, tau);
     clock.lap("fine ICP");
     let judged = judge::judge(
         &refined,

@@ -25,6 +25,21 @@ pub const MIN_OVERLAP: f64 = 0.08;
 /// verdict ambiguous; set from the benchmark subset, DEVELOPERS.md).
 pub const MIN_MARGIN: f64 = 0.2;
 
+/// Smallest margin over a rival that differs from the best by a slide only (the same rotation,
+/// another offset: a parallel-face slide of [`super::slides`], e.g. a plate's two faces laid on
+/// each other): a rival within 0.5 of the best makes the verdict ambiguous. Lower than
+/// [`MIN_MARGIN`] because such a rival shares the best pose's rotation and most of its surface
+/// fit, so the overlap that ranks them says least about which is right (set on the
+/// L-bracket benchmark pairs, DEVELOPERS.md, Registration, "Weak directions").
+pub const MIN_SLIDE_MARGIN: f64 = 0.5;
+
+/// True when a rival that differs from the best by a slide only comes close enough
+/// (`slide_rivalry`, see [`super::candidates::rivalry`]) to make a confident verdict
+/// ambiguous ([`MIN_SLIDE_MARGIN`]).
+pub fn slid_rival(slide_rivalry: f64) -> bool {
+    1.0 - slide_rivalry < MIN_SLIDE_MARGIN
+}
+
 /// Why no confident alignment was found.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]

@@ -11,12 +11,13 @@
 //! matches it explains. Fine: ICP on the fine points from the best distinct pose; the 6×6
 //! normal matrix of the fit ([`super::constraint`], Gelfand, Ikemoto, Rusinkiewicz & Levoy
 //! 2003) names weakly constrained motions, and where one looks weak the fit is redone on a
-//! stability-aware sample and judged on every point again.
+//! stability-aware sample and judged on every point again. Before the fine fit, the leader's
+//! parallel-face slides ([`super::slides`]) join the coarse poses as poses of their own.
 
 use nalgebra::Vector3;
 use rayon::prelude::*;
 
-use super::candidates::{Most, Scored, alternatives, distinct_best};
+use super::candidates::{Most, Scored, alternatives, distinct_best, rivalry};
 use super::consensus::{self, Pairs};
 use super::constraint::{Constraint, Motion, analyse, paired, stable_sample};
 use super::evidence::Distinctive;
@@ -24,10 +25,10 @@ use super::icp::{IcpParams, icp_point_to_plane, oriented_fit};
 use super::pipeline::AlignParams;
 use super::prepared_scan::PreparedScan;
 use super::rank::Ranked;
-use super::rigid::Rigid;
+use super::rigid::{Rigid, rotation_error_deg};
 
 /// The coarse ICP settings of `params` for inlier threshold `tau` and voxel size `voxel`.
-fn coarse_icp(params: &AlignParams, tau: f64, voxel: f64) -> IcpParams {
+pub(super) fn coarse_icp(params: &AlignParams, tau: f64, voxel: f64) -> IcpParams {
     let tu = &params.tuning;
     IcpParams {
         max_distance: tu.icp_max_distance_taus * tau,
@@ -147,9 +148,15 @@ pub fn coarse(
     polished
 }
 
+/// A parallel-face slide is a pose of its own when it lies this many voxel sizes from every
+/// other pose (half the smallest slide sought by [`super::slides`], two voxels, so that a slide
+/// that ICP carried back to the leader's basin is dropped).
+pub const SLIDE_DISTINCT_VOXELS: f64 = 1.0;
+
 /// The coarse poses in ranking order and the fine fit of the best.
 pub struct Refined {
-    /// Every coarse pose, in the order [`coarse`] produced them.
+    /// Every refined pose: the coarse poses in the order [`coarse`] produced them, then the
+    /// leader's parallel-face slides ([`super::slides`]).
     pub polished: Vec<Scored>,
     /// Indices into `polished` of the distinct poses, best first.
     pub order: Vec<usize>,
@@ -165,26 +172,63 @@ pub struct Refined {
     pub icp_iterations: usize,
     /// Constraint analysis of the fine fit.
     pub constraint: Constraint,
+    /// The strongest [`rivalry`] of a distinct pose that differs from the best by a slide only
+    /// (rotations within [`super::Tuning::start_angle_deg`]), 0 when there is none; see
+    /// [`super::quality::slid_rival`].
+    pub slide_rivalry: f64,
 }
 
-/// Orders the coarse poses and fits the best one on the fine points.
+/// Orders the coarse poses and fits the best one on the fine points. The first `coarse_count`
+/// of `polished` are the coarse poses, ordered by [`distinct_best`]; the rest are the leader's
+/// parallel-face slides ([`super::slides`]), which differ from it by a few voxels only (less
+/// than the distinct distance of the coarse poses): each slide that lies more than
+/// [`SLIDE_DISTINCT_VOXELS`] from every pose kept (rotations within
+/// [`super::Tuning::start_angle_deg`]) joins the order as a pose of its own, by score.
 pub fn fine(
     polished: Vec<Scored>,
+    coarse_count: usize,
     source: &PreparedScan,
     target: &PreparedScan,
     params: &AlignParams,
     tau: f64,
 ) -> Refined {
     let tu = &params.tuning;
-    let order = distinct_best(
-        &polished,
-        polished.len(),
+    let mut order = distinct_best(
+        &polished[..coarse_count],
+        coarse_count,
         tu.distinct_angle_deg,
         tu.distinct_distance_taus * tau,
         0.0,
     );
     let most = Most::of(&polished);
+    for i in coarse_count..polished.len() {
+        let apart = order.iter().all(|&j| {
+            !consensus::same_pose(
+                &polished[i].pose,
+                &polished[j].pose,
+                tu.start_angle_deg,
+                SLIDE_DISTINCT_VOXELS * source.voxel,
+            )
+        });
+        if apart {
+            order.push(i);
+        }
+    }
+    order.sort_by(|&a, &b| {
+        polished[b]
+            .score(most)
+            .total_cmp(&polished[a].score(most))
+            .then(a.cmp(&b))
+    });
     let best = order.first().map(|&i| polished[i]);
+    let slide_rivalry = best.map_or(0.0, |b| {
+        order[1..]
+            .iter()
+            .map(|&i| &polished[i])
+            .filter(|p| rotation_error_deg(&p.pose.rotation, &b.pose.rotation) < tu.start_angle_deg)
+            .map(|p| rivalry(p, &b, most))
+            .fold(0.0, f64::max)
+    });
     let coarse = best.map_or(Rigid::identity(), |b| b.pose);
     let fine_icp = IcpParams {
         max_distance: tu.fine_max_distance_taus * tau,
@@ -247,5 +291,6 @@ pub fn fine(
         local,
         icp_iterations,
         constraint,
+        slide_rivalry,
     }
 }

@@ -72,6 +72,11 @@ pub struct Tuning {
     pub stable_sample: usize,
     /// The stability-aware sample keeps at least one in this many of the paired points.
     pub stable_one_in: usize,
+    /// Parallel-face slides of the leading pose ([`super::slides`]) are sought this far along
+    /// each face normal of the overlap, in τ.
+    pub slide_range_taus: f64,
+    /// A slide is refined when its tight overlap reaches this share of the leader's.
+    pub slide_min_share: f64,
     /// Distinct refined poses listed as candidates.
     pub candidates: usize,
     /// Rivals listed as candidates come at least this close to the best (see
@@ -128,6 +133,8 @@ impl Default for Tuning {
             fine_min_scale_voxels: 0.02,
             stable_sample: 2000,
             stable_one_in: 4,
+            slide_range_taus: 4.0,
+            slide_min_share: 0.3,
             candidates: 5,
             list_rivalry: 0.3,
             rmse_pairing_spacings: 3.0,
