@@ -495,16 +495,12 @@ impl Engine {
             .ok()
             .and_then(|mut g| g.take())
             .unwrap_or_default();
-        values.clear();
+        // Every value of every row is written below, so recycled buffers are only resized
+        // (zero-filled where they grow), never cleared and filled again.
         values.resize(rows * nc, 0.0);
-        counts.clear();
         counts.resize(rows * ns, 0);
-        flag_bits.clear();
         flag_bits.resize(rows * ns, 0);
-        coeffs.clear();
-        if keep {
-            coeffs.resize(rows * ns * kc, 0.0);
-        }
+        coeffs.resize(if keep { rows * ns * kc } else { 0 }, 0.0);
         let points = cloud.points;
         // The cloud's grid serves when it was built for this engine's query radius; otherwise
         // (a cloud prepared by an engine with another largest radius) the grid is built here.

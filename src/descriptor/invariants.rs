@@ -75,9 +75,10 @@ impl InvariantPlan {
     /// Every norm and power-spectrum value is one sum over `m` in ascending order of f64
     /// products, starting from the standard library's empty sum (as `Iterator::sum` does), then
     /// rounded once to f32 (the norm after its square root). The sums run four shells `n'` side
-    /// by side over a copy of the coefficients with the shells innermost, which the compiler
-    /// turns into vector code without changing any single sum (no fused multiply-add in Rust);
-    /// a norm is the square root of the power spectrum's `(n, n)` sum, the same operations.
+    /// by side over a copy of the coefficients with the shells innermost, in vector code that
+    /// changes no single sum (the AVX2 build fuses each product into its sum, exact because
+    /// products of f32 values are exact in f64, see [`super::avx2::block_sums`]); a norm is
+    /// the square root of the power spectrum's `(n, n)` sum, the same operations.
     pub(crate) fn compute(&self, c: &[f32], c64: &mut Vec<f64>, out: &mut [f32]) {
         let nk = (self.degree + 1) * (self.degree + 1);
         let mut k = 0;
@@ -137,12 +138,15 @@ impl InvariantPlan {
         // Shells innermost, padded with zeros so that a block of four starting at any shell
         // (or at `N`, the padding blocks) stays inside the row: t[k·stride + n] = c[n·K + k].
         // The padding is zeroed when the buffer is made and never
-        // written after (it only feeds sums that are not kept).
+        // written after (it only feeds sums that are not kept). The `(L+1)·N` values after
+        // the rows keep the `(n, n)` sums whose square roots are the norms.
         let stride = ns + 4;
-        if t.len() != nk * stride {
+        let n_diag = (self.degree + 1) * ns;
+        if t.len() != nk * stride + n_diag {
             t.clear();
-            t.resize(nk * stride, 0.0);
+            t.resize(nk * stride + n_diag, 0.0);
         }
+        let (t, diag) = t.split_at_mut(nk * stride);
         for (n, cn) in c[..ns * nk].chunks_exact(nk).enumerate() {
             for (kk, &v) in cn.iter().enumerate() {
                 t[kk * stride + n] = v as f64;
@@ -165,8 +169,8 @@ impl InvariantPlan {
                 let group: &[(usize, usize); GROUP] = group.try_into().expect("a group");
                 let acc = sums(rows, stride, group, zero);
                 for (a, &(n, n2)) in acc.iter().zip(group) {
-                    if n2 == n && n_norms > 0 {
-                        norms[l * ns + n] = a[0].sqrt() as f32;
+                    if n2 == n {
+                        diag[l * ns + n] = a[0];
                     }
                     if self.which.power_spectrum {
                         for &v in a.iter().take(ns.saturating_sub(n2)) {
@@ -176,6 +180,10 @@ impl InvariantPlan {
                     }
                 }
             }
+        }
+        // The square roots side by side (each correctly rounded, as one at a time).
+        for (o, &d) in norms.iter_mut().zip(diag.iter()) {
+            *o = d.sqrt() as f32;
         }
         n_norms + k
     }
