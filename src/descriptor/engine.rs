@@ -216,8 +216,9 @@ struct Scratch {
     ids: Vec<u32>,
     /// The grid rows around the last centre's cell.
     query: GridQuery,
-    /// Bitmap for [`sort_distinct`].
+    /// Bitmap for [`sort_distinct`] (all zeros between calls) and its summary words.
     bits: Vec<u64>,
+    summary: Vec<u64>,
     /// Offsets `q − p` and squared distances of the gathered neighbours (`0 < |q − p| ≤ r_max`),
     /// ascending index (structure of arrays).
     gx: Vec<f32>,
@@ -455,6 +456,7 @@ impl Engine {
             ids: Vec::with_capacity(256),
             query: GridQuery::default(),
             bits: Vec::new(),
+            summary: Vec::new(),
             gx: v(),
             gy: v(),
             gz: v(),
@@ -579,7 +581,7 @@ impl Engine {
                 t.for_each_within(p, r_max * QUERY_SLACK, |i, _| ids.push(i as u32));
             }
         }
-        sort_distinct(&mut s.ids, &mut s.bits);
+        sort_distinct(&mut s.ids, &mut s.bits, &mut s.summary);
         // Offsets of the neighbours with 0 < |d| ≤ r_max, ascending index; coincident points
         // are only counted.
         let r_max2 = r_max * r_max;
@@ -743,11 +745,13 @@ impl Engine {
     }
 }
 
-/// Sorts distinct point indices (each point appears once in a query's hits) ascending. When the
-/// hits span few indices, as they do in clouds stored in scan or grid order, a bitmap over their
-/// range is set and read back in order (no comparison, no branch per pair); otherwise a
-/// comparison sort runs. Either way the result is the ascending order.
-fn sort_distinct(ids: &mut [u32], bits: &mut Vec<u64>) {
+/// Sorts distinct point indices (each point appears once in a query's hits) ascending. When
+/// the hits span at most about `(2n + 16)·4096` indices (`n` hits), a bitmap over their range
+/// is set, with a summary word per 64 bitmap words, and read back in order through the summary
+/// (no comparison, no branch per pair); otherwise a comparison sort runs. Either way the result
+/// is the ascending order. `bits` is all zeros between calls (each word read is cleared), so
+/// only the summary is filled per call.
+fn sort_distinct(ids: &mut [u32], bits: &mut Vec<u64>, summary: &mut Vec<u64>) {
     let n = ids.len();
     if n < 2 {
         return;
@@ -758,24 +762,34 @@ fn sort_distinct(ids: &mut [u32], bits: &mut Vec<u64>) {
         hi = hi.max(i);
     }
     let words = ((hi - lo) >> 6) as usize + 1;
-    if words > 2 * n + 16 {
+    let sums = ((words - 1) >> 6) + 1;
+    if sums > 2 * n + 16 {
         ids.sort_unstable();
         return;
     }
-    bits.clear();
-    bits.resize(words, 0);
+    if bits.len() < words {
+        bits.resize(words, 0);
+    }
+    summary.clear();
+    summary.resize(sums, 0);
     for &i in ids.iter() {
         let o = i - lo;
         bits[(o >> 6) as usize] |= 1u64 << (o & 63);
+        summary[(o >> 12) as usize] |= 1u64 << ((o >> 6) & 63);
     }
     let mut k = 0;
-    for (w, &b) in bits.iter().enumerate() {
-        let base = lo + ((w as u32) << 6);
-        let mut b = b;
-        while b != 0 {
-            ids[k] = base + b.trailing_zeros();
-            k += 1;
-            b &= b - 1;
+    for (s, &sb) in summary.iter().enumerate() {
+        let mut sb = sb;
+        while sb != 0 {
+            let w = (s << 6) + sb.trailing_zeros() as usize;
+            let base = lo + ((w as u32) << 6);
+            let mut b = std::mem::take(&mut bits[w]);
+            while b != 0 {
+                ids[k] = base + b.trailing_zeros();
+                k += 1;
+                b &= b - 1;
+            }
+            sb &= sb - 1;
         }
     }
     debug_assert_eq!(k, n, "indices must be distinct");
@@ -833,15 +847,20 @@ mod tests {
 
     #[test]
     fn sort_distinct_sorts_narrow_and_wide_sets() {
-        let mut bits = Vec::new();
+        let (mut bits, mut summary) = (Vec::new(), Vec::new());
         let mut s = 0x2545_f491_4f6c_dd1du64;
+        // Narrow spans, spans needing the summary words, and spans too wide for the bitmap.
         for (n, span) in [
             (0usize, 1u32),
             (1, 1),
             (2, 2),
             (70, 2000),
             (60, 64),
+            (75, 50_000),
+            (20, 200_000),
+            (3, 4096 * 64 * 2),
             (70, 1 << 30),
+            (70, 2000),
         ] {
             let mut ids: Vec<u32> = Vec::new();
             while ids.len() < n {
@@ -855,7 +874,8 @@ mod tests {
             }
             let mut want = ids.clone();
             want.sort_unstable();
-            sort_distinct(&mut ids, &mut bits);
+            sort_distinct(&mut ids, &mut bits, &mut summary);
+            assert!(bits.iter().all(|&b| b == 0), "the bitmap is left clear");
             assert_eq!(ids, want, "n {n} span {span}");
         }
     }
