@@ -220,6 +220,7 @@ fn closed8(x: __m256, y: __m256, z: __m256, out: &mut [__m256; 25]) {
 /// If a block reads beyond a row (`n ≥ stride` or `n' + 4 > stride`) or `rows` is not whole
 /// rows.
 #[target_feature(enable = "avx2,fma")]
+#[inline]
 pub(crate) fn block_sums(
     rows: &[f64],
     stride: usize,

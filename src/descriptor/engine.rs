@@ -5,7 +5,7 @@ use rayon::prelude::*;
 use crate::cloud::Cloud;
 use crate::error::{Error, Result};
 use crate::so3::sh::num_coeffs;
-use crate::spatial::{CellGrid, GridQuery, KdIndex, voxel_downsample};
+use crate::spatial::{CellGrid, GridQuery, KdIndex, order_by_key, voxel_downsample};
 
 use super::flags;
 use super::invariants::InvariantPlan;
@@ -227,6 +227,9 @@ struct Scratch {
     gd2: Vec<f32>,
     /// Number of gathered neighbours (the arrays above may hold padding beyond it).
     gathered: usize,
+    /// Unweighted first and second moments of the gathered offsets ([`Moments`]), summed
+    /// while gathering.
+    moments: Moments,
     /// Points coinciding with the centre (the centre itself included when it is a cloud point).
     zeros: u32,
     /// Selected neighbours (positions in the gathered arrays), ascending.
@@ -462,6 +465,7 @@ impl Engine {
             gz: v(),
             gd2: v(),
             gathered: 0,
+            moments: Moments::default(),
             zeros: 0,
             sel: Vec::with_capacity(256),
             dx: v(),
@@ -520,11 +524,13 @@ impl Engine {
         };
         // Centres are visited in the grid's cell order (ties by row), so that consecutive
         // centres share their cells' points in cache; each row is written where it belongs.
-        let mut visit: Vec<u32> = (0..rows as u32).collect();
-        if let Some(g) = grid {
-            let keys: Vec<u64> = positions.iter().map(|p| g.sort_key(*p)).collect();
-            visit.sort_unstable_by_key(|&i| (keys[i as usize], i));
-        }
+        let visit: Vec<u32> = match grid {
+            Some(g) => {
+                let keys: Vec<u64> = positions.iter().map(|p| g.sort_key(*p)).collect();
+                order_by_key(&keys, g.cell_count())
+            }
+            None => (0..rows as u32).collect(),
+        };
         let out = RowsOut {
             values: values.as_mut_ptr(),
             counts: counts.as_mut_ptr(),
@@ -601,6 +607,7 @@ impl Engine {
         );
         let mut m = 0;
         let mut zeros = 0u32;
+        let mut mo = Moments::default();
         for &i in &s.ids {
             let q = points[i as usize];
             let d = [q[0] - p[0], q[1] - p[1], q[2] - p[2]];
@@ -610,10 +617,16 @@ impl Engine {
             gz[m] = d[2];
             gd2[m] = d2;
             zeros += (d2 == 0.0) as u32;
-            m += (d2 > 0.0 && d2 <= r_max2) as usize;
+            let keep = d2 > 0.0 && d2 <= r_max2;
+            m += keep as usize;
+            // A dropped hit adds +0 to every moment, which leaves each sum's bits as they are
+            // (the sums start at +0 and so never hold −0): the moments of the kept ones.
+            let mask = if keep { u32::MAX } else { 0 };
+            mo.add(d.map(|v| f32::from_bits(v.to_bits() & mask)));
         }
         s.zeros = zeros;
         s.gathered = m;
+        s.moments = mo;
         let per_scale = self.recipe.invariants_per_scale();
         let kc = self.recipe.coefficients_per_scale();
         for (si, &r) in radii.iter().enumerate() {
@@ -694,21 +707,17 @@ impl Engine {
             v.truncate(count);
             v.resize(jp, pad);
         }
-        // Unweighted first and second moments of the offsets, for the shape flags.
-        let mut m1 = [0.0f32; 3];
-        let mut m2 = [0.0f32; 6];
-        for ((&x, &y), &z) in dx[..count].iter().zip(&dy[..count]).zip(&dz[..count]) {
-            let d = [x, y, z];
-            for k in 0..3 {
-                m1[k] += d[k];
+        // Unweighted first and second moments of the offsets, for the shape flags (those of
+        // the gathered neighbours when all are used).
+        let mo = if all {
+            s.moments
+        } else {
+            let mut mo = Moments::default();
+            for ((&x, &y), &z) in dx[..count].iter().zip(&dy[..count]).zip(&dz[..count]) {
+                mo.add([x, y, z]);
             }
-            m2[0] += d[0] * d[0];
-            m2[1] += d[0] * d[1];
-            m2[2] += d[0] * d[2];
-            m2[3] += d[1] * d[1];
-            m2[4] += d[1] * d[2];
-            m2[5] += d[2] * d[2];
-        }
+            mo
+        };
         // Directions, their harmonics (so3) and radii, eight neighbours at a time.
         kernel::directions(
             self.kernel,
@@ -740,7 +749,7 @@ impl Engine {
         for (o, a) in s.c.iter_mut().zip(&s.acc) {
             *o = a / w;
         }
-        fl |= shape_flags(count as u32, m1, m2);
+        fl |= shape_flags(count as u32, mo.m1, mo.m2);
         (count as u32, fl)
     }
 }
@@ -793,6 +802,29 @@ fn sort_distinct(ids: &mut [u32], bits: &mut Vec<u64>, summary: &mut Vec<u64>) {
         }
     }
     debug_assert_eq!(k, n, "indices must be distinct");
+}
+
+/// Unweighted first and second moments of neighbour offsets `d`, each summed in f32 in
+/// neighbour order from +0: `m1 = Σ d`, `m2 = Σ (dx², dx·dy, dx·dz, dy², dy·dz, dz²)`.
+#[derive(Debug, Default, Clone, Copy)]
+struct Moments {
+    m1: [f32; 3],
+    m2: [f32; 6],
+}
+
+impl Moments {
+    #[inline(always)]
+    fn add(&mut self, d: [f32; 3]) {
+        for k in 0..3 {
+            self.m1[k] += d[k];
+        }
+        self.m2[0] += d[0] * d[0];
+        self.m2[1] += d[0] * d[1];
+        self.m2[2] += d[0] * d[2];
+        self.m2[3] += d[1] * d[1];
+        self.m2[4] += d[1] * d[2];
+        self.m2[5] += d[2] * d[2];
+    }
 }
 
 /// Flags from the neighbour count and the offsets' moments (see [`flags`]).

@@ -104,26 +104,25 @@ impl CellGrid {
             ys: Vec::new(),
             zs: Vec::new(),
         };
-        let mut keyed: Vec<(u64, u32)> = points
+        let keys: Vec<u64> = points
             .iter()
-            .enumerate()
-            .map(|(i, p)| {
+            .map(|p| {
                 let c = grid.cell_of(*p);
-                (grid.key(c[0] as u64, c[1] as u64, c[2] as u64), i as u32)
+                grid.key(c[0] as u64, c[1] as u64, c[2] as u64)
             })
             .collect();
-        keyed.sort_unstable();
-        grid.order = keyed.iter().map(|&(_, i)| i).collect();
+        grid.order = order_by_key(&keys, grid.cell_count());
         grid.xs = grid.order.iter().map(|&i| points[i as usize][0]).collect();
         grid.ys = grid.order.iter().map(|&i| points[i as usize][1]).collect();
         grid.zs = grid.order.iter().map(|&i| points[i as usize][2]).collect();
-        for (j, &(k, _)) in keyed.iter().enumerate() {
+        for (j, &i) in grid.order.iter().enumerate() {
+            let k = keys[i as usize];
             if grid.keys.last() != Some(&k) {
                 grid.keys.push(k);
                 grid.starts.push(j as u32);
             }
         }
-        grid.starts.push(keyed.len() as u32);
+        grid.starts.push(grid.order.len() as u32);
         for v in [&mut grid.xs, &mut grid.ys, &mut grid.zs] {
             v.resize(v.len() + PAD, 0.0);
         }
@@ -157,6 +156,12 @@ impl CellGrid {
     pub fn portable(mut self) -> CellGrid {
         self.wide = false;
         self
+    }
+
+    /// Number of cells of the grid's box (occupied or not): every [`CellGrid::sort_key`] is
+    /// below it.
+    pub fn cell_count(&self) -> u64 {
+        self.dims[0] * self.dims[1] * self.dims[2]
     }
 
     /// Cell coordinates of a position (may lie outside the grid for a centre that is not a
@@ -269,6 +274,47 @@ impl CellGrid {
             // kept only when written at its own position, before `m` moves past it).
             unsafe { out.set_len(base + m) };
         }
+    }
+}
+
+/// The indices `0..keys.len()` in the order of `(keys[i], i)`, for keys below `bound`: a
+/// counting sort (stable, so ties stay in ascending index) when `bound` is at most twice the
+/// number of keys plus 4 096, else a comparison sort of `key·2³² + i` (or of the pairs when a
+/// key does not fit 32 bits).
+///
+/// # Panics
+/// If there are more than `u32::MAX` keys, or (counting sort) a key is not below `bound`.
+pub fn order_by_key(keys: &[u64], bound: u64) -> Vec<u32> {
+    let n = keys.len();
+    assert!(n <= u32::MAX as usize, "at most 2³² − 1 keys");
+    if bound <= 2 * n as u64 + 4096 {
+        // start[k]: where the next index of key k goes.
+        let mut start = vec![0u32; bound as usize + 1];
+        for &k in keys {
+            start[k as usize + 1] += 1;
+        }
+        for c in 1..start.len() {
+            start[c] += start[c - 1];
+        }
+        let mut out = vec![0u32; n];
+        for (i, &k) in keys.iter().enumerate() {
+            let at = &mut start[k as usize];
+            out[*at as usize] = i as u32;
+            *at += 1;
+        }
+        out
+    } else if bound <= 1 << 32 {
+        let mut packed: Vec<u64> = keys
+            .iter()
+            .enumerate()
+            .map(|(i, &k)| (k << 32) | i as u64)
+            .collect();
+        packed.sort_unstable();
+        packed.iter().map(|&v| v as u32).collect()
+    } else {
+        let mut v: Vec<u32> = (0..n as u32).collect();
+        v.sort_unstable_by_key(|&i| (keys[i as usize], i));
+        v
     }
 }
 
@@ -420,6 +466,27 @@ mod tests {
                 index.within_sorted(*c, r * 0.999, &mut tree);
                 assert!(tree.iter().all(|h| want.binary_search(&h.0).is_ok()));
             }
+        }
+    }
+
+    #[test]
+    fn order_by_key_is_the_order_of_key_then_index() {
+        let mut rng = crate::so3::rng::SplitMix64::new(5);
+        // Counting sort, packed comparison sort, pair comparison sort.
+        for (n, bound) in [
+            (0usize, 1u64),
+            (1, 1),
+            (500, 40),
+            (300, 5000),
+            (300, 1 << 32),
+            (300, 1 << 40),
+        ] {
+            let keys: Vec<u64> = (0..n)
+                .map(|_| (rng.next_f64() * bound as f64) as u64 % bound)
+                .collect();
+            let mut want: Vec<u32> = (0..n as u32).collect();
+            want.sort_by_key(|&i| (keys[i as usize], i));
+            assert_eq!(order_by_key(&keys, bound), want, "n {n}, bound {bound}");
         }
     }
 
