@@ -815,8 +815,8 @@ struct Moments {
 impl Moments {
     #[inline(always)]
     fn add(&mut self, d: [f32; 3]) {
-        for k in 0..3 {
-            self.m1[k] += d[k];
+        for (m, v) in self.m1.iter_mut().zip(d) {
+            *m += v;
         }
         self.m2[0] += d[0] * d[0];
         self.m2[1] += d[0] * d[1];
