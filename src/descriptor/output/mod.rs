@@ -45,10 +45,9 @@ pub use sidecar::{
 /// Bytes of output rows computed per chunk (each chunk is computed in parallel, then written;
 /// the engine reuses one chunk's buffers for the next ([`Engine::recycle`]), so only the first
 /// chunk's pages are fresh: a 50 000-point `features` run took 8 530 page faults with 16 MB
-/// chunks and fresh buffers, 3 360 with 4 MB). 1 MB: the recycled buffers stay in a core's
-/// second-level cache, where the rows, stored in the grid's visiting order (scattered), would
-/// otherwise each fetch their cache lines from memory (DEVELOPERS.md, "Descriptor engine:
-/// 2.5×").
+/// chunks and fresh buffers, 3 360 with 4 MB). 1 MB, small enough for the recycled buffers to
+/// stay in a core's second-level cache, measured faster than 4 MB (DEVELOPERS.md, "Descriptor
+/// engine: 2.5× goal").
 const CHUNK_BYTES: usize = 1 << 20;
 
 /// Feature-file formats.
