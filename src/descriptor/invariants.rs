@@ -112,36 +112,48 @@ impl InvariantPlan {
             // SAFETY: the processor reported AVX2.
             return unsafe { self.spectrum_avx2(c, t, out) };
         }
-        self.spectrum_impl(c, t, out, block_sums)
+        self.spectrum_impl(c, t, out, self.shape(), block_sums)
     }
 
     #[cfg(target_arch = "x86_64")]
     #[target_feature(enable = "avx2,fma")]
     fn spectrum_avx2(&self, c: &[f32], t: &mut Vec<f64>, out: &mut [f32]) -> usize {
         // The closure inherits this function's AVX2 and FMA.
-        self.spectrum_impl(c, t, out, |rows, stride, group, zero| {
+        let sums = |rows: &[f64], stride, group: &[(usize, usize); GROUP], zero| {
             super::avx2::block_sums(rows, stride, group, zero)
-        })
+        };
+        // The default recipe's shape with constant bounds, so that the compiler unrolls the
+        // loops and keeps the block offsets as constants (same operations, same bits).
+        if (self.shells, self.degree) == (6, 4) {
+            return self.spectrum_impl(c, t, out, (6, 4, &BLOCKS_6), sums);
+        }
+        self.spectrum_impl(c, t, out, self.shape(), sums)
     }
 
-    /// `sums(rows, stride, group, zero)` gives the [`block_sums`] of one group of blocks.
+    /// Shells, degree and [`spectrum_blocks`] of the plan.
+    fn shape(&self) -> (usize, usize, &[(usize, usize)]) {
+        (self.shells, self.degree, &self.blocks)
+    }
+
+    /// `sums(rows, stride, group, zero)` gives the [`block_sums`] of one group of blocks;
+    /// `shape` is [`InvariantPlan::shape`] (or the same values as constants).
     #[inline(always)]
     fn spectrum_impl(
         &self,
         c: &[f32],
         t: &mut Vec<f64>,
         out: &mut [f32],
+        (ns, degree, blocks): (usize, usize, &[(usize, usize)]),
         sums: impl Fn(&[f64], usize, &[(usize, usize); GROUP], f64) -> [[f64; 4]; GROUP],
     ) -> usize {
-        let nk = (self.degree + 1) * (self.degree + 1);
-        let ns = self.shells;
+        let nk = (degree + 1) * (degree + 1);
         // Shells innermost, padded with zeros so that a block of four starting at any shell
         // (or at `N`, the padding blocks) stays inside the row: t[k·stride + n] = c[n·K + k].
         // The padding is zeroed when the buffer is made and never
         // written after (it only feeds sums that are not kept). The `(L+1)·N` values after
         // the rows keep the `(n, n)` sums whose square roots are the norms.
         let stride = ns + 4;
-        let n_diag = (self.degree + 1) * ns;
+        let n_diag = (degree + 1) * ns;
         if t.len() != nk * stride + n_diag {
             t.clear();
             t.resize(nk * stride + n_diag, 0.0);
@@ -155,7 +167,7 @@ impl InvariantPlan {
         let zero: f64 = std::iter::empty::<f64>().sum();
         // Norms first ((L+1)·N columns), then the power spectrum in the order of the blocks.
         let n_norms = if self.which.norms {
-            (self.degree + 1) * ns
+            (degree + 1) * ns
         } else {
             0
         };
@@ -163,9 +175,9 @@ impl InvariantPlan {
         let mut k = 0;
         // Σ_m c[n][lm] c[n'][lm] for n' ≥ n: eight blocks of four n' at a time, each an
         // independent chain over m (the blocks of `spectrum_blocks`, in column order).
-        for l in 0..=self.degree {
+        for l in 0..=degree {
             let rows = &t[l * l * stride..(l + 1) * (l + 1) * stride];
-            for group in self.blocks.chunks_exact(GROUP) {
+            for group in blocks.chunks_exact(GROUP) {
                 let group: &[(usize, usize); GROUP] = group.try_into().expect("a group");
                 let acc = sums(rows, stride, group, zero);
                 for (a, &(n, n2)) in acc.iter().zip(group) {
@@ -191,6 +203,18 @@ impl InvariantPlan {
 
 /// Blocks of the power-spectrum sums computed side by side.
 pub(crate) const GROUP: usize = 8;
+
+/// [`spectrum_blocks`]`(6)`, the default recipe's six shells, as a constant.
+const BLOCKS_6: [(usize, usize); 8] = [
+    (0, 0),
+    (0, 4),
+    (1, 1),
+    (1, 5),
+    (2, 2),
+    (3, 3),
+    (4, 4),
+    (5, 5),
+];
 
 /// The sums of one group of blocks over `rows` (rows of `stride` f64 values, shells
 /// innermost): block `(n, n')` gives `Σ_rows row[n] · row[n' + j]` for `j < 4`, each sum from
@@ -260,6 +284,11 @@ mod tests {
     }
 
     #[test]
+    fn the_constant_blocks_are_those_of_six_shells() {
+        assert_eq!(spectrum_blocks(6), BLOCKS_6);
+    }
+
+    #[test]
     fn spectrum_blocks_give_the_plain_sums_bit_for_bit() {
         let mut rng = SplitMix64::new(7);
         for (shells, degree) in [
@@ -303,7 +332,8 @@ mod tests {
                     plan.compute(&c, &mut scratch, &mut got);
                     assert_eq!(bits(&got), bits(&want), "N {shells}, L {degree}, {which:?}");
                     let mut got = vec![f32::NAN; want.len()];
-                    let k = plan.spectrum_impl(&c, &mut scratch, &mut got, block_sums);
+                    let k =
+                        plan.spectrum_impl(&c, &mut scratch, &mut got, plan.shape(), block_sums);
                     assert_eq!(k, want.len());
                     assert_eq!(bits(&got), bits(&want), "portable: N {shells}, L {degree}");
                 }
