@@ -262,6 +262,7 @@ pub(crate) fn block_sums(
 /// # Panics
 /// If `J` is not a multiple of [`LANES`] or a slice is too short.
 #[target_feature(enable = "avx2,fma")]
+#[inline]
 pub(crate) fn project(w: &[f32], y: &[f32], jp: usize, n_sh: usize, nk: usize, acc: &mut [f32]) {
     assert!(jp.is_multiple_of(LANES));
     assert!(w.len() >= n_sh * jp && y.len() >= nk * jp && acc.len() >= n_sh * nk);
