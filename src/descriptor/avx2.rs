@@ -211,13 +211,16 @@ fn closed8(x: __m256, y: __m256, z: __m256, out: &mut [__m256; 25]) {
 
 /// The power-spectrum block sums of [`super::invariants`] in four-wide f64 vectors, the eight
 /// blocks of a group side by side in registers: block `(n, n')` gives `Σ_rows row[n] ·
-/// row[n' + j]` (`j < 4`), each from `zero` in row order as `acc + x·v` (a product, then a
-/// sum: the scalar loop's bits).
+/// row[n' + j]` (`j < 4`), each from `zero` in row order as `acc + x·v`. The rows hold f32
+/// values widened to f64, so every product `x·v` is exact in f64 (24 + 24 significant bits ≤
+/// 53, and no f32 product leaves f64's normal range): a fused multiply-add, which rounds
+/// `acc + x·v` once, gives the bits of the scalar loop's product-then-sum in one instruction.
 ///
 /// # Panics
 /// If a block reads beyond a row (`n ≥ stride` or `n' + 4 > stride`) or `rows` is not whole
 /// rows.
 #[target_feature(enable = "avx2,fma")]
+#[inline]
 pub(crate) fn block_sums(
     rows: &[f64],
     stride: usize,
@@ -236,7 +239,7 @@ pub(crate) fn block_sums(
                 let (n, n2) = group[b];
                 let x = _mm256_broadcast_sd(&*row.add(n));
                 let v = _mm256_loadu_pd(row.add(n2));
-                acc[b] = _mm256_add_pd(acc[b], _mm256_mul_pd(x, v));
+                acc[b] = _mm256_fmadd_pd(x, v, acc[b]);
             }
         }
     }
@@ -259,6 +262,7 @@ pub(crate) fn block_sums(
 /// # Panics
 /// If `J` is not a multiple of [`LANES`] or a slice is too short.
 #[target_feature(enable = "avx2,fma")]
+#[inline]
 pub(crate) fn project(w: &[f32], y: &[f32], jp: usize, n_sh: usize, nk: usize, acc: &mut [f32]) {
     assert!(jp.is_multiple_of(LANES));
     assert!(w.len() >= n_sh * jp && y.len() >= nk * jp && acc.len() >= n_sh * nk);

@@ -5,7 +5,7 @@ use rayon::prelude::*;
 use crate::cloud::Cloud;
 use crate::error::{Error, Result};
 use crate::so3::sh::num_coeffs;
-use crate::spatial::{CellGrid, GridQuery, KdIndex, voxel_downsample};
+use crate::spatial::{CellGrid, GridQuery, KdIndex, order_by_key, voxel_downsample};
 
 use super::flags;
 use super::invariants::InvariantPlan;
@@ -216,8 +216,9 @@ struct Scratch {
     ids: Vec<u32>,
     /// The grid rows around the last centre's cell.
     query: GridQuery,
-    /// Bitmap for [`sort_distinct`].
+    /// Bitmap for [`sort_distinct`] (all zeros between calls) and its summary words.
     bits: Vec<u64>,
+    summary: Vec<u64>,
     /// Offsets `q − p` and squared distances of the gathered neighbours (`0 < |q − p| ≤ r_max`),
     /// ascending index (structure of arrays).
     gx: Vec<f32>,
@@ -226,6 +227,9 @@ struct Scratch {
     gd2: Vec<f32>,
     /// Number of gathered neighbours (the arrays above may hold padding beyond it).
     gathered: usize,
+    /// Unweighted first and second moments of the gathered offsets ([`Moments`]), summed
+    /// while gathering.
+    moments: Moments,
     /// Points coinciding with the centre (the centre itself included when it is a cloud point).
     zeros: u32,
     /// Selected neighbours (positions in the gathered arrays), ascending.
@@ -455,11 +459,13 @@ impl Engine {
             ids: Vec::with_capacity(256),
             query: GridQuery::default(),
             bits: Vec::new(),
+            summary: Vec::new(),
             gx: v(),
             gy: v(),
             gz: v(),
             gd2: v(),
             gathered: 0,
+            moments: Moments::default(),
             zeros: 0,
             sel: Vec::with_capacity(256),
             dx: v(),
@@ -495,16 +501,12 @@ impl Engine {
             .ok()
             .and_then(|mut g| g.take())
             .unwrap_or_default();
-        values.clear();
+        // Every value of every row is written below, so recycled buffers are only resized
+        // (zero-filled where they grow), never cleared and filled again.
         values.resize(rows * nc, 0.0);
-        counts.clear();
         counts.resize(rows * ns, 0);
-        flag_bits.clear();
         flag_bits.resize(rows * ns, 0);
-        coeffs.clear();
-        if keep {
-            coeffs.resize(rows * ns * kc, 0.0);
-        }
+        coeffs.resize(if keep { rows * ns * kc } else { 0 }, 0.0);
         let points = cloud.points;
         // The cloud's grid serves when it was built for this engine's query radius; otherwise
         // (a cloud prepared by an engine with another largest radius) the grid is built here.
@@ -522,11 +524,13 @@ impl Engine {
         };
         // Centres are visited in the grid's cell order (ties by row), so that consecutive
         // centres share their cells' points in cache; each row is written where it belongs.
-        let mut visit: Vec<u32> = (0..rows as u32).collect();
-        if let Some(g) = grid {
-            let keys: Vec<u64> = positions.iter().map(|p| g.sort_key(*p)).collect();
-            visit.sort_unstable_by_key(|&i| (keys[i as usize], i));
-        }
+        let visit: Vec<u32> = match grid {
+            Some(g) => {
+                let keys: Vec<u64> = positions.iter().map(|p| g.sort_key(*p)).collect();
+                order_by_key(&keys, g.cell_count())
+            }
+            None => (0..rows as u32).collect(),
+        };
         let out = RowsOut {
             values: values.as_mut_ptr(),
             counts: counts.as_mut_ptr(),
@@ -583,7 +587,7 @@ impl Engine {
                 t.for_each_within(p, r_max * QUERY_SLACK, |i, _| ids.push(i as u32));
             }
         }
-        sort_distinct(&mut s.ids, &mut s.bits);
+        sort_distinct(&mut s.ids, &mut s.bits, &mut s.summary);
         // Offsets of the neighbours with 0 < |d| ≤ r_max, ascending index; coincident points
         // are only counted.
         let r_max2 = r_max * r_max;
@@ -603,6 +607,7 @@ impl Engine {
         );
         let mut m = 0;
         let mut zeros = 0u32;
+        let mut mo = Moments::default();
         for &i in &s.ids {
             let q = points[i as usize];
             let d = [q[0] - p[0], q[1] - p[1], q[2] - p[2]];
@@ -612,10 +617,16 @@ impl Engine {
             gz[m] = d[2];
             gd2[m] = d2;
             zeros += (d2 == 0.0) as u32;
-            m += (d2 > 0.0 && d2 <= r_max2) as usize;
+            let keep = d2 > 0.0 && d2 <= r_max2;
+            m += keep as usize;
+            // A dropped hit adds +0 to every moment, which leaves each sum's bits as they are
+            // (the sums start at +0 and so never hold −0): the moments of the kept ones.
+            let mask = if keep { u32::MAX } else { 0 };
+            mo.add(d.map(|v| f32::from_bits(v.to_bits() & mask)));
         }
         s.zeros = zeros;
         s.gathered = m;
+        s.moments = mo;
         let per_scale = self.recipe.invariants_per_scale();
         let kc = self.recipe.coefficients_per_scale();
         for (si, &r) in radii.iter().enumerate() {
@@ -696,21 +707,17 @@ impl Engine {
             v.truncate(count);
             v.resize(jp, pad);
         }
-        // Unweighted first and second moments of the offsets, for the shape flags.
-        let mut m1 = [0.0f32; 3];
-        let mut m2 = [0.0f32; 6];
-        for ((&x, &y), &z) in dx[..count].iter().zip(&dy[..count]).zip(&dz[..count]) {
-            let d = [x, y, z];
-            for k in 0..3 {
-                m1[k] += d[k];
+        // Unweighted first and second moments of the offsets, for the shape flags (those of
+        // the gathered neighbours when all are used).
+        let mo = if all {
+            s.moments
+        } else {
+            let mut mo = Moments::default();
+            for ((&x, &y), &z) in dx[..count].iter().zip(&dy[..count]).zip(&dz[..count]) {
+                mo.add([x, y, z]);
             }
-            m2[0] += d[0] * d[0];
-            m2[1] += d[0] * d[1];
-            m2[2] += d[0] * d[2];
-            m2[3] += d[1] * d[1];
-            m2[4] += d[1] * d[2];
-            m2[5] += d[2] * d[2];
-        }
+            mo
+        };
         // Directions, their harmonics (so3) and radii, eight neighbours at a time.
         kernel::directions(
             self.kernel,
@@ -742,16 +749,18 @@ impl Engine {
         for (o, a) in s.c.iter_mut().zip(&s.acc) {
             *o = a / w;
         }
-        fl |= shape_flags(count as u32, m1, m2);
+        fl |= shape_flags(count as u32, mo.m1, mo.m2);
         (count as u32, fl)
     }
 }
 
-/// Sorts distinct point indices (each point appears once in a query's hits) ascending. When the
-/// hits span few indices, as they do in clouds stored in scan or grid order, a bitmap over their
-/// range is set and read back in order (no comparison, no branch per pair); otherwise a
-/// comparison sort runs. Either way the result is the ascending order.
-fn sort_distinct(ids: &mut [u32], bits: &mut Vec<u64>) {
+/// Sorts distinct point indices (each point appears once in a query's hits) ascending. When
+/// the hits span at most about `(2n + 16)·4096` indices (`n` hits), a bitmap over their range
+/// is set, with a summary word per 64 bitmap words, and read back in order through the summary
+/// (no comparison, no branch per pair); otherwise a comparison sort runs. Either way the result
+/// is the ascending order. `bits` is all zeros between calls (each word read is cleared), so
+/// only the summary is filled per call.
+fn sort_distinct(ids: &mut [u32], bits: &mut Vec<u64>, summary: &mut Vec<u64>) {
     let n = ids.len();
     if n < 2 {
         return;
@@ -762,27 +771,60 @@ fn sort_distinct(ids: &mut [u32], bits: &mut Vec<u64>) {
         hi = hi.max(i);
     }
     let words = ((hi - lo) >> 6) as usize + 1;
-    if words > 2 * n + 16 {
+    let sums = ((words - 1) >> 6) + 1;
+    if sums > 2 * n + 16 {
         ids.sort_unstable();
         return;
     }
-    bits.clear();
-    bits.resize(words, 0);
+    if bits.len() < words {
+        bits.resize(words, 0);
+    }
+    summary.clear();
+    summary.resize(sums, 0);
     for &i in ids.iter() {
         let o = i - lo;
         bits[(o >> 6) as usize] |= 1u64 << (o & 63);
+        summary[(o >> 12) as usize] |= 1u64 << ((o >> 6) & 63);
     }
     let mut k = 0;
-    for (w, &b) in bits.iter().enumerate() {
-        let base = lo + ((w as u32) << 6);
-        let mut b = b;
-        while b != 0 {
-            ids[k] = base + b.trailing_zeros();
-            k += 1;
-            b &= b - 1;
+    for (s, &sb) in summary.iter().enumerate() {
+        let mut sb = sb;
+        while sb != 0 {
+            let w = (s << 6) + sb.trailing_zeros() as usize;
+            let base = lo + ((w as u32) << 6);
+            let mut b = std::mem::take(&mut bits[w]);
+            while b != 0 {
+                ids[k] = base + b.trailing_zeros();
+                k += 1;
+                b &= b - 1;
+            }
+            sb &= sb - 1;
         }
     }
     debug_assert_eq!(k, n, "indices must be distinct");
+}
+
+/// Unweighted first and second moments of neighbour offsets `d`, each summed in f32 in
+/// neighbour order from +0: `m1 = Σ d`, `m2 = Σ (dx², dx·dy, dx·dz, dy², dy·dz, dz²)`.
+#[derive(Debug, Default, Clone, Copy)]
+struct Moments {
+    m1: [f32; 3],
+    m2: [f32; 6],
+}
+
+impl Moments {
+    #[inline(always)]
+    fn add(&mut self, d: [f32; 3]) {
+        for (m, v) in self.m1.iter_mut().zip(d) {
+            *m += v;
+        }
+        self.m2[0] += d[0] * d[0];
+        self.m2[1] += d[0] * d[1];
+        self.m2[2] += d[0] * d[2];
+        self.m2[3] += d[1] * d[1];
+        self.m2[4] += d[1] * d[2];
+        self.m2[5] += d[2] * d[2];
+    }
 }
 
 /// Flags from the neighbour count and the offsets' moments (see [`flags`]).
@@ -837,15 +879,20 @@ mod tests {
 
     #[test]
     fn sort_distinct_sorts_narrow_and_wide_sets() {
-        let mut bits = Vec::new();
+        let (mut bits, mut summary) = (Vec::new(), Vec::new());
         let mut s = 0x2545_f491_4f6c_dd1du64;
+        // Narrow spans, spans needing the summary words, and spans too wide for the bitmap.
         for (n, span) in [
             (0usize, 1u32),
             (1, 1),
             (2, 2),
             (70, 2000),
             (60, 64),
+            (75, 50_000),
+            (20, 200_000),
+            (3, 4096 * 64 * 2),
             (70, 1 << 30),
+            (70, 2000),
         ] {
             let mut ids: Vec<u32> = Vec::new();
             while ids.len() < n {
@@ -859,7 +906,8 @@ mod tests {
             }
             let mut want = ids.clone();
             want.sort_unstable();
-            sort_distinct(&mut ids, &mut bits);
+            sort_distinct(&mut ids, &mut bits, &mut summary);
+            assert!(bits.iter().all(|&b| b == 0), "the bitmap is left clear");
             assert_eq!(ids, want, "n {n} span {span}");
         }
     }

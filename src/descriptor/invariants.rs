@@ -75,9 +75,10 @@ impl InvariantPlan {
     /// Every norm and power-spectrum value is one sum over `m` in ascending order of f64
     /// products, starting from the standard library's empty sum (as `Iterator::sum` does), then
     /// rounded once to f32 (the norm after its square root). The sums run four shells `n'` side
-    /// by side over a copy of the coefficients with the shells innermost, which the compiler
-    /// turns into vector code without changing any single sum (no fused multiply-add in Rust);
-    /// a norm is the square root of the power spectrum's `(n, n)` sum, the same operations.
+    /// by side over a copy of the coefficients with the shells innermost, in vector code that
+    /// changes no single sum (the AVX2 build fuses each product into its sum, exact because
+    /// products of f32 values are exact in f64, see [`super::avx2::block_sums`]); a norm is
+    /// the square root of the power spectrum's `(n, n)` sum, the same operations.
     pub(crate) fn compute(&self, c: &[f32], c64: &mut Vec<f64>, out: &mut [f32]) {
         let nk = (self.degree + 1) * (self.degree + 1);
         let mut k = 0;
@@ -111,38 +112,53 @@ impl InvariantPlan {
             // SAFETY: the processor reported AVX2.
             return unsafe { self.spectrum_avx2(c, t, out) };
         }
-        self.spectrum_impl(c, t, out, block_sums)
+        self.spectrum_impl(c, t, out, self.shape(), block_sums)
     }
 
     #[cfg(target_arch = "x86_64")]
     #[target_feature(enable = "avx2,fma")]
     fn spectrum_avx2(&self, c: &[f32], t: &mut Vec<f64>, out: &mut [f32]) -> usize {
         // The closure inherits this function's AVX2 and FMA.
-        self.spectrum_impl(c, t, out, |rows, stride, group, zero| {
+        let sums = |rows: &[f64], stride, group: &[(usize, usize); GROUP], zero| {
             super::avx2::block_sums(rows, stride, group, zero)
-        })
+        };
+        // The default recipe's shape with constant bounds, so that the compiler unrolls the
+        // loops and keeps the block offsets as constants (same operations, same bits).
+        if (self.shells, self.degree) == (6, 4) {
+            return self.spectrum_impl(c, t, out, (6, 4, &BLOCKS_6), sums);
+        }
+        self.spectrum_impl(c, t, out, self.shape(), sums)
     }
 
-    /// `sums(rows, stride, group, zero)` gives the [`block_sums`] of one group of blocks.
+    /// Shells, degree and [`spectrum_blocks`] of the plan.
+    fn shape(&self) -> (usize, usize, &[(usize, usize)]) {
+        (self.shells, self.degree, &self.blocks)
+    }
+
+    /// `sums(rows, stride, group, zero)` gives the [`block_sums`] of one group of blocks;
+    /// `shape` is [`InvariantPlan::shape`] (or the same values as constants).
     #[inline(always)]
     fn spectrum_impl(
         &self,
         c: &[f32],
         t: &mut Vec<f64>,
         out: &mut [f32],
+        (ns, degree, blocks): (usize, usize, &[(usize, usize)]),
         sums: impl Fn(&[f64], usize, &[(usize, usize); GROUP], f64) -> [[f64; 4]; GROUP],
     ) -> usize {
-        let nk = (self.degree + 1) * (self.degree + 1);
-        let ns = self.shells;
+        let nk = (degree + 1) * (degree + 1);
         // Shells innermost, padded with zeros so that a block of four starting at any shell
         // (or at `N`, the padding blocks) stays inside the row: t[k·stride + n] = c[n·K + k].
         // The padding is zeroed when the buffer is made and never
-        // written after (it only feeds sums that are not kept).
+        // written after (it only feeds sums that are not kept). The `(L+1)·N` values after
+        // the rows keep the `(n, n)` sums whose square roots are the norms.
         let stride = ns + 4;
-        if t.len() != nk * stride {
+        let n_diag = (degree + 1) * ns;
+        if t.len() != nk * stride + n_diag {
             t.clear();
-            t.resize(nk * stride, 0.0);
+            t.resize(nk * stride + n_diag, 0.0);
         }
+        let (t, diag) = t.split_at_mut(nk * stride);
         for (n, cn) in c[..ns * nk].chunks_exact(nk).enumerate() {
             for (kk, &v) in cn.iter().enumerate() {
                 t[kk * stride + n] = v as f64;
@@ -151,7 +167,7 @@ impl InvariantPlan {
         let zero: f64 = std::iter::empty::<f64>().sum();
         // Norms first ((L+1)·N columns), then the power spectrum in the order of the blocks.
         let n_norms = if self.which.norms {
-            (self.degree + 1) * ns
+            (degree + 1) * ns
         } else {
             0
         };
@@ -159,14 +175,14 @@ impl InvariantPlan {
         let mut k = 0;
         // Σ_m c[n][lm] c[n'][lm] for n' ≥ n: eight blocks of four n' at a time, each an
         // independent chain over m (the blocks of `spectrum_blocks`, in column order).
-        for l in 0..=self.degree {
+        for l in 0..=degree {
             let rows = &t[l * l * stride..(l + 1) * (l + 1) * stride];
-            for group in self.blocks.chunks_exact(GROUP) {
+            for group in blocks.chunks_exact(GROUP) {
                 let group: &[(usize, usize); GROUP] = group.try_into().expect("a group");
                 let acc = sums(rows, stride, group, zero);
                 for (a, &(n, n2)) in acc.iter().zip(group) {
-                    if n2 == n && n_norms > 0 {
-                        norms[l * ns + n] = a[0].sqrt() as f32;
+                    if n2 == n {
+                        diag[l * ns + n] = a[0];
                     }
                     if self.which.power_spectrum {
                         for &v in a.iter().take(ns.saturating_sub(n2)) {
@@ -177,12 +193,28 @@ impl InvariantPlan {
                 }
             }
         }
+        // The square roots side by side (each correctly rounded, as one at a time).
+        for (o, &d) in norms.iter_mut().zip(diag.iter()) {
+            *o = d.sqrt() as f32;
+        }
         n_norms + k
     }
 }
 
 /// Blocks of the power-spectrum sums computed side by side.
 pub(crate) const GROUP: usize = 8;
+
+/// [`spectrum_blocks`]`(6)`, the default recipe's six shells, as a constant.
+const BLOCKS_6: [(usize, usize); 8] = [
+    (0, 0),
+    (0, 4),
+    (1, 1),
+    (1, 5),
+    (2, 2),
+    (3, 3),
+    (4, 4),
+    (5, 5),
+];
 
 /// The sums of one group of blocks over `rows` (rows of `stride` f64 values, shells
 /// innermost): block `(n, n')` gives `Σ_rows row[n] · row[n' + j]` for `j < 4`, each sum from
@@ -252,6 +284,11 @@ mod tests {
     }
 
     #[test]
+    fn the_constant_blocks_are_those_of_six_shells() {
+        assert_eq!(spectrum_blocks(6), BLOCKS_6);
+    }
+
+    #[test]
     fn spectrum_blocks_give_the_plain_sums_bit_for_bit() {
         let mut rng = SplitMix64::new(7);
         for (shells, degree) in [
@@ -295,7 +332,8 @@ mod tests {
                     plan.compute(&c, &mut scratch, &mut got);
                     assert_eq!(bits(&got), bits(&want), "N {shells}, L {degree}, {which:?}");
                     let mut got = vec![f32::NAN; want.len()];
-                    let k = plan.spectrum_impl(&c, &mut scratch, &mut got, block_sums);
+                    let k =
+                        plan.spectrum_impl(&c, &mut scratch, &mut got, plan.shape(), block_sums);
                     assert_eq!(k, want.len());
                     assert_eq!(bits(&got), bits(&want), "portable: N {shells}, L {degree}");
                 }

@@ -63,6 +63,10 @@ fn weights_avx2(
     step: &mut Vec<f32>,
     w: &mut Vec<f32>,
 ) -> f32 {
+    // The default recipe's six shells as a constant (same operations, same bits).
+    if n_sh == 6 {
+        return weights_impl(rho, 6, fc, step, w);
+    }
     weights_impl(rho, n_sh, fc, step, w)
 }
 
@@ -309,6 +313,11 @@ fn project_avx2(
     _lanes: &mut [[f32; LANES]],
     acc: &mut [f32],
 ) {
+    // The default recipe's shape (N = 6, L = 4) with constant bounds, which the compiler
+    // unrolls (same operations, same bits).
+    if (n_sh, nk) == (6, 25) {
+        return super::avx2::project(w, y, jp, 6, 25, acc);
+    }
     super::avx2::project(w, y, jp, n_sh, nk, acc)
 }
 

@@ -11,7 +11,7 @@ mod normals;
 mod spacing;
 mod voxel;
 
-pub use grid::{CellGrid, GridQuery, MAX_CELLS_PER_AXIS};
+pub use grid::{CellGrid, GridQuery, MAX_CELLS_PER_AXIS, order_by_key};
 pub use index::KdIndex;
 pub use normals::estimate_normals;
 pub use spacing::{

@@ -45,8 +45,10 @@ pub use sidecar::{
 /// Bytes of output rows computed per chunk (each chunk is computed in parallel, then written;
 /// the engine reuses one chunk's buffers for the next ([`Engine::recycle`]), so only the first
 /// chunk's pages are fresh: a 50 000-point `features` run took 8 530 page faults with 16 MB
-/// chunks and fresh buffers, 3 360 with these).
-const CHUNK_BYTES: usize = 4 << 20;
+/// chunks and fresh buffers, 3 360 with 4 MB). 1 MB, small enough for the recycled buffers to
+/// stay in a core's second-level cache, measured faster than 4 MB (DEVELOPERS.md, "Descriptor
+/// engine: 2.5× goal").
+const CHUNK_BYTES: usize = 1 << 20;
 
 /// Feature-file formats.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
@@ -248,18 +250,32 @@ impl CountStats {
 /// Appends row `i` of `f` in file column order ([`column_names`]; the local coordinates first
 /// when `with_local`, as in NPY and CSV files).
 pub fn push_row(f: &Features, i: usize, with_local: bool, out: &mut Vec<f32>) {
+    for part in row_parts(f, i, with_local, out) {
+        out.extend_from_slice(part);
+    }
+}
+
+/// Row `i` of `f` in file column order in three parts: the head (local coordinates when
+/// `with_local`, then count and flag per scale) appended to `head`, then the invariants and
+/// the coefficients (empty when not kept), borrowed from `f`.
+pub(crate) fn row_parts<'f>(
+    f: &'f Features,
+    i: usize,
+    with_local: bool,
+    head: &mut Vec<f32>,
+) -> [&'f [f32]; 2] {
     if with_local {
-        out.extend_from_slice(&f.positions[i]);
+        head.extend_from_slice(&f.positions[i]);
     }
     for s in 0..f.recipe.scales() {
-        out.push(f.count(i, s) as f32);
-        out.push(f.flag(i, s) as f32);
+        head.push(f.count(i, s) as f32);
+        head.push(f.flag(i, s) as f32);
     }
-    out.extend_from_slice(f.row(i));
-    if let Some(k) = &f.coefficients {
+    let coefficients = f.coefficients.as_ref().map_or(&[][..], |k| {
         let per = k.len() / f.len().max(1);
-        out.extend_from_slice(&k[i * per..(i + 1) * per]);
-    }
+        &k[i * per..(i + 1) * per]
+    });
+    [f.row(i), coefficients]
 }
 
 /// A feature file being written: rows go in with [`FeatureWriter::push`] in order, and
@@ -434,7 +450,7 @@ impl<'a> FeatureWriter<'a> {
     }
 }
 
-/// Rows per chunk for `columns` f32 columns: about 4 MiB of output, 1 024 to 65 536.
+/// Rows per chunk for `columns` f32 columns: about 1 MiB of output, 1 024 to 65 536.
 pub fn chunk_rows(columns: usize) -> usize {
     (CHUNK_BYTES / (4 * columns.max(1))).clamp(1 << 10, 1 << 16)
 }

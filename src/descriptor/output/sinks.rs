@@ -10,7 +10,7 @@ use crate::error::{Error, Result};
 use crate::io::{Finished, LasRowWriter, PlyLayout, TempFile, npy_header};
 
 use super::parquet::ParquetSink;
-use super::{CentreList, FileSpec, Format, las_options, push_row};
+use super::{CentreList, FileSpec, Format, las_options, push_row, row_parts};
 
 /// A data file being written.
 pub(super) enum Sink {
@@ -149,19 +149,19 @@ impl Sink {
         let point_of = |i: usize| f.indices.as_ref().map(|ix| ix[i]);
         match self {
             Sink::Npy(h) => {
-                let mut vals = Vec::with_capacity(nc);
-                // One buffer for the whole file (about 1 MB, kept between chunks).
+                // One buffer for the whole file (about 256 KB, kept between chunks); each row
+                // goes straight from the chunk into it ([`row_parts`]).
                 let mut bytes = std::mem::take(&mut h.buffer);
                 bytes.clear();
+                let mut head = Vec::with_capacity(3 + 2 * f.recipe.scales());
                 for i in 0..f.len() {
-                    vals.clear();
-                    push_row(f, i, true, &mut vals);
-                    let at = bytes.len();
-                    bytes.resize(at + 4 * vals.len(), 0);
-                    for (d, v) in bytes[at..].chunks_exact_mut(4).zip(&vals) {
-                        d.copy_from_slice(&v.to_le_bytes());
+                    head.clear();
+                    let rest = row_parts(f, i, true, &mut head);
+                    put_f32(&mut bytes, &head);
+                    for part in rest {
+                        put_f32(&mut bytes, part);
                     }
-                    if bytes.len() >= 1 << 20 {
+                    if bytes.len() >= 1 << 18 {
                         h.put(&bytes)?;
                         bytes.clear();
                     }
@@ -255,4 +255,20 @@ fn attribute_presence(cloud: &Cloud) -> Cloud {
     c.return_number = cloud.return_number.as_ref().map(|_| Vec::new());
     c.gps_time = cloud.gps_time.as_ref().map(|_| Vec::new());
     c
+}
+
+/// Appends `v` to `out` as little-endian f32 (NPY's `<f4`).
+fn put_f32(out: &mut Vec<u8>, v: &[f32]) {
+    #[cfg(target_endian = "little")]
+    {
+        // SAFETY: any f32 is four initialised bytes, u8 has alignment 1, and the length is
+        // the slice's size in bytes; on a little-endian target these are the `<f4` bytes.
+        out.extend_from_slice(unsafe {
+            std::slice::from_raw_parts(v.as_ptr().cast::<u8>(), std::mem::size_of_val(v))
+        });
+    }
+    #[cfg(not(target_endian = "little"))]
+    for x in v {
+        out.extend_from_slice(&x.to_le_bytes());
+    }
 }
