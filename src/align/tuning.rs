@@ -19,6 +19,13 @@ pub struct Tuning {
     pub descriptor_shells: usize,
     /// Second, inner support radius of the harmonic descriptors, as a share of the first.
     pub inner_radius_share: f64,
+    /// Third, innermost support radius of the harmonic descriptors, as a share of the first
+    /// (0: two radii only).
+    pub third_radius_share: f64,
+    /// The rotation search of a correspondence also proposes its second-best rotation when
+    /// that one's rotation-dependent score comes within this share of the best's (a locally
+    /// symmetric neighbourhood).
+    pub rotation_ambiguity_margin: f64,
     /// Largest ratio of best to second-best feature distance kept as a match.
     pub match_max_ratio: f32,
     /// Keep only matches that are each other's nearest neighbours.
@@ -106,6 +113,8 @@ impl Default for Tuning {
             descriptor_degree: 4,
             descriptor_shells: 6,
             inner_radius_share: 0.5,
+            third_radius_share: 0.0,
+            rotation_ambiguity_margin: 0.1,
             match_max_ratio: 0.9,
             match_mutual: true,
             match_min_keep: 300,
