@@ -65,9 +65,10 @@ pub struct Tuning {
     pub icp_tolerance: f64,
     /// Most SOURCE keypoints paired in each coarse ICP run (an even stride through them);
     /// the refined poses are then scored on every keypoint. The default keeps every keypoint:
-    /// 1 500 with a coarse tolerance of 1e-4 cut the benchmark subset's CPU time by about 40 %
-    /// but turned a borderline stacked shaft pair confident and wrong (DEVELOPERS.md,
-    /// Registration).
+    /// 1 500 with a coarse tolerance of 1e-4 cut the benchmark subset's CPU time by about 40 %,
+    /// and 2 000 halves the 100 k-point bench, but 1 500 to 3 000 all turn a borderline stacked
+    /// shaft pair of the subset confident and wrong (DEVELOPERS.md, Registration, "Speed of the
+    /// refine stage" and "Scale-aware defaults").
     pub icp_sample: usize,
     /// Convergence tolerance of the coarse ICP runs (as [`Tuning::icp_tolerance`]).
     pub icp_coarse_tolerance: f64,
