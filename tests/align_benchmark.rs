@@ -17,6 +17,7 @@ mod common;
 use std::time::Instant;
 
 use common::shapes::{Pair, bunny_pair, pair, pair_from, shapes, test_shapes};
+use common::tune::tuned;
 use common::{bunny, errors};
 use equiscan::Cloud;
 use equiscan::align::{AlignParams, Alignment, Method, Motion, Rigid, Verdict, align_pair};
@@ -80,6 +81,7 @@ fn run(p: &Pair, method: Method, seed: u64, version: u32) -> Run {
         descriptor_version: version,
         ..AlignParams::default()
     };
+    let params = tuned(params, &p.source, &p.target);
     let t = Instant::now();
     let a = align_pair(&p.source, &p.target, &params).expect("alignment runs");
     let seconds = t.elapsed().as_secs_f64();

@@ -112,6 +112,18 @@ fn scans_prepared_differently_are_refused_naming_both_files() {
     };
     let e = align_prepared(&a, &b, &v2).unwrap_err().to_string();
     assert!(e.contains("version 1") && e.contains("version 2"), "{e}");
+    // A third, innermost support radius (`Tuning::third_radius_share`) is part of the recipe.
+    let mut three = params;
+    three.tuning.third_radius_share = 0.25;
+    let e = align_prepared(&a, &b, &three).unwrap_err().to_string();
+    assert!(
+        e.contains("2 support radii") && e.contains("3 support radii"),
+        "{e}"
+    );
+    let c = PreparedScan::prepare("c.ply", &p.target, &three, voxel).unwrap();
+    let radii = &c.settings().recipe.as_ref().unwrap().radii;
+    assert_eq!(radii.len(), 3);
+    assert!((radii[2] / radii[0] - 0.25).abs() < 1e-6, "{radii:?}");
     assert!(align_prepared(&a, &b, &params).is_ok());
 }
 

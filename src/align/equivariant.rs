@@ -73,15 +73,16 @@ pub fn describe(
 }
 
 /// A rotation searcher for the recipe's degree: coarse grid level 1 and a few candidates, plus
-/// the closed-form rotation that aligns the shells' degree-1 vectors (Kabsch) as a start.
-pub fn searcher(degree: usize) -> RotationSearcher {
+/// the closed-form rotation that aligns the shells' degree-1 vectors (Kabsch) as a start; a
+/// second maximum within `ambiguity_margin` of the best flags the match ambiguous.
+pub fn searcher(degree: usize, ambiguity_margin: f64) -> RotationSearcher {
     RotationSearcher::with_options(
         degree,
         SearchOptions {
             grid_level: 1,
             candidates: 4,
             separation_deg: 20.0,
-            ambiguity_margin: 0.1,
+            ambiguity_margin,
             max_iterations: 15,
             // The closed-form Kabsch fit of the degree-1 parts of the shells, as one more start.
             degree_one_start: true,
@@ -186,7 +187,7 @@ mod tests {
             ratio: 0.5,
             mutual: true,
         }];
-        let h = hypotheses(&corr, &pts, &moved, &fa, &fb, &searcher(4));
+        let h = hypotheses(&corr, &pts, &moved, &fa, &fb, &searcher(4, 0.1));
         assert!(!h.is_empty());
         let err = super::super::rigid::rotation_error_deg(&h[0].rotation, &r);
         assert!(err < 0.5, "seed {seed}: rotation error {err}°");

@@ -61,7 +61,9 @@ pub fn propose(
             consensus::ransac(&matches.pairs, tau, params.ransac_iterations, params.seed)
         }
         Method::Equivariant => {
-            let searcher = equivariant::searcher(params.tuning.descriptor_degree);
+            let tu = &params.tuning;
+            let searcher =
+                equivariant::searcher(tu.descriptor_degree, tu.rotation_ambiguity_margin);
             let poses = equivariant::hypotheses(
                 &matches.correspondences,
                 &source.keypoints,

@@ -22,6 +22,7 @@ use super::equivariant::{self, EquivariantRecipe};
 use super::fpfh::{FPFH_LEN, fpfh};
 use super::pipeline::{AlignParams, Method};
 use super::prep::{choose_voxel, figure, prepare, spacing_of};
+use super::tuning::Tuning;
 use crate::cloud::Cloud;
 use crate::error::{Error, Kind, Result};
 use crate::spatial::{KdIndex, estimate_spacing_with, voxel_downsample};
@@ -207,6 +208,17 @@ pub fn support_radius(params: &AlignParams, voxel: f64) -> Result<f64> {
     Ok(radius)
 }
 
+/// The support radii of the harmonic descriptors for support radius `radius`, largest first:
+/// `radius`, [`Tuning::inner_radius_share`] of it and, when set,
+/// [`Tuning::third_radius_share`] of it.
+fn descriptor_radii(tu: &Tuning, radius: f64) -> Vec<f32> {
+    let mut radii = vec![radius as f32, (tu.inner_radius_share * radius) as f32];
+    if tu.third_radius_share > 0.0 {
+        radii.push((tu.third_radius_share * radius) as f32);
+    }
+    radii
+}
+
 impl<'a> Geometry<'a> {
     /// Keypoints and fine points with normals and trees: one pass over the full cloud gives the
     /// fine points (half the voxel size by default), the keypoints are taken from those.
@@ -243,10 +255,7 @@ impl<'a> Geometry<'a> {
         let (descriptors, recipe) = match params.method {
             Method::Equivariant => {
                 let recipe = StoredRecipe {
-                    radii: vec![
-                        self.radius as f32,
-                        (tu.inner_radius_share * self.radius) as f32,
-                    ],
+                    radii: descriptor_radii(tu, self.radius),
                     degree: tu.descriptor_degree,
                     shells: tu.descriptor_shells,
                     version: params.descriptor_version,
@@ -439,21 +448,23 @@ impl PreparedScan {
         }
         if let Some(r) = &self.settings.recipe {
             let tu = &params.tuning;
+            let radii = descriptor_radii(tu, self.settings.radius);
             if r.version != params.descriptor_version
                 || r.degree != tu.descriptor_degree
                 || r.shells != tu.descriptor_shells
-                || r.radii.get(1).copied()
-                    != Some((tu.inner_radius_share * self.settings.radius) as f32)
+                || r.radii != radii
             {
                 return Err(Error::invalid(
                     format!(
-                        "{a} and {b} were prepared with descriptor version {}, degree {}, {} shells; the run asks for version {}, degree {}, {} shells",
+                        "{a} and {b} were prepared with descriptor version {}, degree {}, {} shells, {} support radii; the run asks for version {}, degree {}, {} shells, {} support radii",
                         r.version,
                         r.degree,
                         r.shells,
+                        r.radii.len(),
                         params.descriptor_version,
                         tu.descriptor_degree,
-                        tu.descriptor_shells
+                        tu.descriptor_shells,
+                        radii.len()
                     ),
                     redo,
                 ));

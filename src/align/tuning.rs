@@ -19,6 +19,14 @@ pub struct Tuning {
     pub descriptor_shells: usize,
     /// Second, inner support radius of the harmonic descriptors, as a share of the first.
     pub inner_radius_share: f64,
+    /// Third, innermost support radius of the harmonic descriptors, as a share of the first
+    /// (0: two radii only; a quarter listed the true pose less often on the mid-size
+    /// benchmark, DEVELOPERS.md, Registration, "Scale-aware defaults").
+    pub third_radius_share: f64,
+    /// The rotation search of a correspondence also proposes its second-best rotation when
+    /// that one's rotation-dependent score comes within this share of the best's (a locally
+    /// symmetric neighbourhood; 0.3 gave the same results as 0.1 on the mid-size benchmark).
+    pub rotation_ambiguity_margin: f64,
     /// Largest ratio of best to second-best feature distance kept as a match.
     pub match_max_ratio: f32,
     /// Keep only matches that are each other's nearest neighbours.
@@ -58,9 +66,10 @@ pub struct Tuning {
     pub icp_tolerance: f64,
     /// Most SOURCE keypoints paired in each coarse ICP run (an even stride through them);
     /// the refined poses are then scored on every keypoint. The default keeps every keypoint:
-    /// 1 500 with a coarse tolerance of 1e-4 cut the benchmark subset's CPU time by about 40 %
-    /// but turned a borderline stacked shaft pair confident and wrong (DEVELOPERS.md,
-    /// Registration).
+    /// 1 500 with a coarse tolerance of 1e-4 cut the benchmark subset's CPU time by about 40 %,
+    /// and 2 000 cuts the 100 k-point bench by about 45 %, but 1 500 to 3 000 all turn a borderline stacked
+    /// shaft pair of the subset confident and wrong (DEVELOPERS.md, Registration, "Speed of the
+    /// refine stage" and "Scale-aware defaults").
     pub icp_sample: usize,
     /// Convergence tolerance of the coarse ICP runs (as [`Tuning::icp_tolerance`]).
     pub icp_coarse_tolerance: f64,
@@ -111,6 +120,8 @@ impl Default for Tuning {
             descriptor_degree: 4,
             descriptor_shells: 6,
             inner_radius_share: 0.5,
+            third_radius_share: 0.0,
+            rotation_ambiguity_margin: 0.1,
             match_max_ratio: 0.9,
             match_mutual: true,
             match_min_keep: 300,

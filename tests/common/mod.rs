@@ -353,3 +353,4 @@ pub fn view_ring(
         .collect()
 }
 pub mod shapes;
+pub mod tune;

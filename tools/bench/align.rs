@@ -3,13 +3,15 @@
 //! methods from the clouds in memory (downsampling, spacing estimate and every stage included;
 //! file reading excluded). Before measuring, one run per case prints its stage split.
 //!
-//! `cargo bench --bench align -- --warm-up-time 1 --measurement-time 10`
+//! `cargo bench --bench align -- --warm-up-time 1 --measurement-time 10`; `EQUISCAN_BENCH_TUNE`
+//! measures other tuning values (tests/common/tune.rs).
 
 #[path = "../../tests/common/mod.rs"]
 mod common;
 
 use std::hint::black_box;
 
+use common::tune::tuned;
 use common::{bunny, errors, problem};
 use criterion::{BenchmarkId, Criterion, Throughput, criterion_group, criterion_main};
 use equiscan::align::{AlignParams, Method, align_pair};
@@ -25,6 +27,7 @@ fn bench(c: &mut Criterion) {
                 method,
                 ..AlignParams::default()
             };
+            let params = tuned(params, &p.source, &p.target);
             let a = align_pair(&p.source, &p.target, &params).expect("alignment runs");
             let (rot, trans) = errors(&p.source, &a.transform, &p.truth);
             let total: f64 = a.timings.iter().map(|s| s.seconds).sum();

@@ -1,0 +1,49 @@
+//! Tuning overrides for measurement runs, read from `EQUISCAN_BENCH_TUNE` (comma-separated
+//! `key=value`), so that a changed default can be measured on the benchmarks before it is made
+//! the default. Unset, the parameters are left as they are.
+//!
+//! Keys: `radius` (support radius in the pair's automatic voxel sizes), `keypoints` (a factor
+//! on the keypoint count: the voxel becomes the automatic one over √factor, the radius stays
+//! `radius` automatic voxels when that key comes first, else the method's default in new
+//! voxels), `inner` / `third` ([`Tuning::inner_radius_share`], [`Tuning::third_radius_share`]),
+//! `ambiguity` ([`Tuning::rotation_ambiguity_margin`]), `version` (descriptor version),
+//! `min_keep`, `max_keep`, `ratio` (matching), `icp_sample`, `coarse_tolerance`.
+
+use equiscan::Cloud;
+use equiscan::align::prepared_scan::pair_voxel;
+use equiscan::align::{AlignParams, Tuning};
+
+/// `params` with the overrides of `EQUISCAN_BENCH_TUNE` applied for the pair (`source`,
+/// `target`); panics naming the entry when one cannot be read.
+pub fn tuned(mut params: AlignParams, source: &Cloud, target: &Cloud) -> AlignParams {
+    let Ok(spec) = std::env::var("EQUISCAN_BENCH_TUNE") else {
+        return params;
+    };
+    let voxel = |p: &AlignParams| {
+        pair_voxel(p, ("source", source), ("target", target)).expect("automatic voxel size")
+    };
+    for entry in spec.split(',').filter(|e| !e.is_empty()) {
+        let (key, value) = entry
+            .split_once('=')
+            .unwrap_or_else(|| panic!("EQUISCAN_BENCH_TUNE: {entry} is not key=value"));
+        let x: f64 = value
+            .parse()
+            .unwrap_or_else(|_| panic!("EQUISCAN_BENCH_TUNE: {entry} has no number"));
+        let tu: &mut Tuning = &mut params.tuning;
+        match key {
+            "inner" => tu.inner_radius_share = x,
+            "third" => tu.third_radius_share = x,
+            "ambiguity" => tu.rotation_ambiguity_margin = x,
+            "min_keep" => tu.match_min_keep = x as usize,
+            "max_keep" => tu.match_max_keep = x as usize,
+            "ratio" => tu.match_max_ratio = x as f32,
+            "icp_sample" => tu.icp_sample = x as usize,
+            "coarse_tolerance" => tu.icp_coarse_tolerance = x,
+            "version" => params.descriptor_version = x as u32,
+            "radius" => params.radius = Some(x * voxel(&params)),
+            "keypoints" => params.voxel = Some(voxel(&params) / x.sqrt()),
+            _ => panic!("EQUISCAN_BENCH_TUNE: unknown key {key}"),
+        }
+    }
+    params
+}
