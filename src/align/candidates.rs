@@ -106,48 +106,72 @@ impl Scored {
     }
 }
 
+/// Centroid and principal axes (unit columns) of `points`; `None` below 10 points.
+fn principal_frame(points: &[Vector3<f64>]) -> Option<(Vector3<f64>, Matrix3<f64>)> {
+    if points.len() < 10 {
+        return None;
+    }
+    let n = points.len() as f64;
+    let c = points.iter().fold(Vector3::zeros(), |a, p| a + p) / n;
+    let mut cov = Matrix3::zeros();
+    for p in points {
+        cov += (p - c) * (p - c).transpose();
+    }
+    Some((c, SymmetricEigen::new(cov / n).eigenvectors))
+}
+
 /// Near-symmetric alternatives of `best` (local frames) that the drawn hypotheses may have
-/// missed: turns by 90°, 180° and 270° about each principal axis of the overlap region (the
-/// SOURCE points that `best` puts within `tau` of TARGET), through its centroid (the 180°
-/// turns are the flips), and slides by `±shift` along each of `slides` (unit vectors, TARGET
-/// local frame).
+/// missed. Turns are taken about the principal axes of three regions, each through its
+/// centroid: the overlap region (the SOURCE keypoints that `best` puts within `tau` of
+/// TARGET), by 90°, 180° and 270°; and, by 180° (the flips), the TARGET keypoints and the union
+/// of the TARGET keypoints with the SOURCE keypoints placed by `best` (the object's axes when
+/// the two views lie side by side; on the benchmark a wrong pose that stacks two views of a
+/// near-symmetric part is most often a half turn of the truth, DEVELOPERS.md "Rival poses").
+/// Then slides by `±` the overlap's spread along each of `slides` (unit vectors, TARGET local
+/// frame). Turns that coincide (within 1° and `tau`) are given once.
 pub fn alternatives(
     best: &Rigid,
     source: &[[f32; 3]],
+    target: &[[f32; 3]],
     target_index: &KdIndex,
     tau: f64,
     slides: &[Vector3<f64>],
 ) -> Vec<Rigid> {
-    let near: Vec<Vector3<f64>> = source
+    let placed: Vec<Vector3<f64>> = source.iter().map(|p| best.apply_f32(*p)).collect();
+    let near: Vec<Vector3<f64>> = placed
         .iter()
-        .map(|p| best.apply_f32(*p))
         .filter(|q| {
             target_index
                 .nearest_within([q.x as f32, q.y as f32, q.z as f32], tau * tau)
                 .is_some()
         })
+        .copied()
         .collect();
-    if near.len() < 10 {
+    let Some((c, axes)) = principal_frame(&near) else {
         return Vec::new();
-    }
-    let n = near.len() as f64;
-    let c = near.iter().fold(Vector3::zeros(), |a, p| a + p) / n;
-    let mut cov = Matrix3::zeros();
-    for p in &near {
-        cov += (p - c) * (p - c).transpose();
-    }
-    let e = SymmetricEigen::new(cov / n);
-    let mut out = Vec::new();
-    for k in 0..3 {
-        let axis = Unit::new_normalize(e.eigenvectors.column(k).into_owned());
-        for deg in [90.0f64, 180.0, 270.0] {
-            let r = *Rotation3::from_axis_angle(&axis, deg.to_radians()).matrix();
-            out.push(Rigid::new(
-                r * best.rotation,
-                r * (best.translation - c) + c,
-            ));
+    };
+    let target: Vec<Vector3<f64>> = target.iter().map(|p| crate::geometry::vec3(*p)).collect();
+    let union: Vec<Vector3<f64>> = target.iter().chain(placed.iter()).copied().collect();
+    let mut frames = vec![(c, axes, &[90.0f64, 180.0, 270.0][..])];
+    for region in [&target, &union] {
+        if let Some((c, axes)) = principal_frame(region) {
+            frames.push((c, axes, &[180.0][..]));
         }
     }
+    let mut out: Vec<Rigid> = Vec::new();
+    for (c, axes, turns) in frames {
+        for k in 0..3 {
+            let axis = Unit::new_normalize(axes.column(k).into_owned());
+            for &deg in turns {
+                let r = *Rotation3::from_axis_angle(&axis, deg.to_radians()).matrix();
+                let turned = Rigid::new(r * best.rotation, r * (best.translation - c) + c);
+                if out.iter().all(|o| !same_pose(o, &turned, 1.0, tau)) {
+                    out.push(turned);
+                }
+            }
+        }
+    }
+    let n = near.len() as f64;
     for s in slides {
         let spread = (near.iter().map(|p| (p - c).dot(s).powi(2)).sum::<f64>() / n).sqrt();
         for sign in [-1.0, 1.0] {

@@ -68,7 +68,8 @@ pub use constraint::{Constraint, Motion, WeakDirection};
 pub use icp::RobustLoss;
 pub use multi::{LoopResidual, MultiAlignment, PairAlignment, align_many, align_many_named};
 pub use pipeline::{
-    AlignParams, Alignment, Method, StageTime, align_named, align_pair, align_prepared,
+    AlignParams, Alignment, Method, StageTime, Trace, align_named, align_pair, align_pair_traced,
+    align_prepared,
 };
 pub use prepared_scan::PreparedScan;
 pub use quality::{Figures, Reason, Verdict};

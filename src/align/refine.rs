@@ -138,6 +138,7 @@ pub fn coarse(
         let alts = alternatives(
             &leader,
             &source.keypoints,
+            &target.keypoints,
             target.keypoint_index(),
             tau,
             &slides,
