@@ -549,6 +549,23 @@ fn benchmark_diagnosis() {
             .map(|r| (r.1, r.2))
             .max_by(|x, y| (x.0 * x.1 as f64).total_cmp(&(y.0 * y.1 as f64)))
             .unwrap_or((0.0, 0));
+        // Strongest refined pose near the truth and strongest far from it (overlap × matches).
+        let strongest = |want: bool| {
+            tr.refined
+                .iter()
+                .filter(|r| near(&r.0) == want)
+                .map(|r| (r.1, r.2))
+                .max_by(|x, y| (x.0 * x.1 as f64).total_cmp(&(y.0 * y.1 as f64)))
+        };
+        let (t_best, w_best) = (strongest(true), strongest(false));
+        println!(
+            "split {i} {} stacked {st} right {right} confident {confident} truth {:?} wrong {:?} answer ovl {:.3} k {}",
+            p.shape,
+            t_best,
+            w_best,
+            a.candidates.first().map_or(0.0, |c| c.overlap),
+            a.candidates.first().map_or(0, |c| c.explained),
+        );
         let mut line = format!(
             "pair {i} {} ovl {:.2} noise {:.4} stacked {st} {:?} right {right} confident {confident} listed {listed} rot {rot:.1} margin {:.3} | hyps {} near {hyp} | ranked {} near at {ranked:?} | refined {} lead ovl {:.3} k {} near: {refined:?}",
             p.shape,

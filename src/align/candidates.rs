@@ -4,7 +4,7 @@
 use nalgebra::{Matrix3, Rotation3, SymmetricEigen, Unit, Vector3};
 use serde::{Serialize, Serializer};
 
-use super::consensus::same_pose;
+use super::consensus::{Pairs, same_pose};
 use super::rigid::{Rigid, rotation_error_deg};
 use crate::spatial::KdIndex;
 
@@ -120,6 +120,63 @@ fn principal_frame(points: &[Vector3<f64>]) -> Option<(Vector3<f64>, Matrix3<f64
     Some((c, SymmetricEigen::new(cov / n).eigenvectors))
 }
 
+/// The translation on which the most matched pairs agree for a given `rotation`: each pair
+/// votes `dst − R src`, votes are counted in cells of `tau` (with the 26 cells around), and
+/// the mean vote of the best cell's neighbourhood is returned with the pairs the pose then
+/// explains; `None` below 3. Ties go to the smallest cell.
+fn voted_translation(
+    rotation: &Matrix3<f64>,
+    pairs: &Pairs,
+    tau: f64,
+) -> Option<(Vector3<f64>, usize)> {
+    let votes: Vec<Vector3<f64>> = pairs
+        .src
+        .iter()
+        .zip(&pairs.dst)
+        .map(|(s, d)| d - rotation * s)
+        .collect();
+    let cell = |v: &Vector3<f64>| {
+        [
+            (v.x / tau).floor() as i64,
+            (v.y / tau).floor() as i64,
+            (v.z / tau).floor() as i64,
+        ]
+    };
+    let mut cells: Vec<[i64; 3]> = votes.iter().map(cell).collect();
+    cells.sort_unstable();
+    let count = |c: &[i64; 3]| {
+        let mut n = 0;
+        for dx in -1..=1 {
+            for dy in -1..=1 {
+                for dz in -1..=1 {
+                    let k = [c[0] + dx, c[1] + dy, c[2] + dz];
+                    let lo = cells.partition_point(|x| x < &k);
+                    n += cells[lo..].partition_point(|x| x == &k);
+                }
+            }
+        }
+        n
+    };
+    let mut best: Option<([i64; 3], usize)> = None;
+    for c in cells.iter() {
+        let n = count(c);
+        if best.is_none_or(|b| n > b.1) {
+            best = Some((*c, n));
+        }
+    }
+    let (c, _) = best?;
+    let near: Vec<&Vector3<f64>> = votes
+        .iter()
+        .filter(|v| {
+            let k = cell(v);
+            (0..3).all(|a| (k[a] - c[a]).abs() <= 1)
+        })
+        .collect();
+    let t = near.iter().fold(Vector3::zeros(), |a, v| a + *v) / near.len() as f64;
+    let support = pairs.support(&Rigid::new(*rotation, t), tau);
+    (support >= 3).then_some((t, support))
+}
+
 /// Near-symmetric alternatives of `best` (local frames) that the drawn hypotheses may have
 /// missed. Turns are taken about the principal axes of three regions, each through its
 /// centroid: the overlap region (the SOURCE keypoints that `best` puts within `tau` of
@@ -128,12 +185,16 @@ fn principal_frame(points: &[Vector3<f64>]) -> Option<(Vector3<f64>, Matrix3<f64
 /// the two views lie side by side; on the benchmark a wrong pose that stacks two views of a
 /// near-symmetric part is most often a half turn of the truth, DEVELOPERS.md "Rival poses").
 /// Then slides by `±` the overlap's spread along each of `slides` (unit vectors, TARGET local
-/// frame). Turns that coincide (within 1° and `tau`) are given once.
+/// frame). A turn about an axis through the wrong point lies too far from the pose it stands
+/// for to reach it by ICP, so each turned rotation is also given with the translation on which
+/// the most matched pairs agree ([`voted_translation`]). Poses that coincide (within 1° and
+/// `tau`) are given once.
 pub fn alternatives(
     best: &Rigid,
     source: &[[f32; 3]],
     target: &[[f32; 3]],
     target_index: &KdIndex,
+    pairs: &Pairs,
     tau: f64,
     slides: &[Vector3<f64>],
 ) -> Vec<Rigid> {
@@ -164,9 +225,14 @@ pub fn alternatives(
             let axis = Unit::new_normalize(axes.column(k).into_owned());
             for &deg in turns {
                 let r = *Rotation3::from_axis_angle(&axis, deg.to_radians()).matrix();
-                let turned = Rigid::new(r * best.rotation, r * (best.translation - c) + c);
-                if out.iter().all(|o| !same_pose(o, &turned, 1.0, tau)) {
-                    out.push(turned);
+                let rotation = r * best.rotation;
+                let turned = Rigid::new(rotation, r * (best.translation - c) + c);
+                let voted =
+                    voted_translation(&rotation, pairs, tau).map(|(t, _)| Rigid::new(rotation, t));
+                for pose in std::iter::once(turned).chain(voted) {
+                    if out.iter().all(|o| !same_pose(o, &pose, 1.0, tau)) {
+                        out.push(pose);
+                    }
                 }
             }
         }

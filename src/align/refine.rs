@@ -140,6 +140,7 @@ pub fn coarse(
             &source.keypoints,
             &target.keypoints,
             target.keypoint_index(),
+            pairs,
             tau,
             &slides,
         );
