@@ -19,7 +19,8 @@ pub struct Candidate {
     /// explains), in [0, 1].
     pub score: f64,
     /// How close this pose comes to the best, in [0, 1] (1 for the best itself; see
-    /// [`rivalry`]); the verdict is ambiguous when the first rival comes within 0.1 of 1.
+    /// [`rivalry`]); the verdict is ambiguous when the first rival comes within
+    /// [`super::quality::MIN_MARGIN`] of 1.
     pub rivalry: f64,
     /// Tight overlap: fraction of SOURCE keypoints on TARGET's surface with agreeing normals.
     pub overlap: f64,
@@ -187,7 +188,7 @@ fn voted_translation(
 /// Then slides by `±` the overlap's spread along each of `slides` (unit vectors, TARGET local
 /// frame). A turn about an axis through the wrong point lies too far from the pose it stands
 /// for to reach it by ICP, so each turned rotation is also given with the translation on which
-/// the most matched pairs agree ([`voted_translation`]). Poses that coincide (within 1° and
+/// the most matched pairs agree (`voted_translation`). Poses that coincide (within 1° and
 /// `tau`) are given once.
 pub fn alternatives(
     best: &Rigid,
