@@ -317,3 +317,43 @@ pub fn rivalry(other: &Scored, best: &Scored, most: Most) -> f64 {
     let r = if indistinct { o } else { o.min(k) };
     r.max(s).clamp(0.0, 1.0)
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// 20 pairs that agree on a known pose among 40 that point anywhere: the vote finds the
+    /// pose's translation for its rotation, and nothing for a rotation no pair agrees on.
+    #[test]
+    fn voted_translation_finds_the_translation_most_pairs_agree_on() {
+        let r = *Rotation3::from_axis_angle(&Vector3::z_axis(), 2.0).matrix();
+        let t = Vector3::new(4.0, -7.0, 1.5);
+        let mut pairs = Pairs {
+            src: Vec::new(),
+            dst: Vec::new(),
+        };
+        // Deterministic spread of points (a linear congruential walk).
+        let mut x = 12345u64;
+        let mut next = || {
+            x = x
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
+            (x >> 11) as f64 / (1u64 << 53) as f64 * 20.0 - 10.0
+        };
+        for k in 0..60 {
+            let s = Vector3::new(next(), next(), next());
+            let d = if k % 3 == 0 {
+                r * s + t
+            } else {
+                Vector3::new(next(), next(), next())
+            };
+            pairs.src.push(s);
+            pairs.dst.push(d);
+        }
+        let (found, support) = voted_translation(&r, &pairs, 0.1).expect("a vote");
+        assert!((found - t).norm() < 1e-9, "{found:?}");
+        assert_eq!(support, 20);
+        let other = *Rotation3::from_axis_angle(&Vector3::x_axis(), 1.0).matrix();
+        assert!(voted_translation(&other, &pairs, 0.1).is_none_or(|(_, n)| n < 5));
+    }
+}
