@@ -43,7 +43,7 @@ pub struct Judgement {
 /// A distinct pose whose consistent overlap is at least this share of the answer's has real
 /// support of its own and is listed whatever its matches say: on the benchmark the true pose of
 /// a stacked pair, when it is refined at all, lays nearly as much of SOURCE on TARGET as the
-/// stacked answer but explains only 3–20 matches against its 18–40 (DEVELOPERS.md, "Rival
+/// stacked answer but explains only 3–9 matches against its 18–42 (DEVELOPERS.md, "Rival
 /// poses").
 pub const LIST_OVERLAP_SHARE: f64 = 0.8;
 
