@@ -20,7 +20,9 @@ use common::shapes::{Pair, bunny_pair, pair, pair_from, shapes, test_shapes};
 use common::tune::tuned;
 use common::{bunny, errors};
 use equiscan::Cloud;
-use equiscan::align::{AlignParams, Alignment, Method, Motion, Rigid, Verdict, align_pair};
+use equiscan::align::{
+    AlignParams, Alignment, Method, Motion, Rigid, Verdict, align_pair, align_pair_traced,
+};
 use equiscan::spatial::{KdIndex, estimate_spacing};
 use nalgebra::Vector3;
 use rayon::prelude::*;
@@ -481,4 +483,138 @@ fn the_slide_on_a_two_plane_part_is_a_weak_direction() {
         "{:?}",
         a.constraint.weak
     );
+}
+
+/// Principal axes (columns, largest spread first) and centroid of `pts`.
+fn principal(pts: &[Vector3<f64>]) -> (nalgebra::Matrix3<f64>, Vector3<f64>) {
+    let n = pts.len().max(1) as f64;
+    let c = pts.iter().fold(Vector3::zeros(), |a, p| a + p) / n;
+    let mut cov = nalgebra::Matrix3::zeros();
+    for p in pts {
+        cov += (p - c) * (p - c).transpose();
+    }
+    let e = nalgebra::SymmetricEigen::new(cov / n);
+    let mut k = [0usize, 1, 2];
+    k.sort_by(|&a, &b| e.eigenvalues[b].total_cmp(&e.eigenvalues[a]));
+    let m = nalgebra::Matrix3::from_columns(&[
+        e.eigenvectors.column(k[0]).into_owned(),
+        e.eigenvectors.column(k[1]).into_owned(),
+        e.eigenvectors.column(k[2]).into_owned(),
+    ]);
+    (m, c)
+}
+
+/// Diagnosis of the benchmark pairs (equivariant): for every pair that is wrong or stacked,
+/// how the truth relates to the answer (the motion truth ∘ answer⁻¹ in TARGET's frame: angle,
+/// axis in the principal axes of TARGET and of the union of TARGET and the truly placed
+/// SOURCE, and the shift of SOURCE's centroid) and at which stage a pose near the truth
+/// (within 5° and 3 % of the diagonal) still existed. Size as the tables
+/// (`EQUISCAN_BENCH_PAIRS`, `EQUISCAN_BENCH_SHAPES`).
+#[test]
+#[ignore = "diagnosis: --release --ignored --nocapture"]
+fn benchmark_diagnosis() {
+    let (per_part, bunnies, yard) = bench_size();
+    let ps = pairs(per_part, bunnies, yard);
+    for (i, p) in ps.iter().enumerate() {
+        let params = AlignParams {
+            seed: 1 + i as u64,
+            ..AlignParams::default()
+        };
+        let (a, tr) = align_pair_traced(&p.source, &p.target, &params).unwrap();
+        let (right, rot) = is_right(p, &a.transform);
+        let st = stacked(p, &offered(&a));
+        let confident = a.verdict == Verdict::Confident;
+        let listed = offered(&a).iter().any(|tf| is_right(p, tf).0);
+        let near = |tf: &Rigid| {
+            let (r, t) = errors(&p.source, tf, &p.truth);
+            r <= 5.0 && t <= 0.03 * p.diagonal
+        };
+        let hyp = tr.hypotheses.iter().filter(|t| near(t)).count();
+        let ranked = tr.ranked.iter().position(near);
+        let refined: Vec<String> = tr
+            .refined
+            .iter()
+            .enumerate()
+            .filter(|(_, r)| near(&r.0))
+            .map(|(k, r)| {
+                format!(
+                    "#{k} ovl {:.3} k {} right {}",
+                    r.1,
+                    r.2,
+                    is_right(p, &r.0).0
+                )
+            })
+            .collect();
+        let lead = tr
+            .refined
+            .iter()
+            .map(|r| (r.1, r.2))
+            .max_by(|x, y| (x.0 * x.1 as f64).total_cmp(&(y.0 * y.1 as f64)))
+            .unwrap_or((0.0, 0));
+        // Strongest refined pose near the truth and strongest far from it (overlap × matches).
+        let strongest = |want: bool| {
+            tr.refined
+                .iter()
+                .filter(|r| near(&r.0) == want)
+                .map(|r| (r.1, r.2))
+                .max_by(|x, y| (x.0 * x.1 as f64).total_cmp(&(y.0 * y.1 as f64)))
+        };
+        let (t_best, w_best) = (strongest(true), strongest(false));
+        println!(
+            "split {i} {} stacked {st} right {right} confident {confident} truth {:?} wrong {:?} answer ovl {:.3} k {}",
+            p.shape,
+            t_best,
+            w_best,
+            a.candidates.first().map_or(0.0, |c| c.overlap),
+            a.candidates.first().map_or(0, |c| c.explained),
+        );
+        let mut line = format!(
+            "pair {i} {} ovl {:.2} noise {:.4} stacked {st} {:?} right {right} confident {confident} listed {listed} rot {rot:.1} margin {:.3} | hyps {} near {hyp} | ranked {} near at {ranked:?} | refined {} lead ovl {:.3} k {} near: {refined:?}",
+            p.shape,
+            p.overlap,
+            p.noise_frac,
+            a.verdict,
+            a.figures.margin,
+            tr.hypotheses.len(),
+            tr.ranked.len(),
+            tr.refined.len(),
+            lead.0,
+            lead.1
+        );
+        if !right || st {
+            // Motion carrying the answer's placement of SOURCE onto the true one (TARGET frame).
+            let m = p.truth.compose(&a.transform.inverse());
+            let angle =
+                equiscan::align::rotation_error_deg(&m.rotation, &nalgebra::Matrix3::identity());
+            let axis = nalgebra::Rotation3::from_matrix(&m.rotation)
+                .axis()
+                .map_or(Vector3::zeros(), |u| u.into_inner());
+            let tpts: Vec<Vector3<f64>> = (0..p.target.len())
+                .step_by(7)
+                .map(|k| Vector3::from(p.target.global(k)))
+                .collect();
+            let spts: Vec<Vector3<f64>> = (0..p.source.len())
+                .step_by(7)
+                .map(|k| p.truth.apply(&Vector3::from(p.source.global(k))))
+                .collect();
+            let (at, _) = principal(&tpts);
+            let union: Vec<Vector3<f64>> = tpts.iter().chain(spts.iter()).copied().collect();
+            let (au, cu) = principal(&union);
+            let sc = spts.iter().fold(Vector3::zeros(), |s, x| s + x) / spts.len() as f64;
+            // Where the answer puts SOURCE's centroid, and a point of the motion's axis.
+            let answer_c = a.transform.apply(&p.truth.inverse().apply(&sc));
+            let fix = (m.rotation - nalgebra::Matrix3::identity())
+                .pseudo_inverse(1e-9)
+                .map_or(Vector3::zeros(), |pi| -(pi * m.translation));
+            line += &format!(
+                "\n    motion {angle:.1}° axis in target axes {:.2?} in union axes {:.2?}, axis point - union centroid in union axes {:.2?} (diag {:.3}), answer centroid - truth {:.4}",
+                (at.transpose() * axis).map(|x| x.abs()).as_slice(),
+                (au.transpose() * axis).map(|x| x.abs()).as_slice(),
+                (au.transpose() * (fix - cu)).as_slice(),
+                p.diagonal,
+                (answer_c - sc).norm(),
+            );
+        }
+        println!("{line}");
+    }
 }

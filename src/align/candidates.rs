@@ -4,7 +4,7 @@
 use nalgebra::{Matrix3, Rotation3, SymmetricEigen, Unit, Vector3};
 use serde::{Serialize, Serializer};
 
-use super::consensus::same_pose;
+use super::consensus::{Pairs, same_pose};
 use super::rigid::{Rigid, rotation_error_deg};
 use crate::spatial::KdIndex;
 
@@ -19,7 +19,8 @@ pub struct Candidate {
     /// explains), in [0, 1].
     pub score: f64,
     /// How close this pose comes to the best, in [0, 1] (1 for the best itself; see
-    /// [`rivalry`]); the verdict is ambiguous when the first rival comes within 0.1 of 1.
+    /// [`rivalry`]); the verdict is ambiguous when the first rival comes within
+    /// [`super::quality::MIN_MARGIN`] of 1.
     pub rivalry: f64,
     /// Tight overlap: fraction of SOURCE keypoints on TARGET's surface with agreeing normals.
     pub overlap: f64,
@@ -106,48 +107,138 @@ impl Scored {
     }
 }
 
+/// Centroid and principal axes (unit columns) of `points`; `None` below 10 points.
+fn principal_frame(points: &[Vector3<f64>]) -> Option<(Vector3<f64>, Matrix3<f64>)> {
+    if points.len() < 10 {
+        return None;
+    }
+    let n = points.len() as f64;
+    let c = points.iter().fold(Vector3::zeros(), |a, p| a + p) / n;
+    let mut cov = Matrix3::zeros();
+    for p in points {
+        cov += (p - c) * (p - c).transpose();
+    }
+    Some((c, SymmetricEigen::new(cov / n).eigenvectors))
+}
+
+/// The translation on which the most matched pairs agree for a given `rotation`: each pair
+/// votes `dst − R src`, votes are counted in cells of `tau` (with the 26 cells around), and
+/// the mean vote of the best cell's neighbourhood is returned with the pairs the pose then
+/// explains; `None` below 3. Ties go to the smallest cell.
+fn voted_translation(
+    rotation: &Matrix3<f64>,
+    pairs: &Pairs,
+    tau: f64,
+) -> Option<(Vector3<f64>, usize)> {
+    let votes: Vec<Vector3<f64>> = pairs
+        .src
+        .iter()
+        .zip(&pairs.dst)
+        .map(|(s, d)| d - rotation * s)
+        .collect();
+    let cell = |v: &Vector3<f64>| {
+        [
+            (v.x / tau).floor() as i64,
+            (v.y / tau).floor() as i64,
+            (v.z / tau).floor() as i64,
+        ]
+    };
+    let mut cells: Vec<[i64; 3]> = votes.iter().map(cell).collect();
+    cells.sort_unstable();
+    let count = |c: &[i64; 3]| {
+        let mut n = 0;
+        for dx in -1..=1 {
+            for dy in -1..=1 {
+                for dz in -1..=1 {
+                    let k = [c[0] + dx, c[1] + dy, c[2] + dz];
+                    let lo = cells.partition_point(|x| x < &k);
+                    n += cells[lo..].partition_point(|x| x == &k);
+                }
+            }
+        }
+        n
+    };
+    let mut best: Option<([i64; 3], usize)> = None;
+    for c in cells.iter() {
+        let n = count(c);
+        if best.is_none_or(|b| n > b.1) {
+            best = Some((*c, n));
+        }
+    }
+    let (c, _) = best?;
+    let near: Vec<&Vector3<f64>> = votes
+        .iter()
+        .filter(|v| {
+            let k = cell(v);
+            (0..3).all(|a| (k[a] - c[a]).abs() <= 1)
+        })
+        .collect();
+    let t = near.iter().fold(Vector3::zeros(), |a, v| a + *v) / near.len() as f64;
+    let support = pairs.support(&Rigid::new(*rotation, t), tau);
+    (support >= 3).then_some((t, support))
+}
+
 /// Near-symmetric alternatives of `best` (local frames) that the drawn hypotheses may have
-/// missed: turns by 90°, 180° and 270° about each principal axis of the overlap region (the
-/// SOURCE points that `best` puts within `tau` of TARGET), through its centroid (the 180°
-/// turns are the flips), and slides by `±shift` along each of `slides` (unit vectors, TARGET
-/// local frame).
+/// missed. Turns are taken about the principal axes of three regions, each through its
+/// centroid: the overlap region (the SOURCE keypoints that `best` puts within `tau` of
+/// TARGET), by 90°, 180° and 270°; and, by 180° (the flips), the TARGET keypoints and the union
+/// of the TARGET keypoints with the SOURCE keypoints placed by `best` (the object's axes when
+/// the two views lie side by side; on the benchmark a wrong pose that stacks two views of a
+/// near-symmetric part is most often a half turn of the truth, DEVELOPERS.md "Rival poses").
+/// Then slides by `±` the overlap's spread along each of `slides` (unit vectors, TARGET local
+/// frame). A turn about an axis through the wrong point lies too far from the pose it stands
+/// for to reach it by ICP, so each turned rotation is also given with the translation on which
+/// the most matched pairs agree (`voted_translation`). Poses that coincide (within 1° and
+/// `tau`) are given once.
 pub fn alternatives(
     best: &Rigid,
     source: &[[f32; 3]],
+    target: &[[f32; 3]],
     target_index: &KdIndex,
+    pairs: &Pairs,
     tau: f64,
     slides: &[Vector3<f64>],
 ) -> Vec<Rigid> {
-    let near: Vec<Vector3<f64>> = source
+    let placed: Vec<Vector3<f64>> = source.iter().map(|p| best.apply_f32(*p)).collect();
+    let near: Vec<Vector3<f64>> = placed
         .iter()
-        .map(|p| best.apply_f32(*p))
         .filter(|q| {
             target_index
                 .nearest_within([q.x as f32, q.y as f32, q.z as f32], tau * tau)
                 .is_some()
         })
+        .copied()
         .collect();
-    if near.len() < 10 {
+    let Some((c, axes)) = principal_frame(&near) else {
         return Vec::new();
-    }
-    let n = near.len() as f64;
-    let c = near.iter().fold(Vector3::zeros(), |a, p| a + p) / n;
-    let mut cov = Matrix3::zeros();
-    for p in &near {
-        cov += (p - c) * (p - c).transpose();
-    }
-    let e = SymmetricEigen::new(cov / n);
-    let mut out = Vec::new();
-    for k in 0..3 {
-        let axis = Unit::new_normalize(e.eigenvectors.column(k).into_owned());
-        for deg in [90.0f64, 180.0, 270.0] {
-            let r = *Rotation3::from_axis_angle(&axis, deg.to_radians()).matrix();
-            out.push(Rigid::new(
-                r * best.rotation,
-                r * (best.translation - c) + c,
-            ));
+    };
+    let target: Vec<Vector3<f64>> = target.iter().map(|p| crate::geometry::vec3(*p)).collect();
+    let union: Vec<Vector3<f64>> = target.iter().chain(placed.iter()).copied().collect();
+    let mut frames = vec![(c, axes, &[90.0f64, 180.0, 270.0][..])];
+    for region in [&target, &union] {
+        if let Some((c, axes)) = principal_frame(region) {
+            frames.push((c, axes, &[180.0][..]));
         }
     }
+    let mut out: Vec<Rigid> = Vec::new();
+    for (c, axes, turns) in frames {
+        for k in 0..3 {
+            let axis = Unit::new_normalize(axes.column(k).into_owned());
+            for &deg in turns {
+                let r = *Rotation3::from_axis_angle(&axis, deg.to_radians()).matrix();
+                let rotation = r * best.rotation;
+                let turned = Rigid::new(rotation, r * (best.translation - c) + c);
+                let voted =
+                    voted_translation(&rotation, pairs, tau).map(|(t, _)| Rigid::new(rotation, t));
+                for pose in std::iter::once(turned).chain(voted) {
+                    if out.iter().all(|o| !same_pose(o, &pose, 1.0, tau)) {
+                        out.push(pose);
+                    }
+                }
+            }
+        }
+    }
+    let n = near.len() as f64;
     for s in slides {
         let spread = (near.iter().map(|p| (p - c).dot(s).powi(2)).sum::<f64>() / n).sqrt();
         for sign in [-1.0, 1.0] {
@@ -225,4 +316,44 @@ pub fn rivalry(other: &Scored, best: &Scored, most: Most) -> f64 {
     let indistinct = k2 >= MIN_RIVAL_SUPPORT && k1 - k2 <= 3.0 * (k1 + k2).sqrt();
     let r = if indistinct { o } else { o.min(k) };
     r.max(s).clamp(0.0, 1.0)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// 20 pairs that agree on a known pose among 40 that point anywhere: the vote finds the
+    /// pose's translation for its rotation, and nothing for a rotation no pair agrees on.
+    #[test]
+    fn voted_translation_finds_the_translation_most_pairs_agree_on() {
+        let r = *Rotation3::from_axis_angle(&Vector3::z_axis(), 2.0).matrix();
+        let t = Vector3::new(4.0, -7.0, 1.5);
+        let mut pairs = Pairs {
+            src: Vec::new(),
+            dst: Vec::new(),
+        };
+        // Deterministic spread of points (a linear congruential walk).
+        let mut x = 12345u64;
+        let mut next = || {
+            x = x
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
+            (x >> 11) as f64 / (1u64 << 53) as f64 * 20.0 - 10.0
+        };
+        for k in 0..60 {
+            let s = Vector3::new(next(), next(), next());
+            let d = if k % 3 == 0 {
+                r * s + t
+            } else {
+                Vector3::new(next(), next(), next())
+            };
+            pairs.src.push(s);
+            pairs.dst.push(d);
+        }
+        let (found, support) = voted_translation(&r, &pairs, 0.1).expect("a vote");
+        assert!((found - t).norm() < 1e-9, "{found:?}");
+        assert_eq!(support, 20);
+        let other = *Rotation3::from_axis_angle(&Vector3::x_axis(), 1.0).matrix();
+        assert!(voted_translation(&other, &pairs, 0.1).is_none_or(|(_, n)| n < 5));
+    }
 }

@@ -20,7 +20,8 @@
 //!    re-ranked by tight overlap (plane distance and normal agreement) on a keypoint subsample;
 //! 3. [`refine`]: point-to-plane [`icp`] with a robust loss from the best distinct poses and
 //!    from the near-symmetric alternatives of the leader ([`candidates`]: turns about the
-//!    principal axes of the overlap, flips, slides along weak directions), ranked by tight
+//!    principal axes of the overlap, half turns about those of TARGET and of both scans, slides
+//!    along weak directions), ranked by tight
 //!    overlap × explained matches; fine ICP from the best pose; [`constraint`]: the 6×6 normal
 //!    matrix of the fit, its weak directions, and a refit on a stability-aware sample when a
 //!    direction looks weak (Gelfand, Ikemoto, Rusinkiewicz & Levoy 2003);
@@ -69,7 +70,8 @@ pub use constraint::{Constraint, Motion, WeakDirection};
 pub use icp::RobustLoss;
 pub use multi::{LoopResidual, MultiAlignment, PairAlignment, align_many, align_many_named};
 pub use pipeline::{
-    AlignParams, Alignment, Method, StageTime, align_named, align_pair, align_prepared,
+    AlignParams, Alignment, Method, StageTime, Trace, align_named, align_pair, align_pair_traced,
+    align_prepared,
 };
 pub use prepared_scan::PreparedScan;
 pub use quality::{Figures, Reason, Verdict};

@@ -228,17 +228,62 @@ pub fn align_prepared(
     register(source, target, params, Clock::new())
 }
 
+/// What the stages produced on the way to an [`Alignment`], for diagnosis (which stage lost a
+/// pose): every transform maps SOURCE file coordinates into TARGET file coordinates.
+#[derive(Debug, Clone, Default)]
+pub struct Trace {
+    /// Every pose hypothesis, in the order proposed.
+    pub hypotheses: Vec<Rigid>,
+    /// The shortlist after ranking, best first.
+    pub ranked: Vec<Rigid>,
+    /// Every coarse-refined pose (ranked starts first, then the leader's alternatives) with its
+    /// tight overlap and explained matches.
+    pub refined: Vec<(Rigid, f64, usize)>,
+}
+
+/// [`align_pair`] that also returns the [`Trace`] of its stages.
+pub fn align_pair_traced(
+    source: &Cloud,
+    target: &Cloud,
+    params: &AlignParams,
+) -> Result<(Alignment, Trace)> {
+    let mut clock = Clock::new();
+    let (s, t) = (("source", source), ("target", target));
+    let voxel = pair_voxel(params, s, t)?;
+    support_radius(params, voxel)?;
+    let both = prepare_timed(&[s, t], params, voxel, &mut clock)?;
+    let mut trace = Trace::default();
+    let a = register_traced(&both[0], &both[1], params, clock, Some(&mut trace))?;
+    Ok((a, trace))
+}
+
 /// The four stages on two prepared scans: hypotheses → rank → refine → judge.
 pub(crate) fn register(
     source: &PreparedScan,
     target: &PreparedScan,
     params: &AlignParams,
+    clock: Clock,
+) -> Result<Alignment> {
+    register_traced(source, target, params, clock, None)
+}
+
+/// [`register`], filling `trace` when given.
+fn register_traced(
+    source: &PreparedScan,
+    target: &PreparedScan,
+    params: &AlignParams,
     mut clock: Clock,
+    trace: Option<&mut Trace>,
 ) -> Result<Alignment> {
     let tau = params.inlier_voxels * source.voxel;
     let found = hypotheses::matches(source, target, params);
     clock.lap("matching");
     let proposed = hypotheses::propose(source, target, &found, params, tau);
+    let file = |r: &Rigid| r.between_origins(source.origin, target.origin);
+    let traced_hypotheses: Vec<Rigid> = match trace {
+        Some(_) => proposed.iter().map(|h| file(&h.transform)).collect(),
+        None => Vec::new(),
+    };
     let ranked = rank::rank(proposed, &found.pairs, source, target, &params.tuning, tau);
     clock.lap("hypotheses");
     let mut polished = refine::coarse(
@@ -263,6 +308,18 @@ pub(crate) fn register(
     polished.extend(slid);
     let seen = Visibility::new(source, target, &params.viewpoints, &params.tuning);
     seen.assess(&mut polished);
+    if let Some(t) = trace {
+        t.hypotheses = traced_hypotheses;
+        t.ranked = ranked
+            .poses
+            .iter()
+            .map(|(_, h)| file(&h.transform))
+            .collect();
+        t.refined = polished
+            .iter()
+            .map(|p| (file(&p.pose), p.overlap, p.explained))
+            .collect();
+    }
     clock.lap("refinement");
     let refined = refine::fine(polished, coarse_count, source, target, params, tau);
     clock.lap("fine ICP");

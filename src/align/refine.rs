@@ -5,8 +5,9 @@
 //! [`super::Tuning::start_angle_deg`] (or one τ) start an ICP on the keypoints (at most
 //! [`super::Tuning::icp_sample`], evenly strided; the runs in parallel); the leader's
 //! alternatives ([`super::candidates::alternatives`]: turns about the principal axes of the
-//! overlap, flips, slides along weakly constrained directions) are refined too, since the drawn
-//! hypotheses need not contain them. Each result is scored by its tight overlap (the share of
+//! overlap, half turns about those of TARGET and of both scans, each turned rotation also at the
+//! translation the matches vote for, slides along weakly constrained directions) are refined
+//! too, since the drawn hypotheses need not contain them. Each result is scored by its tight overlap (the share of
 //! SOURCE keypoints on the TARGET surface within the plane tolerance, normals agreeing) and the
 //! matches it explains. Fine: ICP on the fine points from the best distinct pose; the 6×6
 //! normal matrix of the fit ([`super::constraint`], Gelfand, Ikemoto, Rusinkiewicz & Levoy
@@ -139,7 +140,9 @@ pub fn coarse(
         let alts = alternatives(
             &leader,
             &source.keypoints,
+            &target.keypoints,
             target.keypoint_index(),
+            pairs,
             tau,
             &slides,
         );
