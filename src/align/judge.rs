@@ -175,6 +175,16 @@ pub fn judge(
     if verdict == Verdict::Confident && quality::slid_rival(refined.slide_rivalry) {
         verdict = Verdict::Ambiguous(quality::Reason::AmbiguousSymmetricShape);
     }
+    let shares = listed.iter().skip(1).filter_map(|&(i, _)| {
+        let (p, b) = (&polished[i], best.as_ref()?);
+        Some((
+            p.consistent_overlap() / b.consistent_overlap().max(f64::MIN_POSITIVE),
+            p.explained as f64 / b.explained.max(1) as f64,
+        ))
+    });
+    if verdict == Verdict::Confident && quality::rival_as_large(shares, tu) {
+        verdict = Verdict::Ambiguous(quality::Reason::AmbiguousSymmetricShape);
+    }
     let answer_free_space = seen.violation(&local);
     if answer_free_space.is_some_and(|v| v > tu.free_space_max_share)
         && !matches!(verdict, Verdict::NotFound(_))

@@ -40,6 +40,18 @@ pub fn slid_rival(slide_rivalry: f64) -> bool {
     1.0 - slide_rivalry < MIN_SLIDE_MARGIN
 }
 
+/// True when a listed rival has real support of its own: one of `shares` (each rival's
+/// consistent overlap and explained matches, as shares of the answer's) reaches
+/// [`super::Tuning::rival_overlap_share`] in overlap and [`super::Tuning::rival_match_share`]
+/// in matches. On the registration benchmark a stacked wrong answer was often confident while
+/// a rival laying as much of SOURCE on TARGET (often the true, side-by-side pose) explained
+/// fewer matches: the matches, not the surface, had decided.
+pub fn rival_as_large(shares: impl IntoIterator<Item = (f64, f64)>, tu: &super::Tuning) -> bool {
+    shares
+        .into_iter()
+        .any(|(o, k)| o >= tu.rival_overlap_share && k >= tu.rival_match_share)
+}
+
 /// Why no confident alignment was found.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
@@ -159,6 +171,11 @@ mod tests {
             verdict(&f),
             Verdict::NotFound(Reason::TooFewDistinctivePoints)
         );
+        let tu = crate::align::Tuning::default();
+        assert!(rival_as_large([(0.5, 1.0), (0.95, 0.3)], &tu));
+        assert!(!rival_as_large([(0.5, 1.0), (0.85, 0.3)], &tu));
+        assert!(!rival_as_large([(1.0, 0.1)], &tu), "dominant plane");
+        assert!(!rival_as_large([], &tu));
         assert!(confidence(40, 0.5, 0.6) > 0.98);
         assert!(confidence(40, 0.5, 0.0) == 0.0);
     }

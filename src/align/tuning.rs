@@ -91,6 +91,18 @@ pub struct Tuning {
     /// Rivals listed as candidates come at least this close to the best (see
     /// [`super::candidates::rivalry`]).
     pub list_rivalry: f64,
+    /// A listed rival whose consistent overlap (tight overlap less the free-space penalty) is at
+    /// least this share of the answer's, and which explains at least
+    /// [`Tuning::rival_match_share`] of the answer's matches, has real support of its own: the
+    /// verdict is then `ambiguous` (a stacked pose against a side-by-side one; set from the full
+    /// benchmark, DEVELOPERS.md, Registration, "Rivals with as much overlap"). Above 1 the rule
+    /// is off.
+    pub rival_overlap_share: f64,
+    /// See [`Tuning::rival_overlap_share`]: a rival that keeps the surface but explains fewer
+    /// than this share of the answer's matches is the dominant-plane case (the depot demo's
+    /// rivals keep the yard's ground: 71–77 % coverage against 78 %, 9–12 matches against 80
+    /// with the harmonic descriptors, up to 16 against 73 with FPFH) and does not count.
+    pub rival_match_share: f64,
     /// Full-resolution pairs count in the RMSE when closer than this many TARGET point
     /// spacings (and at most one fine voxel).
     pub rmse_pairing_spacings: f64,
@@ -148,6 +160,8 @@ impl Default for Tuning {
             slide_min_share: 0.3,
             candidates: 5,
             list_rivalry: 0.3,
+            rival_overlap_share: 0.9,
+            rival_match_share: 0.25,
             rmse_pairing_spacings: 3.0,
             free_space_margin_voxels: 1.5,
             free_space_noise_sigmas: 3.0,

@@ -39,6 +39,8 @@ pub fn tuned(mut params: AlignParams, source: &Cloud, target: &Cloud) -> AlignPa
             "ratio" => tu.match_max_ratio = x as f32,
             "icp_sample" => tu.icp_sample = x as usize,
             "coarse_tolerance" => tu.icp_coarse_tolerance = x,
+            "rival_overlap" => tu.rival_overlap_share = x,
+            "rival_matches" => tu.rival_match_share = x,
             "version" => params.descriptor_version = x as u32,
             "radius" => params.radius = Some(x * voxel(&params)),
             "keypoints" => params.voxel = Some(voxel(&params) / x.sqrt()),
