@@ -64,6 +64,39 @@ pub fn tight_overlap(
         / source.keypoints.len() as f64
 }
 
+/// Point-to-plane ICP of `points` (SOURCE keypoints, or a sample of them) onto TARGET's
+/// keypoints from `start`, scored like every refined pose: tight overlap, explained matches,
+/// distinctive evidence.
+#[allow(clippy::too_many_arguments)]
+pub(super) fn polish(
+    points: &[[f32; 3]],
+    start: &Rigid,
+    icp: &IcpParams,
+    pairs: &Pairs,
+    distinctive: &Distinctive,
+    source: &PreparedScan,
+    target: &PreparedScan,
+    params: &AlignParams,
+    tau: f64,
+) -> Scored {
+    let out = icp_point_to_plane(
+        points,
+        &target.keypoints,
+        &target.normals,
+        target.keypoint_index(),
+        start,
+        icp,
+    );
+    Scored {
+        pose: out.transform,
+        overlap: tight_overlap(source, target, &out.transform, params, tau),
+        explained: pairs.support(&out.transform, tau),
+        evidence: distinctive.agreement(source, target, &out.transform, tau),
+        iterations: out.iterations,
+        free_space: None,
+    }
+}
+
 /// Coarse ICP from the distinct ranked poses and from the leader's alternatives, scored.
 pub fn coarse(
     ranked: &Ranked,
@@ -95,25 +128,20 @@ pub fn coarse(
             starts.push(h.transform);
         }
     }
-    let polish = |start: &Rigid| {
-        let out = icp_point_to_plane(
+    let from = |start: &Rigid| {
+        polish(
             &sample,
-            &target.keypoints,
-            &target.normals,
-            target.keypoint_index(),
             start,
             &icp,
-        );
-        Scored {
-            pose: out.transform,
-            overlap: tight_overlap(source, target, &out.transform, params, tau),
-            explained: pairs.support(&out.transform, tau),
-            evidence: distinctive.agreement(source, target, &out.transform, tau),
-            iterations: out.iterations,
-            free_space: None,
-        }
+            pairs,
+            distinctive,
+            source,
+            target,
+            params,
+            tau,
+        )
     };
-    let mut polished: Vec<Scored> = starts.par_iter().map(polish).collect();
+    let mut polished: Vec<Scored> = starts.par_iter().map(from).collect();
     let leader = distinct_best(
         &polished,
         1,
@@ -146,7 +174,7 @@ pub fn coarse(
             tau,
             &slides,
         );
-        polished.extend(alts.par_iter().map(polish).collect::<Vec<_>>());
+        polished.extend(alts.par_iter().map(from).collect::<Vec<_>>());
     }
     polished
 }

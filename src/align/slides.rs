@@ -29,10 +29,10 @@ use super::candidates::{Scored, distinct_best};
 use super::consensus::Pairs;
 use super::constraint::paired;
 use super::evidence::Distinctive;
-use super::icp::{IcpParams, icp_point_to_plane};
+use super::icp::IcpParams;
 use super::pipeline::AlignParams;
 use super::prepared_scan::PreparedScan;
-use super::refine::{coarse_icp, tight_overlap};
+use super::refine::{coarse_icp, polish, tight_overlap};
 use super::rigid::Rigid;
 
 /// Normals within this angle of a face orientation belong to the face.
@@ -165,22 +165,17 @@ pub fn parallel_slides(
     starts
         .par_iter()
         .map(|start| {
-            let out = icp_point_to_plane(
+            polish(
                 &source.keypoints,
-                &target.keypoints,
-                &target.normals,
-                target.keypoint_index(),
                 start,
                 &icp,
-            );
-            Scored {
-                pose: out.transform,
-                overlap: tight_overlap(source, target, &out.transform, params, tau),
-                explained: pairs.support(&out.transform, tau),
-                evidence: distinctive.agreement(source, target, &out.transform, tau),
-                iterations: out.iterations,
-                free_space: None,
-            }
+                pairs,
+                distinctive,
+                source,
+                target,
+                params,
+                tau,
+            )
         })
         .collect()
 }
