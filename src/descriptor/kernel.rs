@@ -391,11 +391,10 @@ fn tile<const NB: usize, const KB: usize, const FMA: bool>(
 mod tests {
     use super::*;
 
-    #[test]
-    fn projection_kernels_agree_with_a_plain_sum() {
-        // 37 neighbours padded to 40 (zero weights), 3 shells and 27 columns: every tile shape.
-        let (count, jp, n_sh, nk) = (37, 40, 3, 27);
-        let w: Vec<f32> = (0..n_sh * jp)
+    /// Projection inputs: `n_sh` shells of weights for `count` neighbours padded to `jp` (zero
+    /// weights in the padding) and `nk` columns of harmonic values, from fixed integer hashes.
+    fn projection_inputs(count: usize, jp: usize, n_sh: usize, nk: usize) -> (Vec<f32>, Vec<f32>) {
+        let w = (0..n_sh * jp)
             .map(|i| {
                 if i % jp < count {
                     ((i * 7919) % 101) as f32 / 101.0
@@ -404,9 +403,17 @@ mod tests {
                 }
             })
             .collect();
-        let y: Vec<f32> = (0..nk * jp)
+        let y = (0..nk * jp)
             .map(|i| ((i * 104_729) % 97) as f32 / 48.0 - 1.0)
             .collect();
+        (w, y)
+    }
+
+    #[test]
+    fn projection_kernels_agree_with_a_plain_sum() {
+        // 37 neighbours padded to 40 (zero weights), 3 shells and 27 columns: every tile shape.
+        let (count, jp, n_sh, nk) = (37, 40, 3, 27);
+        let (w, y) = projection_inputs(count, jp, n_sh, nk);
         for k in [Kernel::Portable, Kernel::detect()] {
             let mut acc = vec![0.0f32; n_sh * nk];
             project(k, &w, &y, jp, n_sh, nk, &mut Vec::new(), &mut acc);
@@ -438,18 +445,7 @@ mod tests {
             (3, 1, 9),
         ] {
             let jp = count.div_ceil(LANES) * LANES;
-            let w: Vec<f32> = (0..n_sh * jp)
-                .map(|i| {
-                    if i % jp < count {
-                        ((i * 7919) % 101) as f32 / 101.0
-                    } else {
-                        0.0
-                    }
-                })
-                .collect();
-            let y: Vec<f32> = (0..nk * jp)
-                .map(|i| ((i * 104_729) % 97) as f32 / 48.0 - 1.0)
-                .collect();
+            let (w, y) = projection_inputs(count, jp, n_sh, nk);
             let mut got = vec![0.0f32; n_sh * nk];
             project(
                 Kernel::detect(),
