@@ -11,7 +11,7 @@ use nalgebra::{Matrix6, Rotation3, Vector3, Vector6};
 use rayon::prelude::*;
 
 use super::rigid::Rigid;
-use crate::spatial::KdIndex;
+use crate::spatial::{KdIndex, NearestTrack};
 
 /// The robust loss applied to point-to-plane residuals.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
@@ -78,9 +78,18 @@ pub fn icp_point_to_plane(
     let mut converged = false;
     let mut iterations = 0;
     let cutoff2 = params.max_distance * params.max_distance;
+    let mut tracks = vec![NearestTrack::default(); source.len()];
     for _ in 0..params.max_iterations {
         iterations += 1;
-        let pairs = collect_pairs(source, target, target_normals, target_index, &tf, cutoff2);
+        let pairs = collect_pairs(
+            source,
+            target,
+            target_normals,
+            target_index,
+            &tf,
+            cutoff2,
+            &mut tracks,
+        );
         if pairs.len() < 6 {
             break;
         }
@@ -194,6 +203,9 @@ pub fn oriented_fit(
     parts.iter().sum()
 }
 
+/// The pairs of `source` moved by `tf`: each point with its nearest target point within the
+/// cutoff ([`KdIndex::nearest_within`], through one [`NearestTrack`] per source point, kept
+/// from one iteration to the next: the points move little, and most answers need no search).
 fn collect_pairs(
     source: &[[f32; 3]],
     target: &[[f32; 3]],
@@ -201,16 +213,17 @@ fn collect_pairs(
     index: &KdIndex,
     tf: &Rigid,
     cutoff2: f64,
+    tracks: &mut [NearestTrack],
 ) -> Vec<Pair> {
     let chunks: Vec<Vec<Pair>> = source
         .par_chunks(CHUNK)
-        .map(|chunk| {
+        .zip(tracks.par_chunks_mut(CHUNK))
+        .map(|(chunk, tracks)| {
             let mut out = Vec::with_capacity(chunk.len());
-            for p in chunk {
+            for (p, track) in chunk.iter().zip(tracks) {
                 let pm = tf.apply_f32(*p);
-                let Some((j, _)) =
-                    index.nearest_within([pm.x as f32, pm.y as f32, pm.z as f32], cutoff2)
-                else {
+                let centre = [pm.x as f32, pm.y as f32, pm.z as f32];
+                let Some(j) = track.nearest_within(index, target, centre, cutoff2) else {
                     continue;
                 };
                 let n = normals[j];

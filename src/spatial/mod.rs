@@ -7,12 +7,14 @@
 
 mod grid;
 mod index;
+mod index_track;
 mod normals;
 mod spacing;
 mod voxel;
 
 pub use grid::{CellGrid, GridQuery, MAX_CELLS_PER_AXIS, order_by_key};
 pub use index::KdIndex;
+pub use index_track::NearestTrack;
 pub use normals::estimate_normals;
 pub use spacing::{
     SUPPORT_RADIUS_PER_SPACING, estimate_spacing, estimate_spacing_with, suggested_support_radius,
