@@ -122,25 +122,6 @@ impl KdIndex {
             .filter(|h| h.distance as f64 <= max_d2)
             .map(|h| (h.item as usize, h.distance))
     }
-
-    /// The two nearest points whose squared distance is at most `max_d2`, as `(index,
-    /// squared_distance)`, nearest first (ties by index); fewer when fewer lie within reach.
-    pub fn nearest_two_within(&self, centre: [f32; 3], max_d2: f64) -> Vec<(usize, f32)> {
-        let bound = (max_d2 as f32) * (1.0 + 4.0 * f32::EPSILON) + f32::MIN_POSITIVE;
-        let two = NonZeroUsize::MIN.saturating_add(1);
-        let mut hits: Vec<(usize, f32)> = self
-            .tree
-            .query(&centre)
-            .nearest_n::<SquaredEuclidean<f32>>(two)
-            .within(bound)
-            .execute()
-            .into_iter()
-            .filter(|h| h.distance as f64 <= max_d2)
-            .map(|h| (h.item as usize, h.distance))
-            .collect();
-        hits.sort_by(|a, b| a.1.total_cmp(&b.1).then(a.0.cmp(&b.0)));
-        hits
-    }
 }
 
 #[cfg(test)]

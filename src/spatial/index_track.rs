@@ -1,15 +1,19 @@
 //! [`NearestTrack`]: the bounded nearest-point query of [`KdIndex::nearest_within`] for a point
 //! that moves a little from one query to the next (the SOURCE points of an ICP run), answered
-//! without a tree search while a certificate from the last search holds.
+//! from a short list of candidates kept from the last tree search while a certificate holds.
 //!
-//! A search from `q₀` (the two nearest points within 1.5 × the cutoff) leaves the nearest point
-//! `j` at distance `d₁` and the distance `g` within which no other point lies (the second
-//! nearest, or the search reach). From a new position `q₁` at distance `δ` from `q₀` every
-//! other point is at least `g − δ` away and `j` at most `d₁ + δ` (triangle inequality), so `j`
-//! is still the nearest while `d₁ + 2δ < g`; with no point within `g` of `q₀`, none lies
-//! within `g − δ` of `q₁`. Every test keeps a relative margin ([`MARGIN`]) far above the f32
-//! rounding of the tree's distances, and so does the cutoff test on the new distance to `j`;
-//! where a margin is not met the tree is searched again, and where that search finds a
+//! A search from `q₀` lists every point within `ρ = d₁ +` a tenth of the cutoff, `d₁` being
+//! an upper bound of the nearest distance within the cutoff: the distance to the nearest point
+//! of the previous list when that is within the cutoff (one radius search), else the nearest
+//! distance found by a bounded search of 1.5 × the cutoff (beyond the cutoff the list stays
+//! empty with `ρ = d₁`; nothing found: `ρ` is the search reach). From a new position `q₁` at
+//! distance `δ` from `q₀` every point left off the list is at least `ρ − δ` away (triangle
+//! inequality), so the nearest listed point is the nearest of all when it is closer than
+//! that; and when the nearest listed point and `ρ − δ` both lie beyond the cutoff, nothing is
+//! within it. Every test keeps a
+//! relative margin ([`MARGIN`]) far above the f32 rounding of the tree's distances (so does the
+//! cutoff test, and two listed points at nearly the same distance count as undecided); where
+//! the list does not decide, the tree is searched again, and where that search finds a
 //! near-tie or a distance near the cutoff the answer is [`KdIndex::nearest_within`]'s own.
 //! The answers are therefore those of [`KdIndex::nearest_within`] (the tests below compare
 //! them on points moving by steps from a thousandth of the cutoff to twice the cutoff).
@@ -24,33 +28,50 @@ pub const MARGIN: f64 = 1e-4;
 /// answered without a search until it has moved half a cutoff.
 const REACH: f64 = 1.5;
 
+/// The list of a search holds the points within the nearest distance plus this share of the
+/// cutoff: the point may then move about half of that before the next search.
+const SLACK: f64 = 0.1;
+
 /// What the last search of one moving point found (see the module documentation).
-#[derive(Debug, Clone, Copy, Default)]
+#[derive(Debug, Clone, Default)]
 pub struct NearestTrack {
-    last: Option<Memory>,
+    /// Where the last search was made; `None` before the first.
+    at: Option<[f32; 3]>,
+    /// Every point within `rho` of `at`.
+    near: Vec<u32>,
+    /// Radius of the list.
+    rho: f64,
 }
 
-#[derive(Debug, Clone, Copy)]
-struct Memory {
-    /// Where the last search was made.
-    at: [f32; 3],
-    /// The nearest point then, and its distance; `None` when nothing lay within the reach.
-    hit: Option<(u32, f64)>,
-    /// No point other than `hit` lies within this distance of `at`.
-    gap: f64,
+fn distance2(a: [f32; 3], b: [f32; 3]) -> f64 {
+    (0..3).map(|k| (a[k] as f64 - b[k] as f64).powi(2)).sum()
 }
 
-fn distance(a: [f32; 3], b: [f32; 3]) -> f64 {
-    (0..3)
-        .map(|k| (a[k] as f64 - b[k] as f64).powi(2))
-        .sum::<f64>()
-        .sqrt()
+/// The listed point nearest to `centre` with its squared distance, and the second-smallest
+/// squared distance (infinite with fewer than two).
+fn nearest_listed(
+    near: &[u32],
+    points: &[[f32; 3]],
+    centre: [f32; 3],
+) -> (Option<(u32, f64)>, f64) {
+    let (mut best, mut second) = (None::<(u32, f64)>, f64::INFINITY);
+    for &j in near {
+        let e2 = distance2(centre, points[j as usize]);
+        match best {
+            Some((_, b2)) if e2 >= b2 => second = second.min(e2),
+            _ => {
+                second = best.map_or(second, |(_, b2)| b2);
+                best = Some((j, e2));
+            }
+        }
+    }
+    (best, second)
 }
 
 impl NearestTrack {
     /// The answer of `index.nearest_within(centre, max_d2)` (its index only), `points` being
-    /// the slice `index` was built from; searches the tree only when the certificate from the
-    /// last search of this track does not decide.
+    /// the slice `index` was built from; searches the tree only when the list from the last
+    /// search of this track does not decide.
     pub fn nearest_within(
         &mut self,
         index: &KdIndex,
@@ -59,11 +80,21 @@ impl NearestTrack {
         max_d2: f64,
     ) -> Option<usize> {
         let cutoff = max_d2.sqrt();
-        if let Some(m) = self.last {
-            let moved = distance(centre, m.at);
-            match m.hit {
-                Some((j, d1)) if d1 + 2.0 * moved < m.gap * (1.0 - MARGIN) => {
-                    let e2 = distance(centre, points[j as usize]).powi(2);
+        // The distance of the nearest listed point, when it is within the cutoff: the nearest
+        // point of all is at most that far, so one radius search lists it.
+        let mut bound = None;
+        if let Some(at) = self.at {
+            // Every point off the list is at least `outside` away.
+            let outside = self.rho - distance2(centre, at).sqrt();
+            let (best, second) = nearest_listed(&self.near, points, centre);
+            let beyond = cutoff * (1.0 + MARGIN);
+            match best {
+                None if outside > beyond => return None,
+                Some((_, e2)) if e2.sqrt().min(outside) > beyond => return None,
+                Some((j, e2))
+                    if e2.sqrt() < outside * (1.0 - MARGIN)
+                        && second > e2 * (1.0 + MARGIN) + f64::MIN_POSITIVE =>
+                {
                     if e2 <= max_d2 * (1.0 - MARGIN) {
                         return Some(j as usize);
                     }
@@ -71,33 +102,43 @@ impl NearestTrack {
                         return None;
                     }
                 }
-                None if m.gap - moved > cutoff * (1.0 + MARGIN) => return None,
                 _ => {}
             }
+            bound = best.map(|(_, e2)| e2.sqrt()).filter(|&u| u <= cutoff);
         }
-        let reach = REACH * cutoff;
-        let hits = index.nearest_two_within(centre, reach * reach);
-        let Some(&(j, d2)) = hits.first() else {
-            self.last = Some(Memory {
-                at: centre,
-                hit: None,
-                gap: reach,
-            });
-            return None;
+        self.at = Some(centre);
+        self.near.clear();
+        let nearest = match bound {
+            Some(u) => u * (1.0 + MARGIN),
+            None => {
+                let reach = REACH * cutoff;
+                let Some((_, d2)) = index.nearest_within(centre, reach * reach) else {
+                    self.rho = reach;
+                    return None;
+                };
+                let d1 = (d2 as f64).sqrt();
+                if d1 > cutoff * (1.0 + MARGIN) {
+                    // Beyond the cutoff: no point lies within `d₁`, and no list is needed.
+                    self.rho = d1 * (1.0 - MARGIN);
+                    return None;
+                }
+                d1
+            }
         };
-        let d1 = (d2 as f64).sqrt();
-        let gap = hits.get(1).map_or(reach, |&(_, e2)| (e2 as f64).sqrt());
-        self.last = Some(Memory {
-            at: centre,
-            hit: Some((j as u32, d1)),
-            gap,
+        self.rho = nearest + SLACK * cutoff;
+        let near = &mut self.near;
+        index.for_each_within(centre, self.rho as f32, |i, _| near.push(i as u32));
+        // The list's radius as the tree tested it (f32), a little inside for the f64 tests.
+        self.rho *= 1.0 - MARGIN;
+        let (best, second) = nearest_listed(&self.near, points, centre);
+        let decided = best.filter(|&(_, e2)| {
+            let tie = second <= e2 * (1.0 + MARGIN) + f64::MIN_POSITIVE;
+            let at_cutoff = (e2 - max_d2).abs() <= MARGIN * max_d2;
+            !tie && !at_cutoff
         });
-        let tie = gap <= d1 * (1.0 + MARGIN) + f64::MIN_POSITIVE;
-        let at_cutoff = (d2 as f64 - max_d2).abs() <= MARGIN * max_d2;
-        if tie || at_cutoff {
-            index.nearest_within(centre, max_d2).map(|(i, _)| i)
-        } else {
-            (d2 as f64 <= max_d2).then_some(j)
+        match decided {
+            Some((j, e2)) => (e2 <= max_d2).then_some(j as usize),
+            None => index.nearest_within(centre, max_d2).map(|(i, _)| i),
         }
     }
 }
@@ -116,7 +157,7 @@ mod tests {
         let mut pts: Vec<[f32; 3]> = (0..3000)
             .map(|_| std::array::from_fn(|_| rng.next_f64() as f32))
             .collect();
-        pts.extend_from_slice(&pts[..100].to_vec());
+        pts.extend_from_within(..100);
         let index = KdIndex::new(&pts).unwrap();
         let mut searched = 0usize;
         let mut asked = 0usize;
@@ -133,14 +174,14 @@ mod tests {
                         9 => 2.0 * cutoff,
                         _ => cutoff * 0.5f64.powi(step / 3),
                     };
-                    for k in 0..3 {
-                        c[k] += ((rng.next_f64() - 0.5) * size) as f32;
+                    for v in c.iter_mut() {
+                        *v += ((rng.next_f64() - 0.5) * size) as f32;
                     }
                     let want = index.nearest_within(c, max_d2).map(|(i, _)| i);
-                    let before = track.last.map(|m| m.at);
+                    let before = track.at;
                     let got = track.nearest_within(&index, &pts, c, max_d2);
                     asked += 1;
-                    if track.last.map(|m| m.at) != before {
+                    if track.at != before {
                         searched += 1;
                     }
                     match (got, want) {
