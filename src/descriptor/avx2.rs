@@ -251,6 +251,63 @@ pub(crate) fn block_sums(
     out
 }
 
+/// The engine's gathering loop ([`super::engine`]'s `gather`: offsets, squared distances,
+/// branch-free compaction of the hits with `0 < d² ≤ r2`, count of coincident points) with the
+/// moments summed in one vector: lanes `(dx, dy, dz, dx², dx·dy, dx·dz, dy², dy·dz)` (the first
+/// three multiplied by 1, exact) plus `dz²` alone, each a product then a sum as in the scalar
+/// loop, a dropped hit's products masked to +0. Same bits as the scalar loop.
+///
+/// # Panics
+/// If a buffer is shorter than `ids` or an id is beyond `points`.
+#[target_feature(enable = "avx2,fma")]
+#[allow(clippy::too_many_arguments)]
+pub(crate) fn gather(
+    points: &[[f32; 3]],
+    ids: &[u32],
+    p: [f32; 3],
+    r2: f32,
+    gx: &mut [f32],
+    gy: &mut [f32],
+    gz: &mut [f32],
+    gd2: &mut [f32],
+) -> (usize, u32, super::engine::Moments) {
+    let a_ix = _mm256_setr_epi32(0, 1, 2, 0, 0, 0, 1, 1);
+    let b_ix = _mm256_setr_epi32(0, 0, 0, 0, 1, 2, 1, 2);
+    let ones = _mm256_set1_ps(1.0);
+    let mut acc = _mm256_setzero_ps();
+    let mut zz = 0.0f32;
+    let mut m = 0;
+    let mut zeros = 0u32;
+    for &i in ids {
+        let q = points[i as usize];
+        let d = [q[0] - p[0], q[1] - p[1], q[2] - p[2]];
+        let d2 = d[0] * d[0] + d[1] * d[1] + d[2] * d[2];
+        gx[m] = d[0];
+        gy[m] = d[1];
+        gz[m] = d[2];
+        gd2[m] = d2;
+        zeros += (d2 == 0.0) as u32;
+        let keep = d2 > 0.0 && d2 <= r2;
+        m += keep as usize;
+        let mask = if keep { u32::MAX } else { 0 };
+        // Lanes 0–2 of `dv` hold the offset; the permutations read no other lane.
+        let dv = _mm256_castps128_ps256(_mm_setr_ps(d[0], d[1], d[2], 0.0));
+        let a = _mm256_permutevar8x32_ps(dv, a_ix);
+        let b = _mm256_blend_ps::<0b0000_0111>(_mm256_permutevar8x32_ps(dv, b_ix), ones);
+        let keep8 = _mm256_castsi256_ps(_mm256_set1_epi32(mask as i32));
+        acc = _mm256_add_ps(acc, _mm256_and_ps(_mm256_mul_ps(a, b), keep8));
+        zz += f32::from_bits((d[2] * d[2]).to_bits() & mask);
+    }
+    let mut v = [0.0f32; 8];
+    // SAFETY: eight f32 into a [f32; 8].
+    unsafe { _mm256_storeu_ps(v.as_mut_ptr(), acc) };
+    let mo = super::engine::Moments {
+        m1: [v[0], v[1], v[2]],
+        m2: [v[3], v[4], v[5], v[6], v[7], zz],
+    };
+    (m, zeros, mo)
+}
+
 /// The projection `acc[n·K + k] = Σ_j w[n·J + j] · y[k·J + j]` of [`super::kernel::project`]
 /// on AVX2: lane `i` sums the neighbours `j ≡ i (mod 8)` in ascending `j` with fused
 /// multiply-adds, then the eight lanes are added in the tree `((l0 + l1) + (l2 + l3)) + ((l4 +
@@ -363,6 +420,53 @@ fn tree8(v: [__m256; 8]) -> __m256 {
 mod tests {
     use super::*;
     use crate::so3::rng::SplitMix64;
+
+    #[test]
+    fn gathering_gives_the_scalar_loops_bits() {
+        if !(is_x86_feature_detected!("avx2") && is_x86_feature_detected!("fma")) {
+            return;
+        }
+        let mut rng = SplitMix64::new(11);
+        let p = [0.3f32, -1.7, 2.2];
+        // Points around the centre, some on it (dropped, counted), some beyond the radius
+        // (dropped) and some exactly on it (kept), with negative offsets and −0 components.
+        let mut points: Vec<[f32; 3]> = (0..300)
+            .map(|_| std::array::from_fn(|k| p[k] + (rng.next_f64() * 3.0 - 1.5) as f32))
+            .collect();
+        points[5] = p;
+        points[17] = p;
+        points[40] = [p[0] + 1.0, p[1], p[2]];
+        points[41] = [p[0], p[1] - 0.0, p[2] - 1.0];
+        let ids: Vec<u32> = (0..points.len() as u32).filter(|i| i % 3 != 1).collect();
+        let run = |simd: bool| {
+            let n = ids.len();
+            let (mut gx, mut gy, mut gz, mut gd2) =
+                (vec![0.0; n], vec![0.0; n], vec![0.0; n], vec![0.0; n]);
+            let (m, zeros, mo) = if simd {
+                // SAFETY: AVX2 and FMA are present (checked above).
+                unsafe { gather(&points, &ids, p, 1.0, &mut gx, &mut gy, &mut gz, &mut gd2) }
+            } else {
+                super::super::engine::gather(
+                    &points, &ids, p, 1.0, &mut gx, &mut gy, &mut gz, &mut gd2,
+                )
+            };
+            let bits = |v: &[f32]| v[..m].iter().map(|x| x.to_bits()).collect::<Vec<_>>();
+            let moments: Vec<u32> = mo.m1.iter().chain(&mo.m2).map(|x| x.to_bits()).collect();
+            (
+                m,
+                zeros,
+                moments,
+                [bits(&gx), bits(&gy), bits(&gz), bits(&gd2)],
+            )
+        };
+        let (simd, plain) = (run(true), run(false));
+        assert!(
+            plain.0 > 10 && plain.0 < ids.len() - 10 && plain.1 == 2,
+            "{:?}",
+            (plain.0, plain.1)
+        );
+        assert_eq!(simd, plain);
+    }
 
     #[test]
     fn lane_reduction_is_the_scalar_tree() {

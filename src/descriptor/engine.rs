@@ -588,11 +588,9 @@ impl Engine {
             }
         }
         sort_distinct(&mut s.ids, &mut s.bits, &mut s.summary);
-        // Offsets of the neighbours with 0 < |d| ≤ r_max, ascending index; coincident points
-        // are only counted.
+        // Offsets of the neighbours with 0 < |d| ≤ r_max, ascending index ([`gather`]);
+        // coincident points are only counted. The buffers only grow.
         let r_max2 = r_max * r_max;
-        // Branch-free compaction: every hit is written at `m`, which advances only for a kept
-        // one; the buffers only grow (values past the kept ones are never read).
         let n = s.ids.len();
         for v in [&mut s.gx, &mut s.gy, &mut s.gz, &mut s.gd2] {
             if v.len() < n {
@@ -605,25 +603,14 @@ impl Engine {
             &mut s.gz[..n],
             &mut s.gd2[..n],
         );
-        let mut m = 0;
-        let mut zeros = 0u32;
-        let mut mo = Moments::default();
-        for &i in &s.ids {
-            let q = points[i as usize];
-            let d = [q[0] - p[0], q[1] - p[1], q[2] - p[2]];
-            let d2 = d[0] * d[0] + d[1] * d[1] + d[2] * d[2];
-            gx[m] = d[0];
-            gy[m] = d[1];
-            gz[m] = d[2];
-            gd2[m] = d2;
-            zeros += (d2 == 0.0) as u32;
-            let keep = d2 > 0.0 && d2 <= r_max2;
-            m += keep as usize;
-            // A dropped hit adds +0 to every moment, which leaves each sum's bits as they are
-            // (the sums start at +0 and so never hold −0): the moments of the kept ones.
-            let mask = if keep { u32::MAX } else { 0 };
-            mo.add(d.map(|v| f32::from_bits(v.to_bits() & mask)));
-        }
+        let (m, zeros, mo) = match self.kernel {
+            kernel::Kernel::Portable => gather(points, &s.ids, p, r_max2, gx, gy, gz, gd2),
+            #[cfg(target_arch = "x86_64")]
+            // SAFETY: `Avx2Fma` is only chosen after the processor reported AVX2 and FMA.
+            kernel::Kernel::Avx2Fma => unsafe {
+                super::avx2::gather(points, &s.ids, p, r_max2, gx, gy, gz, gd2)
+            },
+        };
         s.zeros = zeros;
         s.gathered = m;
         s.moments = mo;
@@ -746,9 +733,7 @@ impl Engine {
             &mut s.acc,
         );
         let w = 1.0 + wsum + coincident as f32;
-        for (o, a) in s.c.iter_mut().zip(&s.acc) {
-            *o = a / w;
-        }
+        kernel::divide(self.kernel, &s.acc, w, &mut s.c);
         fl |= shape_flags(count as u32, mo.m1, mo.m2);
         (count as u32, fl)
     }
@@ -804,12 +789,52 @@ fn sort_distinct(ids: &mut [u32], bits: &mut Vec<u64>, summary: &mut Vec<u64>) {
     debug_assert_eq!(k, n, "indices must be distinct");
 }
 
+/// The offsets `q − p` of the points `ids` (ascending) of `points` from the centre `p`, with
+/// their squared distances `dx² + dy² + dz²` (f32, products then sums, in this order), written
+/// at the front of `gx`, `gy`, `gz`, `gd2` for the hits with `0 < d² ≤ r2` (branch-free
+/// compaction: every hit is written at the kept count, which advances only for a kept one;
+/// values past the kept ones are never read). Returns the kept count, the number of points at
+/// distance 0 and the moments of the kept offsets. The AVX2 build
+/// ([`super::avx2::gather`]) gives the same bits.
+#[allow(clippy::too_many_arguments)]
+pub(super) fn gather(
+    points: &[[f32; 3]],
+    ids: &[u32],
+    p: [f32; 3],
+    r2: f32,
+    gx: &mut [f32],
+    gy: &mut [f32],
+    gz: &mut [f32],
+    gd2: &mut [f32],
+) -> (usize, u32, Moments) {
+    let mut m = 0;
+    let mut zeros = 0u32;
+    let mut mo = Moments::default();
+    for &i in ids {
+        let q = points[i as usize];
+        let d = [q[0] - p[0], q[1] - p[1], q[2] - p[2]];
+        let d2 = d[0] * d[0] + d[1] * d[1] + d[2] * d[2];
+        gx[m] = d[0];
+        gy[m] = d[1];
+        gz[m] = d[2];
+        gd2[m] = d2;
+        zeros += (d2 == 0.0) as u32;
+        let keep = d2 > 0.0 && d2 <= r2;
+        m += keep as usize;
+        // A dropped hit adds +0 to every moment, which leaves each sum's bits as they are
+        // (the sums start at +0 and so never hold −0): the moments of the kept ones.
+        let mask = if keep { u32::MAX } else { 0 };
+        mo.add(d.map(|v| f32::from_bits(v.to_bits() & mask)));
+    }
+    (m, zeros, mo)
+}
+
 /// Unweighted first and second moments of neighbour offsets `d`, each summed in f32 in
 /// neighbour order from +0: `m1 = Σ d`, `m2 = Σ (dx², dx·dy, dx·dz, dy², dy·dz, dz²)`.
 #[derive(Debug, Default, Clone, Copy)]
-struct Moments {
-    m1: [f32; 3],
-    m2: [f32; 6],
+pub(super) struct Moments {
+    pub(super) m1: [f32; 3],
+    pub(super) m2: [f32; 6],
 }
 
 impl Moments {
