@@ -129,15 +129,27 @@ type Buffers = (Vec<f32>, Vec<u32>, Vec<u8>, Vec<f32>);
 /// grid of the engine's largest support radius, built once ([`Engine::prepare`]) and reused by
 /// every [`Engine::compute_prepared`] / [`Engine::compute_at_prepared`] call, so computing a
 /// cloud chunk by chunk does not rebuild the grid for each chunk. Results are the same bytes
-/// as the unprepared calls.
+/// as the unprepared calls. A cloud prepared without a tree given ([`Engine::prepare_own`])
+/// has one only when the grid cannot serve; a run that needs a tree and finds none builds one.
 pub struct PreparedCloud<'a> {
     points: &'a [[f32; 3]],
-    index: &'a KdIndex,
+    /// The k-d tree over the points.
+    index: Tree<'a>,
     /// Cell grid with cells of the query radius (`None`: tree search, empty cloud, or too many
     /// cells along an axis).
     grid: Option<CellGrid>,
     /// The query radius the grid was built for (file units).
     query_radius: f32,
+}
+
+/// The k-d tree of a [`PreparedCloud`].
+enum Tree<'a> {
+    /// None built (the cell grid serves).
+    Absent,
+    /// The caller's.
+    Given(&'a KdIndex),
+    /// Built by [`Engine::prepare_own`] because the grid could not be.
+    Own(KdIndex),
 }
 
 impl std::fmt::Debug for PreparedCloud<'_> {
@@ -156,9 +168,38 @@ impl PreparedCloud<'_> {
         self.points
     }
 
-    /// The k-d tree over [`PreparedCloud::points`].
-    pub fn index(&self) -> &KdIndex {
-        self.index
+    /// The k-d tree over [`PreparedCloud::points`], when it was given or built.
+    pub fn index(&self) -> Option<&KdIndex> {
+        match &self.index {
+            Tree::Absent => None,
+            Tree::Given(t) => Some(t),
+            Tree::Own(t) => Some(t),
+        }
+    }
+
+    /// The number of points `q` with `|q − p| ≤ r` (the cell grid's distance when `r` is
+    /// within its cells, else the k-d tree's, built here when the cloud has none): for
+    /// estimates; the engine's own neighbour test is [`Engine`]'s.
+    ///
+    /// # Errors
+    /// When a tree must be built and cannot be ([`KdIndex::new`]).
+    pub fn count_within(&self, p: [f32; 3], r: f32) -> Result<usize> {
+        if let Some(g) = self.grid.as_ref().filter(|g| r <= g.cell()) {
+            let mut ids = Vec::new();
+            g.within(p, r, &mut GridQuery::default(), &mut ids);
+            return Ok(ids.len());
+        }
+        let built;
+        let index = match self.index() {
+            Some(i) => i,
+            None => {
+                built = KdIndex::new(self.points)?;
+                &built
+            }
+        };
+        let mut c = 0;
+        index.for_each_within(p, r, |_, _| c += 1);
+        Ok(c)
     }
 }
 
@@ -343,6 +384,30 @@ impl Engine {
             .flatten();
         Ok(PreparedCloud {
             points,
+            index: Tree::Given(index),
+            grid,
+            query_radius,
+        })
+    }
+
+    /// [`Engine::prepare`] for callers without a k-d tree (the `features` command with a given
+    /// radius needs one only for the search): the cell grid, and a tree built here only when the
+    /// grid cannot serve this engine (too many cells along an axis, or
+    /// [`Engine::tree_search`]). The same bytes from every run.
+    ///
+    /// # Errors
+    /// When a tree is needed and cannot be built ([`KdIndex::new`]: an empty cloud).
+    pub fn prepare_own<'a>(&self, points: &'a [[f32; 3]]) -> Result<PreparedCloud<'a>> {
+        let query_radius = self.query_radius();
+        let grid = (!points.is_empty() && !self.tree_only)
+            .then(|| CellGrid::new(points, query_radius).ok())
+            .flatten();
+        let index = match grid {
+            Some(_) => Tree::Absent,
+            None => Tree::Own(KdIndex::new(points)?),
+        };
+        Ok(PreparedCloud {
+            points,
             index,
             grid,
             query_radius,
@@ -386,18 +451,22 @@ impl Engine {
             }
         };
         let positions: Vec<[f32; 3]> = indices.iter().map(|&i| points[i]).collect();
-        let mut f = self.run(cloud, positions, progress);
+        let mut f = self.run(cloud, positions, progress)?;
         f.indices = Some(indices);
         Ok(f)
     }
 
     /// [`Engine::compute_at_with`] over a [`PreparedCloud`] (same bytes).
+    ///
+    /// # Errors
+    /// When the run needs a k-d tree that the cloud was prepared without and it cannot be
+    /// built ([`KdIndex::new`]).
     pub fn compute_at_prepared(
         &self,
         cloud: &PreparedCloud<'_>,
         centres: &[[f32; 3]],
         progress: Option<&(dyn Fn(usize) + Sync)>,
-    ) -> Features {
+    ) -> Result<Features> {
         self.run(cloud, centres.to_vec(), progress)
     }
 
@@ -449,7 +518,7 @@ impl Engine {
         progress: Option<&(dyn Fn(usize) + Sync)>,
     ) -> Result<Features> {
         let prepared = self.prepare(points, index)?;
-        Ok(self.run(&prepared, centres.to_vec(), progress))
+        self.run(&prepared, centres.to_vec(), progress)
     }
 
     fn scratch(&self) -> Scratch {
@@ -489,7 +558,7 @@ impl Engine {
         cloud: &PreparedCloud<'_>,
         positions: Vec<[f32; 3]>,
         progress: Option<&(dyn Fn(usize) + Sync)>,
-    ) -> Features {
+    ) -> Result<Features> {
         let rows = positions.len();
         let ns = self.recipe.scales();
         let nc = self.columns.len();
@@ -518,9 +587,16 @@ impl Engine {
             (None, false) if cloud.query_radius == self.query_radius() => cloud.grid.as_ref(),
             _ => None,
         };
-        let search = match grid {
-            Some(g) => Search::Grid(g),
-            None => Search::Tree(cloud.index),
+        // A cloud prepared without a tree always has the grid; a run that cannot use it (an
+        // engine with another radius whose own grid has too many cells) builds a tree.
+        let built;
+        let search = match (grid, cloud.index()) {
+            (Some(g), _) => Search::Grid(g),
+            (None, Some(index)) => Search::Tree(index),
+            (None, None) => {
+                built = KdIndex::new(points)?;
+                Search::Tree(&built)
+            }
         };
         // Centres are visited in the grid's cell order (ties by row), so that consecutive
         // centres share their cells' points in cache; each row is written where it belongs.
@@ -552,7 +628,7 @@ impl Engine {
                 }
             },
         );
-        Features {
+        Ok(Features {
             recipe: self.recipe.clone(),
             positions,
             indices: None,
@@ -561,7 +637,7 @@ impl Engine {
             counts,
             flags: flag_bits,
             coefficients: keep.then_some(coeffs),
-        }
+        })
     }
 
     /// One centre, all scales.
