@@ -379,9 +379,7 @@ impl Engine {
     ) -> Result<PreparedCloud<'a>> {
         check_index(points, index)?;
         let query_radius = self.query_radius();
-        let grid = (!points.is_empty() && !self.tree_only)
-            .then(|| CellGrid::new(points, query_radius).ok())
-            .flatten();
+        let grid = self.grid_for(points);
         Ok(PreparedCloud {
             points,
             index: Tree::Given(index),
@@ -399,9 +397,7 @@ impl Engine {
     /// When a tree is needed and cannot be built ([`KdIndex::new`]: an empty cloud).
     pub fn prepare_own<'a>(&self, points: &'a [[f32; 3]]) -> Result<PreparedCloud<'a>> {
         let query_radius = self.query_radius();
-        let grid = (!points.is_empty() && !self.tree_only)
-            .then(|| CellGrid::new(points, query_radius).ok())
-            .flatten();
+        let grid = self.grid_for(points);
         let index = match grid {
             Some(_) => Tree::Absent,
             None => Tree::Own(KdIndex::new(points)?),
@@ -482,6 +478,14 @@ impl Engine {
                 spent.coefficients.unwrap_or_default(),
             ));
         }
+    }
+
+    /// The cell grid of this engine's query radius over `points`; `None` for an empty cloud,
+    /// too many cells along an axis, or [`Engine::tree_search`].
+    fn grid_for(&self, points: &[[f32; 3]]) -> Option<CellGrid> {
+        (!points.is_empty() && !self.tree_only)
+            .then(|| CellGrid::new(points, self.query_radius()).ok())
+            .flatten()
     }
 
     /// The neighbour query radius: the largest support radius, with [`QUERY_SLACK`].
@@ -579,8 +583,8 @@ impl Engine {
         let points = cloud.points;
         // The cloud's grid serves when it was built for this engine's query radius; otherwise
         // (a cloud prepared by an engine with another largest radius) the grid is built here.
-        let own_grid = (rows > 0 && !self.tree_only && cloud.query_radius != self.query_radius())
-            .then(|| CellGrid::new(points, self.query_radius()).ok())
+        let own_grid = (rows > 0 && cloud.query_radius != self.query_radius())
+            .then(|| self.grid_for(points))
             .flatten();
         let grid = match (&own_grid, self.tree_only || rows == 0) {
             (Some(g), _) => Some(g),
