@@ -416,91 +416,6 @@ fn tree8(v: [__m256; 8]) -> __m256 {
     _mm256_add_ps(lo, hi)
 }
 
-#[cfg(test)]
-mod tests {
-    use super::*;
-    use crate::so3::rng::SplitMix64;
-
-    #[test]
-    fn gathering_gives_the_scalar_loops_bits() {
-        if !(is_x86_feature_detected!("avx2") && is_x86_feature_detected!("fma")) {
-            return;
-        }
-        let mut rng = SplitMix64::new(11);
-        let p = [0.3f32, -1.7, 2.2];
-        // Points around the centre, some on it (dropped, counted), some beyond the radius
-        // (dropped) and some exactly on it (kept), with negative offsets and −0 components.
-        let mut points: Vec<[f32; 3]> = (0..300)
-            .map(|_| std::array::from_fn(|k| p[k] + (rng.next_f64() * 3.0 - 1.5) as f32))
-            .collect();
-        points[5] = p;
-        points[17] = p;
-        points[40] = [p[0] + 1.0, p[1], p[2]];
-        points[41] = [p[0], p[1] - 0.0, p[2] - 1.0];
-        let ids: Vec<u32> = (0..points.len() as u32).filter(|i| i % 3 != 1).collect();
-        let run = |simd: bool| {
-            let n = ids.len();
-            let (mut gx, mut gy, mut gz, mut gd2) =
-                (vec![0.0; n], vec![0.0; n], vec![0.0; n], vec![0.0; n]);
-            let (m, zeros, mo) = if simd {
-                // SAFETY: AVX2 and FMA are present (checked above).
-                unsafe { gather(&points, &ids, p, 1.0, &mut gx, &mut gy, &mut gz, &mut gd2) }
-            } else {
-                super::super::engine::gather(
-                    &points, &ids, p, 1.0, &mut gx, &mut gy, &mut gz, &mut gd2,
-                )
-            };
-            let bits = |v: &[f32]| v[..m].iter().map(|x| x.to_bits()).collect::<Vec<_>>();
-            let moments: Vec<u32> = mo.m1.iter().chain(&mo.m2).map(|x| x.to_bits()).collect();
-            (
-                m,
-                zeros,
-                moments,
-                [bits(&gx), bits(&gy), bits(&gz), bits(&gd2)],
-            )
-        };
-        let (simd, plain) = (run(true), run(false));
-        assert!(
-            plain.0 > 10 && plain.0 < ids.len() - 10 && plain.1 == 2,
-            "{:?}",
-            (plain.0, plain.1)
-        );
-        assert_eq!(simd, plain);
-    }
-
-    #[test]
-    fn lane_reduction_is_the_scalar_tree() {
-        if !(is_x86_feature_detected!("avx2") && is_x86_feature_detected!("fma")) {
-            return;
-        }
-        let mut rng = SplitMix64::new(3);
-        for n in [0usize, 1, 7, 8, 9, 150, 151] {
-            let lanes: Vec<[f32; LANES]> = (0..n)
-                .map(|_| {
-                    std::array::from_fn(|_| {
-                        let v = rng.next_f64() * 2.0 - 1.0;
-                        (v * 10f64.powf(rng.next_f64() * 8.0 - 4.0)) as f32
-                    })
-                })
-                .collect();
-            for l8 in lanes.chunks(8) {
-                let mut v = [[0.0f32; LANES]; 8];
-                v[..l8.len()].copy_from_slice(l8);
-                let mut got = [0.0f32; 8];
-                // SAFETY: AVX2 and FMA are present (checked above).
-                unsafe {
-                    let t = tree8(std::array::from_fn(|i| _mm256_loadu_ps(v[i].as_ptr())));
-                    _mm256_storeu_ps(got.as_mut_ptr(), t);
-                }
-                for (g, l) in got.iter().zip(&v) {
-                    let want = ((l[0] + l[1]) + (l[2] + l[3])) + ((l[4] + l[5]) + (l[6] + l[7]));
-                    assert_eq!(g.to_bits(), want.to_bits(), "{l:?}");
-                }
-            }
-        }
-    }
-}
-
 /// Norms and power spectrum of the default shape (six shells, degree 4) into `out[..135]`:
 /// the same sums, in the same order, as [`super::invariants`]' general path with its constant
 /// blocks, written out so that nothing goes through memory but the transposed coefficients.
@@ -612,6 +527,91 @@ pub(crate) fn spectrum_6_4(c: &[f32], t: &mut [f64], zero: f64, out: &mut [f32])
                 _mm256_castpd256_pd128(acc[7]),
             );
             two(np.add(l * 6 + 4), _mm_cvtpd_ps(_mm_sqrt_pd(d45)));
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::so3::rng::SplitMix64;
+
+    #[test]
+    fn gathering_gives_the_scalar_loops_bits() {
+        if !(is_x86_feature_detected!("avx2") && is_x86_feature_detected!("fma")) {
+            return;
+        }
+        let mut rng = SplitMix64::new(11);
+        let p = [0.3f32, -1.7, 2.2];
+        // Points around the centre, some on it (dropped, counted), some beyond the radius
+        // (dropped) and some exactly on it (kept), with negative offsets and −0 components.
+        let mut points: Vec<[f32; 3]> = (0..300)
+            .map(|_| std::array::from_fn(|k| p[k] + (rng.next_f64() * 3.0 - 1.5) as f32))
+            .collect();
+        points[5] = p;
+        points[17] = p;
+        points[40] = [p[0] + 1.0, p[1], p[2]];
+        points[41] = [p[0], p[1] - 0.0, p[2] - 1.0];
+        let ids: Vec<u32> = (0..points.len() as u32).filter(|i| i % 3 != 1).collect();
+        let run = |simd: bool| {
+            let n = ids.len();
+            let (mut gx, mut gy, mut gz, mut gd2) =
+                (vec![0.0; n], vec![0.0; n], vec![0.0; n], vec![0.0; n]);
+            let (m, zeros, mo) = if simd {
+                // SAFETY: AVX2 and FMA are present (checked above).
+                unsafe { gather(&points, &ids, p, 1.0, &mut gx, &mut gy, &mut gz, &mut gd2) }
+            } else {
+                super::super::engine::gather(
+                    &points, &ids, p, 1.0, &mut gx, &mut gy, &mut gz, &mut gd2,
+                )
+            };
+            let bits = |v: &[f32]| v[..m].iter().map(|x| x.to_bits()).collect::<Vec<_>>();
+            let moments: Vec<u32> = mo.m1.iter().chain(&mo.m2).map(|x| x.to_bits()).collect();
+            (
+                m,
+                zeros,
+                moments,
+                [bits(&gx), bits(&gy), bits(&gz), bits(&gd2)],
+            )
+        };
+        let (simd, plain) = (run(true), run(false));
+        assert!(
+            plain.0 > 10 && plain.0 < ids.len() - 10 && plain.1 == 2,
+            "{:?}",
+            (plain.0, plain.1)
+        );
+        assert_eq!(simd, plain);
+    }
+
+    #[test]
+    fn lane_reduction_is_the_scalar_tree() {
+        if !(is_x86_feature_detected!("avx2") && is_x86_feature_detected!("fma")) {
+            return;
+        }
+        let mut rng = SplitMix64::new(3);
+        for n in [0usize, 1, 7, 8, 9, 150, 151] {
+            let lanes: Vec<[f32; LANES]> = (0..n)
+                .map(|_| {
+                    std::array::from_fn(|_| {
+                        let v = rng.next_f64() * 2.0 - 1.0;
+                        (v * 10f64.powf(rng.next_f64() * 8.0 - 4.0)) as f32
+                    })
+                })
+                .collect();
+            for l8 in lanes.chunks(8) {
+                let mut v = [[0.0f32; LANES]; 8];
+                v[..l8.len()].copy_from_slice(l8);
+                let mut got = [0.0f32; 8];
+                // SAFETY: AVX2 and FMA are present (checked above).
+                unsafe {
+                    let t = tree8(std::array::from_fn(|i| _mm256_loadu_ps(v[i].as_ptr())));
+                    _mm256_storeu_ps(got.as_mut_ptr(), t);
+                }
+                for (g, l) in got.iter().zip(&v) {
+                    let want = ((l[0] + l[1]) + (l[2] + l[3])) + ((l[4] + l[5]) + (l[6] + l[7]));
+                    assert_eq!(g.to_bits(), want.to_bits(), "{l:?}");
+                }
+            }
         }
     }
 }
