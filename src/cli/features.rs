@@ -8,7 +8,7 @@ use std::time::Instant;
 
 use equiscan::descriptor::output::{
     Budget, CentreChoice, FeatureWriter, FileSpec, Format, Job, Summary, check_budget,
-    choose_centres, plan, radius_from_spacing, write_features,
+    choose_centres, plan, radius_from_spacing, write_features_prepared,
 };
 use equiscan::descriptor::{Engine, Recipe};
 use equiscan::io::read_cloud;
@@ -146,15 +146,24 @@ fn one(
     let c = &args.common;
     let (cloud, info) = read_cloud(input)?;
     let t0 = Instant::now();
-    let index = KdIndex::new(&cloud.positions)
-        .map_err(|_| Error::file(input, "the cloud has no point", "give a cloud with points"))?;
+    let no_point = || Error::file(input, "the cloud has no point", "give a cloud with points");
+    if cloud.is_empty() {
+        return Err(no_point());
+    }
     let suggested = args.radius.is_empty();
-    let radii = if suggested {
-        let (r, note) = radius_from_spacing(input, &cloud, &index)?;
-        c.note(&note);
-        vec![r]
-    } else {
-        check.radii().to_vec()
+    // A k-d tree only where something needs it: the point spacing (suggested radius) or the
+    // keypoints' placement; otherwise the cost estimate and the search use the cell grid
+    // (`Engine::prepare_own` builds a tree only when the grid cannot serve).
+    let index = (suggested || keypoints.is_some())
+        .then(|| KdIndex::new(&cloud.positions).map_err(|_| no_point()))
+        .transpose()?;
+    let radii = match &index {
+        Some(index) if suggested => {
+            let (r, note) = radius_from_spacing(input, &cloud, index)?;
+            c.note(&note);
+            vec![r]
+        }
+        _ => check.radii().to_vec(),
     };
     let recipe = args.recipe.recipe(radii.clone())?;
     let file = args.keypoints.as_ref().map(|p| p.display().to_string());
@@ -166,17 +175,21 @@ fn one(
         (None, Some(v)) => CentreChoice::Voxel(v),
         (None, None) => CentreChoice::All,
     };
-    let (centres, kind) = choose_centres(&cloud, &index, choice, &radii);
+    let (centres, kind) = choose_centres(&cloud, index.as_ref(), choice, &radii)?;
+    let engine = Engine::new(recipe.clone());
+    let prepared = match &index {
+        Some(index) => engine.prepare(&cloud.positions, index)?,
+        None => engine.prepare_own(&cloud.positions)?,
+    };
     let budget = Budget {
         seconds: TIME_BUDGET,
         memory: args.max_memory.map_or_else(default_memory_budget, |s| s.0),
         force: args.force,
         threads: rayon::current_num_threads(),
     };
-    for note in check_budget(input, &cloud, &index, &centres, &recipe, &budget)? {
+    for note in check_budget(input, &cloud, &prepared, &centres, &recipe, &budget)? {
         c.note(&note);
     }
-    let engine = Engine::new(recipe.clone());
     let spec = FileSpec {
         path: output.to_path_buf(),
         format,
@@ -188,14 +201,7 @@ fn one(
     let mut writer = FeatureWriter::create(&cloud, spec, &centres)?;
     let progress = c.progress(&input.display().to_string(), centres.len(), "centres");
     let cb = |n: usize| progress.inc(n);
-    let res = write_features(
-        &engine,
-        &cloud.positions,
-        &index,
-        &centres,
-        &mut writer,
-        Some(&cb),
-    );
+    let res = write_features_prepared(&engine, &prepared, &centres, &mut writer, Some(&cb));
     progress.finish();
     res?;
     let written = writer.finish()?;

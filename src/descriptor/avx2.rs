@@ -251,6 +251,63 @@ pub(crate) fn block_sums(
     out
 }
 
+/// The engine's gathering loop ([`super::engine`]'s `gather`: offsets, squared distances,
+/// branch-free compaction of the hits with `0 < d² ≤ r2`, count of coincident points) with the
+/// moments summed in one vector: lanes `(dx, dy, dz, dx², dx·dy, dx·dz, dy², dy·dz)` (the first
+/// three multiplied by 1, exact) plus `dz²` alone, each a product then a sum as in the scalar
+/// loop, a dropped hit's products masked to +0. Same bits as the scalar loop.
+///
+/// # Panics
+/// If a buffer is shorter than `ids` or an id is beyond `points`.
+#[target_feature(enable = "avx2,fma")]
+#[allow(clippy::too_many_arguments)]
+pub(crate) fn gather(
+    points: &[[f32; 3]],
+    ids: &[u32],
+    p: [f32; 3],
+    r2: f32,
+    gx: &mut [f32],
+    gy: &mut [f32],
+    gz: &mut [f32],
+    gd2: &mut [f32],
+) -> (usize, u32, super::engine::Moments) {
+    let a_ix = _mm256_setr_epi32(0, 1, 2, 0, 0, 0, 1, 1);
+    let b_ix = _mm256_setr_epi32(0, 0, 0, 0, 1, 2, 1, 2);
+    let ones = _mm256_set1_ps(1.0);
+    let mut acc = _mm256_setzero_ps();
+    let mut zz = 0.0f32;
+    let mut m = 0;
+    let mut zeros = 0u32;
+    for &i in ids {
+        let q = points[i as usize];
+        let d = [q[0] - p[0], q[1] - p[1], q[2] - p[2]];
+        let d2 = d[0] * d[0] + d[1] * d[1] + d[2] * d[2];
+        gx[m] = d[0];
+        gy[m] = d[1];
+        gz[m] = d[2];
+        gd2[m] = d2;
+        zeros += (d2 == 0.0) as u32;
+        let keep = d2 > 0.0 && d2 <= r2;
+        m += keep as usize;
+        let mask = if keep { u32::MAX } else { 0 };
+        // Lanes 0–2 of `dv` hold the offset; the permutations read no other lane.
+        let dv = _mm256_castps128_ps256(_mm_setr_ps(d[0], d[1], d[2], 0.0));
+        let a = _mm256_permutevar8x32_ps(dv, a_ix);
+        let b = _mm256_blend_ps::<0b0000_0111>(_mm256_permutevar8x32_ps(dv, b_ix), ones);
+        let keep8 = _mm256_castsi256_ps(_mm256_set1_epi32(mask as i32));
+        acc = _mm256_add_ps(acc, _mm256_and_ps(_mm256_mul_ps(a, b), keep8));
+        zz += f32::from_bits((d[2] * d[2]).to_bits() & mask);
+    }
+    let mut v = [0.0f32; 8];
+    // SAFETY: eight f32 into a [f32; 8].
+    unsafe { _mm256_storeu_ps(v.as_mut_ptr(), acc) };
+    let mo = super::engine::Moments {
+        m1: [v[0], v[1], v[2]],
+        m2: [v[3], v[4], v[5], v[6], v[7], zz],
+    };
+    (m, zeros, mo)
+}
+
 /// The projection `acc[n·K + k] = Σ_j w[n·J + j] · y[k·J + j]` of [`super::kernel::project`]
 /// on AVX2: lane `i` sums the neighbours `j ≡ i (mod 8)` in ascending `j` with fused
 /// multiply-adds, then the eight lanes are added in the tree `((l0 + l1) + (l2 + l3)) + ((l4 +
@@ -359,10 +416,172 @@ fn tree8(v: [__m256; 8]) -> __m256 {
     _mm256_add_ps(lo, hi)
 }
 
+/// Norms and power spectrum of the default shape (six shells, degree 4) into `out[..135]`:
+/// the same sums, in the same order, as [`super::invariants`]' general path with its constant
+/// blocks, written out so that nothing goes through memory but the transposed coefficients.
+/// The transposition converts four shells by four rows at a time (`t[k·10 + n] = c[n·25 + k]`,
+/// lanes 6 and 7 of a row zero, lanes 8 and 9 left as they are: they feed only sums that are
+/// not kept), the eight blocks of one degree stay in registers, and each block's kept values
+/// are converted and stored together; the norms are the square roots of the `(n, n)` sums,
+/// four (then two) at a time. Each value is one sum from `zero` over `m` ascending of exact
+/// f64 products (fused, see [`block_sums`]), rounded once to f32: bit-identical to the
+/// general path (test `spectrum_blocks_give_the_plain_sums_bit_for_bit`).
+///
+/// # Panics
+/// If `c` holds fewer than 150 values, `t` fewer than 250 or `out` fewer than 135.
+#[target_feature(enable = "avx2,fma")]
+#[inline]
+pub(crate) fn spectrum_6_4(c: &[f32], t: &mut [f64], zero: f64, out: &mut [f32]) {
+    const NK: usize = 25;
+    const S: usize = 10;
+    assert!(c.len() >= 6 * NK && t.len() >= NK * S && out.len() >= 135);
+    // SAFETY: every read of `c` is below 6·25 and every access of `t` below 25·10 (asserted
+    // above); the stores to `out` stay below 135.
+    unsafe {
+        let cp = c.as_ptr();
+        let tp = t.as_mut_ptr();
+        for k in (0..24).step_by(4) {
+            let r = |n: usize| _mm_loadu_ps(cp.add(n * NK + k));
+            let (r0, r1, r2, r3) = (r(0), r(1), r(2), r(3));
+            let a = _mm_unpacklo_ps(r0, r1);
+            let b = _mm_unpacklo_ps(r2, r3);
+            let e = _mm_unpackhi_ps(r0, r1);
+            let f = _mm_unpackhi_ps(r2, r3);
+            let cols = [
+                _mm_movelh_ps(a, b),
+                _mm_movehl_ps(b, a),
+                _mm_movelh_ps(e, f),
+                _mm_movehl_ps(f, e),
+            ];
+            for (j, col) in cols.into_iter().enumerate() {
+                _mm256_storeu_pd(tp.add((k + j) * S), _mm256_cvtps_pd(col));
+            }
+            let (r4, r5) = (r(4), r(5));
+            let lo = _mm256_cvtps_pd(_mm_unpacklo_ps(r4, r5));
+            let hi = _mm256_cvtps_pd(_mm_unpackhi_ps(r4, r5));
+            // (c4, c5, 0, 0) of each row: a half of `lo` or `hi` and zeros.
+            _mm256_storeu_pd(tp.add(k * S + 4), _mm256_permute2f128_pd(lo, lo, 0x80));
+            _mm256_storeu_pd(
+                tp.add((k + 1) * S + 4),
+                _mm256_permute2f128_pd(lo, lo, 0x81),
+            );
+            _mm256_storeu_pd(
+                tp.add((k + 2) * S + 4),
+                _mm256_permute2f128_pd(hi, hi, 0x80),
+            );
+            _mm256_storeu_pd(
+                tp.add((k + 3) * S + 4),
+                _mm256_permute2f128_pd(hi, hi, 0x81),
+            );
+        }
+        let last = |n: usize| *cp.add(n * NK + 24) as f64;
+        _mm256_storeu_pd(
+            tp.add(24 * S),
+            _mm256_setr_pd(last(0), last(1), last(2), last(3)),
+        );
+        _mm256_storeu_pd(
+            tp.add(24 * S + 4),
+            _mm256_setr_pd(last(4), last(5), 0.0, 0.0),
+        );
+
+        let (norms, ps) = out.split_at_mut(30);
+        let np = norms.as_mut_ptr();
+        let mut pp = ps.as_mut_ptr();
+        for l in 0..5 {
+            let mut acc = [_mm256_set1_pd(zero); 8];
+            for kk in l * l..(l + 1) * (l + 1) {
+                let row = tp.add(kk * S);
+                let bc = |n: usize| _mm256_broadcast_sd(&*row.add(n));
+                let ld = |n: usize| _mm256_loadu_pd(row.add(n));
+                let (x0, x1) = (bc(0), bc(1));
+                acc[0] = _mm256_fmadd_pd(x0, ld(0), acc[0]);
+                acc[1] = _mm256_fmadd_pd(x0, ld(4), acc[1]);
+                acc[2] = _mm256_fmadd_pd(x1, ld(1), acc[2]);
+                acc[3] = _mm256_fmadd_pd(x1, ld(5), acc[3]);
+                acc[4] = _mm256_fmadd_pd(bc(2), ld(2), acc[4]);
+                acc[5] = _mm256_fmadd_pd(bc(3), ld(3), acc[5]);
+                acc[6] = _mm256_fmadd_pd(bc(4), ld(4), acc[6]);
+                acc[7] = _mm256_fmadd_pd(bc(5), ld(5), acc[7]);
+            }
+            // The kept values of blocks (0,0) (0,4) (1,1) (1,5) (2,2) (3,3) (4,4) (5,5):
+            // 4, 2, 4, 1, 4, 3, 2, 1 = 21, in this order.
+            let f = acc.map(|a| _mm256_cvtpd_ps(a));
+            let two = |p: *mut f32, v: __m128| _mm_store_sd(p.cast(), _mm_castps_pd(v));
+            _mm_storeu_ps(pp, f[0]);
+            two(pp.add(4), f[1]);
+            _mm_storeu_ps(pp.add(6), f[2]);
+            _mm_store_ss(pp.add(10), f[3]);
+            _mm_storeu_ps(pp.add(11), f[4]);
+            two(pp.add(15), f[5]);
+            _mm_store_ss(pp.add(17), _mm_movehl_ps(f[5], f[5]));
+            two(pp.add(18), f[6]);
+            _mm_store_ss(pp.add(20), f[7]);
+            pp = pp.add(21);
+            // Norms l·6 + n: the square roots of lane 0 of the (n, n) blocks.
+            let d01 = _mm256_unpacklo_pd(acc[0], acc[2]);
+            let d23 = _mm256_unpacklo_pd(acc[4], acc[5]);
+            let d0123 = _mm256_permute2f128_pd(d01, d23, 0x20);
+            _mm_storeu_ps(np.add(l * 6), _mm256_cvtpd_ps(_mm256_sqrt_pd(d0123)));
+            let d45 = _mm_unpacklo_pd(
+                _mm256_castpd256_pd128(acc[6]),
+                _mm256_castpd256_pd128(acc[7]),
+            );
+            two(np.add(l * 6 + 4), _mm_cvtpd_ps(_mm_sqrt_pd(d45)));
+        }
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
     use crate::so3::rng::SplitMix64;
+
+    #[test]
+    fn gathering_gives_the_scalar_loops_bits() {
+        if !(is_x86_feature_detected!("avx2") && is_x86_feature_detected!("fma")) {
+            return;
+        }
+        let mut rng = SplitMix64::new(11);
+        let p = [0.3f32, -1.7, 2.2];
+        // Points around the centre, some on it (dropped, counted), some beyond the radius
+        // (dropped) and some exactly on it (kept), with negative offsets and −0 components.
+        let mut points: Vec<[f32; 3]> = (0..300)
+            .map(|_| std::array::from_fn(|k| p[k] + (rng.next_f64() * 3.0 - 1.5) as f32))
+            .collect();
+        points[5] = p;
+        points[17] = p;
+        points[40] = [p[0] + 1.0, p[1], p[2]];
+        points[41] = [p[0], p[1] - 0.0, p[2] - 1.0];
+        let ids: Vec<u32> = (0..points.len() as u32).filter(|i| i % 3 != 1).collect();
+        let run = |simd: bool| {
+            let n = ids.len();
+            let (mut gx, mut gy, mut gz, mut gd2) =
+                (vec![0.0; n], vec![0.0; n], vec![0.0; n], vec![0.0; n]);
+            let (m, zeros, mo) = if simd {
+                // SAFETY: AVX2 and FMA are present (checked above).
+                unsafe { gather(&points, &ids, p, 1.0, &mut gx, &mut gy, &mut gz, &mut gd2) }
+            } else {
+                super::super::engine::gather(
+                    &points, &ids, p, 1.0, &mut gx, &mut gy, &mut gz, &mut gd2,
+                )
+            };
+            let bits = |v: &[f32]| v[..m].iter().map(|x| x.to_bits()).collect::<Vec<_>>();
+            let moments: Vec<u32> = mo.m1.iter().chain(&mo.m2).map(|x| x.to_bits()).collect();
+            (
+                m,
+                zeros,
+                moments,
+                [bits(&gx), bits(&gy), bits(&gz), bits(&gd2)],
+            )
+        };
+        let (simd, plain) = (run(true), run(false));
+        assert!(
+            plain.0 > 10 && plain.0 < ids.len() - 10 && plain.1 == 2,
+            "{:?}",
+            (plain.0, plain.1)
+        );
+        assert_eq!(simd, plain);
+    }
 
     #[test]
     fn lane_reduction_is_the_scalar_tree() {

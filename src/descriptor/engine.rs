@@ -129,15 +129,27 @@ type Buffers = (Vec<f32>, Vec<u32>, Vec<u8>, Vec<f32>);
 /// grid of the engine's largest support radius, built once ([`Engine::prepare`]) and reused by
 /// every [`Engine::compute_prepared`] / [`Engine::compute_at_prepared`] call, so computing a
 /// cloud chunk by chunk does not rebuild the grid for each chunk. Results are the same bytes
-/// as the unprepared calls.
+/// as the unprepared calls. A cloud prepared without a tree given ([`Engine::prepare_own`])
+/// has one only when the grid cannot serve; a run that needs a tree and finds none builds one.
 pub struct PreparedCloud<'a> {
     points: &'a [[f32; 3]],
-    index: &'a KdIndex,
+    /// The k-d tree over the points.
+    index: Tree<'a>,
     /// Cell grid with cells of the query radius (`None`: tree search, empty cloud, or too many
     /// cells along an axis).
     grid: Option<CellGrid>,
     /// The query radius the grid was built for (file units).
     query_radius: f32,
+}
+
+/// The k-d tree of a [`PreparedCloud`].
+enum Tree<'a> {
+    /// None built (the cell grid serves).
+    Absent,
+    /// The caller's.
+    Given(&'a KdIndex),
+    /// Built by [`Engine::prepare_own`] because the grid could not be.
+    Own(KdIndex),
 }
 
 impl std::fmt::Debug for PreparedCloud<'_> {
@@ -156,9 +168,38 @@ impl PreparedCloud<'_> {
         self.points
     }
 
-    /// The k-d tree over [`PreparedCloud::points`].
-    pub fn index(&self) -> &KdIndex {
-        self.index
+    /// The k-d tree over [`PreparedCloud::points`], when it was given or built.
+    pub fn index(&self) -> Option<&KdIndex> {
+        match &self.index {
+            Tree::Absent => None,
+            Tree::Given(t) => Some(t),
+            Tree::Own(t) => Some(t),
+        }
+    }
+
+    /// The number of points `q` with `|q − p| ≤ r` (the cell grid's distance when `r` is
+    /// within its cells, else the k-d tree's, built here when the cloud has none): for
+    /// estimates; the engine's own neighbour test is [`Engine`]'s.
+    ///
+    /// # Errors
+    /// When a tree must be built and cannot be ([`KdIndex::new`]).
+    pub fn count_within(&self, p: [f32; 3], r: f32) -> Result<usize> {
+        if let Some(g) = self.grid.as_ref().filter(|g| r <= g.cell()) {
+            let mut ids = Vec::new();
+            g.within(p, r, &mut GridQuery::default(), &mut ids);
+            return Ok(ids.len());
+        }
+        let built;
+        let index = match self.index() {
+            Some(i) => i,
+            None => {
+                built = KdIndex::new(self.points)?;
+                &built
+            }
+        };
+        let mut c = 0;
+        index.for_each_within(p, r, |_, _| c += 1);
+        Ok(c)
     }
 }
 
@@ -338,9 +379,29 @@ impl Engine {
     ) -> Result<PreparedCloud<'a>> {
         check_index(points, index)?;
         let query_radius = self.query_radius();
-        let grid = (!points.is_empty() && !self.tree_only)
-            .then(|| CellGrid::new(points, query_radius).ok())
-            .flatten();
+        let grid = self.grid_for(points);
+        Ok(PreparedCloud {
+            points,
+            index: Tree::Given(index),
+            grid,
+            query_radius,
+        })
+    }
+
+    /// [`Engine::prepare`] for callers without a k-d tree (the `features` command with a given
+    /// radius needs one only for the search): the cell grid, and a tree built here only when the
+    /// grid cannot serve this engine (too many cells along an axis, or
+    /// [`Engine::tree_search`]). The same bytes from every run.
+    ///
+    /// # Errors
+    /// When a tree is needed and cannot be built ([`KdIndex::new`]: an empty cloud).
+    pub fn prepare_own<'a>(&self, points: &'a [[f32; 3]]) -> Result<PreparedCloud<'a>> {
+        let query_radius = self.query_radius();
+        let grid = self.grid_for(points);
+        let index = match grid {
+            Some(_) => Tree::Absent,
+            None => Tree::Own(KdIndex::new(points)?),
+        };
         Ok(PreparedCloud {
             points,
             index,
@@ -386,18 +447,22 @@ impl Engine {
             }
         };
         let positions: Vec<[f32; 3]> = indices.iter().map(|&i| points[i]).collect();
-        let mut f = self.run(cloud, positions, progress);
+        let mut f = self.run(cloud, positions, progress)?;
         f.indices = Some(indices);
         Ok(f)
     }
 
     /// [`Engine::compute_at_with`] over a [`PreparedCloud`] (same bytes).
+    ///
+    /// # Errors
+    /// When the run needs a k-d tree that the cloud was prepared without and it cannot be
+    /// built ([`KdIndex::new`]).
     pub fn compute_at_prepared(
         &self,
         cloud: &PreparedCloud<'_>,
         centres: &[[f32; 3]],
         progress: Option<&(dyn Fn(usize) + Sync)>,
-    ) -> Features {
+    ) -> Result<Features> {
         self.run(cloud, centres.to_vec(), progress)
     }
 
@@ -413,6 +478,14 @@ impl Engine {
                 spent.coefficients.unwrap_or_default(),
             ));
         }
+    }
+
+    /// The cell grid of this engine's query radius over `points`; `None` for an empty cloud,
+    /// too many cells along an axis, or [`Engine::tree_search`].
+    fn grid_for(&self, points: &[[f32; 3]]) -> Option<CellGrid> {
+        (!points.is_empty() && !self.tree_only)
+            .then(|| CellGrid::new(points, self.query_radius()).ok())
+            .flatten()
     }
 
     /// The neighbour query radius: the largest support radius, with [`QUERY_SLACK`].
@@ -449,7 +522,7 @@ impl Engine {
         progress: Option<&(dyn Fn(usize) + Sync)>,
     ) -> Result<Features> {
         let prepared = self.prepare(points, index)?;
-        Ok(self.run(&prepared, centres.to_vec(), progress))
+        self.run(&prepared, centres.to_vec(), progress)
     }
 
     fn scratch(&self) -> Scratch {
@@ -489,7 +562,7 @@ impl Engine {
         cloud: &PreparedCloud<'_>,
         positions: Vec<[f32; 3]>,
         progress: Option<&(dyn Fn(usize) + Sync)>,
-    ) -> Features {
+    ) -> Result<Features> {
         let rows = positions.len();
         let ns = self.recipe.scales();
         let nc = self.columns.len();
@@ -510,17 +583,24 @@ impl Engine {
         let points = cloud.points;
         // The cloud's grid serves when it was built for this engine's query radius; otherwise
         // (a cloud prepared by an engine with another largest radius) the grid is built here.
-        let own_grid = (rows > 0 && !self.tree_only && cloud.query_radius != self.query_radius())
-            .then(|| CellGrid::new(points, self.query_radius()).ok())
+        let own_grid = (rows > 0 && cloud.query_radius != self.query_radius())
+            .then(|| self.grid_for(points))
             .flatten();
         let grid = match (&own_grid, self.tree_only || rows == 0) {
             (Some(g), _) => Some(g),
             (None, false) if cloud.query_radius == self.query_radius() => cloud.grid.as_ref(),
             _ => None,
         };
-        let search = match grid {
-            Some(g) => Search::Grid(g),
-            None => Search::Tree(cloud.index),
+        // A cloud prepared without a tree always has the grid; a run that cannot use it (an
+        // engine with another radius whose own grid has too many cells) builds a tree.
+        let built;
+        let search = match (grid, cloud.index()) {
+            (Some(g), _) => Search::Grid(g),
+            (None, Some(index)) => Search::Tree(index),
+            (None, None) => {
+                built = KdIndex::new(points)?;
+                Search::Tree(&built)
+            }
         };
         // Centres are visited in the grid's cell order (ties by row), so that consecutive
         // centres share their cells' points in cache; each row is written where it belongs.
@@ -552,7 +632,7 @@ impl Engine {
                 }
             },
         );
-        Features {
+        Ok(Features {
             recipe: self.recipe.clone(),
             positions,
             indices: None,
@@ -561,7 +641,7 @@ impl Engine {
             counts,
             flags: flag_bits,
             coefficients: keep.then_some(coeffs),
-        }
+        })
     }
 
     /// One centre, all scales.
@@ -588,11 +668,9 @@ impl Engine {
             }
         }
         sort_distinct(&mut s.ids, &mut s.bits, &mut s.summary);
-        // Offsets of the neighbours with 0 < |d| ≤ r_max, ascending index; coincident points
-        // are only counted.
+        // Offsets of the neighbours with 0 < |d| ≤ r_max, ascending index ([`gather`]);
+        // coincident points are only counted. The buffers only grow.
         let r_max2 = r_max * r_max;
-        // Branch-free compaction: every hit is written at `m`, which advances only for a kept
-        // one; the buffers only grow (values past the kept ones are never read).
         let n = s.ids.len();
         for v in [&mut s.gx, &mut s.gy, &mut s.gz, &mut s.gd2] {
             if v.len() < n {
@@ -605,25 +683,14 @@ impl Engine {
             &mut s.gz[..n],
             &mut s.gd2[..n],
         );
-        let mut m = 0;
-        let mut zeros = 0u32;
-        let mut mo = Moments::default();
-        for &i in &s.ids {
-            let q = points[i as usize];
-            let d = [q[0] - p[0], q[1] - p[1], q[2] - p[2]];
-            let d2 = d[0] * d[0] + d[1] * d[1] + d[2] * d[2];
-            gx[m] = d[0];
-            gy[m] = d[1];
-            gz[m] = d[2];
-            gd2[m] = d2;
-            zeros += (d2 == 0.0) as u32;
-            let keep = d2 > 0.0 && d2 <= r_max2;
-            m += keep as usize;
-            // A dropped hit adds +0 to every moment, which leaves each sum's bits as they are
-            // (the sums start at +0 and so never hold −0): the moments of the kept ones.
-            let mask = if keep { u32::MAX } else { 0 };
-            mo.add(d.map(|v| f32::from_bits(v.to_bits() & mask)));
-        }
+        let (m, zeros, mo) = match self.kernel {
+            kernel::Kernel::Portable => gather(points, &s.ids, p, r_max2, gx, gy, gz, gd2),
+            #[cfg(target_arch = "x86_64")]
+            // SAFETY: `Avx2Fma` is only chosen after the processor reported AVX2 and FMA.
+            kernel::Kernel::Avx2Fma => unsafe {
+                super::avx2::gather(points, &s.ids, p, r_max2, gx, gy, gz, gd2)
+            },
+        };
         s.zeros = zeros;
         s.gathered = m;
         s.moments = mo;
@@ -746,9 +813,7 @@ impl Engine {
             &mut s.acc,
         );
         let w = 1.0 + wsum + coincident as f32;
-        for (o, a) in s.c.iter_mut().zip(&s.acc) {
-            *o = a / w;
-        }
+        kernel::divide(self.kernel, &s.acc, w, &mut s.c);
         fl |= shape_flags(count as u32, mo.m1, mo.m2);
         (count as u32, fl)
     }
@@ -804,12 +869,52 @@ fn sort_distinct(ids: &mut [u32], bits: &mut Vec<u64>, summary: &mut Vec<u64>) {
     debug_assert_eq!(k, n, "indices must be distinct");
 }
 
+/// The offsets `q − p` of the points `ids` (ascending) of `points` from the centre `p`, with
+/// their squared distances `dx² + dy² + dz²` (f32, products then sums, in this order), written
+/// at the front of `gx`, `gy`, `gz`, `gd2` for the hits with `0 < d² ≤ r2` (branch-free
+/// compaction: every hit is written at the kept count, which advances only for a kept one;
+/// values past the kept ones are never read). Returns the kept count, the number of points at
+/// distance 0 and the moments of the kept offsets. The AVX2 build
+/// ([`super::avx2::gather`]) gives the same bits.
+#[allow(clippy::too_many_arguments)]
+pub(super) fn gather(
+    points: &[[f32; 3]],
+    ids: &[u32],
+    p: [f32; 3],
+    r2: f32,
+    gx: &mut [f32],
+    gy: &mut [f32],
+    gz: &mut [f32],
+    gd2: &mut [f32],
+) -> (usize, u32, Moments) {
+    let mut m = 0;
+    let mut zeros = 0u32;
+    let mut mo = Moments::default();
+    for &i in ids {
+        let q = points[i as usize];
+        let d = [q[0] - p[0], q[1] - p[1], q[2] - p[2]];
+        let d2 = d[0] * d[0] + d[1] * d[1] + d[2] * d[2];
+        gx[m] = d[0];
+        gy[m] = d[1];
+        gz[m] = d[2];
+        gd2[m] = d2;
+        zeros += (d2 == 0.0) as u32;
+        let keep = d2 > 0.0 && d2 <= r2;
+        m += keep as usize;
+        // A dropped hit adds +0 to every moment, which leaves each sum's bits as they are
+        // (the sums start at +0 and so never hold −0): the moments of the kept ones.
+        let mask = if keep { u32::MAX } else { 0 };
+        mo.add(d.map(|v| f32::from_bits(v.to_bits() & mask)));
+    }
+    (m, zeros, mo)
+}
+
 /// Unweighted first and second moments of neighbour offsets `d`, each summed in f32 in
 /// neighbour order from +0: `m1 = Σ d`, `m2 = Σ (dx², dx·dy, dx·dz, dy², dy·dz, dz²)`.
 #[derive(Debug, Default, Clone, Copy)]
-struct Moments {
-    m1: [f32; 3],
-    m2: [f32; 6],
+pub(super) struct Moments {
+    pub(super) m1: [f32; 3],
+    pub(super) m2: [f32; 6],
 }
 
 impl Moments {

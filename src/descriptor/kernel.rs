@@ -270,6 +270,30 @@ fn directions_impl(
     }
 }
 
+/// `c[k] = acc[k] / w` for every `k` of `acc` (one correctly rounded division each, so the
+/// AVX2 build, eight at a time, gives the same bits).
+pub(crate) fn divide(k: Kernel, acc: &[f32], w: f32, c: &mut [f32]) {
+    match k {
+        Kernel::Portable => divide_impl(acc, w, c),
+        #[cfg(target_arch = "x86_64")]
+        // SAFETY: `Avx2Fma` is only chosen after the processor reported AVX2 and FMA.
+        Kernel::Avx2Fma => unsafe { divide_avx2(acc, w, c) },
+    }
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2,fma")]
+fn divide_avx2(acc: &[f32], w: f32, c: &mut [f32]) {
+    divide_impl(acc, w, c);
+}
+
+#[inline(always)]
+fn divide_impl(acc: &[f32], w: f32, c: &mut [f32]) {
+    for (o, a) in c.iter_mut().zip(acc) {
+        *o = a / w;
+    }
+}
+
 /// `acc[n·K + k] = Σ_j w[n·J + j] · y[k·J + j]` for `n < n_sh`, `k < K = nk`, over the `J`
 /// (a multiple of [`LANES`]) neighbours: each lane `i` sums the neighbours `j ≡ i (mod 8)` in
 /// ascending `j`, then the eight lane sums are added in a fixed tree. The order depends only on

@@ -676,18 +676,23 @@ fn a_prepared_cloud_gives_the_same_bytes_for_any_engine() {
     let at: Vec<[f32; 3]> = idx.iter().map(|&i| cloud.positions[i]).collect();
     let engine = Engine::new(all_invariants_recipe(r));
     let prepared = engine.prepare(&cloud.positions, &index).unwrap();
+    // Without a tree given: the grid alone (and a tree built only where a run needs one).
+    let own = engine.prepare_own(&cloud.positions).unwrap();
+    assert!(own.index().is_none(), "the grid serves: no tree is built");
     // Reference: the k-d tree engine, centres in the order given.
     let want = Engine::new(all_invariants_recipe(r))
         .tree_search()
         .compute(&cloud, &centres)
         .unwrap();
     // The same prepared cloud, used twice (as chunk after chunk would), gives the same bytes.
-    for _ in 0..2 {
-        let got = engine.compute_prepared(&prepared, &centres, None).unwrap();
+    for cloud_ready in [&prepared, &prepared, &own, &own] {
+        let got = engine
+            .compute_prepared(cloud_ready, &centres, None)
+            .unwrap();
         assert_eq!(got.values, want.values);
         assert_eq!(got.counts, want.counts);
         assert_eq!(got.flags, want.flags);
-        let got = engine.compute_at_prepared(&prepared, &at, None);
+        let got = engine.compute_at_prepared(cloud_ready, &at, None).unwrap();
         assert_eq!(got.values, want.values);
     }
     // An engine with another largest radius, or the tree engine, may use the same prepared
@@ -695,13 +700,24 @@ fn a_prepared_cloud_gives_the_same_bytes_for_any_engine() {
     for other in [0.5 * r, 1.7 * r] {
         let e = Engine::new(all_invariants_recipe(other));
         let want = e.compute(&cloud, &centres).unwrap();
-        let got = e.compute_prepared(&prepared, &centres, None).unwrap();
-        assert_eq!(got.values, want.values, "radius {other}");
-        assert_eq!(got.counts, want.counts, "radius {other}");
+        for cloud_ready in [&prepared, &own] {
+            let got = e.compute_prepared(cloud_ready, &centres, None).unwrap();
+            assert_eq!(got.values, want.values, "radius {other}");
+            assert_eq!(got.counts, want.counts, "radius {other}");
+        }
     }
     let tree = Engine::new(all_invariants_recipe(r)).tree_search();
-    let got = tree.compute_prepared(&prepared, &centres, None).unwrap();
-    assert_eq!(got.values, want.values);
+    for cloud_ready in [&prepared, &own] {
+        let got = tree.compute_prepared(cloud_ready, &centres, None).unwrap();
+        assert_eq!(got.values, want.values);
+    }
+    // The tree engine prepares a tree of its own (it does not search the grid).
+    assert!(
+        tree.prepare_own(&cloud.positions)
+            .unwrap()
+            .index()
+            .is_some()
+    );
     // A k-d tree over other points is an error, not a panic.
     assert!(engine.prepare(&cloud.positions[1..], &index).is_err());
 }

@@ -2,8 +2,8 @@
 //! neighbours per centre, CPU time and peak memory, so that a radius far too large for the
 //! cloud is refused with its price instead of running for days.
 
-use crate::descriptor::Recipe;
-use crate::spatial::KdIndex;
+use crate::descriptor::{PreparedCloud, Recipe};
+use crate::error::Result;
 
 use super::{CentreList, chunk_rows, column_names};
 
@@ -38,15 +38,18 @@ impl Cost {
     }
 }
 
-/// Estimates the cost of `recipe` at `centres` of `points` (indexed by `index`) on `threads`
-/// workers, from the neighbours of up to 64 evenly spaced centres.
+/// Estimates the cost of `recipe` at `centres` of the prepared cloud on `threads` workers,
+/// from the neighbours of up to 64 evenly spaced centres ([`PreparedCloud::count_within`]).
+///
+/// # Errors
+/// When counting needs a k-d tree that cannot be built.
 pub fn estimate(
-    points: &[[f32; 3]],
-    index: &KdIndex,
+    cloud: &PreparedCloud<'_>,
     centres: &CentreList,
     recipe: &Recipe,
     threads: usize,
-) -> Cost {
+) -> Result<Cost> {
+    let points = cloud.points();
     let n = centres.len();
     let r = recipe.radii().iter().copied().fold(0.0f32, f32::max);
     let at = |k: usize| -> [f32; 3] {
@@ -57,14 +60,10 @@ pub fn estimate(
         }
     };
     let step = n.div_ceil(SAMPLE).max(1);
-    let counts: Vec<usize> = (0..n)
+    let counts = (0..n)
         .step_by(step)
-        .map(|k| {
-            let mut c = 0usize;
-            index.for_each_within(at(k), r, |_, _| c += 1);
-            c
-        })
-        .collect();
+        .map(|k| cloud.count_within(at(k), r))
+        .collect::<Result<Vec<usize>>>()?;
     let mean = counts.iter().sum::<usize>() as f64 / counts.len().max(1) as f64;
     let max = counts.iter().copied().max().unwrap_or(0);
     let used = recipe.max_neighbours().map_or(mean, |k| mean.min(k as f64));
@@ -79,18 +78,20 @@ pub fn estimate(
     let per_neighbour = 4 * (8 + recipe.shells() + (recipe.degree() + 1).pow(2)) as u64;
     let cols = column_names(recipe, super::Format::Npy).len();
     let chunk = (chunk_rows(cols) * cols * 4) as u64;
-    Cost {
+    Ok(Cost {
         centres: n,
         mean_neighbours: mean,
         max_neighbours: max,
         cpu_seconds: cpu,
         working_bytes: 3 * chunk + threads.max(1) as u64 * max as u64 * per_neighbour,
-    }
+    })
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::descriptor::Engine;
+    use crate::spatial::KdIndex;
 
     #[test]
     fn neighbour_counts_on_a_grid() {
@@ -100,11 +101,23 @@ mod tests {
             .collect();
         let index = KdIndex::new(&pts).unwrap();
         let recipe = Recipe::builder().radius(1.01).build().unwrap();
-        let c = estimate(&pts, &index, &CentreList::All(pts.len()), &recipe, 2);
+        let all = CentreList::All(pts.len());
+        let run = |recipe: &Recipe, tree: bool| {
+            let engine = Engine::new(recipe.clone());
+            let prepared = if tree {
+                engine.prepare(&pts, &index).unwrap()
+            } else {
+                engine.prepare_own(&pts).unwrap()
+            };
+            estimate(&prepared, &all, recipe, 2).unwrap()
+        };
+        let c = run(&recipe, true);
+        // The cell grid counts the same neighbours as the tree here (no point at the radius).
+        assert_eq!(run(&recipe, false), c);
         assert!(c.mean_neighbours > 3.0 && c.mean_neighbours <= 5.0, "{c:?}");
         assert_eq!(c.max_neighbours, 5);
         let big = Recipe::builder().radius(100.0).build().unwrap();
-        let c2 = estimate(&pts, &index, &CentreList::All(pts.len()), &big, 2);
+        let c2 = run(&big, false);
         assert_eq!(c2.max_neighbours, pts.len());
         assert!(c2.cpu_seconds > 10.0 * c.cpu_seconds, "{c2:?}");
     }

@@ -29,7 +29,7 @@ mod sinks;
 use std::path::{Path, PathBuf};
 
 use crate::cloud::Cloud;
-use crate::descriptor::{Centres, Engine, Features, Recipe};
+use crate::descriptor::{Centres, Engine, Features, PreparedCloud, Recipe};
 use crate::error::{Error, Result};
 use crate::io::{FileInfo, LasOptions};
 use crate::spatial::KdIndex;
@@ -466,40 +466,51 @@ pub fn write_features(
     writer: &mut FeatureWriter<'_>,
     progress: Option<&(dyn Fn(usize) + Sync)>,
 ) -> Result<()> {
-    let step = chunk_rows(writer.columns().len());
-    write_features_in(engine, points, index, centres, writer, progress, step)
+    // The cell grid is built once for the whole cloud, not once per chunk (each run over a
+    // fresh grid of all the points made writing N points O(N²/step)).
+    let prepared = engine.prepare(points, index)?;
+    write_features_prepared(engine, &prepared, centres, writer, progress)
 }
 
-/// [`write_features`] with `step` centres per chunk.
+/// [`write_features`] over a cloud already prepared for `engine` ([`Engine::prepare`] or,
+/// without a k-d tree, [`Engine::prepare_own`]); the same bytes.
+pub fn write_features_prepared(
+    engine: &Engine,
+    prepared: &PreparedCloud<'_>,
+    centres: &CentreList,
+    writer: &mut FeatureWriter<'_>,
+    progress: Option<&(dyn Fn(usize) + Sync)>,
+) -> Result<()> {
+    let step = chunk_rows(writer.columns().len());
+    write_features_in(engine, prepared, centres, writer, progress, step)
+}
+
+/// [`write_features_prepared`] with `step` centres per chunk.
 fn write_features_in(
     engine: &Engine,
-    points: &[[f32; 3]],
-    index: &KdIndex,
+    prepared: &PreparedCloud<'_>,
     centres: &CentreList,
     writer: &mut FeatureWriter<'_>,
     progress: Option<&(dyn Fn(usize) + Sync)>,
     step: usize,
 ) -> Result<()> {
-    // The cell grid is built once for the whole cloud, not once per chunk (each run over a
-    // fresh grid of all the points made writing N points O(N²/step)).
-    let prepared = engine.prepare(points, index)?;
     let n = centres.len();
     let mut start = 0;
     while start < n {
         let end = (start + step).min(n);
         let chunk = match centres {
             CentreList::All(_) => engine.compute_prepared(
-                &prepared,
+                prepared,
                 &Centres::Indices((start..end).collect()),
                 progress,
             )?,
             CentreList::Points(ix) => engine.compute_prepared(
-                &prepared,
+                prepared,
                 &Centres::Indices(ix[start..end].to_vec()),
                 progress,
             )?,
             CentreList::Positions(at) => {
-                engine.compute_at_prepared(&prepared, &at[start..end], progress)
+                engine.compute_at_prepared(prepared, &at[start..end], progress)?
             }
         };
         writer.push(&chunk)?;

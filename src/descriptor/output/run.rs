@@ -11,7 +11,7 @@ use serde::Serialize;
 use super::cost::estimate;
 use super::{CentreList, CentresInfo, Written, place_keypoints};
 use crate::cloud::Cloud;
-use crate::descriptor::{Recipe, suggested_radius};
+use crate::descriptor::{PreparedCloud, Recipe, suggested_radius};
 use crate::error::{Error, Result};
 use crate::spatial::{KdIndex, estimate_spacing_with, voxel_downsample};
 use crate::text::{Size, group, plural, seconds_text};
@@ -51,15 +51,27 @@ pub enum CentreChoice<'a> {
 }
 
 /// The centres of `choice` in `cloud` and their description for the sidecar; keypoints snap to
-/// input points within [`super::SNAP`] × the smallest of `radii`.
+/// input points within [`super::SNAP`] × the smallest of `radii`, found with `index` (the
+/// k-d tree over `cloud`'s points; built here when not given and keypoints need it).
+///
+/// # Errors
+/// When keypoints need a tree that cannot be built.
 pub fn choose_centres(
     cloud: &Cloud,
-    index: &KdIndex,
+    index: Option<&KdIndex>,
     choice: CentreChoice<'_>,
     radii: &[f32],
-) -> (CentreList, CentresInfo) {
-    match choice {
+) -> Result<(CentreList, CentresInfo)> {
+    Ok(match choice {
         CentreChoice::Keypoints { cloud: kp, file } => {
+            let built;
+            let index = match index {
+                Some(i) => i,
+                None => {
+                    built = KdIndex::new(&cloud.positions)?;
+                    &built
+                }
+            };
             let smallest = radii.iter().copied().fold(f32::INFINITY, f32::min);
             let (at, matched) = place_keypoints(cloud, index, kp, smallest);
             let info = CentresInfo::Keypoints {
@@ -73,7 +85,7 @@ pub fn choose_centres(
             CentresInfo::Voxel { voxel: v },
         ),
         CentreChoice::All => (CentreList::All(cloud.len()), CentresInfo::All),
-    }
+    })
 }
 
 /// What a run may cost before it is refused.
@@ -95,7 +107,7 @@ pub struct Budget {
 pub fn check_budget(
     input: &Path,
     cloud: &Cloud,
-    index: &KdIndex,
+    prepared: &PreparedCloud<'_>,
     centres: &CentreList,
     recipe: &Recipe,
     budget: &Budget,
@@ -116,7 +128,7 @@ pub fn check_budget(
         }
     }
     let threads = budget.threads;
-    let cost = estimate(&cloud.positions, index, centres, recipe, threads);
+    let cost = estimate(prepared, centres, recipe, threads)?;
     let secs = cost.seconds_on(threads);
     let neighbours = cost.mean_neighbours.round() as usize;
     let what = format!(

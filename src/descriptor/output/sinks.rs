@@ -69,6 +69,18 @@ impl Hashed {
             .map_err(|e| Error::io(&target, &e))
     }
 
+    /// [`Hashed::put`] of a large block: the bytes go from `b` to the file in one write,
+    /// without a copy into the file's buffer first (which is emptied before).
+    fn put_large(&mut self, b: &[u8]) -> Result<()> {
+        self.crc.update(b);
+        self.bytes += b.len() as u64;
+        let target = self.file.target().to_path_buf();
+        let w = self.file.writer();
+        w.flush()
+            .and_then(|()| w.get_mut().write_all(b))
+            .map_err(|e| Error::io(&target, &e))
+    }
+
     fn done(self) -> Result<Done> {
         Ok(Done::WithSidecar {
             bytes: self.bytes,
@@ -150,7 +162,8 @@ impl Sink {
         match self {
             Sink::Npy(h) => {
                 // One buffer for the whole file (about 256 KB, kept between chunks); each row
-                // goes straight from the chunk into it ([`row_parts`]).
+                // goes straight from the chunk into it ([`row_parts`]), and the buffer straight
+                // to the file (no second copy through the file's own buffer).
                 let mut bytes = std::mem::take(&mut h.buffer);
                 bytes.clear();
                 let mut head = Vec::with_capacity(3 + 2 * f.recipe.scales());
@@ -162,11 +175,11 @@ impl Sink {
                         put_f32(&mut bytes, part);
                     }
                     if bytes.len() >= 1 << 18 {
-                        h.put(&bytes)?;
+                        h.put_large(&bytes)?;
                         bytes.clear();
                     }
                 }
-                let done = h.put(&bytes);
+                let done = h.put_large(&bytes);
                 h.buffer = bytes;
                 done
             }

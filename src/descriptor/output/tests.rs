@@ -22,15 +22,8 @@ fn write(cloud: &Cloud, spec: FileSpec, step: usize) -> Result<Written> {
     let index = KdIndex::new(&cloud.positions).unwrap();
     let centres = CentreList::All(cloud.len());
     let mut w = FeatureWriter::create(cloud, spec, &centres)?;
-    write_features_in(
-        &engine,
-        &cloud.positions,
-        &index,
-        &centres,
-        &mut w,
-        None,
-        step,
-    )?;
+    let prepared = engine.prepare(&cloud.positions, &index)?;
+    write_features_in(&engine, &prepared, &centres, &mut w, None, step)?;
     w.finish()
 }
 
