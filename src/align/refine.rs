@@ -8,7 +8,8 @@
 //! overlap, half turns about those of TARGET and of both scans, each turned rotation also at the
 //! translation the matches vote for, slides along weakly constrained directions) are refined
 //! too, since the drawn hypotheses need not contain them, and so is the leader composed with
-//! each near-self-symmetry of TARGET and of SOURCE ([`super::symmetry`]). Each result is scored by its tight overlap (the share of
+//! each near-self-symmetry of TARGET and of SOURCE ([`super::symmetry`]; off by default,
+//! [`super::Tuning::self_maps`]). Each result is scored by its tight overlap (the share of
 //! SOURCE keypoints on the TARGET surface within the plane tolerance, normals agreeing) and the
 //! matches it explains. Fine: ICP on the fine points from the best distinct pose; the 6×6
 //! normal matrix of the fit ([`super::constraint`], Gelfand, Ikemoto, Rusinkiewicz & Levoy
