@@ -527,6 +527,7 @@ fn benchmark_diagnosis() {
             seed: 1 + i as u64,
             ..AlignParams::default()
         };
+        let params = tuned(params, &p.source, &p.target);
         let (a, tr) = align_pair_traced(&p.source, &p.target, &params).unwrap();
         let (right, rot) = is_right(p, &a.transform);
         let st = stacked(p, &offered(&a));
@@ -544,11 +545,13 @@ fn benchmark_diagnosis() {
             .enumerate()
             .filter(|(_, r)| near(&r.0))
             .map(|(k, r)| {
+                let (rot, trans) = errors(&p.source, &r.0, &p.truth);
                 format!(
-                    "#{k} ovl {:.3} k {} right {}",
+                    "#{k} ovl {:.3} k {} right {} ({rot:.1}°, {:.2} % diag)",
                     r.1,
                     r.2,
-                    is_right(p, &r.0).0
+                    is_right(p, &r.0).0,
+                    100.0 * trans / p.diagonal
                 )
             })
             .collect();

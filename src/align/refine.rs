@@ -7,7 +7,9 @@
 //! alternatives ([`super::candidates::alternatives`]: turns about the principal axes of the
 //! overlap, half turns about those of TARGET and of both scans, each turned rotation also at the
 //! translation the matches vote for, slides along weakly constrained directions) are refined
-//! too, since the drawn hypotheses need not contain them. Each result is scored by its tight overlap (the share of
+//! too, since the drawn hypotheses need not contain them, and so is the leader composed with
+//! each near-self-symmetry of TARGET and of SOURCE ([`super::symmetry`]; off by default,
+//! [`super::Tuning::self_maps`]). Each result is scored by its tight overlap (the share of
 //! SOURCE keypoints on the TARGET surface within the plane tolerance, normals agreeing) and the
 //! matches it explains. Fine: ICP on the fine points from the best distinct pose; the 6×6
 //! normal matrix of the fit ([`super::constraint`], Gelfand, Ikemoto, Rusinkiewicz & Levoy
@@ -27,6 +29,7 @@ use super::pipeline::AlignParams;
 use super::prepared_scan::PreparedScan;
 use super::rank::Ranked;
 use super::rigid::{Rigid, rotation_error_deg};
+use super::symmetry;
 
 /// The coarse ICP settings of `params` for inlier threshold `tau` and voxel size `voxel`.
 pub(super) fn coarse_icp(params: &AlignParams, tau: f64, voxel: f64) -> IcpParams {
@@ -175,6 +178,12 @@ pub fn coarse(
             &slides,
         );
         polished.extend(alts.par_iter().map(from).collect::<Vec<_>>());
+        let (target_maps, source_maps) = rayon::join(
+            || symmetry::self_maps(target, params, tau),
+            || symmetry::self_maps(source, params, tau),
+        );
+        let turned = symmetry::rivals(&leader, &target_maps, &source_maps);
+        polished.extend(turned.par_iter().map(from).collect::<Vec<_>>());
     }
     polished
 }
@@ -212,7 +221,9 @@ pub struct Refined {
 /// Orders the coarse poses and fits the best one on the fine points. The first `coarse_count`
 /// of `polished` are the coarse poses, ordered by [`distinct_best`]; the rest are the leader's
 /// parallel-face slides ([`super::slides`]), which differ from it by a few voxels only (less
-/// than the distinct distance of the coarse poses): each slide that lies more than
+/// than the distinct distance of the coarse poses). Each such slide, and each coarse pose that
+/// `distinct_best` merged into the leader though it has the leader's rotation (within
+/// [`super::Tuning::start_angle_deg`]), that lies more than
 /// [`SLIDE_DISTINCT_VOXELS`] from every pose kept (rotations within
 /// [`super::Tuning::start_angle_deg`]) joins the order as a pose of its own, by score.
 pub fn fine(
@@ -232,7 +243,32 @@ pub fn fine(
         0.0,
     );
     let most = Most::of(&polished);
-    for i in coarse_count..polished.len() {
+    // Coarse poses that `distinct_best` merged into the leader although they lie a slide away
+    // (the leader's rotation, another offset) are rivals of their own, like the parallel-face
+    // slides: on a benchmark channel the truth and a pose slid by about two voxels along the
+    // channel were refined with 46 and 47 explained matches, and the slid one won unnoticed
+    // (DEVELOPERS.md, Registration, "Near-symmetries of the scans").
+    let leader = order.first().map(|&i| polished[i].pose);
+    let mut merged_slides: Vec<usize> = (0..coarse_count)
+        .filter(|i| {
+            !order.contains(i)
+                && leader.is_some_and(|l| {
+                    rotation_error_deg(&polished[*i].pose.rotation, &l.rotation)
+                        < tu.start_angle_deg
+                })
+        })
+        .collect();
+    // Best first, so that of two merged poses within a voxel the stronger stands for both.
+    merged_slides.sort_by(|&a, &b| {
+        polished[b]
+            .score(most)
+            .total_cmp(&polished[a].score(most))
+            .then(a.cmp(&b))
+    });
+    let candidates = merged_slides
+        .into_iter()
+        .chain(coarse_count..polished.len());
+    for i in candidates {
         let apart = order.iter().all(|&j| {
             !consensus::same_pose(
                 &polished[i].pose,

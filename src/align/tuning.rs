@@ -123,6 +123,16 @@ pub struct Tuning {
     /// 32 benchmark pairs put at most 0.1 % there (DEVELOPERS.md, Registration, free space;
     /// set on those pairs).
     pub free_space_max_share: f64,
+    /// Near-self-symmetries kept per scan ([`super::symmetry`]); each gives the leading pose
+    /// one more rival to refine. 0 turns the search off: the default, since with 3 it changed
+    /// no verdict on the stacked benchmark shapes and cost about 14 % more time per pair
+    /// (DEVELOPERS.md, Registration, "Near-symmetries of the scans").
+    pub self_maps: usize,
+    /// Most query keypoints per scan in the search for near-self-symmetries (an even stride).
+    pub self_map_queries: usize,
+    /// A self-map is a near-symmetry when it lays at least this share of the scan's keypoints on
+    /// the scan's own surface (tight overlap, normals agreeing).
+    pub self_map_overlap: f64,
 }
 
 impl Default for Tuning {
@@ -168,6 +178,9 @@ impl Default for Tuning {
             free_space_cell_voxels: 2.0,
             free_space_sample: 2000,
             free_space_max_share: 0.02,
+            self_maps: 0,
+            self_map_queries: 200,
+            self_map_overlap: 0.3,
         }
     }
 }

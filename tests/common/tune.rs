@@ -7,7 +7,8 @@
 //! `radius` automatic voxels when that key comes first, else the method's default in new
 //! voxels), `inner` / `third` ([`Tuning::inner_radius_share`], [`Tuning::third_radius_share`]),
 //! `ambiguity` ([`Tuning::rotation_ambiguity_margin`]), `version` (descriptor version),
-//! `min_keep`, `max_keep`, `ratio` (matching), `icp_sample`, `coarse_tolerance`.
+//! `min_keep`, `max_keep`, `ratio` (matching), `icp_sample`, `coarse_tolerance`, `self_maps`,
+//! `self_queries`, `self_overlap` (near-self-symmetries, [`Tuning::self_maps`] …).
 
 use equiscan::Cloud;
 use equiscan::align::prepared_scan::pair_voxel;
@@ -41,6 +42,9 @@ pub fn tuned(mut params: AlignParams, source: &Cloud, target: &Cloud) -> AlignPa
             "coarse_tolerance" => tu.icp_coarse_tolerance = x,
             "rival_overlap" => tu.rival_overlap_share = x,
             "rival_matches" => tu.rival_match_share = x,
+            "self_maps" => tu.self_maps = x as usize,
+            "self_queries" => tu.self_map_queries = x as usize,
+            "self_overlap" => tu.self_map_overlap = x,
             "version" => params.descriptor_version = x as u32,
             "radius" => params.radius = Some(x * voxel(&params)),
             "keypoints" => params.voxel = Some(voxel(&params) / x.sqrt()),
