@@ -527,6 +527,7 @@ fn benchmark_diagnosis() {
             seed: 1 + i as u64,
             ..AlignParams::default()
         };
+        let params = tuned(params, &p.source, &p.target);
         let (a, tr) = align_pair_traced(&p.source, &p.target, &params).unwrap();
         let (right, rot) = is_right(p, &a.transform);
         let st = stacked(p, &offered(&a));

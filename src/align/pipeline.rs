@@ -284,7 +284,14 @@ fn register_traced(
         Some(_) => proposed.iter().map(|h| file(&h.transform)).collect(),
         None => Vec::new(),
     };
-    let ranked = rank::rank(proposed, &found.pairs, source, target, &params.tuning, tau);
+    let ranked = rank::rank(
+        proposed,
+        &found.proposing_pairs,
+        source,
+        target,
+        &params.tuning,
+        tau,
+    );
     clock.lap("hypotheses");
     let mut polished = refine::coarse(
         &ranked,

@@ -36,6 +36,10 @@ pub struct Tuning {
     pub match_min_keep: usize,
     /// Most matches kept (most distinctive first).
     pub match_max_keep: usize,
+    /// Besides the kept matches, the pairs of each SOURCE keypoint with its this many nearest
+    /// TARGET rows propose and score hypotheses (ratio test against the next row; at most
+    /// [`Tuning::match_max_keep`] more; 1: none, [`super::matching::Matched::neighbours`]).
+    pub match_neighbours: usize,
     /// Distinct hypotheses re-ranked by overlap.
     pub shortlist: usize,
     /// Two poses are the same when their rotations differ by less than this, degrees, and …
@@ -138,6 +142,7 @@ impl Default for Tuning {
             match_mutual: true,
             match_min_keep: 300,
             match_max_keep: 3000,
+            match_neighbours: 1,
             shortlist: 40,
             distinct_angle_deg: 10.0,
             distinct_distance_taus: 5.0,
