@@ -42,6 +42,12 @@ pub struct Tuning {
     pub match_neighbours: usize,
     /// Distinct hypotheses re-ranked by overlap.
     pub shortlist: usize,
+    /// When above [`Tuning::shortlist`], this many distinct hypotheses are refined on their
+    /// inliers before the shortlist is cut from them ([`super::rank::rank`]).
+    pub shortlist_pool: usize,
+    /// The ranked order alternates between the best on the surface and the best by support
+    /// ([`super::rank::rank`]).
+    pub rank_interleave: bool,
     /// Two poses are the same when their rotations differ by less than this, degrees, and …
     pub distinct_angle_deg: f64,
     /// … their translations by less than this, in inlier thresholds τ.
@@ -144,6 +150,8 @@ impl Default for Tuning {
             match_max_keep: 3000,
             match_neighbours: 1,
             shortlist: 40,
+            shortlist_pool: 40,
+            rank_interleave: false,
             distinct_angle_deg: 10.0,
             distinct_distance_taus: 5.0,
             inlier_refine_rounds: 4,
