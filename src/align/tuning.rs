@@ -40,6 +40,10 @@ pub struct Tuning {
     /// TARGET rows propose and score hypotheses (ratio test against the next row; at most
     /// [`Tuning::match_max_keep`] more; 1: none, [`super::matching::Matched::neighbours`]).
     pub match_neighbours: usize,
+    /// The matches a refined pose explains (ranking of the refined poses, rivalry, verdict)
+    /// are counted among the kept matches and the k-nearest pairs of
+    /// [`Tuning::match_neighbours`] instead of the kept matches alone.
+    pub neighbours_explain: bool,
     /// Distinct hypotheses re-ranked by overlap.
     pub shortlist: usize,
     /// When above [`Tuning::shortlist`], this many distinct hypotheses are refined on their
@@ -149,6 +153,7 @@ impl Default for Tuning {
             match_min_keep: 300,
             match_max_keep: 3000,
             match_neighbours: 1,
+            neighbours_explain: false,
             shortlist: 40,
             shortlist_pool: 40,
             rank_interleave: false,

@@ -7,7 +7,7 @@
 //! `radius` automatic voxels when that key comes first, else the method's default in new
 //! voxels), `inner` / `third` ([`Tuning::inner_radius_share`], [`Tuning::third_radius_share`]),
 //! `ambiguity` ([`Tuning::rotation_ambiguity_margin`]), `version` (descriptor version),
-//! `min_keep`, `max_keep`, `ratio`, `neighbours` (matching), `pool`, `interleave` (0 or 1; ranking), `icp_sample`, `coarse_tolerance`.
+//! `min_keep`, `max_keep`, `ratio`, `neighbours`, `explain` (0 or 1) (matching), `pool`, `interleave` (0 or 1; ranking), `icp_sample`, `coarse_tolerance`.
 
 use equiscan::Cloud;
 use equiscan::align::prepared_scan::pair_voxel;
@@ -40,6 +40,7 @@ pub fn tuned(mut params: AlignParams, source: &Cloud, target: &Cloud) -> AlignPa
             "neighbours" => tu.match_neighbours = x as usize,
             "pool" => tu.shortlist_pool = x as usize,
             "interleave" => tu.rank_interleave = x != 0.0,
+            "explain" => tu.neighbours_explain = x != 0.0,
             "icp_sample" => tu.icp_sample = x as usize,
             "coarse_tolerance" => tu.icp_coarse_tolerance = x,
             "rival_overlap" => tu.rival_overlap_share = x,
