@@ -259,4 +259,54 @@ mod tests {
             assert_eq!(back[j].0 as usize, best.1, "seed 11 column {j}");
         }
     }
+
+    /// A source row with two equally near target rows (a symmetric twin) fails the ratio test
+    /// but gives both pairs among the 2-nearest pairs; a row with no distinct third row does not.
+    #[test]
+    fn twin_rows_give_both_pairs_among_the_neighbours() {
+        let src = [0.0f32, 0.0, 5.0, 5.0];
+        // Target rows 0 and 1 are twins of source row 0; row 2 matches source row 1.
+        let tgt = [0.1f32, 0.0, -0.1, 0.0, 5.0, 5.0, 9.0, -9.0];
+        let params = MatchParams {
+            max_ratio: 0.9,
+            mutual: true,
+            min_keep: 0,
+            max_keep: 100,
+        };
+        let m = match_features_with_neighbours(&src, &tgt, 2, &params, 2);
+        let kept: Vec<(u32, u32)> = m.kept.iter().map(|c| (c.source, c.target)).collect();
+        assert_eq!(kept, vec![(1, 2)]);
+        let extra: Vec<(u32, u32)> = m.neighbours.iter().map(|c| (c.source, c.target)).collect();
+        // Source row 1 (its nearest kept, its third row ≈ 7.1 away): its second row (target 0)
+        // comes first with ratio 0; then source row 0: target rows 0 and 1 at 0.1 against its
+        // third (target 2) at ≈ 7.1, ratio ≈ 0.014. Every row that passes brings its k − 1
+        // next rows as well.
+        assert_eq!(extra, vec![(1, 0), (0, 0), (0, 1)]);
+        assert!(m.neighbours[1].ratio < 0.02);
+        assert!(
+            match_features_with_neighbours(&src, &tgt, 2, &params, 1)
+                .neighbours
+                .is_empty()
+        );
+        // The k nearest rows against a sorted brute-force list (seed 12).
+        let mut rng = crate::so3::rng::SplitMix64::new(12);
+        let a: Vec<f32> = (0..130 * 4).map(|_| rng.next_f64() as f32).collect();
+        let b: Vec<f32> = (0..90 * 4).map(|_| rng.next_f64() as f32).collect();
+        let (near, _) = nearest_both(&a, &b, 4, 3);
+        for (i, ra) in a.chunks(4).enumerate() {
+            let mut d: Vec<(f32, usize)> = b
+                .chunks(4)
+                .enumerate()
+                .map(|(j, rb)| (ra.iter().zip(rb).map(|(x, y)| (x - y) * (x - y)).sum(), j))
+                .collect();
+            d.sort_by(|x, y| x.0.total_cmp(&y.0).then(x.1.cmp(&y.1)));
+            for r in 0..3 {
+                assert_eq!(
+                    near[3 * i + r].0 as usize,
+                    d[r].1,
+                    "seed 12 row {i} rank {r}"
+                );
+            }
+        }
+    }
 }
