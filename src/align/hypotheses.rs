@@ -5,11 +5,13 @@
 //! mutual check and the ratio test; with [`super::tuning::Tuning::match_neighbours`] `k` ≥ 2,
 //! the pairs of each keypoint with its `k` nearest rows (ratio test against the (k+1)-th) also
 //! propose and score hypotheses, so that the true match of a keypoint whose symmetric twin is
-//! as near still proposes the true pose; the verdict's figures count the kept matches only. The harmonic method turns every match into one pose (two
-//! for a locally symmetric neighbourhood) from the equivariant coefficients
-//! ([`super::equivariant::hypotheses`]); the FPFH baseline draws 3-point RANSAC samples
-//! ([`super::consensus::ransac`]). Poses map SOURCE local into TARGET local coordinates; a
-//! match counts for a pose when the pose brings its keypoints within the inlier threshold τ.
+//! as near still proposes the true pose; the verdict's figures count the kept matches only
+//! (unless [`super::tuning::Tuning::neighbours_explain`]). The harmonic method turns every
+//! match into one pose (two for a locally symmetric neighbourhood) from the equivariant
+//! coefficients ([`super::equivariant::hypotheses`]); the FPFH baseline draws 3-point RANSAC
+//! samples ([`super::consensus::ransac`]). Poses map SOURCE local into TARGET local
+//! coordinates; a match counts for a pose when the pose brings its keypoints within the inlier
+//! threshold τ.
 
 use super::consensus::{self, Hypothesis, Pairs};
 use super::equivariant;

@@ -91,8 +91,8 @@ fn nearest_both(a: &[f32], b: &[f32], dim: usize, count: usize) -> Near {
     (rows, cols)
 }
 
-/// Nearest over `(count)`-th nearest distance, from squared distances (0 when the farther is
-/// infinite, i.e. fewer rows than asked; 1 when both are zero).
+/// Nearest over a farther neighbour's feature distance, from the two squared distances (0 when
+/// the farther is infinite, i.e. fewer rows than asked; 1 when both are zero).
 fn distance_ratio(d1: f32, dk: f32) -> f32 {
     if dk > 0.0 && dk.is_finite() {
         (d1 / dk).sqrt()
@@ -261,7 +261,7 @@ mod tests {
     }
 
     /// A source row with two equally near target rows (a symmetric twin) fails the ratio test
-    /// but gives both pairs among the 2-nearest pairs; a row with no distinct third row does not.
+    /// but gives both pairs among the 2-nearest pairs; with k = 1 there are none.
     #[test]
     fn twin_rows_give_both_pairs_among_the_neighbours() {
         let src = [0.0f32, 0.0, 5.0, 5.0];
