@@ -7,7 +7,9 @@
 //! `radius` automatic voxels when that key comes first, else the method's default in new
 //! voxels), `inner` / `third` ([`Tuning::inner_radius_share`], [`Tuning::third_radius_share`]),
 //! `ambiguity` ([`Tuning::rotation_ambiguity_margin`]), `version` (descriptor version),
-//! `min_keep`, `max_keep`, `ratio`, `neighbours`, `explain` (0 or 1) (matching), `pool`, `interleave` (0 or 1; ranking), `icp_sample`, `coarse_tolerance`.
+//! `min_keep`, `max_keep`, `ratio`, `neighbours` (matching), `explain`, `interleave` (0 or 1),
+//! `pool` (hypotheses and ranking: DEVELOPERS.md, Registration, "Hypotheses: where the truth
+//! is found"), `icp_sample`, `coarse_tolerance`.
 
 use equiscan::Cloud;
 use equiscan::align::prepared_scan::pair_voxel;
