@@ -2,16 +2,21 @@
 //! pose hypotheses they propose, each scored by the matches it explains.
 //!
 //! Matching ([`super::matching`]) keeps nearest neighbours in descriptor space that pass the
-//! mutual check and the ratio test. The harmonic method turns every match into one pose (two
-//! for a locally symmetric neighbourhood) from the equivariant coefficients
-//! ([`super::equivariant::hypotheses`]); the FPFH baseline draws 3-point RANSAC samples
-//! ([`super::consensus::ransac`]). Poses map SOURCE local into TARGET local coordinates; a
-//! match counts for a pose when the pose brings its keypoints within the inlier threshold τ.
+//! mutual check and the ratio test; with [`super::tuning::Tuning::match_neighbours`] `k` ≥ 2,
+//! the pairs of each keypoint with its `k` nearest rows (ratio test against the (k+1)-th) also
+//! propose and score hypotheses, so that the true match of a keypoint whose symmetric twin is
+//! as near still proposes the true pose; the verdict's figures count the kept matches only
+//! (unless [`super::tuning::Tuning::neighbours_explain`]). The harmonic method turns every
+//! match into one pose (two for a locally symmetric neighbourhood) from the equivariant
+//! coefficients ([`super::equivariant::hypotheses`]); the FPFH baseline draws 3-point RANSAC
+//! samples ([`super::consensus::ransac`]). Poses map SOURCE local into TARGET local
+//! coordinates; a match counts for a pose when the pose brings its keypoints within the inlier
+//! threshold τ.
 
 use super::consensus::{self, Hypothesis, Pairs};
 use super::equivariant;
 use super::evidence::Distinctive;
-use super::matching::{Correspondence, MatchParams, match_features_with_nearest};
+use super::matching::{Correspondence, MatchParams, match_features_with_neighbours};
 use super::pipeline::{AlignParams, Method};
 use super::prepared_scan::PreparedScan;
 
@@ -23,13 +28,18 @@ pub struct Matches {
     pub pairs: Pairs,
     /// The distinctive SOURCE keypoints, weighted (see [`super::evidence`]).
     pub distinctive: Distinctive,
+    /// The kept matches followed by the k-nearest pairs
+    /// ([`super::matching::Matched::neighbours`]): the pairs that propose and score hypotheses.
+    pub proposing: Vec<Correspondence>,
+    /// The end points of `proposing`, in the same order.
+    pub proposing_pairs: Pairs,
 }
 
 /// Matches the descriptor rows of `source` against those of `target` with the matching values
 /// of `params.tuning`.
 pub fn matches(source: &PreparedScan, target: &PreparedScan, params: &AlignParams) -> Matches {
     let tu = &params.tuning;
-    let (correspondences, nearest) = match_features_with_nearest(
+    let found = match_features_with_neighbours(
         &source.descriptors.rows,
         &target.descriptors.rows,
         source.descriptors.dim,
@@ -39,16 +49,24 @@ pub fn matches(source: &PreparedScan, target: &PreparedScan, params: &AlignParam
             min_keep: tu.match_min_keep,
             max_keep: tu.match_max_keep,
         },
+        tu.match_neighbours,
     );
+    let correspondences = found.kept;
     let pairs = Pairs::new(&source.keypoints, &target.keypoints, &correspondences);
+    let mut proposing = correspondences.clone();
+    proposing.extend(found.neighbours);
+    let proposing_pairs = Pairs::new(&source.keypoints, &target.keypoints, &proposing);
     Matches {
         correspondences,
         pairs,
-        distinctive: Distinctive::new(&nearest, tu.match_max_ratio),
+        distinctive: Distinctive::new(&found.nearest, tu.match_max_ratio),
+        proposing,
+        proposing_pairs,
     }
 }
 
-/// Pose hypotheses from the matches, each with the number of matches it explains within `tau`.
+/// Pose hypotheses from the proposing pairs, each with the number of them it explains within
+/// `tau`.
 pub fn propose(
     source: &PreparedScan,
     target: &PreparedScan,
@@ -57,22 +75,25 @@ pub fn propose(
     tau: f64,
 ) -> Vec<Hypothesis> {
     match params.method {
-        Method::Fpfh => {
-            consensus::ransac(&matches.pairs, tau, params.ransac_iterations, params.seed)
-        }
+        Method::Fpfh => consensus::ransac(
+            &matches.proposing_pairs,
+            tau,
+            params.ransac_iterations,
+            params.seed,
+        ),
         Method::Equivariant => {
             let tu = &params.tuning;
             let searcher =
                 equivariant::searcher(tu.descriptor_degree, tu.rotation_ambiguity_margin);
             let poses = equivariant::hypotheses(
-                &matches.correspondences,
+                &matches.proposing,
                 &source.keypoints,
                 &target.keypoints,
                 &source.descriptors,
                 &target.descriptors,
                 &searcher,
             );
-            consensus::score(&matches.pairs, &poses, tau)
+            consensus::score(&matches.proposing_pairs, &poses, tau)
         }
     }
 }

@@ -36,13 +36,15 @@ pub struct MatchParams {
 
 const BLOCK: usize = 128;
 
-/// Nearest/second-nearest per row of `a` among the rows of `b`, and the nearest row of `a` per
-/// row of `b`, from one pass over the distance matrix. Squared distances are formed as
-/// `|a|² + |b|² − 2 a·b` with a blocked matrix product (f32), clamped at zero; blocks are
-/// combined in order, so the result does not depend on the thread count.
-type Near = (Vec<(u32, f32, f32)>, Vec<(u32, f32)>);
+/// The `count` nearest rows of `b` per row of `a` (flat, `count` entries per row, nearest
+/// first, `(row of b, squared distance)`; missing entries are `(0, ∞)`), and the nearest row of
+/// `a` per row of `b`, from one pass over the distance matrix. Squared distances are formed as
+/// `|a|² + |b|² − 2 a·b` with a blocked matrix product (f32), clamped at zero; ties keep the
+/// lower index and blocks are combined in order, so the result does not depend on the thread
+/// count.
+type Near = (Vec<(u32, f32)>, Vec<(u32, f32)>);
 
-fn nearest_both(a: &[f32], b: &[f32], dim: usize) -> Near {
+fn nearest_both(a: &[f32], b: &[f32], dim: usize, count: usize) -> Near {
     let m = b.len() / dim;
     let bm = DMatrix::from_column_slice(dim, m, b);
     let bn: Vec<f32> = b
@@ -57,16 +59,16 @@ fn nearest_both(a: &[f32], b: &[f32], dim: usize) -> Near {
             let n = chunk.len() / dim;
             let am = DMatrix::from_column_slice(dim, n, chunk);
             let dots = am.transpose() * &bm;
-            let mut rows = vec![(0u32, f32::INFINITY, f32::INFINITY); n];
+            let mut rows = vec![(0u32, f32::INFINITY); n * count];
             let mut cols = vec![(0u32, f32::INFINITY); m];
-            for (k, s) in rows.iter_mut().enumerate() {
+            for (k, s) in rows.chunks_exact_mut(count).enumerate() {
                 let an: f32 = chunk[k * dim..(k + 1) * dim].iter().map(|x| x * x).sum();
                 for j in 0..m {
                     let d = (an + bn[j] - 2.0 * dots[(k, j)]).max(0.0);
-                    if d < s.1 {
-                        *s = (j as u32, d, s.1);
-                    } else if d < s.2 {
-                        s.2 = d;
+                    if d < s[count - 1].1 {
+                        let at = s.iter().position(|e| d < e.1).unwrap_or(count - 1);
+                        s.copy_within(at..count - 1, at + 1);
+                        s[at] = (j as u32, d);
                     }
                     if d < cols[j].1 {
                         cols[j] = ((start + k) as u32, d);
@@ -76,7 +78,7 @@ fn nearest_both(a: &[f32], b: &[f32], dim: usize) -> Near {
             (rows, cols)
         })
         .collect();
-    let mut rows = Vec::with_capacity(a.len() / dim);
+    let mut rows = Vec::with_capacity(a.len() / dim * count);
     let mut cols = vec![(0u32, f32::INFINITY); m];
     for (r, c) in blocks {
         rows.extend(r);
@@ -89,6 +91,18 @@ fn nearest_both(a: &[f32], b: &[f32], dim: usize) -> Near {
     (rows, cols)
 }
 
+/// Nearest over a farther neighbour's feature distance, from the two squared distances (0 when
+/// the farther is infinite, i.e. fewer rows than asked; 1 when both are zero).
+fn distance_ratio(d1: f32, dk: f32) -> f32 {
+    if dk > 0.0 && dk.is_finite() {
+        (d1 / dk).sqrt()
+    } else if d1 == 0.0 && dk == 0.0 {
+        1.0
+    } else {
+        0.0
+    }
+}
+
 /// Matches source feature rows to target feature rows. Deterministic; ties keep the lower index.
 pub fn match_features(
     source: &[f32],
@@ -96,35 +110,56 @@ pub fn match_features(
     dim: usize,
     params: &MatchParams,
 ) -> Vec<Correspondence> {
-    match_features_with_nearest(source, target, dim, params).0
+    match_features_with_neighbours(source, target, dim, params, 1).kept
 }
 
-/// [`match_features`], and for every source row (in order) its nearest target row with the
-/// squared distances to the nearest and second-nearest target rows `(target, d₁², d₂²)`.
-pub fn match_features_with_nearest(
+/// The matches of [`match_features_with_neighbours`].
+pub struct Matched {
+    /// The pairs that pass the filters of [`MatchParams`], most distinctive first.
+    pub kept: Vec<Correspondence>,
+    /// For every source row (in order) its nearest target row with the squared distances to
+    /// the nearest and second-nearest target rows `(target, d₁², d₂²)`.
+    pub nearest: Vec<(u32, f32, f32)>,
+    /// Pairs of each source row with each of its `k` nearest target rows that are not in
+    /// `kept`, for rows whose nearest over (k+1)-th nearest distance is at most
+    /// [`MatchParams::max_ratio`] (`ratio` holds that figure), most distinctive first, at most
+    /// [`MatchParams::max_keep`]. A keypoint on a part with a near-symmetry has its true
+    /// match and the symmetric twin about equally near, so the plain ratio test drops both;
+    /// against the (k+1)-th row it keeps them. Empty for `k` ≤ 1.
+    pub neighbours: Vec<Correspondence>,
+}
+
+/// [`match_features`], the nearest target rows of every source row, and the pairs of each
+/// source row with its `k` nearest target rows ([`Matched::neighbours`]).
+pub fn match_features_with_neighbours(
     source: &[f32],
     target: &[f32],
     dim: usize,
     params: &MatchParams,
-) -> (Vec<Correspondence>, Vec<(u32, f32, f32)>) {
+    k: usize,
+) -> Matched {
     if dim == 0 || source.len() < dim || target.len() < dim {
-        return (Vec::new(), Vec::new());
+        return Matched {
+            kept: Vec::new(),
+            nearest: Vec::new(),
+            neighbours: Vec::new(),
+        };
     }
-    let (fwd, back) = nearest_both(source, target, dim);
-    let mut all: Vec<Correspondence> = fwd
+    let count = k.max(1) + 1;
+    let (fwd, back) = nearest_both(source, target, dim, count);
+    let mutual = |i: usize, j: u32| back[j as usize].0 == i as u32;
+    let nearest: Vec<(u32, f32, f32)> = fwd
+        .chunks_exact(count)
+        .map(|r| (r[0].0, r[0].1, r[1].1))
+        .collect();
+    let mut all: Vec<Correspondence> = nearest
         .iter()
         .enumerate()
         .map(|(i, &(j, d1, d2))| Correspondence {
             source: i as u32,
             target: j,
-            ratio: if d2 > 0.0 && d2.is_finite() {
-                (d1 / d2).sqrt()
-            } else if d1 == 0.0 && d2 == 0.0 {
-                1.0
-            } else {
-                0.0
-            },
-            mutual: back[j as usize].0 == i as u32,
+            ratio: distance_ratio(d1, d2),
+            mutual: mutual(i, j),
         })
         .collect();
     all.sort_by(|a, b| a.ratio.total_cmp(&b.ratio).then(a.source.cmp(&b.source)));
@@ -137,7 +172,35 @@ pub fn match_features_with_nearest(
         keep.sort_by(|a, b| a.ratio.total_cmp(&b.ratio).then(a.source.cmp(&b.source)));
     }
     keep.truncate(params.max_keep);
-    (keep, fwd)
+    let mut neighbours = Vec::new();
+    if k > 1 {
+        let taken: std::collections::HashSet<(u32, u32)> =
+            keep.iter().map(|c| (c.source, c.target)).collect();
+        for (i, row) in fwd.chunks_exact(count).enumerate() {
+            let ratio = distance_ratio(row[0].1, row[k].1);
+            if ratio > params.max_ratio {
+                continue;
+            }
+            for &(j, d) in &row[..k] {
+                if d.is_finite() && !taken.contains(&(i as u32, j)) {
+                    neighbours.push(Correspondence {
+                        source: i as u32,
+                        target: j,
+                        ratio,
+                        mutual: mutual(i, j),
+                    });
+                }
+            }
+        }
+        // Stable: equal ratios keep source order, then nearness order.
+        neighbours.sort_by(|a, b| a.ratio.total_cmp(&b.ratio));
+        neighbours.truncate(params.max_keep);
+    }
+    Matched {
+        kept: keep,
+        nearest,
+        neighbours,
+    }
 }
 
 #[cfg(test)]
@@ -167,7 +230,7 @@ mod tests {
         let mut rng = crate::so3::rng::SplitMix64::new(11);
         let a: Vec<f32> = (0..200 * 5).map(|_| rng.next_f64() as f32).collect();
         let b: Vec<f32> = (0..150 * 5).map(|_| rng.next_f64() as f32).collect();
-        let (near, back) = nearest_both(&a, &b, 5);
+        let (near, back) = nearest_both(&a, &b, 5, 2);
         for (i, ra) in a.chunks(5).enumerate() {
             let mut d: Vec<(f32, usize)> = b
                 .chunks(5)
@@ -175,8 +238,8 @@ mod tests {
                 .map(|(j, rb)| (ra.iter().zip(rb).map(|(x, y)| (x - y) * (x - y)).sum(), j))
                 .collect();
             d.sort_by(|x, y| x.0.total_cmp(&y.0).then(x.1.cmp(&y.1)));
-            assert_eq!(near[i].0 as usize, d[0].1, "seed 11 row {i}");
-            assert!((near[i].2 - d[1].0).abs() < 1e-5, "seed 11 row {i}");
+            assert_eq!(near[2 * i].0 as usize, d[0].1, "seed 11 row {i}");
+            assert!((near[2 * i + 1].1 - d[1].0).abs() < 1e-5, "seed 11 row {i}");
         }
         for (j, rb) in b.chunks(5).enumerate() {
             let best = a
@@ -194,6 +257,56 @@ mod tests {
                 .min_by(|x, y| x.0.total_cmp(&y.0).then(x.1.cmp(&y.1)))
                 .unwrap();
             assert_eq!(back[j].0 as usize, best.1, "seed 11 column {j}");
+        }
+    }
+
+    /// A source row with two equally near target rows (a symmetric twin) fails the ratio test
+    /// but gives both pairs among the 2-nearest pairs; with k = 1 there are none.
+    #[test]
+    fn twin_rows_give_both_pairs_among_the_neighbours() {
+        let src = [0.0f32, 0.0, 5.0, 5.0];
+        // Target rows 0 and 1 are twins of source row 0; row 2 matches source row 1.
+        let tgt = [0.1f32, 0.0, -0.1, 0.0, 5.0, 5.0, 9.0, -9.0];
+        let params = MatchParams {
+            max_ratio: 0.9,
+            mutual: true,
+            min_keep: 0,
+            max_keep: 100,
+        };
+        let m = match_features_with_neighbours(&src, &tgt, 2, &params, 2);
+        let kept: Vec<(u32, u32)> = m.kept.iter().map(|c| (c.source, c.target)).collect();
+        assert_eq!(kept, vec![(1, 2)]);
+        let extra: Vec<(u32, u32)> = m.neighbours.iter().map(|c| (c.source, c.target)).collect();
+        // Source row 1 (its nearest kept, its third row ≈ 7.1 away): its second row (target 0)
+        // comes first with ratio 0; then source row 0: target rows 0 and 1 at 0.1 against its
+        // third (target 2) at ≈ 7.1, ratio ≈ 0.014. Every row that passes brings its k − 1
+        // next rows as well.
+        assert_eq!(extra, vec![(1, 0), (0, 0), (0, 1)]);
+        assert!(m.neighbours[1].ratio < 0.02);
+        assert!(
+            match_features_with_neighbours(&src, &tgt, 2, &params, 1)
+                .neighbours
+                .is_empty()
+        );
+        // The k nearest rows against a sorted brute-force list (seed 12).
+        let mut rng = crate::so3::rng::SplitMix64::new(12);
+        let a: Vec<f32> = (0..130 * 4).map(|_| rng.next_f64() as f32).collect();
+        let b: Vec<f32> = (0..90 * 4).map(|_| rng.next_f64() as f32).collect();
+        let (near, _) = nearest_both(&a, &b, 4, 3);
+        for (i, ra) in a.chunks(4).enumerate() {
+            let mut d: Vec<(f32, usize)> = b
+                .chunks(4)
+                .enumerate()
+                .map(|(j, rb)| (ra.iter().zip(rb).map(|(x, y)| (x - y) * (x - y)).sum(), j))
+                .collect();
+            d.sort_by(|x, y| x.0.total_cmp(&y.0).then(x.1.cmp(&y.1)));
+            for r in 0..3 {
+                assert_eq!(
+                    near[3 * i + r].0 as usize,
+                    d[r].1,
+                    "seed 12 row {i} rank {r}"
+                );
+            }
         }
     }
 }

@@ -284,11 +284,23 @@ fn register_traced(
         Some(_) => proposed.iter().map(|h| file(&h.transform)).collect(),
         None => Vec::new(),
     };
-    let ranked = rank::rank(proposed, &found.pairs, source, target, &params.tuning, tau);
+    // The pairs whose explanation the refined poses and the verdict count.
+    let explaining = match params.tuning.neighbours_explain {
+        true => (&found.proposing_pairs, found.proposing.len()),
+        false => (&found.pairs, found.correspondences.len()),
+    };
+    let ranked = rank::rank(
+        proposed,
+        &found.proposing_pairs,
+        source,
+        target,
+        &params.tuning,
+        tau,
+    );
     clock.lap("hypotheses");
     let mut polished = refine::coarse(
         &ranked,
-        &found.pairs,
+        explaining.0,
         &found.distinctive,
         source,
         target,
@@ -298,7 +310,7 @@ fn register_traced(
     let coarse_count = polished.len();
     let slid = slides::parallel_slides(
         &polished,
-        &found.pairs,
+        explaining.0,
         &found.distinctive,
         source,
         target,
@@ -326,8 +338,8 @@ fn register_traced(
     let judged = judge::judge(
         &refined,
         &ranked,
-        &found.pairs,
-        found.correspondences.len(),
+        explaining.0,
+        explaining.1,
         source,
         target,
         params,

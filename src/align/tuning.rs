@@ -36,8 +36,22 @@ pub struct Tuning {
     pub match_min_keep: usize,
     /// Most matches kept (most distinctive first).
     pub match_max_keep: usize,
+    /// Besides the kept matches, the pairs of each SOURCE keypoint with its this many nearest
+    /// TARGET rows propose and score hypotheses (ratio test against the next row; at most
+    /// [`Tuning::match_max_keep`] more; 1: none, [`super::matching::Matched::neighbours`]).
+    pub match_neighbours: usize,
+    /// The matches a refined pose explains (ranking of the refined poses, rivalry, verdict)
+    /// are counted among the kept matches and the k-nearest pairs of
+    /// [`Tuning::match_neighbours`] instead of the kept matches alone.
+    pub neighbours_explain: bool,
     /// Distinct hypotheses re-ranked by overlap.
     pub shortlist: usize,
+    /// When above [`Tuning::shortlist`], this many distinct hypotheses are refined on their
+    /// inliers before the shortlist is cut from them ([`super::rank::rank`]).
+    pub shortlist_pool: usize,
+    /// The ranked order alternates between the best on the surface and the best by support
+    /// ([`super::rank::rank`]).
+    pub rank_interleave: bool,
     /// Two poses are the same when their rotations differ by less than this, degrees, and …
     pub distinct_angle_deg: f64,
     /// … their translations by less than this, in inlier thresholds τ.
@@ -148,7 +162,11 @@ impl Default for Tuning {
             match_mutual: true,
             match_min_keep: 300,
             match_max_keep: 3000,
+            match_neighbours: 1,
+            neighbours_explain: false,
             shortlist: 40,
+            shortlist_pool: 40,
+            rank_interleave: false,
             distinct_angle_deg: 10.0,
             distinct_distance_taus: 5.0,
             inlier_refine_rounds: 4,

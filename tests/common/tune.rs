@@ -7,8 +7,10 @@
 //! `radius` automatic voxels when that key comes first, else the method's default in new
 //! voxels), `inner` / `third` ([`Tuning::inner_radius_share`], [`Tuning::third_radius_share`]),
 //! `ambiguity` ([`Tuning::rotation_ambiguity_margin`]), `version` (descriptor version),
-//! `min_keep`, `max_keep`, `ratio` (matching), `icp_sample`, `coarse_tolerance`, `self_maps`,
-//! `self_queries`, `self_overlap` (near-self-symmetries, [`Tuning::self_maps`] …).
+//! `min_keep`, `max_keep`, `ratio`, `neighbours` (matching), `explain`, `interleave` (0 or 1),
+//! `pool` (hypotheses and ranking: DEVELOPERS.md, Registration, "Hypotheses: where the truth
+//! is found"), `icp_sample`, `coarse_tolerance`, `self_maps`, `self_queries`, `self_overlap`
+//! (near-self-symmetries, [`Tuning::self_maps`] …).
 
 use equiscan::Cloud;
 use equiscan::align::prepared_scan::pair_voxel;
@@ -38,6 +40,10 @@ pub fn tuned(mut params: AlignParams, source: &Cloud, target: &Cloud) -> AlignPa
             "min_keep" => tu.match_min_keep = x as usize,
             "max_keep" => tu.match_max_keep = x as usize,
             "ratio" => tu.match_max_ratio = x as f32,
+            "neighbours" => tu.match_neighbours = x as usize,
+            "pool" => tu.shortlist_pool = x as usize,
+            "interleave" => tu.rank_interleave = x != 0.0,
+            "explain" => tu.neighbours_explain = x != 0.0,
             "icp_sample" => tu.icp_sample = x as usize,
             "coarse_tolerance" => tu.icp_coarse_tolerance = x,
             "rival_overlap" => tu.rival_overlap_share = x,
