@@ -40,18 +40,14 @@ pub struct Judgement {
     pub candidates: Vec<Candidate>,
 }
 
-/// A distinct pose whose consistent overlap is at least this share of the answer's has real
-/// support of its own and is listed whatever its matches say: on the benchmark the true pose of
-/// a stacked pair, when it is refined at all, lays nearly as much of SOURCE on TARGET as the
-/// stacked answer but explains only 3–9 matches against its 18–42 (DEVELOPERS.md, "Rival
-/// poses").
-pub const LIST_OVERLAP_SHARE: f64 = 0.8;
-
 /// How strongly `other` is listed beside `best`: its `rivalry`, or, when its consistent overlap
-/// is at least [`LIST_OVERLAP_SHARE`] of the best's, that share (at most 1) if larger.
-fn listing_weight(other: &Scored, best: &Scored, rivalry: f64) -> f64 {
+/// is at least `share_floor` ([`super::Tuning::list_overlap_share`]) of the best's, that share
+/// (at most 1) if larger. On the benchmark the true pose of a stacked pair, when it is refined
+/// at all, lays nearly as much of SOURCE on TARGET as the stacked answer but explains only 3–9
+/// matches against its 18–42 (DEVELOPERS.md, "Rival poses"), so its rivalry alone is low.
+fn listing_weight(other: &Scored, best: &Scored, rivalry: f64, share_floor: f64) -> f64 {
     let share = other.consistent_overlap() / best.consistent_overlap().max(f64::MIN_POSITIVE);
-    if share >= LIST_OVERLAP_SHARE {
+    if share >= share_floor {
         rivalry.max(share.min(1.0))
     } else {
         rivalry
@@ -98,7 +94,11 @@ pub fn judge(
     let rival = rivals.get(1).map_or(0.0, |r| r.1);
     // Listed: the answer, then the rivals by listing weight (rivalry, or the overlap share of a
     // pose with real support of its own, [`listing_weight`]) down to `list_rivalry`.
-    let weight = |i: usize, r: f64| best.map_or(r, |b| listing_weight(&polished[i], &b, r));
+    let weight = |i: usize, r: f64| {
+        best.map_or(r, |b| {
+            listing_weight(&polished[i], &b, r, tu.list_overlap_share)
+        })
+    };
     let mut by_weight: Vec<(usize, f64, f64)> = rivals
         .iter()
         .skip(1)

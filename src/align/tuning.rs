@@ -105,6 +105,10 @@ pub struct Tuning {
     /// Rivals listed as candidates come at least this close to the best (see
     /// [`super::candidates::rivalry`]).
     pub list_rivalry: f64,
+    /// A distinct pose whose consistent overlap is at least this share of the answer's has
+    /// real support of its own and is listed whatever its matches say (weight: that share);
+    /// see `judge::listing_weight`.
+    pub list_overlap_share: f64,
     /// A listed rival whose consistent overlap (tight overlap less the free-space penalty) is at
     /// least this share of the answer's, and which explains at least
     /// [`Tuning::rival_match_share`] of the answer's matches, has real support of its own: the
@@ -188,6 +192,7 @@ impl Default for Tuning {
             slide_min_share: 0.3,
             candidates: 5,
             list_rivalry: 0.3,
+            list_overlap_share: 0.8,
             rival_overlap_share: 0.9,
             rival_match_share: 0.25,
             rmse_pairing_spacings: 3.0,

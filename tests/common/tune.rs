@@ -8,7 +8,7 @@
 //! voxels), `inner` / `third` ([`Tuning::inner_radius_share`], [`Tuning::third_radius_share`]),
 //! `ambiguity` ([`Tuning::rotation_ambiguity_margin`]), `version` (descriptor version),
 //! `min_keep`, `max_keep`, `ratio`, `neighbours` (matching), `explain`, `interleave` (0 or 1),
-//! `pool` (hypotheses and ranking: DEVELOPERS.md, Registration, "Hypotheses: where the truth
+//! `list`, `list_share` ([`Tuning::list_rivalry`], [`Tuning::list_overlap_share`]), `pool` (hypotheses and ranking: DEVELOPERS.md, Registration, "Hypotheses: where the truth
 //! is found"), `icp_sample`, `coarse_tolerance`, `self_maps`, `self_queries`, `self_overlap`
 //! (near-self-symmetries, [`Tuning::self_maps`] …).
 
@@ -46,6 +46,8 @@ pub fn tuned(mut params: AlignParams, source: &Cloud, target: &Cloud) -> AlignPa
             "explain" => tu.neighbours_explain = x != 0.0,
             "icp_sample" => tu.icp_sample = x as usize,
             "coarse_tolerance" => tu.icp_coarse_tolerance = x,
+            "list" => tu.list_rivalry = x,
+            "list_share" => tu.list_overlap_share = x,
             "rival_overlap" => tu.rival_overlap_share = x,
             "rival_matches" => tu.rival_match_share = x,
             "self_maps" => tu.self_maps = x as usize,
