@@ -8,7 +8,8 @@
 //! voxels), `inner` / `third` ([`Tuning::inner_radius_share`], [`Tuning::third_radius_share`]),
 //! `ambiguity` ([`Tuning::rotation_ambiguity_margin`]), `version` (descriptor version),
 //! `min_keep`, `max_keep`, `ratio`, `neighbours` (matching), `explain`, `interleave` (0 or 1),
-//! `list`, `list_share` ([`Tuning::list_rivalry`], [`Tuning::list_overlap_share`]), `pool` (hypotheses and ranking: DEVELOPERS.md, Registration, "Hypotheses: where the truth
+//! `list`, `list_share` ([`Tuning::list_rivalry`], [`Tuning::list_overlap_share`]),
+//! `distinct_angle`, `distinct_taus` ([`Tuning::distinct_angle_deg`] and its distance), `pool` (hypotheses and ranking: DEVELOPERS.md, Registration, "Hypotheses: where the truth
 //! is found"), `icp_sample`, `coarse_tolerance`, `self_maps`, `self_queries`, `self_overlap`
 //! (near-self-symmetries, [`Tuning::self_maps`] …).
 
@@ -47,6 +48,8 @@ pub fn tuned(mut params: AlignParams, source: &Cloud, target: &Cloud) -> AlignPa
             "icp_sample" => tu.icp_sample = x as usize,
             "coarse_tolerance" => tu.icp_coarse_tolerance = x,
             "list" => tu.list_rivalry = x,
+            "distinct_angle" => tu.distinct_angle_deg = x,
+            "distinct_taus" => tu.distinct_distance_taus = x,
             "list_share" => tu.list_overlap_share = x,
             "rival_overlap" => tu.rival_overlap_share = x,
             "rival_matches" => tu.rival_match_share = x,
