@@ -628,3 +628,29 @@ fn benchmark_diagnosis() {
         println!("{line}");
     }
 }
+
+/// The self-maps of a scan of the symmetric plate seen from nearly straight above
+/// (`symmetry::self_maps`, off by default and switched on here): among them the half turn
+/// about the plate's normal, which lays the scan on itself (the plate's two-fold symmetry
+/// is the generator's construction, tests/common/shapes.rs).
+#[test]
+fn the_half_turn_of_a_symmetric_plate_is_one_of_its_self_maps() {
+    use equiscan::align::prepared_scan::{PreparedScan, pair_voxel};
+    use equiscan::align::symmetry::self_maps;
+    let [plate, _] = test_shapes();
+    let c = plate.centre();
+    let up = Vector3::new(0.05, 0.0, 1.0).normalize() * 300.0;
+    let other = Vector3::new(-0.12, 0.05, 1.0).normalize() * 300.0;
+    let p = pair_from(&plate, [c + up, c + other], 12_000, 0.001, 7);
+    let mut params = AlignParams::default();
+    params.tuning.self_maps = 3;
+    let voxel = pair_voxel(&params, ("source", &p.source), ("target", &p.target)).unwrap();
+    let scan = PreparedScan::prepare("target", &p.target, &params, voxel).unwrap();
+    let maps = self_maps(&scan, &params, params.inlier_voxels * voxel);
+    let angles: Vec<f64> = maps.iter().map(|m| m.angle_deg()).collect();
+    eprintln!("self-map angles {angles:?}");
+    assert!(
+        angles.iter().any(|a| (a - 180.0).abs() < 5.0),
+        "no half turn among {angles:?}"
+    );
+}

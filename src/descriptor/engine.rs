@@ -177,17 +177,26 @@ impl PreparedCloud<'_> {
         }
     }
 
-    /// The number of points `q` with `|q − p| ≤ r` (the cell grid's distance when `r` is
-    /// within its cells, else the k-d tree's, built here when the cloud has none): for
-    /// estimates; the engine's own neighbour test is [`Engine`]'s.
+    /// For each of `centres`, the number of points `q` with `|q − p| ≤ r` (the cell grid's
+    /// distance when `r` is within its cells, else the k-d tree's, built here once when the
+    /// cloud has none): for estimates; the engine's own neighbour test is [`Engine`]'s.
     ///
     /// # Errors
     /// When a tree must be built and cannot be ([`KdIndex::new`]).
-    pub fn count_within(&self, p: [f32; 3], r: f32) -> Result<usize> {
+    pub fn counts_within(
+        &self,
+        centres: impl Iterator<Item = [f32; 3]>,
+        r: f32,
+    ) -> Result<Vec<usize>> {
         if let Some(g) = self.grid.as_ref().filter(|g| r <= g.cell()) {
-            let mut ids = Vec::new();
-            g.within(p, r, &mut GridQuery::default(), &mut ids);
-            return Ok(ids.len());
+            let (mut ids, mut query) = (Vec::new(), GridQuery::default());
+            return Ok(centres
+                .map(|p| {
+                    ids.clear();
+                    g.within(p, r, &mut query, &mut ids);
+                    ids.len()
+                })
+                .collect());
         }
         let built;
         let index = match self.index() {
@@ -197,9 +206,13 @@ impl PreparedCloud<'_> {
                 &built
             }
         };
-        let mut c = 0;
-        index.for_each_within(p, r, |_, _| c += 1);
-        Ok(c)
+        Ok(centres
+            .map(|p| {
+                let mut c = 0;
+                index.for_each_within(p, r, |_, _| c += 1);
+                c
+            })
+            .collect())
     }
 }
 

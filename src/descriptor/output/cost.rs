@@ -39,7 +39,7 @@ impl Cost {
 }
 
 /// Estimates the cost of `recipe` at `centres` of the prepared cloud on `threads` workers,
-/// from the neighbours of up to 64 evenly spaced centres ([`PreparedCloud::count_within`]).
+/// from the neighbours of up to 64 evenly spaced centres ([`PreparedCloud::counts_within`]).
 ///
 /// # Errors
 /// When counting needs a k-d tree that cannot be built.
@@ -60,10 +60,7 @@ pub fn estimate(
         }
     };
     let step = n.div_ceil(SAMPLE).max(1);
-    let counts = (0..n)
-        .step_by(step)
-        .map(|k| cloud.count_within(at(k), r))
-        .collect::<Result<Vec<usize>>>()?;
+    let counts = cloud.counts_within((0..n).step_by(step).map(at), r)?;
     let mean = counts.iter().sum::<usize>() as f64 / counts.len().max(1) as f64;
     let max = counts.iter().copied().max().unwrap_or(0);
     let used = recipe.max_neighbours().map_or(mean, |k| mean.min(k as f64));
