@@ -27,6 +27,7 @@ mod atomic;
 pub mod crs;
 mod csv;
 pub mod describe;
+mod direct;
 mod e57;
 pub mod guard;
 mod las;
@@ -51,6 +52,7 @@ pub use atomic::{
     write_atomic,
 };
 pub use csv::write_csv;
+pub use direct::DirectAppend;
 pub use e57::split_scan;
 pub use las::{LasOptions, LasRowWriter, MAX_LAS_COLUMNS, write_las, write_las_with};
 pub use npy::{npy_header, write_npy, write_npy_with_sidecar};

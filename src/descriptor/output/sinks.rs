@@ -7,7 +7,7 @@ use rayon::prelude::*;
 use crate::cloud::Cloud;
 use crate::descriptor::Features;
 use crate::error::{Error, Result};
-use crate::io::{Finished, LasRowWriter, PlyLayout, TempFile, npy_header};
+use crate::io::{DirectAppend, Finished, LasRowWriter, PlyLayout, TempFile, npy_header};
 
 use super::parquet::ParquetSink;
 use super::{CentreList, FileSpec, Format, las_options, push_row, row_parts};
@@ -45,8 +45,9 @@ pub(super) struct Hashed {
     file: TempFile,
     crc: crc32fast::Hasher,
     bytes: u64,
-    /// Rows encoded before they are written (NPY), reused between chunks.
-    buffer: Vec<u8>,
+    /// NPY: the bytes go to the file in aligned blocks past the page cache
+    /// ([`DirectAppend`]) instead of through the file's buffered writer.
+    direct: Option<DirectAppend>,
 }
 
 impl Hashed {
@@ -55,13 +56,25 @@ impl Hashed {
             file,
             crc: crc32fast::Hasher::new(),
             bytes: 0,
-            buffer: Vec::new(),
+            direct: None,
         }
+    }
+
+    /// A [`Hashed`] whose bytes are appended in blocks past the page cache.
+    fn direct(file: TempFile) -> Result<Self> {
+        let direct = DirectAppend::open(file.temp_path(), file.target())?;
+        Ok(Hashed {
+            direct: Some(direct),
+            ..Hashed::new(file)
+        })
     }
 
     fn put(&mut self, b: &[u8]) -> Result<()> {
         self.crc.update(b);
         self.bytes += b.len() as u64;
+        if let Some(d) = self.direct.as_mut() {
+            return d.append(b);
+        }
         let target = self.file.target().to_path_buf();
         self.file
             .writer()
@@ -69,19 +82,28 @@ impl Hashed {
             .map_err(|e| Error::io(&target, &e))
     }
 
-    /// [`Hashed::put`] of a large block: the bytes go from `b` to the file in one write,
-    /// without a copy into the file's buffer first (which is emptied before).
-    fn put_large(&mut self, b: &[u8]) -> Result<()> {
-        self.crc.update(b);
-        self.bytes += b.len() as u64;
-        let target = self.file.target().to_path_buf();
-        let w = self.file.writer();
-        w.flush()
-            .and_then(|()| w.get_mut().write_all(b))
-            .map_err(|e| Error::io(&target, &e))
+    /// [`Hashed::put`] of the `<f4` bytes of `v`.
+    fn put_f32(&mut self, v: &[f32]) -> Result<()> {
+        #[cfg(target_endian = "little")]
+        {
+            // SAFETY: any f32 is four initialised bytes, u8 has alignment 1, and the length
+            // is the slice's size in bytes; on a little-endian target these are the `<f4`
+            // bytes.
+            self.put(unsafe {
+                std::slice::from_raw_parts(v.as_ptr().cast::<u8>(), std::mem::size_of_val(v))
+            })
+        }
+        #[cfg(not(target_endian = "little"))]
+        {
+            let bytes: Vec<u8> = v.iter().flat_map(|x| x.to_le_bytes()).collect();
+            self.put(&bytes)
+        }
     }
 
     fn done(self) -> Result<Done> {
+        if let Some(d) = self.direct {
+            d.finish()?;
+        }
         Ok(Done::WithSidecar {
             bytes: self.bytes,
             crc32: self.crc.finalize(),
@@ -104,7 +126,7 @@ impl Sink {
         let points = centres.are_points();
         Ok(match spec.format {
             Format::Npy => {
-                let mut h = Hashed::new(TempFile::create(path)?);
+                let mut h = Hashed::direct(TempFile::create(path)?)?;
                 h.put(&npy_header(centres.len(), names.len()))?;
                 Sink::Npy(h)
             }
@@ -161,27 +183,18 @@ impl Sink {
         let point_of = |i: usize| f.indices.as_ref().map(|ix| ix[i]);
         match self {
             Sink::Npy(h) => {
-                // One buffer for the whole file (about 256 KB, kept between chunks); each row
-                // goes straight from the chunk into it ([`row_parts`]), and the buffer straight
-                // to the file (no second copy through the file's own buffer).
-                let mut bytes = std::mem::take(&mut h.buffer);
-                bytes.clear();
+                // Each row goes straight from the chunk into the file's block ([`row_parts`],
+                // [`DirectAppend`]).
                 let mut head = Vec::with_capacity(3 + 2 * f.recipe.scales());
                 for i in 0..f.len() {
                     head.clear();
                     let rest = row_parts(f, i, true, &mut head);
-                    put_f32(&mut bytes, &head);
+                    h.put_f32(&head)?;
                     for part in rest {
-                        put_f32(&mut bytes, part);
-                    }
-                    if bytes.len() >= 1 << 18 {
-                        h.put_large(&bytes)?;
-                        bytes.clear();
+                        h.put_f32(part)?;
                     }
                 }
-                let done = h.put_large(&bytes);
-                h.buffer = bytes;
-                done
+                Ok(())
             }
             Sink::Csv(h) => {
                 // Lines are formatted in parallel and written in order.
@@ -268,20 +281,4 @@ fn attribute_presence(cloud: &Cloud) -> Cloud {
     c.return_number = cloud.return_number.as_ref().map(|_| Vec::new());
     c.gps_time = cloud.gps_time.as_ref().map(|_| Vec::new());
     c
-}
-
-/// Appends `v` to `out` as little-endian f32 (NPY's `<f4`).
-fn put_f32(out: &mut Vec<u8>, v: &[f32]) {
-    #[cfg(target_endian = "little")]
-    {
-        // SAFETY: any f32 is four initialised bytes, u8 has alignment 1, and the length is
-        // the slice's size in bytes; on a little-endian target these are the `<f4` bytes.
-        out.extend_from_slice(unsafe {
-            std::slice::from_raw_parts(v.as_ptr().cast::<u8>(), std::mem::size_of_val(v))
-        });
-    }
-    #[cfg(not(target_endian = "little"))]
-    for x in v {
-        out.extend_from_slice(&x.to_le_bytes());
-    }
 }
