@@ -148,6 +148,107 @@ pub(crate) fn directions_closed(
     }
 }
 
+/// [`directions_closed`] with the radial weights of [`super::kernel::weights`] (the
+/// recurrence of at most eight shells) computed in the same pass, eight neighbours at a time
+/// in registers: the weights `w[n·J + j] = g_n(ρ_j) f_c(ρ_j)` of `n_sh` shells with `ρ = 1`
+/// in the padding lanes `j ≥ count` (as the engine sets them; the harmonics of the padding
+/// keep the unset `ρ`, as in the separate passes), and the returned `Σ_j f_c(ρ_j)` summed
+/// one neighbour at a time in ascending `j`. Same operations in the same order as the two
+/// passes, so the same bits; `ρ` itself is not stored. Folding them saves the weights'
+/// passes over memory, and the sum's chain of dependent additions runs beside the vector
+/// work instead of alone.
+///
+/// # Panics
+/// As [`directions_closed`], and if `n_sh` is not 1 to 8, `count > J` or `w` is shorter than
+/// `n_sh·J`.
+#[target_feature(enable = "avx2,fma")]
+#[allow(clippy::too_many_arguments)]
+pub(crate) fn directions_weights(
+    l_max: usize,
+    inv_r: f32,
+    fade: Option<f32>,
+    n_sh: usize,
+    count: usize,
+    d: [&[f32]; 4],
+    y: &mut [f32],
+    w: &mut [f32],
+) -> f32 {
+    let [dx, dy, dz, d2] = d;
+    let jp = d2.len();
+    let nk = (l_max + 1) * (l_max + 1);
+    assert!(l_max <= 4 && jp.is_multiple_of(LANES));
+    assert!((1..=8).contains(&n_sh) && count <= jp);
+    assert!(dx.len() == jp && dy.len() == jp && dz.len() == jp);
+    assert!(y.len() >= nk * jp && w.len() >= n_sh * jp);
+    let s = _mm256_set1_ps;
+    let one = s(1.0);
+    let inv_r8 = s(inv_r);
+    let nf = s(n_sh as f32);
+    let lane = _mm256_setr_epi32(0, 1, 2, 3, 4, 5, 6, 7);
+    let mut sh = [s(0.0); 25];
+    let mut wsum = 0.0f32;
+    for j0 in (0..jp).step_by(LANES) {
+        // SAFETY: `j0 + 8 ≤ jp` and every slice holds at least `jp` values (asserted above);
+        // the stores to `y` stay below `nk·jp`, those to `w` below `n_sh·jp`.
+        unsafe {
+            let q = _mm256_loadu_ps(d2.as_ptr().add(j0));
+            let dist = _mm256_sqrt_ps(q);
+            let r8 = _mm256_min_ps(_mm256_mul_ps(dist, inv_r8), one);
+            let inv = _mm256_div_ps(one, dist);
+            let x = _mm256_mul_ps(_mm256_loadu_ps(dx.as_ptr().add(j0)), inv);
+            let yv = _mm256_mul_ps(_mm256_loadu_ps(dy.as_ptr().add(j0)), inv);
+            let z = _mm256_mul_ps(_mm256_loadu_ps(dz.as_ptr().add(j0)), inv);
+            closed8(x, yv, z, &mut sh);
+            if let Some(inv_rho0) = fade {
+                let h = fade8(_mm256_mul_ps(r8, s(inv_rho0)));
+                for v in sh[1..nk].iter_mut() {
+                    *v = _mm256_mul_ps(*v, h);
+                }
+            }
+            for (kk, v) in sh[..nk].iter().enumerate() {
+                _mm256_storeu_ps(y.as_mut_ptr().add(kk * jp + j0), *v);
+            }
+            // The weights, at ρ = 1 in the padding lanes.
+            let pad = _mm256_cmpgt_epi32(
+                _mm256_add_epi32(lane, _mm256_set1_epi32(j0 as i32)),
+                _mm256_set1_epi32(count as i32 - 1),
+            );
+            let rw = _mm256_blendv_ps(r8, one, _mm256_castsi256_ps(pad));
+            let fc = cutoff8(rw);
+            let mut f = [0.0f32; LANES];
+            _mm256_storeu_ps(f.as_mut_ptr(), fc);
+            for v in f {
+                wsum += v;
+            }
+            let mut st = exp8(sub!(mul!(rw, nf), one));
+            let a = sub!(mul!(rw, nf), s(0.5));
+            let mut g = exp8(mul!(mul!(s(-0.5), a), a));
+            _mm256_storeu_ps(w.as_mut_ptr().add(j0), mul!(g, fc));
+            for n in 1..n_sh {
+                g = mul!(g, st);
+                st = mul!(st, s(super::kernel::INV_E));
+                _mm256_storeu_ps(w.as_mut_ptr().add(n * jp + j0), mul!(g, fc));
+            }
+        }
+    }
+    wsum
+}
+
+/// The cutoff of [`super::radial::cutoff`] lane by lane, the same operations.
+#[target_feature(enable = "avx2,fma")]
+#[inline]
+fn cutoff8(rho: __m256) -> __m256 {
+    let c = _mm256_set1_ps;
+    let y = mul!(c(std::f32::consts::FRAC_PI_2), sub!(c(1.0), rho));
+    let y2 = mul!(y, y);
+    let mut p = c(-2.505_210_8e-8);
+    for k in [2.755_731_9e-6, -1.984_127e-4, 8.333_333e-3, -1.666_666_7e-1] {
+        p = add!(mul!(p, y2), c(k));
+    }
+    let sv = add!(y, mul!(mul!(y, y2), p));
+    mul!(sv, sv)
+}
+
 /// so3's closed form of the harmonics up to degree 4 (`sh_closed`), operation for operation,
 /// on eight unit directions.
 #[target_feature(enable = "avx2,fma")]

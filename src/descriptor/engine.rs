@@ -798,23 +798,20 @@ impl Engine {
             }
             mo
         };
-        // Directions, their harmonics (so3) and radii, eight neighbours at a time.
-        kernel::directions(
+        // Directions, their harmonics (so3) and radii, eight neighbours at a time, and the
+        // radial weights.
+        let wsum = kernel::directions_weights(
             self.kernel,
             l_max,
             1.0 / r,
             self.fade,
-            dx,
-            dy,
-            dz,
-            d2,
-            &mut s.rho,
+            n_sh,
+            count,
+            [dx, dy, dz, d2],
+            [&mut s.rho, &mut s.fc, &mut s.step],
             &mut s.y,
+            &mut s.w,
         );
-        // Padding lanes sit on the sphere: f_c(1) = 0 exactly, so their weights are 0 and their
-        // cutoffs add exact zeros to the sum.
-        s.rho[count..].fill(1.0);
-        let wsum = kernel::weights(self.kernel, &s.rho, n_sh, &mut s.fc, &mut s.step, &mut s.w);
         kernel::project(
             self.kernel,
             &s.w,

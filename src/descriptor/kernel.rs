@@ -129,7 +129,7 @@ fn weights_impl(
 const RECURRENCE_SHELLS: usize = 8;
 
 /// `1/e`.
-const INV_E: f32 = 0.367_879_44;
+pub(super) const INV_E: f32 = 0.367_879_44;
 
 /// Neighbours are processed in lanes of this many; buffers are padded to a multiple of it.
 pub(crate) const LANES: usize = 8;
@@ -268,6 +268,49 @@ fn directions_impl(
             }
         }
     }
+}
+
+/// [`directions`] of the `J = d2.len()` (padded) neighbours of which the first `count` are
+/// real, then [`weights`] at their `ρ` with `ρ = 1` in the padding: fills `y` and `w` (`rho`,
+/// `fc` and `step` are scratch) and returns `Σ_j f_c(ρ_j)`. On AVX2 with `l_max ≤ 4` and at
+/// most eight shells, one pass computes both ([`super::avx2::directions_weights`], the same
+/// bits).
+#[allow(clippy::too_many_arguments)]
+pub(crate) fn directions_weights(
+    k: Kernel,
+    l_max: usize,
+    inv_r: f32,
+    fade: Option<f32>,
+    n_sh: usize,
+    count: usize,
+    d: [&[f32]; 4],
+    scratch: [&mut Vec<f32>; 3],
+    y: &mut Vec<f32>,
+    w: &mut Vec<f32>,
+) -> f32 {
+    let [rho, fc, step] = scratch;
+    #[cfg(target_arch = "x86_64")]
+    if k == Kernel::Avx2Fma && l_max <= 4 && (1..=RECURRENCE_SHELLS).contains(&n_sh) {
+        let jp = d[3].len();
+        let nk = num_coeffs(l_max);
+        // Both tables only grow (rows of stride `jp`; values beyond are stale, never read).
+        if y.len() < nk * jp {
+            y.resize(nk * jp, 0.0);
+        }
+        if w.len() < n_sh * jp {
+            w.resize(n_sh * jp, 0.0);
+        }
+        // SAFETY: `Avx2Fma` is only chosen after the processor reported AVX2 and FMA.
+        return unsafe {
+            super::avx2::directions_weights(l_max, inv_r, fade, n_sh, count, d, y, w)
+        };
+    }
+    let [dx, dy, dz, d2] = d;
+    directions(k, l_max, inv_r, fade, dx, dy, dz, d2, rho, y);
+    // Padding lanes sit on the sphere: f_c(1) = 0 exactly, so their weights are 0 and their
+    // cutoffs add exact zeros to the sum.
+    rho[count..].fill(1.0);
+    weights(k, rho, n_sh, fc, step, w)
 }
 
 /// `c[k] = acc[k] / w` for every `k` of `acc` (one correctly rounded division each, so the
@@ -518,6 +561,73 @@ mod tests {
         assert_eq!(fade_factor(0.0), 0.0);
         assert_eq!(fade_factor(10.0), 1.0);
         assert!(worst_rel < 1e-5, "relative {worst_rel:e}");
+    }
+
+    #[test]
+    fn one_pass_directions_and_weights_give_the_two_passes_bits() {
+        // The AVX2 pass that computes both against the portable directions and weights run
+        // one after the other (on a processor without AVX2 both sides are the portable ones).
+        let mut s = 0x2545_f491_4f6c_dd1du64;
+        let mut next = move || {
+            s ^= s << 13;
+            s ^= s >> 7;
+            s ^= s << 17;
+            (s >> 40) as f32 / (1u64 << 24) as f32 * 2.0 - 1.0
+        };
+        for (count, n_sh, l_max, fade) in [
+            (1usize, 6usize, 4usize, Some(12.0f32)),
+            (7, 6, 4, Some(12.0)),
+            (19, 6, 4, Some(12.0)),
+            (75, 6, 4, Some(12.0)),
+            (75, 6, 4, None),
+            (16, 1, 2, None),
+            (33, 8, 3, Some(16.0)),
+        ] {
+            let jp = count.div_ceil(LANES) * LANES;
+            let r = 1.5f32;
+            // Offsets inside the sphere (some near the centre); padding (r, 0, 0) as the
+            // engine pads.
+            let mut d: [Vec<f32>; 4] = Default::default();
+            for j in 0..jp {
+                let v = if j < count {
+                    let scale = if j % 5 == 0 { 1e-3 } else { 0.8 };
+                    [next() * scale, next() * scale, next() * scale]
+                } else {
+                    [r, 0.0, 0.0]
+                };
+                for (a, x) in d.iter_mut().zip(v) {
+                    a.push(x);
+                }
+                d[3].push(v[0] * v[0] + v[1] * v[1] + v[2] * v[2]);
+            }
+            let run = |k: Kernel| {
+                let (mut rho, mut fc, mut step) = (Vec::new(), Vec::new(), Vec::new());
+                let (mut y, mut w) = (Vec::new(), Vec::new());
+                let sum = directions_weights(
+                    k,
+                    l_max,
+                    1.0 / r,
+                    fade,
+                    n_sh,
+                    count,
+                    [&d[0], &d[1], &d[2], &d[3]],
+                    [&mut rho, &mut fc, &mut step],
+                    &mut y,
+                    &mut w,
+                );
+                let bits = |v: &[f32]| v.iter().map(|x| x.to_bits()).collect::<Vec<_>>();
+                (
+                    sum.to_bits(),
+                    bits(&y[..num_coeffs(l_max) * jp]),
+                    bits(&w[..n_sh * jp]),
+                )
+            };
+            assert_eq!(
+                run(Kernel::detect()),
+                run(Kernel::Portable),
+                "count {count}, N {n_sh}, L {l_max}, fade {fade:?}"
+            );
+        }
     }
 
     #[test]
