@@ -353,10 +353,14 @@ pub(crate) fn block_sums(
 }
 
 /// The engine's gathering loop ([`super::engine`]'s `gather`: offsets, squared distances,
-/// branch-free compaction of the hits with `0 < d² ≤ r2`, count of coincident points) with the
-/// moments summed in one vector: lanes `(dx, dy, dz, dx², dx·dy, dx·dz, dy², dy·dz)` (the first
-/// three multiplied by 1, exact) plus `dz²` alone, each a product then a sum as in the scalar
-/// loop, a dropped hit's products masked to +0. Same bits as the scalar loop.
+/// branch-free compaction of the hits with `0 < d² ≤ r2`, count of coincident points) eight
+/// hits at a time: the points fetched by gather instructions, the same `dx² + dy² + dz²`
+/// (products then sums, in this order), the kept lanes packed to the left by a lane
+/// permutation ([`crate::spatial::PACK`]) and stored at the kept count. The moments are summed
+/// in one vector with lanes `(dx, dy, dz, dx², dx·dy, dx·dz, dy², dy·dz)` plus `dz²` alone, one
+/// hit after the other as in the scalar loop: the eight hits' lanes are computed side by side,
+/// a dropped hit's masked to +0, then transposed to one vector per hit and added in hit
+/// order. The last `ids.len() % 8` hits go one at a time. Same bits as the scalar loop.
 ///
 /// # Panics
 /// If a buffer is shorter than `ids` or an id is beyond `points`.
@@ -372,14 +376,77 @@ pub(crate) fn gather(
     gz: &mut [f32],
     gd2: &mut [f32],
 ) -> (usize, u32, super::engine::Moments) {
-    let a_ix = _mm256_setr_epi32(0, 1, 2, 0, 0, 0, 1, 1);
-    let b_ix = _mm256_setr_epi32(0, 0, 0, 0, 1, 2, 1, 2);
-    let ones = _mm256_set1_ps(1.0);
+    let n = ids.len();
+    assert!(gx.len() >= n && gy.len() >= n && gz.len() >= n && gd2.len() >= n);
+    let top = ids.iter().copied().max().map_or(0, |i| i as usize + 1);
+    assert!(top <= points.len());
+    // Eight at a time where the gather instructions' 32-bit offsets reach every coordinate.
+    let whole = if 3 * points.len() <= i32::MAX as usize {
+        n - n % LANES
+    } else {
+        0
+    };
+    let base = points.as_ptr().cast::<f32>();
+    let c = p.map(|v| _mm256_set1_ps(v));
+    let (zero, r2v) = (_mm256_setzero_ps(), _mm256_set1_ps(r2));
+    let three = _mm256_set1_epi32(3);
     let mut acc = _mm256_setzero_ps();
     let mut zz = 0.0f32;
     let mut m = 0;
     let mut zeros = 0u32;
-    for &i in ids {
+    for j0 in (0..whole).step_by(LANES) {
+        // SAFETY: `j0 + 8 ≤ n ≤` every buffer's length; the ids are below `points.len()`
+        // (asserted), so `3·id + k` (k < 3) is inside the points' coordinates and fits an
+        // `i32`; the stores of eight at `m ≤ j0` end at or before `j0 + 8 ≤ n`.
+        unsafe {
+            let at = _mm256_mullo_epi32(
+                _mm256_loadu_si256(ids.as_ptr().add(j0).cast::<__m256i>()),
+                three,
+            );
+            let d: [__m256; 3] = std::array::from_fn(|k| {
+                _mm256_sub_ps(_mm256_i32gather_ps::<4>(base.add(k), at), c[k])
+            });
+            let d2 = add!(add!(mul!(d[0], d[0]), mul!(d[1], d[1])), mul!(d[2], d[2]));
+            zeros += _mm256_movemask_ps(_mm256_cmp_ps::<_CMP_EQ_OQ>(d2, zero)).count_ones();
+            let keep = _mm256_and_ps(
+                _mm256_cmp_ps::<_CMP_GT_OQ>(d2, zero),
+                _mm256_cmp_ps::<_CMP_LE_OQ>(d2, r2v),
+            );
+            let bits = _mm256_movemask_ps(keep) as usize;
+            let perm = _mm256_loadu_si256(crate::spatial::PACK[bits].as_ptr().cast::<__m256i>());
+            for (dst, v) in [&mut *gx, &mut *gy, &mut *gz, &mut *gd2]
+                .into_iter()
+                .zip([d[0], d[1], d[2], d2])
+            {
+                _mm256_storeu_ps(dst.as_mut_ptr().add(m), _mm256_permutevar8x32_ps(v, perm));
+            }
+            m += bits.count_ones() as usize;
+            // The moments' lanes of the eight hits (rows), masked, then one vector per hit.
+            let rows = [
+                d[0],
+                d[1],
+                d[2],
+                mul!(d[0], d[0]),
+                mul!(d[0], d[1]),
+                mul!(d[0], d[2]),
+                mul!(d[1], d[1]),
+                mul!(d[1], d[2]),
+            ]
+            .map(|v| _mm256_and_ps(v, keep));
+            for v in transpose8(rows) {
+                acc = add!(acc, v);
+            }
+            let mut sq = [0.0f32; LANES];
+            _mm256_storeu_ps(sq.as_mut_ptr(), _mm256_and_ps(mul!(d[2], d[2]), keep));
+            for v in sq {
+                zz += v;
+            }
+        }
+    }
+    let a_ix = _mm256_setr_epi32(0, 1, 2, 0, 0, 0, 1, 1);
+    let b_ix = _mm256_setr_epi32(0, 0, 0, 0, 1, 2, 1, 2);
+    let ones = _mm256_set1_ps(1.0);
+    for &i in &ids[whole..] {
         let q = points[i as usize];
         let d = [q[0] - p[0], q[1] - p[1], q[2] - p[2]];
         let d2 = d[0] * d[0] + d[1] * d[1] + d[2] * d[2];
@@ -407,6 +474,38 @@ pub(crate) fn gather(
         m2: [v[3], v[4], v[5], v[6], v[7], zz],
     };
     (m, zeros, mo)
+}
+
+/// The 8 × 8 transpose: lane `i` of output `j` is lane `j` of input `i`.
+#[target_feature(enable = "avx2,fma")]
+#[inline]
+fn transpose8(r: [__m256; 8]) -> [__m256; 8] {
+    let t0 = _mm256_unpacklo_ps(r[0], r[1]);
+    let t1 = _mm256_unpackhi_ps(r[0], r[1]);
+    let t2 = _mm256_unpacklo_ps(r[2], r[3]);
+    let t3 = _mm256_unpackhi_ps(r[2], r[3]);
+    let t4 = _mm256_unpacklo_ps(r[4], r[5]);
+    let t5 = _mm256_unpackhi_ps(r[4], r[5]);
+    let t6 = _mm256_unpacklo_ps(r[6], r[7]);
+    let t7 = _mm256_unpackhi_ps(r[6], r[7]);
+    let s0 = _mm256_shuffle_ps::<0x44>(t0, t2);
+    let s1 = _mm256_shuffle_ps::<0xEE>(t0, t2);
+    let s2 = _mm256_shuffle_ps::<0x44>(t1, t3);
+    let s3 = _mm256_shuffle_ps::<0xEE>(t1, t3);
+    let s4 = _mm256_shuffle_ps::<0x44>(t4, t6);
+    let s5 = _mm256_shuffle_ps::<0xEE>(t4, t6);
+    let s6 = _mm256_shuffle_ps::<0x44>(t5, t7);
+    let s7 = _mm256_shuffle_ps::<0xEE>(t5, t7);
+    [
+        _mm256_permute2f128_ps::<0x20>(s0, s4),
+        _mm256_permute2f128_ps::<0x20>(s1, s5),
+        _mm256_permute2f128_ps::<0x20>(s2, s6),
+        _mm256_permute2f128_ps::<0x20>(s3, s7),
+        _mm256_permute2f128_ps::<0x31>(s0, s4),
+        _mm256_permute2f128_ps::<0x31>(s1, s5),
+        _mm256_permute2f128_ps::<0x31>(s2, s6),
+        _mm256_permute2f128_ps::<0x31>(s3, s7),
+    ]
 }
 
 /// The projection `acc[n·K + k] = Σ_j w[n·J + j] · y[k·J + j]` of [`super::kernel::project`]
@@ -653,35 +752,41 @@ mod tests {
         points[17] = p;
         points[40] = [p[0] + 1.0, p[1], p[2]];
         points[41] = [p[0], p[1] - 0.0, p[2] - 1.0];
-        let ids: Vec<u32> = (0..points.len() as u32).filter(|i| i % 3 != 1).collect();
-        let run = |simd: bool| {
-            let n = ids.len();
-            let (mut gx, mut gy, mut gz, mut gd2) =
-                (vec![0.0; n], vec![0.0; n], vec![0.0; n], vec![0.0; n]);
-            let (m, zeros, mo) = if simd {
-                // SAFETY: AVX2 and FMA are present (checked above).
-                unsafe { gather(&points, &ids, p, 1.0, &mut gx, &mut gy, &mut gz, &mut gd2) }
-            } else {
-                super::super::engine::gather(
-                    &points, &ids, p, 1.0, &mut gx, &mut gy, &mut gz, &mut gd2,
+        let all: Vec<u32> = (0..points.len() as u32).filter(|i| i % 3 != 1).collect();
+        // Whole blocks of eight and every length of the last partial one.
+        for len in [200usize, 0, 1, 7, 8, 13, 45, 199] {
+            let ids = &all[..len];
+            let run = |simd: bool| {
+                let n = ids.len();
+                let (mut gx, mut gy, mut gz, mut gd2) =
+                    (vec![0.0; n], vec![0.0; n], vec![0.0; n], vec![0.0; n]);
+                let (m, zeros, mo) = if simd {
+                    // SAFETY: AVX2 and FMA are present (checked above).
+                    unsafe { gather(&points, ids, p, 1.0, &mut gx, &mut gy, &mut gz, &mut gd2) }
+                } else {
+                    super::super::engine::gather(
+                        &points, ids, p, 1.0, &mut gx, &mut gy, &mut gz, &mut gd2,
+                    )
+                };
+                let bits = |v: &[f32]| v[..m].iter().map(|x| x.to_bits()).collect::<Vec<_>>();
+                let moments: Vec<u32> = mo.m1.iter().chain(&mo.m2).map(|x| x.to_bits()).collect();
+                (
+                    m,
+                    zeros,
+                    moments,
+                    [bits(&gx), bits(&gy), bits(&gz), bits(&gd2)],
                 )
             };
-            let bits = |v: &[f32]| v[..m].iter().map(|x| x.to_bits()).collect::<Vec<_>>();
-            let moments: Vec<u32> = mo.m1.iter().chain(&mo.m2).map(|x| x.to_bits()).collect();
-            (
-                m,
-                zeros,
-                moments,
-                [bits(&gx), bits(&gy), bits(&gz), bits(&gd2)],
-            )
-        };
-        let (simd, plain) = (run(true), run(false));
-        assert!(
-            plain.0 > 10 && plain.0 < ids.len() - 10 && plain.1 == 2,
-            "{:?}",
-            (plain.0, plain.1)
-        );
-        assert_eq!(simd, plain);
+            let (simd, plain) = (run(true), run(false));
+            if len == 200 {
+                assert!(
+                    plain.0 > 10 && plain.0 < ids.len() - 10 && plain.1 == 2,
+                    "{:?}",
+                    (plain.0, plain.1)
+                );
+            }
+            assert_eq!(simd, plain, "{len} hits");
+        }
     }
 
     #[test]

@@ -364,7 +364,7 @@ fn wide_scan_available() -> bool {
 /// `PACK[mask]`: the lanes whose bit is set in `mask`, in ascending order, then zeros (the
 /// permutation that packs the kept lanes of eight to the left).
 #[cfg(target_arch = "x86_64")]
-static PACK: [[u32; 8]; 256] = {
+pub(crate) static PACK: [[u32; 8]; 256] = {
     let mut t = [[0u32; 8]; 256];
     let mut mask = 0;
     while mask < 256 {

@@ -12,6 +12,8 @@ mod normals;
 mod spacing;
 mod voxel;
 
+#[cfg(target_arch = "x86_64")]
+pub(crate) use grid::PACK;
 pub use grid::{CellGrid, GridQuery, MAX_CELLS_PER_AXIS, order_by_key};
 pub use index::KdIndex;
 pub use index_track::NearestTrack;
