@@ -5,8 +5,8 @@
 # of 2.5 and 5 x the measured point spacing (about 20 and 80 neighbours per centre), one
 # thread, CPU seconds of the whole process (read, index, descriptors, write; perf stat's task
 # clock when perf is installed, else GNU time's user + system in hundredths):
-# median of RUNS runs for each equiscan binary given, one run of the reference, all in one go
-# so that the ratios share the machine's load. Prints each output's sha256 prefix, and that of
+# median of RUNS runs for each equiscan binary given (the binaries taking turns run by run),
+# one run of the reference, all in one go so that the ratios share the machine's load. Prints each output's sha256 prefix, and that of
 # a 2-thread run (the bytes must not depend on the thread count).
 #
 #   tools/bench/descriptor_features.sh [RUNS] [BINARY...]   (default target/release/equiscan)
@@ -34,18 +34,33 @@ for k in 2.5 5; do
     r=$(awk -v s="$spacing" -v k="$k" 'BEGIN {printf "%.4g", s * k}')
     ref=$(cpu "$py" tools/fixtures/descriptor_reference.py time "$dir/scene.ply" "$r" 50000)
     echo "r = $k x spacing = $r: numpy/scipy reference $ref s"
+    # The binaries take turns run by run, so that a change of the machine's load during the
+    # measurement falls on all of them alike; each writes its own output.
+    b=0
     for bin in "$@"; do
-        i=0
-        : > "$dir/runs"
-        while [ $i -lt "$runs" ]; do
-            cpu "$bin" features "$dir/scene.ply" -o "$dir/f.npy" --radius "$r" --threads 1 --quiet >> "$dir/runs"
-            i=$((i + 1))
+        : > "$dir/runs$b"
+        b=$((b + 1))
+    done
+    i=0
+    while [ $i -lt "$runs" ]; do
+        b=0
+        for bin in "$@"; do
+            cpu "$bin" features "$dir/scene.ply" -o "$dir/f$b.npy" --radius "$r" --threads 1 --quiet >> "$dir/runs$b"
+            b=$((b + 1))
         done
-        ours=$(median < "$dir/runs")
-        one=$(sha256sum "$dir/f.npy" | cut -c1-16)
-        hits=$(python3 -c 'import json, sys; print(round(json.load(open(sys.argv[1]))["metadata"]["counts"][0]["mean"], 1))' "$dir/f.json")
+        i=$((i + 1))
+    done
+    b=0
+    for bin in "$@"; do
+        ours=$(median < "$dir/runs$b")
+        one=$(sha256sum "$dir/f$b.npy" | cut -c1-16)
+        # The sidecar is `f.npy.json` (`f.json` from binaries before its current name).
+        side="$dir/f$b.npy.json"
+        [ -f "$side" ] || side="$dir/f$b.json"
+        hits=$(python3 -c 'import json, sys; print(round(json.load(open(sys.argv[1]))["metadata"]["counts"][0]["mean"], 1))' "$side")
         "$bin" features "$dir/scene.ply" -o "$dir/f2.npy" --radius "$r" --threads 2 --quiet
         two=$(sha256sum "$dir/f2.npy" | cut -c1-16)
-        echo "  $bin: $hits neighbours per centre, $ours s (runs: $(tr '\n' ' ' < "$dir/runs")), reference / equiscan $(awk -v a="$ref" -v b="$ours" 'BEGIN {printf "%.0f", a / b}')x, output sha256 $one (2 threads: $two)"
+        echo "  $bin: $hits neighbours per centre, $ours s (runs: $(tr '\n' ' ' < "$dir/runs$b")), reference / equiscan $(awk -v a="$ref" -v b="$ours" 'BEGIN {printf "%.0f", a / b}')x, output sha256 $one (2 threads: $two)"
+        b=$((b + 1))
     done
 done
