@@ -9,7 +9,8 @@
 //! (unless [`super::tuning::Tuning::neighbours_explain`]). The harmonic method turns every
 //! match into one pose (two for a locally symmetric neighbourhood) from the equivariant
 //! coefficients ([`super::equivariant::hypotheses`]); the FPFH baseline draws 3-point RANSAC
-//! samples ([`super::consensus::ransac`]). Poses map SOURCE local into TARGET local
+//! samples ([`super::consensus::ransac`]), which the harmonic method can add to its own with
+//! [`super::tuning::Tuning::equivariant_ransac`]. Poses map SOURCE local into TARGET local
 //! coordinates; a match counts for a pose when the pose brings its keypoints within the inlier
 //! threshold τ.
 
@@ -93,7 +94,16 @@ pub fn propose(
                 &target.descriptors,
                 &searcher,
             );
-            consensus::score(&matches.proposing_pairs, &poses, tau)
+            let mut scored = consensus::score(&matches.proposing_pairs, &poses, tau);
+            if tu.equivariant_ransac > 0 {
+                scored.extend(consensus::ransac(
+                    &matches.proposing_pairs,
+                    tau,
+                    tu.equivariant_ransac,
+                    params.seed,
+                ));
+            }
+            scored
         }
     }
 }

@@ -27,6 +27,12 @@ pub struct Tuning {
     /// that one's rotation-dependent score comes within this share of the best's (a locally
     /// symmetric neighbourhood; 0.3 gave the same results as 0.1 on the mid-size benchmark).
     pub rotation_ambiguity_margin: f64,
+    /// Harmonic method only: this many 3-point RANSAC draws ([`super::consensus::ransac`]) on
+    /// the proposing pairs add their poses to the one-per-match poses (0: none). A sample of
+    /// three matches fixes the pose from positions alone, where the rotation search of a
+    /// locally symmetric neighbourhood (a plane, a cylinder) cannot (DEVELOPERS.md,
+    /// Registration, "Why the harmonic method trails FPFH").
+    pub equivariant_ransac: usize,
     /// Largest ratio of best to second-best feature distance kept as a match.
     pub match_max_ratio: f32,
     /// Keep only matches that are each other's nearest neighbours.
@@ -162,6 +168,7 @@ impl Default for Tuning {
             inner_radius_share: 0.5,
             third_radius_share: 0.0,
             rotation_ambiguity_margin: 0.1,
+            equivariant_ransac: 0,
             match_max_ratio: 0.9,
             match_mutual: true,
             match_min_keep: 300,
