@@ -10,7 +10,9 @@
 //! match into one pose (two for a locally symmetric neighbourhood) from the equivariant
 //! coefficients ([`super::equivariant::hypotheses`]); the FPFH baseline draws 3-point RANSAC
 //! samples ([`super::consensus::ransac`]), which the harmonic method can add to its own with
-//! [`super::tuning::Tuning::equivariant_ransac`]. Poses map SOURCE local into TARGET local
+//! [`super::tuning::Tuning::equivariant_ransac`]; with [`super::tuning::Tuning::pair_partners`]
+//! it also corrects each per-match pose by a second match ([`super::equivariant::paired_poses`]).
+//! Poses map SOURCE local into TARGET local
 //! coordinates; a match counts for a pose when the pose brings its keypoints within the inlier
 //! threshold τ.
 
@@ -86,7 +88,7 @@ pub fn propose(
             let tu = &params.tuning;
             let searcher =
                 equivariant::searcher(tu.descriptor_degree, tu.rotation_ambiguity_margin);
-            let poses = equivariant::hypotheses(
+            let per_match = equivariant::per_match(
                 &matches.proposing,
                 &source.keypoints,
                 &target.keypoints,
@@ -94,6 +96,16 @@ pub fn propose(
                 &target.descriptors,
                 &searcher,
             );
+            let mut poses: Vec<_> = per_match.iter().flatten().copied().collect();
+            if tu.pair_partners > 0 {
+                poses.extend(equivariant::paired_poses(
+                    &matches.proposing_pairs,
+                    &per_match,
+                    tau,
+                    tu.pair_partners,
+                    tu.pair_turn_deg,
+                ));
+            }
             let mut scored = consensus::score(&matches.proposing_pairs, &poses, tau);
             if tu.equivariant_ransac > 0 {
                 scored.extend(consensus::ransac(

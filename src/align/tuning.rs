@@ -33,6 +33,12 @@ pub struct Tuning {
     /// locally symmetric neighbourhood (a plane, a cylinder) cannot (DEVELOPERS.md,
     /// Registration, "Why the harmonic method trails FPFH").
     pub equivariant_ransac: usize,
+    /// Harmonic method only: each per-match pose is also corrected by up to this many second
+    /// matches (the longest levers that qualify; [`super::equivariant::paired_poses`]); 0: off.
+    pub pair_partners: usize,
+    /// A second match qualifies for [`Tuning::pair_partners`] when the per-match rotation
+    /// turns its lever within this many degrees of the TARGET lever.
+    pub pair_turn_deg: f64,
     /// Largest ratio of best to second-best feature distance kept as a match.
     pub match_max_ratio: f32,
     /// Keep only matches that are each other's nearest neighbours.
@@ -169,6 +175,8 @@ impl Default for Tuning {
             third_radius_share: 0.0,
             rotation_ambiguity_margin: 0.1,
             equivariant_ransac: 0,
+            pair_partners: 0,
+            pair_turn_deg: 20.0,
             match_max_ratio: 0.9,
             match_mutual: true,
             match_min_keep: 300,
