@@ -39,6 +39,12 @@ pub struct Tuning {
     /// A second match qualifies for [`Tuning::pair_partners`] when the per-match rotation
     /// turns its lever within this many degrees of the TARGET lever.
     pub pair_turn_deg: f64,
+    /// Harmonic method only: the FPFH matches of the same keypoints join the kept matches
+    /// (computed per pair; each proposes its pose from the harmonic coefficients and counts
+    /// in the consensus, the ranking and the verdict like the others). On the pairs where the
+    /// baseline is right and the harmonic method is not, the baseline keeps about 1.7 times as
+    /// many true matches (DEVELOPERS.md, Registration, "Why the harmonic method trails FPFH").
+    pub baseline_matches: bool,
     /// Largest ratio of best to second-best feature distance kept as a match.
     pub match_max_ratio: f32,
     /// Keep only matches that are each other's nearest neighbours.
@@ -177,6 +183,7 @@ impl Default for Tuning {
             equivariant_ransac: 0,
             pair_partners: 0,
             pair_turn_deg: 20.0,
+            baseline_matches: false,
             match_max_ratio: 0.9,
             match_mutual: true,
             match_min_keep: 300,

@@ -8,7 +8,7 @@
 //! voxels), `inner` / `third` ([`Tuning::inner_radius_share`], [`Tuning::third_radius_share`]),
 //! `ambiguity` ([`Tuning::rotation_ambiguity_margin`]), `eq_ransac`
 //! ([`Tuning::equivariant_ransac`]), `partners`, `pair_turn` ([`Tuning::pair_partners`],
-//! [`Tuning::pair_turn_deg`]), `version` (descriptor version),
+//! [`Tuning::pair_turn_deg`]), `fpfh_matches` (0 or 1, [`Tuning::baseline_matches`]), `version` (descriptor version),
 //! `min_keep`, `max_keep`, `ratio`, `neighbours` (matching), `explain`, `interleave` (0 or 1),
 //! `list`, `list_share` ([`Tuning::list_rivalry`], [`Tuning::list_overlap_share`]),
 //! `distinct_angle`, `distinct_taus` ([`Tuning::distinct_angle_deg`] and its distance), `pool` (hypotheses and ranking: DEVELOPERS.md, Registration, "Hypotheses: where the truth
@@ -41,6 +41,7 @@ pub fn tuned(mut params: AlignParams, source: &Cloud, target: &Cloud) -> AlignPa
             "third" => tu.third_radius_share = x,
             "ambiguity" => tu.rotation_ambiguity_margin = x,
             "eq_ransac" => tu.equivariant_ransac = x as usize,
+            "fpfh_matches" => tu.baseline_matches = x != 0.0,
             "partners" => tu.pair_partners = x as usize,
             "pair_turn" => tu.pair_turn_deg = x,
             "min_keep" => tu.match_min_keep = x as usize,
