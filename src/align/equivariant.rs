@@ -270,4 +270,47 @@ mod tests {
         let p = h[0].apply(&v(pts[0]));
         assert!((p - v(moved[0])).norm() < 0.02, "seed {seed}");
     }
+
+    /// Two matches under a known rigid motion, the first match's own rotation off by 12° about
+    /// the normal of the plane the levers lie in (the ill-determined turn of a flat
+    /// neighbourhood): the second match restores the motion exactly (a constructed rigid motion
+    /// is the reference); a partner closer than 4 τ or a turn beyond the limit gives nothing.
+    #[test]
+    fn a_second_match_fixes_the_turn_about_the_normal() {
+        use nalgebra::{Rotation3, Vector3};
+        let seed = 7;
+        let mut rng = SplitMix64::new(seed);
+        let r = random_rotation(&mut rng);
+        let truth = Rigid::new(r, Vector3::new(0.3, -1.2, 2.0));
+        let src = vec![
+            Vector3::new(0.0, 0.0, 0.0),
+            Vector3::new(1.0, 0.2, 0.0),
+            Vector3::new(0.05, 0.0, 0.0),
+        ];
+        let dst: Vec<_> = src.iter().map(|p| truth.apply(p)).collect();
+        let pairs = Pairs { src, dst };
+        // The first match's rotation: the truth after a 12° turn about SOURCE's z axis.
+        let off = r * Rotation3::from_axis_angle(&Vector3::z_axis(), 12f64.to_radians()).matrix();
+        let poses = vec![
+            vec![Rigid::new(off, pairs.dst[0] - off * pairs.src[0])],
+            Vec::new(),
+            Vec::new(),
+        ];
+        let tau = 0.1;
+        let got = paired_poses(&pairs, &poses, tau, 4, 20.0);
+        // Partner 1 qualifies (lever 1.02 ≥ 4 τ, 12° ≤ 20°); partner 2 is too close.
+        assert_eq!(got.len(), 1, "seed {seed}");
+        let err = super::super::rigid::rotation_error_deg(&got[0].rotation, &r);
+        assert!(err < 1e-9, "seed {seed}: rotation error {err}°");
+        for p in &pairs.src {
+            assert!(
+                (got[0].apply(p) - truth.apply(p)).norm() < 1e-9,
+                "seed {seed}"
+            );
+        }
+        assert!(
+            paired_poses(&pairs, &poses, tau, 4, 10.0).is_empty(),
+            "seed {seed}"
+        );
+    }
 }
