@@ -717,42 +717,42 @@ fn match_diagnosis() {
                     (d2 as f64).sqrt() <= tau
                 })
                 .count();
+            // Rotation errors of the true matches' own poses (harmonic method only).
             let mut rot_errs: Vec<f64> = Vec::new();
-            let own: Vec<Rigid> = match method {
-                Method::Equivariant => {
-                    let tu = &params.tuning;
-                    let searcher =
-                        equivariant::searcher(tu.descriptor_degree, tu.rotation_ambiguity_margin);
-                    for (k, c) in found.correspondences.iter().enumerate() {
-                        if !is_true[k] {
-                            continue;
-                        }
-                        let h = equivariant::hypotheses(
-                            std::slice::from_ref(c),
-                            s.keypoints(),
-                            t.keypoints(),
-                            s.descriptors(),
-                            t.descriptors(),
-                            &searcher,
-                        );
-                        let e = h
-                            .iter()
+            if method == Method::Equivariant {
+                let tu = &params.tuning;
+                let searcher =
+                    equivariant::searcher(tu.descriptor_degree, tu.rotation_ambiguity_margin);
+                let true_matches: Vec<_> = found
+                    .correspondences
+                    .iter()
+                    .zip(&is_true)
+                    .filter(|(_, t)| **t)
+                    .map(|(c, _)| *c)
+                    .collect();
+                let per_match = equivariant::per_match(
+                    &true_matches,
+                    s.keypoints(),
+                    t.keypoints(),
+                    s.descriptors(),
+                    t.descriptors(),
+                    &searcher,
+                );
+                rot_errs = per_match
+                    .iter()
+                    .map(|h| {
+                        h.iter()
                             .map(|r| {
                                 equiscan::align::rotation_error_deg(&r.rotation, &truth.rotation)
                             })
-                            .fold(180.0f64, f64::min);
-                        rot_errs.push(e);
-                    }
-                    hypotheses::propose(&s, &t, &found, &params, tau)
-                        .iter()
-                        .map(|h| h.transform)
-                        .collect()
-                }
-                Method::Fpfh => hypotheses::propose(&s, &t, &found, &params, tau)
-                    .iter()
-                    .map(|h| h.transform)
-                    .collect(),
-            };
+                            .fold(180.0f64, f64::min)
+                    })
+                    .collect();
+            }
+            let own: Vec<Rigid> = hypotheses::propose(&s, &t, &found, &params, tau)
+                .iter()
+                .map(|h| h.transform)
+                .collect();
             let drawn = ransac(pairs_all, tau, params.ransac_iterations, params.seed);
             let summary = |hs: &[equiscan::align::consensus::Hypothesis]| {
                 let best = hs.iter().map(|h| h.support).max().unwrap_or(0);

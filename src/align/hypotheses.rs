@@ -4,19 +4,19 @@
 //! Matching ([`super::matching`]) keeps nearest neighbours in descriptor space that pass the
 //! mutual check and the ratio test (for the harmonic method with
 //! [`super::tuning::Tuning::baseline_matches`], the FPFH matches of the same keypoints too, each
-//! turned into a pose by the harmonic coefficients all the same); with [`super::tuning::Tuning::match_neighbours`] `k` ≥ 2,
-//! the pairs of each keypoint with its `k` nearest rows (ratio test against the (k+1)-th) also
-//! propose and score hypotheses, so that the true match of a keypoint whose symmetric twin is
-//! as near still proposes the true pose; the verdict's figures count the kept matches only
-//! (unless [`super::tuning::Tuning::neighbours_explain`]). The harmonic method turns every
-//! match into one pose (two for a locally symmetric neighbourhood) from the equivariant
-//! coefficients ([`super::equivariant::hypotheses`]); the FPFH baseline draws 3-point RANSAC
-//! samples ([`super::consensus::ransac`]), which the harmonic method can add to its own with
+//! turned into a pose by the harmonic coefficients all the same); with
+//! [`super::tuning::Tuning::match_neighbours`] `k` ≥ 2, the pairs of each keypoint with its `k`
+//! nearest rows (ratio test against the (k+1)-th) also propose and score hypotheses, so that the
+//! true match of a keypoint whose symmetric twin is as near still proposes the true pose; the
+//! verdict's figures count the kept matches only (unless
+//! [`super::tuning::Tuning::neighbours_explain`]). The harmonic method turns every match into one
+//! pose (two for a locally symmetric neighbourhood) from the equivariant coefficients
+//! ([`super::equivariant::hypotheses`]); the FPFH baseline draws 3-point RANSAC samples
+//! ([`super::consensus::ransac`]), which the harmonic method can add to its own with
 //! [`super::tuning::Tuning::equivariant_ransac`]; with [`super::tuning::Tuning::pair_partners`]
 //! it also corrects each per-match pose by a second match ([`super::equivariant::paired_poses`]).
-//! Poses map SOURCE local into TARGET local
-//! coordinates; a match counts for a pose when the pose brings its keypoints within the inlier
-//! threshold τ.
+//! Poses map SOURCE local into TARGET local coordinates; a match counts for a pose when the pose
+//! brings its keypoints within the inlier threshold τ.
 
 use super::consensus::{self, Hypothesis, Pairs};
 use super::equivariant;
