@@ -10,11 +10,14 @@
 //! `c(q) ≈ D(R) c(p)` for the true rotation `R` (Wigner-D, shell by shell), so the rotation that
 //! best carries one expansion onto the other ([`crate::so3::search`]) is a pose hypothesis by
 //! itself, with translation `t = q − R p`. When the search reports a second maximum nearly as
-//! good (a locally symmetric neighbourhood), both become hypotheses. Consensus over all
-//! correspondences then picks the pose.
+//! good (a locally symmetric neighbourhood), both become hypotheses. With a second match the
+//! pose can be corrected where that rotation is ill-determined ([`paired_poses`]). Consensus
+//! over all correspondences then picks the pose.
 
+use nalgebra::Rotation3;
 use rayon::prelude::*;
 
+use super::consensus::Pairs;
 use super::matching::Correspondence;
 use super::prepared_scan::Descriptors;
 use super::rigid::Rigid;
@@ -101,9 +104,24 @@ pub fn hypotheses(
     target: &Descriptors,
     searcher: &RotationSearcher,
 ) -> Vec<Rigid> {
+    per_match(corr, source_points, target_points, source, target, searcher)
+        .into_iter()
+        .flatten()
+        .collect()
+}
+
+/// [`hypotheses`] kept per correspondence: entry `k` holds the poses of `corr[k]` (none, one,
+/// or two).
+pub fn per_match(
+    corr: &[Correspondence],
+    source_points: &[[f32; 3]],
+    target_points: &[[f32; 3]],
+    source: &Descriptors,
+    target: &Descriptors,
+    searcher: &RotationSearcher,
+) -> Vec<Vec<Rigid>> {
     let b = source.block;
-    let per: Vec<Vec<Rigid>> = corr
-        .par_iter()
+    corr.par_iter()
         .map(|c| {
             let (i, j) = (c.source as usize, c.target as usize);
             let a = &source.coefficients[i * b..(i + 1) * b];
@@ -123,6 +141,64 @@ pub fn hypotheses(
                 && let Some(s) = res.second
             {
                 out.push(Rigid::new(s.rotation, q - s.rotation * p));
+            }
+            out
+        })
+        .collect()
+}
+
+/// Per-match poses corrected by a second match. Two matches fix a pose up to a turn about the
+/// line through them; the per-match rotation supplies that turn. For the pose `R` of match `i`
+/// (SOURCE `p_i`, TARGET `q_i`), a partner `j` qualifies when its lever `|p_j − p_i|` is at
+/// least 4 `tau`, the two lengths `|p_j − p_i|` and `|q_j − q_i|` differ by at most `tau`, and
+/// `R (p_j − p_i)` lies within `max_turn_deg` of `q_j − q_i`; the `partners` qualifying
+/// partners with the longest levers (ties: lower index) each give the pose `C R`, `C` the
+/// smallest rotation carrying `R (p_j − p_i)` onto `q_j − q_i`, with the translation that maps
+/// the midpoint of the two SOURCE points onto that of the two TARGET points. Where a
+/// neighbourhood is locally symmetric (a plane, a cylinder) its own rotation is ill-determined
+/// about the symmetry axis, and a lever across the surface fixes just that turn (DEVELOPERS.md,
+/// Registration, "Why the harmonic method trails FPFH"). `poses[k]` are the poses of pair `k`;
+/// the result is in match order, then partner order.
+pub fn paired_poses(
+    pairs: &Pairs,
+    poses: &[Vec<Rigid>],
+    tau: f64,
+    partners: usize,
+    max_turn_deg: f64,
+) -> Vec<Rigid> {
+    let n = pairs.len();
+    let cos_max = max_turn_deg.to_radians().cos();
+    let per: Vec<Vec<Rigid>> = (0..n)
+        .into_par_iter()
+        .map(|i| {
+            let (pi, qi) = (pairs.src[i], pairs.dst[i]);
+            let mut out = Vec::new();
+            for r in &poses[i] {
+                // (lever, partner) of every qualifying partner.
+                let mut found: Vec<(f64, usize)> = (0..n)
+                    .filter_map(|j| {
+                        let us = pairs.src[j] - pi;
+                        let ut = pairs.dst[j] - qi;
+                        let (ls, lt) = (us.norm(), ut.norm());
+                        if j == i || ls < 4.0 * tau || (ls - lt).abs() > tau {
+                            return None;
+                        }
+                        let turned = r.rotation * us;
+                        (turned.dot(&ut) >= cos_max * ls * lt).then_some((ls, j))
+                    })
+                    .collect();
+                found.sort_by(|a, b| b.0.total_cmp(&a.0).then(a.1.cmp(&b.1)));
+                for &(_, j) in found.iter().take(partners) {
+                    let turned = r.rotation * (pairs.src[j] - pi);
+                    let ut = pairs.dst[j] - qi;
+                    let Some(c) = Rotation3::rotation_between(&turned, &ut) else {
+                        continue;
+                    };
+                    let rot = c.matrix() * r.rotation;
+                    let ms = (pi + pairs.src[j]) * 0.5;
+                    let mt = (qi + pairs.dst[j]) * 0.5;
+                    out.push(Rigid::new(rot, mt - rot * ms));
+                }
             }
             out
         })
@@ -193,5 +269,48 @@ mod tests {
         assert!(err < 0.5, "seed {seed}: rotation error {err}°");
         let p = h[0].apply(&v(pts[0]));
         assert!((p - v(moved[0])).norm() < 0.02, "seed {seed}");
+    }
+
+    /// Two matches under a known rigid motion, the first match's own rotation off by 12° about
+    /// the normal of the plane the levers lie in (the ill-determined turn of a flat
+    /// neighbourhood): the second match restores the motion exactly (a constructed rigid motion
+    /// is the reference); a partner closer than 4 τ or a turn beyond the limit gives nothing.
+    #[test]
+    fn a_second_match_fixes_the_turn_about_the_normal() {
+        use nalgebra::{Rotation3, Vector3};
+        let seed = 7;
+        let mut rng = SplitMix64::new(seed);
+        let r = random_rotation(&mut rng);
+        let truth = Rigid::new(r, Vector3::new(0.3, -1.2, 2.0));
+        let src = vec![
+            Vector3::new(0.0, 0.0, 0.0),
+            Vector3::new(1.0, 0.2, 0.0),
+            Vector3::new(0.05, 0.0, 0.0),
+        ];
+        let dst: Vec<_> = src.iter().map(|p| truth.apply(p)).collect();
+        let pairs = Pairs { src, dst };
+        // The first match's rotation: the truth after a 12° turn about SOURCE's z axis.
+        let off = r * Rotation3::from_axis_angle(&Vector3::z_axis(), 12f64.to_radians()).matrix();
+        let poses = vec![
+            vec![Rigid::new(off, pairs.dst[0] - off * pairs.src[0])],
+            Vec::new(),
+            Vec::new(),
+        ];
+        let tau = 0.1;
+        let got = paired_poses(&pairs, &poses, tau, 4, 20.0);
+        // Partner 1 qualifies (lever 1.02 ≥ 4 τ, 12° ≤ 20°); partner 2 is too close.
+        assert_eq!(got.len(), 1, "seed {seed}");
+        let err = super::super::rigid::rotation_error_deg(&got[0].rotation, &r);
+        assert!(err < 1e-9, "seed {seed}: rotation error {err}°");
+        for p in &pairs.src {
+            assert!(
+                (got[0].apply(p) - truth.apply(p)).norm() < 1e-9,
+                "seed {seed}"
+            );
+        }
+        assert!(
+            paired_poses(&pairs, &poses, tau, 4, 10.0).is_empty(),
+            "seed {seed}"
+        );
     }
 }

@@ -27,6 +27,24 @@ pub struct Tuning {
     /// that one's rotation-dependent score comes within this share of the best's (a locally
     /// symmetric neighbourhood; 0.3 gave the same results as 0.1 on the mid-size benchmark).
     pub rotation_ambiguity_margin: f64,
+    /// Harmonic method only: this many 3-point RANSAC draws ([`super::consensus::ransac`]) on
+    /// the proposing pairs add their poses to the one-per-match poses (0: none). A sample of
+    /// three matches fixes the pose from positions alone, where the rotation search of a
+    /// locally symmetric neighbourhood (a plane, a cylinder) cannot (DEVELOPERS.md,
+    /// Registration, "Why the harmonic method trails FPFH").
+    pub equivariant_ransac: usize,
+    /// Harmonic method only: each per-match pose is also corrected by up to this many second
+    /// matches (the longest levers that qualify; [`super::equivariant::paired_poses`]); 0: off.
+    pub pair_partners: usize,
+    /// A second match qualifies for [`Tuning::pair_partners`] when the per-match rotation
+    /// turns its lever within this many degrees of the TARGET lever.
+    pub pair_turn_deg: f64,
+    /// Harmonic method only: the FPFH matches of the same keypoints join the kept matches
+    /// (computed per pair; each proposes its pose from the harmonic coefficients and counts
+    /// in the consensus, the ranking and the verdict like the others). On the pairs where the
+    /// baseline is right and the harmonic method is not, the baseline keeps about 1.7 times as
+    /// many true matches (DEVELOPERS.md, Registration, "Why the harmonic method trails FPFH").
+    pub baseline_matches: bool,
     /// Largest ratio of best to second-best feature distance kept as a match.
     pub match_max_ratio: f32,
     /// Keep only matches that are each other's nearest neighbours.
@@ -162,6 +180,10 @@ impl Default for Tuning {
             inner_radius_share: 0.5,
             third_radius_share: 0.0,
             rotation_ambiguity_margin: 0.1,
+            equivariant_ransac: 0,
+            pair_partners: 0,
+            pair_turn_deg: 20.0,
+            baseline_matches: false,
             match_max_ratio: 0.9,
             match_mutual: true,
             match_min_keep: 300,

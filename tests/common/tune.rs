@@ -6,7 +6,9 @@
 //! on the keypoint count: the voxel becomes the automatic one over √factor, the radius stays
 //! `radius` automatic voxels when that key comes first, else the method's default in new
 //! voxels), `inner` / `third` ([`Tuning::inner_radius_share`], [`Tuning::third_radius_share`]),
-//! `ambiguity` ([`Tuning::rotation_ambiguity_margin`]), `version` (descriptor version),
+//! `ambiguity` ([`Tuning::rotation_ambiguity_margin`]), `eq_ransac`
+//! ([`Tuning::equivariant_ransac`]), `partners`, `pair_turn` ([`Tuning::pair_partners`],
+//! [`Tuning::pair_turn_deg`]), `fpfh_matches` (0 or 1, [`Tuning::baseline_matches`]), `version` (descriptor version),
 //! `min_keep`, `max_keep`, `ratio`, `neighbours` (matching), `explain`, `interleave` (0 or 1),
 //! `list`, `list_share` ([`Tuning::list_rivalry`], [`Tuning::list_overlap_share`]),
 //! `distinct_angle`, `distinct_taus` ([`Tuning::distinct_angle_deg`] and its distance), `pool` (hypotheses and ranking: DEVELOPERS.md, Registration, "Hypotheses: where the truth
@@ -38,6 +40,10 @@ pub fn tuned(mut params: AlignParams, source: &Cloud, target: &Cloud) -> AlignPa
             "inner" => tu.inner_radius_share = x,
             "third" => tu.third_radius_share = x,
             "ambiguity" => tu.rotation_ambiguity_margin = x,
+            "eq_ransac" => tu.equivariant_ransac = x as usize,
+            "fpfh_matches" => tu.baseline_matches = x != 0.0,
+            "partners" => tu.pair_partners = x as usize,
+            "pair_turn" => tu.pair_turn_deg = x,
             "min_keep" => tu.match_min_keep = x as usize,
             "max_keep" => tu.match_max_keep = x as usize,
             "ratio" => tu.match_max_ratio = x as f32,
