@@ -25,7 +25,7 @@ use super::pipeline::AlignParams;
 use super::prepared_scan::PreparedScan;
 use super::quality::{self, Figures, Verdict};
 use super::rank::Ranked;
-use super::refine::Refined;
+use super::refine::{FineFit, Refined, fit_fine};
 use super::residual::full_resolution_rmse;
 use super::visibility::Visibility;
 use crate::error::Result;
@@ -38,6 +38,8 @@ pub struct Judgement {
     pub verdict: Verdict,
     /// The answer and its closest rivals, file coordinates.
     pub candidates: Vec<Candidate>,
+    /// The fine fit of the answer (SOURCE local → TARGET local), with its constraint analysis.
+    pub fit: FineFit,
 }
 
 /// How strongly `other` is listed beside `best`: its `rivalry`, or, when its consistent overlap
@@ -54,7 +56,37 @@ fn listing_weight(other: &Scored, best: &Scored, rivalry: f64, share_floor: f64)
     }
 }
 
+/// What every appraisal of an answer looks at.
+struct Inputs<'a> {
+    refined: &'a Refined,
+    ranked: &'a Ranked,
+    pairs: &'a Pairs,
+    correspondences: usize,
+    source: &'a PreparedScan,
+    target: &'a PreparedScan,
+    params: &'a AlignParams,
+    seen: &'a Visibility,
+    tau: f64,
+}
+
+/// A judgement with the indices (into `polished`) of the listed poses, answer first.
+struct Appraisal {
+    judgement: Judgement,
+    listed: Vec<usize>,
+}
+
 /// Judges the refined answer of `source` onto `target`.
+///
+/// The answer is first the best coarse pose by score (tight overlap × explained matches),
+/// fitted finely. When that verdict is not `confident`, the matches have not separated the
+/// listed poses, and on a pair of views that cannot be laid on top of each other the true pose
+/// lays more of SOURCE on TARGET than a wrong one: the listed rival with the largest consistent
+/// overlap ([`Scored::consistent_overlap`]) then becomes the answer when it exceeds the first
+/// answer's by more than [`super::Tuning::answer_overlap_lead`] ([`overlap_leader`]). It is
+/// fitted finely and appraised like the first (figures, constraint, rivals and candidates all
+/// describe it, with the first answer listed second); its verdict is never `confident`, and is
+/// `ambiguous` with [`quality::Reason::MatchesFavourAnotherPose`] unless its figures make it
+/// `not_found`.
 #[allow(clippy::too_many_arguments)]
 pub fn judge(
     refined: &Refined,
@@ -67,33 +99,100 @@ pub fn judge(
     seen: &Visibility,
     tau: f64,
 ) -> Result<Judgement> {
+    let inputs = Inputs {
+        refined,
+        ranked,
+        pairs,
+        correspondences,
+        source,
+        target,
+        params,
+        seen,
+        tau,
+    };
+    let first = refined.order.first().copied();
+    let judged = appraise(&inputs, first, &refined.fit, None)?;
+    if judged.judgement.verdict == Verdict::Confident {
+        return Ok(judged.judgement);
+    }
+    let (Some(first), Some(other)) = (
+        first,
+        overlap_leader(
+            &refined.polished,
+            &judged.listed,
+            params.tuning.answer_overlap_lead,
+        ),
+    ) else {
+        return Ok(judged.judgement);
+    };
+    let fit = fit_fine(&refined.polished[other].pose, source, target, params, tau);
+    Ok(appraise(&inputs, Some(other), &fit, Some(first))?.judgement)
+}
+
+/// The listed rival (an index of `listed` past the answer, into `polished`) with the largest
+/// consistent overlap, when that exceeds the answer's (`listed[0]`) by more than `lead`; ties
+/// go to the earlier listed.
+fn overlap_leader(polished: &[Scored], listed: &[usize], lead: f64) -> Option<usize> {
+    let (&answer, rivals) = listed.split_first()?;
+    let mut best: Option<usize> = None;
+    for &i in rivals {
+        if best.is_none_or(|b| polished[i].consistent_overlap() > polished[b].consistent_overlap())
+        {
+            best = Some(i);
+        }
+    }
+    best.filter(|&i| {
+        polished[i].consistent_overlap() > polished[answer].consistent_overlap() + lead
+    })
+}
+
+/// Figures, verdict and candidates of `answer` (an index into `polished`; `None` when nothing
+/// was refined) with its fine `fit`. `replaced`: the first answer, when `answer` took its place
+/// (listed second, and the verdict is never `confident`; see [`judge`]).
+fn appraise(
+    inputs: &Inputs<'_>,
+    answer: Option<usize>,
+    fit: &FineFit,
+    replaced: Option<usize>,
+) -> Result<Appraisal> {
+    let Inputs {
+        refined,
+        ranked,
+        pairs,
+        correspondences,
+        source,
+        target,
+        params,
+        seen,
+        tau,
+    } = *inputs;
     let tu = &params.tuning;
     let Refined {
         polished,
         order,
         most,
-        best,
         coarse,
-        local,
-        constraint,
         ..
     } = refined;
-    let (most, best, local) = (*most, *best, *local);
-    // How close each distinct pose comes to the best (1 for the best itself). The candidates
-    // are the best and its closest rivals.
-    let mut rivals: Vec<(usize, f64)> = order
-        .iter()
-        .map(|&i| {
-            let r = best.map_or(0.0, |b| rivalry(&polished[i], &b, most));
-            (i, r)
-        })
+    let most = *most;
+    let best = answer.map(|i| polished[i]);
+    let coarse = best.map_or(*coarse, |b| b.pose);
+    let local = fit.local;
+    // How close each distinct pose comes to the answer (1 for the answer itself). The
+    // candidates are the answer and its closest rivals.
+    let rivalry_of = |i: usize| best.map_or(0.0, |b| rivalry(&polished[i], &b, most));
+    let mut rivals: Vec<(usize, f64)> = answer
+        .into_iter()
+        .chain(order.iter().copied().filter(|&i| Some(i) != answer))
+        .map(|i| (i, rivalry_of(i)))
         .collect();
     if rivals.len() > 1 {
         rivals[1..].sort_by(|x, y| y.1.total_cmp(&x.1).then(x.0.cmp(&y.0)));
     }
     let rival = rivals.get(1).map_or(0.0, |r| r.1);
-    // Listed: the answer, then the rivals by listing weight (rivalry, or the overlap share of a
-    // pose with real support of its own, [`listing_weight`]) down to `list_rivalry`.
+    // Listed: the answer, the first answer it replaced (if so), then the rivals by listing
+    // weight (rivalry, or the overlap share of a pose with real support of its own,
+    // [`listing_weight`]) down to `list_rivalry`.
     let weight = |i: usize, r: f64| {
         best.map_or(r, |b| {
             listing_weight(&polished[i], &b, r, tu.list_overlap_share)
@@ -102,6 +201,7 @@ pub fn judge(
     let mut by_weight: Vec<(usize, f64, f64)> = rivals
         .iter()
         .skip(1)
+        .filter(|&&(i, _)| Some(i) != replaced)
         .map(|&(i, r)| (i, r, weight(i, r)))
         .collect();
     by_weight.sort_by(|x, y| y.2.total_cmp(&x.2).then(x.0.cmp(&y.0)));
@@ -109,6 +209,7 @@ pub fn judge(
         .iter()
         .take(1)
         .copied()
+        .chain(replaced.map(|i| (i, rivalry_of(i))))
         .chain(
             by_weight
                 .iter()
@@ -127,14 +228,14 @@ pub fn judge(
         let bad = seen.violation(pose).unwrap_or(0.0);
         (n as f64 - FREE_SPACE_WEIGHT * bad * sample_n).max(0.0)
     };
-    let sample_tight = consistent(ranked.on_surface(target, coarse, tau, tu), coarse);
+    let sample_tight = consistent(ranked.on_surface(target, &coarse, tau, tu), &coarse);
     let rival = ranked
         .poses
         .iter()
         .filter(|(_, h)| {
             !consensus::same_pose(
                 &h.transform,
-                coarse,
+                &coarse,
                 tu.distinct_angle_deg,
                 tu.distinct_distance_taus * tau,
             )
@@ -169,10 +270,13 @@ pub fn judge(
     };
     figures.confidence = quality::confidence(inliers, overlap, margin);
     let mut verdict = quality::verdict(&figures);
-    if verdict == Verdict::Confident && !constraint.weak.is_empty() {
+    if verdict == Verdict::Confident && !fit.constraint.weak.is_empty() {
         verdict = Verdict::Ambiguous(quality::Reason::WeaklyConstrained);
     }
-    if verdict == Verdict::Confident && quality::slid_rival(refined.slide_rivalry) {
+    if verdict == Verdict::Confident
+        && replaced.is_none()
+        && quality::slid_rival(refined.slide_rivalry)
+    {
         verdict = Verdict::Ambiguous(quality::Reason::AmbiguousSymmetricShape);
     }
     let shares = listed.iter().skip(1).filter_map(|&(i, _)| {
@@ -184,6 +288,9 @@ pub fn judge(
     });
     if verdict == Verdict::Confident && quality::rival_as_large(shares, tu) {
         verdict = Verdict::Ambiguous(quality::Reason::AmbiguousSymmetricShape);
+    }
+    if replaced.is_some() && !matches!(verdict, Verdict::NotFound(_)) {
+        verdict = Verdict::Ambiguous(quality::Reason::MatchesFavourAnotherPose);
     }
     let answer_free_space = seen.violation(&local);
     if answer_free_space.is_some_and(|v| v > tu.free_space_max_share)
@@ -221,9 +328,13 @@ pub fn judge(
             }
         })
         .collect();
-    Ok(Judgement {
-        figures,
-        verdict,
-        candidates,
+    Ok(Appraisal {
+        judgement: Judgement {
+            figures,
+            verdict,
+            candidates,
+            fit: fit.clone(),
+        },
+        listed: listed.iter().map(|x| x.0).collect(),
     })
 }
