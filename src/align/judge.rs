@@ -117,43 +117,59 @@ pub fn judge(
     }
     let (Some(first), Some(other)) = (
         first,
-        overlap_leader(
-            &refined.polished,
-            &judged.listed,
-            params.tuning.answer_overlap_lead,
-        ),
+        overlap_leader(&refined.polished, &judged.listed, &params.tuning),
     ) else {
         return Ok(judged.judgement);
     };
     let fit = fit_fine(&refined.polished[other].pose, source, target, params, tau);
-    Ok(appraise(&inputs, Some(other), &fit, Some(first))?.judgement)
+    let replaced = Replaced {
+        index: first,
+        fit: &refined.fit,
+        verdict: judged.judgement.verdict,
+    };
+    Ok(appraise(&inputs, Some(other), &fit, Some(replaced))?.judgement)
 }
 
-/// The listed rival (an index of `listed` past the answer, into `polished`) with the largest
-/// consistent overlap, when that exceeds the answer's (`listed[0]`) by more than `lead`; ties
-/// go to the earlier listed.
-fn overlap_leader(polished: &[Scored], listed: &[usize], lead: f64) -> Option<usize> {
+/// The first answer, when another listed pose took its place.
+#[derive(Clone, Copy)]
+struct Replaced<'a> {
+    /// Index into `polished`.
+    index: usize,
+    /// Its fine fit.
+    fit: &'a FineFit,
+    /// Its verdict.
+    verdict: Verdict,
+}
+
+/// Among the listed rivals (indices of `listed` past the answer, into `polished`) that explain
+/// at least [`super::Tuning::answer_min_explained`] matches, the one with the largest
+/// consistent overlap, when that exceeds the answer's (`listed[0]`) by more than
+/// [`super::Tuning::answer_overlap_lead`]; ties go to the earlier listed.
+fn overlap_leader(polished: &[Scored], listed: &[usize], tu: &super::Tuning) -> Option<usize> {
     let (&answer, rivals) = listed.split_first()?;
     let mut best: Option<usize> = None;
     for &i in rivals {
-        if best.is_none_or(|b| polished[i].consistent_overlap() > polished[b].consistent_overlap())
+        if polished[i].explained >= tu.answer_min_explained
+            && best
+                .is_none_or(|b| polished[i].consistent_overlap() > polished[b].consistent_overlap())
         {
             best = Some(i);
         }
     }
     best.filter(|&i| {
-        polished[i].consistent_overlap() > polished[answer].consistent_overlap() + lead
+        polished[i].consistent_overlap()
+            > polished[answer].consistent_overlap() + tu.answer_overlap_lead
     })
 }
 
 /// Figures, verdict and candidates of `answer` (an index into `polished`; `None` when nothing
 /// was refined) with its fine `fit`. `replaced`: the first answer, when `answer` took its place
-/// (listed second, and the verdict is never `confident`; see [`judge`]).
+/// (listed second with its fine fit; the verdict is never `confident`, see [`judge`]).
 fn appraise(
     inputs: &Inputs<'_>,
     answer: Option<usize>,
     fit: &FineFit,
-    replaced: Option<usize>,
+    replaced: Option<Replaced<'_>>,
 ) -> Result<Appraisal> {
     let Inputs {
         refined,
@@ -176,6 +192,7 @@ fn appraise(
     } = refined;
     let most = *most;
     let best = answer.map(|i| polished[i]);
+    let replaced_index = replaced.map(|r| r.index);
     let coarse = best.map_or(*coarse, |b| b.pose);
     let local = fit.local;
     // How close each distinct pose comes to the answer (1 for the answer itself). The
@@ -201,7 +218,7 @@ fn appraise(
     let mut by_weight: Vec<(usize, f64, f64)> = rivals
         .iter()
         .skip(1)
-        .filter(|&&(i, _)| Some(i) != replaced)
+        .filter(|&&(i, _)| Some(i) != replaced_index)
         .map(|&(i, r)| (i, r, weight(i, r)))
         .collect();
     by_weight.sort_by(|x, y| y.2.total_cmp(&x.2).then(x.0.cmp(&y.0)));
@@ -209,7 +226,7 @@ fn appraise(
         .iter()
         .take(1)
         .copied()
-        .chain(replaced.map(|i| (i, rivalry_of(i))))
+        .chain(replaced_index.map(|i| (i, rivalry_of(i))))
         .chain(
             by_weight
                 .iter()
@@ -289,8 +306,13 @@ fn appraise(
     if verdict == Verdict::Confident && quality::rival_as_large(shares, tu) {
         verdict = Verdict::Ambiguous(quality::Reason::AmbiguousSymmetricShape);
     }
-    if replaced.is_some() && !matches!(verdict, Verdict::NotFound(_)) {
-        verdict = Verdict::Ambiguous(quality::Reason::MatchesFavourAnotherPose);
+    // An answer that replaced another is `ambiguous` because the matches favour that other
+    // pose; `not_found` only when the replaced answer was not found either.
+    if let Some(r) = replaced {
+        verdict = match (r.verdict, verdict) {
+            (Verdict::NotFound(_), Verdict::NotFound(why)) => Verdict::NotFound(why),
+            _ => Verdict::Ambiguous(quality::Reason::MatchesFavourAnotherPose),
+        };
     }
     let answer_free_space = seen.violation(&local);
     if answer_free_space.is_some_and(|v| v > tu.free_space_max_share)
@@ -308,11 +330,11 @@ fn appraise(
         .enumerate()
         .map(|(k, &(i, rivalry))| {
             let p = &polished[i];
-            let pose = if k == 0 { local } else { p.pose };
-            let free_space_violation = if k == 0 {
-                answer_free_space
-            } else {
-                p.free_space
+            // The answer, and the answer it replaced, as fitted finely.
+            let (pose, free_space_violation) = match replaced {
+                _ if k == 0 => (local, answer_free_space),
+                Some(r) if r.index == i => (r.fit.local, seen.violation(&r.fit.local)),
+                _ => (p.pose, p.free_space),
             };
             let (angle_deg, distance) = difference(&local, &pose, &centroid);
             Candidate {
