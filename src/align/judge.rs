@@ -14,7 +14,9 @@
 //! [`super::candidates::Scored::consistent_overlap`]), and each candidate carries its
 //! free-space violation share; an answer whose share exceeds
 //! [`super::Tuning::free_space_max_share`] is `not_found` (`contradicts_free_space`).
-//! Candidates are given in file coordinates, the first being the answer.
+//! Candidates are given in file coordinates, the first being the answer: the best pose by
+//! score, or, when the verdict is not confident, the distinct pose that lays clearly more of
+//! SOURCE on TARGET ([`judge`]).
 
 use nalgebra::Vector3;
 
@@ -69,20 +71,15 @@ struct Inputs<'a> {
     tau: f64,
 }
 
-/// A judgement with the indices (into `polished`) of the listed poses, answer first.
-struct Appraisal {
-    judgement: Judgement,
-    listed: Vec<usize>,
-}
-
 /// Judges the refined answer of `source` onto `target`.
 ///
 /// The answer is first the best coarse pose by score (tight overlap × explained matches),
 /// fitted finely. When that verdict is not `confident`, the matches have not separated the
-/// listed poses, and on a pair of views that cannot be laid on top of each other the true pose
-/// lays more of SOURCE on TARGET than a wrong one: the listed rival with the largest consistent
-/// overlap ([`Scored::consistent_overlap`]) then becomes the answer when it exceeds the first
-/// answer's by more than [`super::Tuning::answer_overlap_lead`] ([`overlap_leader`]). It is
+/// poses, and on a pair of views that cannot be laid on top of each other the true pose lays
+/// more of SOURCE on TARGET than a wrong one: the distinct refined pose with the largest
+/// consistent overlap ([`Scored::consistent_overlap`]) then becomes the answer when it exceeds
+/// the first answer's by more than [`super::Tuning::answer_overlap_lead`] and explains a match
+/// ([`overlap_leader`]). It is
 /// fitted finely and appraised like the first (figures, constraint, rivals and candidates all
 /// describe it, with the first answer listed second); its verdict is never `confident`, and is
 /// `ambiguous` with [`quality::Reason::MatchesFavourAnotherPose`] unless its figures make it
@@ -112,25 +109,25 @@ pub fn judge(
     };
     let first = refined.order.first().copied();
     let judged = appraise(&inputs, first, &refined.fit, None)?;
-    if judged.judgement.verdict == Verdict::Confident {
-        return Ok(judged.judgement);
+    if judged.verdict == Verdict::Confident {
+        return Ok(judged);
     }
     let (Some(first), Some(other)) = (
         first,
-        overlap_leader(&refined.polished, &judged.listed, &params.tuning),
+        first.and_then(|f| overlap_leader(&refined.polished, f, &refined.order, &params.tuning)),
     ) else {
-        return Ok(judged.judgement);
+        return Ok(judged);
     };
     let fit = fit_fine(&refined.polished[other].pose, source, target, params, tau);
     let replaced = Replaced {
         index: first,
         fit: &refined.fit,
-        verdict: judged.judgement.verdict,
+        verdict: judged.verdict,
     };
-    Ok(appraise(&inputs, Some(other), &fit, Some(replaced))?.judgement)
+    appraise(&inputs, Some(other), &fit, Some(replaced))
 }
 
-/// The first answer, when another listed pose took its place.
+/// The first answer, when another distinct pose took its place.
 #[derive(Clone, Copy)]
 struct Replaced<'a> {
     /// Index into `polished`.
@@ -141,14 +138,20 @@ struct Replaced<'a> {
     verdict: Verdict,
 }
 
-/// Among the listed rivals (indices of `listed` past the answer, into `polished`) that explain
-/// at least [`super::Tuning::answer_min_explained`] matches, the one with the largest
-/// consistent overlap, when that exceeds the answer's (`listed[0]`) by more than
-/// [`super::Tuning::answer_overlap_lead`]; ties go to the earlier listed.
-fn overlap_leader(polished: &[Scored], listed: &[usize], tu: &super::Tuning) -> Option<usize> {
-    let (&answer, rivals) = listed.split_first()?;
+/// Among the distinct refined poses `order` (indices into `polished`) other than `answer` that
+/// explain at least [`super::Tuning::answer_min_explained`] matches, the one with the largest
+/// consistent overlap, when that exceeds the answer's by more than
+/// [`super::Tuning::answer_overlap_lead`]; ties go to the earlier in `order`. Every such pose
+/// is listable (its overlap share exceeds the listing share, `listing_weight`): the choice is
+/// not limited to the [`super::Tuning::candidates`] listed beside the first answer.
+fn overlap_leader(
+    polished: &[Scored],
+    answer: usize,
+    order: &[usize],
+    tu: &super::Tuning,
+) -> Option<usize> {
     let mut best: Option<usize> = None;
-    for &i in rivals {
+    for &i in order.iter().filter(|&&i| i != answer) {
         if polished[i].explained >= tu.answer_min_explained
             && best
                 .is_none_or(|b| polished[i].consistent_overlap() > polished[b].consistent_overlap())
@@ -170,7 +173,7 @@ fn appraise(
     answer: Option<usize>,
     fit: &FineFit,
     replaced: Option<Replaced<'_>>,
-) -> Result<Appraisal> {
+) -> Result<Judgement> {
     let Inputs {
         refined,
         ranked,
@@ -350,13 +353,67 @@ fn appraise(
             }
         })
         .collect();
-    Ok(Appraisal {
-        judgement: Judgement {
-            figures,
-            verdict,
-            candidates,
-            fit: fit.clone(),
-        },
-        listed: listed.iter().map(|x| x.0).collect(),
+    Ok(Judgement {
+        figures,
+        verdict,
+        candidates,
+        fit: fit.clone(),
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::align::Tuning;
+    use crate::geometry::rigid::Rigid;
+
+    fn scored(overlap: f64, explained: usize, free_space: Option<f64>) -> Scored {
+        Scored {
+            pose: Rigid::identity(),
+            overlap,
+            explained,
+            evidence: 0.0,
+            iterations: 0,
+            free_space,
+        }
+    }
+
+    /// The rule of [`overlap_leader`]: the distinct pose with the most consistent overlap, past
+    /// the lead, with at least one explained match; free space counts against a rival.
+    #[test]
+    fn the_overlap_leader_is_the_distinct_pose_with_the_most_consistent_overlap() {
+        let tu = Tuning::default();
+        let polished = [
+            scored(0.40, 30, None),      // 0: the first answer
+            scored(0.45, 5, None),       // 1: more overlap, a few matches
+            scored(0.50, 0, None),       // 2: still more, no match agrees
+            scored(0.60, 8, Some(0.05)), // 3: most tight overlap, 0.50 consistent
+            scored(0.405, 12, None),     // 4: within the lead
+        ];
+        assert_eq!(overlap_leader(&polished, 0, &[0, 1, 2], &tu), Some(1));
+        assert_eq!(overlap_leader(&polished, 0, &[1, 0, 3], &tu), Some(3));
+        assert_eq!(overlap_leader(&polished, 0, &[0, 2], &tu), None, "no match");
+        assert_eq!(
+            overlap_leader(&polished, 0, &[0, 4], &tu),
+            None,
+            "within the lead"
+        );
+        assert_eq!(overlap_leader(&polished, 0, &[0], &tu), None);
+        assert_eq!(overlap_leader(&polished, 0, &[], &tu), None);
+        let seen = [
+            scored(0.40, 30, None),
+            scored(0.45, 5, None),
+            scored(0.48, 8, Some(0.02)), // 0.44 consistent
+        ];
+        assert_eq!(overlap_leader(&seen, 0, &[0, 2, 1], &tu), Some(1));
+        let off = Tuning {
+            answer_overlap_lead: 2.0,
+            ..tu
+        };
+        assert_eq!(
+            overlap_leader(&polished, 0, &[0, 1, 3], &off),
+            None,
+            "rule off"
+        );
+    }
 }
