@@ -79,11 +79,10 @@ struct Inputs<'a> {
 /// more of SOURCE on TARGET than a wrong one: the distinct refined pose with the largest
 /// consistent overlap ([`Scored::consistent_overlap`]) then becomes the answer when it exceeds
 /// the first answer's by more than [`super::Tuning::answer_overlap_lead`] and explains a match
-/// ([`overlap_leader`]). It is
-/// fitted finely and appraised like the first (figures, constraint, rivals and candidates all
-/// describe it, with the first answer listed second); its verdict is never `confident`, and is
-/// `ambiguous` with [`quality::Reason::MatchesFavourAnotherPose`] unless its figures make it
-/// `not_found`.
+/// ([`overlap_leader`]). It is fitted finely and appraised like the first (figures, constraint,
+/// rivals and candidates all describe it, with the first answer listed second); its verdict is
+/// never `confident`: `not_found` when its figures and the first answer's both say so, else
+/// `ambiguous` with [`quality::Reason::MatchesFavourAnotherPose`].
 #[allow(clippy::too_many_arguments)]
 pub fn judge(
     refined: &Refined,
@@ -112,10 +111,11 @@ pub fn judge(
     if judged.verdict == Verdict::Confident {
         return Ok(judged);
     }
-    let (Some(first), Some(other)) = (
-        first,
-        first.and_then(|f| overlap_leader(&refined.polished, f, &refined.order, &params.tuning)),
-    ) else {
+    let Some(first) = first else {
+        return Ok(judged);
+    };
+    let Some(other) = overlap_leader(&refined.polished, first, &refined.order, &params.tuning)
+    else {
         return Ok(judged);
     };
     let fit = fit_fine(&refined.polished[other].pose, source, target, params, tau);
