@@ -79,7 +79,7 @@ struct Inputs<'a> {
 /// more of SOURCE on TARGET than a wrong one: the distinct refined pose with the largest
 /// consistent overlap ([`Scored::consistent_overlap`]) then becomes the answer when it exceeds
 /// the first answer's by more than [`super::Tuning::answer_overlap_lead`] and explains a match
-/// ([`overlap_leader`]). It is fitted finely and appraised like the first (figures, constraint,
+/// (`overlap_leader`). It is fitted finely and appraised like the first (figures, constraint,
 /// rivals and candidates all describe it, with the first answer listed second); its verdict is
 /// never `confident`: `not_found` when its figures and the first answer's both say so, else
 /// `ambiguous` with [`quality::Reason::MatchesFavourAnotherPose`].
