@@ -202,8 +202,6 @@ pub struct Refined {
     pub order: Vec<usize>,
     /// Most evidence of any coarse pose.
     pub most: Most,
-    /// The best coarse pose (`None` when there was none).
-    pub best: Option<Scored>,
     /// The best pose before the fine fit (the identity when there was none).
     pub coarse: Rigid,
     /// The fine fit of the best coarse pose ([`fit_fine`]); the judge may answer with another
@@ -299,7 +297,6 @@ pub fn fine(
         polished,
         order,
         most,
-        best,
         coarse,
         fit,
         slide_rivalry,
