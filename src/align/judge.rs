@@ -14,7 +14,9 @@
 //! [`super::candidates::Scored::consistent_overlap`]), and each candidate carries its
 //! free-space violation share; an answer whose share exceeds
 //! [`super::Tuning::free_space_max_share`] is `not_found` (`contradicts_free_space`).
-//! Candidates are given in file coordinates, the first being the answer.
+//! Candidates are given in file coordinates, the first being the answer: the best pose by
+//! score, or, when the verdict is not confident, the distinct pose that lays clearly more of
+//! SOURCE on TARGET ([`judge`]).
 
 use nalgebra::Vector3;
 
@@ -25,7 +27,7 @@ use super::pipeline::AlignParams;
 use super::prepared_scan::PreparedScan;
 use super::quality::{self, Figures, Verdict};
 use super::rank::Ranked;
-use super::refine::Refined;
+use super::refine::{FineFit, Refined, fit_fine};
 use super::residual::full_resolution_rmse;
 use super::visibility::Visibility;
 use crate::error::Result;
@@ -38,6 +40,8 @@ pub struct Judgement {
     pub verdict: Verdict,
     /// The answer and its closest rivals, file coordinates.
     pub candidates: Vec<Candidate>,
+    /// The fine fit of the answer (SOURCE local → TARGET local), with its constraint analysis.
+    pub fit: FineFit,
 }
 
 /// How strongly `other` is listed beside `best`: its `rivalry`, or, when its consistent overlap
@@ -54,7 +58,31 @@ fn listing_weight(other: &Scored, best: &Scored, rivalry: f64, share_floor: f64)
     }
 }
 
+/// What every appraisal of an answer looks at.
+struct Inputs<'a> {
+    refined: &'a Refined,
+    ranked: &'a Ranked,
+    pairs: &'a Pairs,
+    correspondences: usize,
+    source: &'a PreparedScan,
+    target: &'a PreparedScan,
+    params: &'a AlignParams,
+    seen: &'a Visibility,
+    tau: f64,
+}
+
 /// Judges the refined answer of `source` onto `target`.
+///
+/// The answer is first the best coarse pose by score (tight overlap × explained matches),
+/// fitted finely. When that verdict is not `confident`, the matches have not separated the
+/// poses, and on a pair of views that cannot be laid on top of each other the true pose lays
+/// more of SOURCE on TARGET than a wrong one: the distinct refined pose with the largest
+/// consistent overlap ([`Scored::consistent_overlap`]) then becomes the answer when it exceeds
+/// the first answer's by more than [`super::Tuning::answer_overlap_lead`] and explains a match
+/// (`overlap_leader`). It is fitted finely and appraised like the first (figures, constraint,
+/// rivals and candidates all describe it, with the first answer listed second); its verdict is
+/// never `confident`: `not_found` when its figures and the first answer's both say so, else
+/// `ambiguous` with [`quality::Reason::MatchesFavourAnotherPose`].
 #[allow(clippy::too_many_arguments)]
 pub fn judge(
     refined: &Refined,
@@ -67,33 +95,124 @@ pub fn judge(
     seen: &Visibility,
     tau: f64,
 ) -> Result<Judgement> {
+    let inputs = Inputs {
+        refined,
+        ranked,
+        pairs,
+        correspondences,
+        source,
+        target,
+        params,
+        seen,
+        tau,
+    };
+    let first = refined.order.first().copied();
+    let judged = appraise(&inputs, first, &refined.fit, None)?;
+    if judged.verdict == Verdict::Confident {
+        return Ok(judged);
+    }
+    let Some(first) = first else {
+        return Ok(judged);
+    };
+    let Some(other) = overlap_leader(&refined.polished, first, &refined.order, &params.tuning)
+    else {
+        return Ok(judged);
+    };
+    let fit = fit_fine(&refined.polished[other].pose, source, target, params, tau);
+    let replaced = Replaced {
+        index: first,
+        fit: &refined.fit,
+        verdict: judged.verdict,
+    };
+    appraise(&inputs, Some(other), &fit, Some(replaced))
+}
+
+/// The first answer, when another distinct pose took its place.
+#[derive(Clone, Copy)]
+struct Replaced<'a> {
+    /// Index into `polished`.
+    index: usize,
+    /// Its fine fit.
+    fit: &'a FineFit,
+    /// Its verdict.
+    verdict: Verdict,
+}
+
+/// Among the distinct refined poses `order` (indices into `polished`) other than `answer` that
+/// explain at least [`super::Tuning::answer_min_explained`] matches, the one with the largest
+/// consistent overlap, when that exceeds the answer's by more than
+/// [`super::Tuning::answer_overlap_lead`]; ties go to the earlier in `order`. Every such pose
+/// is listable (its overlap share exceeds the listing share, `listing_weight`): the choice is
+/// not limited to the [`super::Tuning::candidates`] listed beside the first answer.
+fn overlap_leader(
+    polished: &[Scored],
+    answer: usize,
+    order: &[usize],
+    tu: &super::Tuning,
+) -> Option<usize> {
+    let mut best: Option<usize> = None;
+    for &i in order.iter().filter(|&&i| i != answer) {
+        if polished[i].explained >= tu.answer_min_explained
+            && best
+                .is_none_or(|b| polished[i].consistent_overlap() > polished[b].consistent_overlap())
+        {
+            best = Some(i);
+        }
+    }
+    best.filter(|&i| {
+        polished[i].consistent_overlap()
+            > polished[answer].consistent_overlap() + tu.answer_overlap_lead
+    })
+}
+
+/// Figures, verdict and candidates of `answer` (an index into `polished`; `None` when nothing
+/// was refined) with its fine `fit`. `replaced`: the first answer, when `answer` took its place
+/// (listed second with its fine fit; the verdict is never `confident`, see [`judge`]).
+fn appraise(
+    inputs: &Inputs<'_>,
+    answer: Option<usize>,
+    fit: &FineFit,
+    replaced: Option<Replaced<'_>>,
+) -> Result<Judgement> {
+    let Inputs {
+        refined,
+        ranked,
+        pairs,
+        correspondences,
+        source,
+        target,
+        params,
+        seen,
+        tau,
+    } = *inputs;
     let tu = &params.tuning;
     let Refined {
         polished,
         order,
         most,
-        best,
         coarse,
-        local,
-        constraint,
         ..
     } = refined;
-    let (most, best, local) = (*most, *best, *local);
-    // How close each distinct pose comes to the best (1 for the best itself). The candidates
-    // are the best and its closest rivals.
-    let mut rivals: Vec<(usize, f64)> = order
-        .iter()
-        .map(|&i| {
-            let r = best.map_or(0.0, |b| rivalry(&polished[i], &b, most));
-            (i, r)
-        })
+    let most = *most;
+    let best = answer.map(|i| polished[i]);
+    let replaced_index = replaced.map(|r| r.index);
+    let coarse = best.map_or(*coarse, |b| b.pose);
+    let local = fit.local;
+    // How close each distinct pose comes to the answer (1 for the answer itself). The
+    // candidates are the answer and its closest rivals.
+    let rivalry_of = |i: usize| best.map_or(0.0, |b| rivalry(&polished[i], &b, most));
+    let mut rivals: Vec<(usize, f64)> = answer
+        .into_iter()
+        .chain(order.iter().copied().filter(|&i| Some(i) != answer))
+        .map(|i| (i, rivalry_of(i)))
         .collect();
     if rivals.len() > 1 {
         rivals[1..].sort_by(|x, y| y.1.total_cmp(&x.1).then(x.0.cmp(&y.0)));
     }
     let rival = rivals.get(1).map_or(0.0, |r| r.1);
-    // Listed: the answer, then the rivals by listing weight (rivalry, or the overlap share of a
-    // pose with real support of its own, [`listing_weight`]) down to `list_rivalry`.
+    // Listed: the answer, the first answer it replaced (if so), then the rivals by listing
+    // weight (rivalry, or the overlap share of a pose with real support of its own,
+    // [`listing_weight`]) down to `list_rivalry`.
     let weight = |i: usize, r: f64| {
         best.map_or(r, |b| {
             listing_weight(&polished[i], &b, r, tu.list_overlap_share)
@@ -102,6 +221,7 @@ pub fn judge(
     let mut by_weight: Vec<(usize, f64, f64)> = rivals
         .iter()
         .skip(1)
+        .filter(|&&(i, _)| Some(i) != replaced_index)
         .map(|&(i, r)| (i, r, weight(i, r)))
         .collect();
     by_weight.sort_by(|x, y| y.2.total_cmp(&x.2).then(x.0.cmp(&y.0)));
@@ -109,6 +229,7 @@ pub fn judge(
         .iter()
         .take(1)
         .copied()
+        .chain(replaced_index.map(|i| (i, rivalry_of(i))))
         .chain(
             by_weight
                 .iter()
@@ -127,14 +248,14 @@ pub fn judge(
         let bad = seen.violation(pose).unwrap_or(0.0);
         (n as f64 - FREE_SPACE_WEIGHT * bad * sample_n).max(0.0)
     };
-    let sample_tight = consistent(ranked.on_surface(target, coarse, tau, tu), coarse);
+    let sample_tight = consistent(ranked.on_surface(target, &coarse, tau, tu), &coarse);
     let rival = ranked
         .poses
         .iter()
         .filter(|(_, h)| {
             !consensus::same_pose(
                 &h.transform,
-                coarse,
+                &coarse,
                 tu.distinct_angle_deg,
                 tu.distinct_distance_taus * tau,
             )
@@ -169,10 +290,13 @@ pub fn judge(
     };
     figures.confidence = quality::confidence(inliers, overlap, margin);
     let mut verdict = quality::verdict(&figures);
-    if verdict == Verdict::Confident && !constraint.weak.is_empty() {
+    if verdict == Verdict::Confident && !fit.constraint.weak.is_empty() {
         verdict = Verdict::Ambiguous(quality::Reason::WeaklyConstrained);
     }
-    if verdict == Verdict::Confident && quality::slid_rival(refined.slide_rivalry) {
+    if verdict == Verdict::Confident
+        && replaced.is_none()
+        && quality::slid_rival(refined.slide_rivalry)
+    {
         verdict = Verdict::Ambiguous(quality::Reason::AmbiguousSymmetricShape);
     }
     let shares = listed.iter().skip(1).filter_map(|&(i, _)| {
@@ -184,6 +308,14 @@ pub fn judge(
     });
     if verdict == Verdict::Confident && quality::rival_as_large(shares, tu) {
         verdict = Verdict::Ambiguous(quality::Reason::AmbiguousSymmetricShape);
+    }
+    // An answer that replaced another is `ambiguous` because the matches favour that other
+    // pose; `not_found` only when the replaced answer was not found either.
+    if let Some(r) = replaced {
+        verdict = match (r.verdict, verdict) {
+            (Verdict::NotFound(_), Verdict::NotFound(why)) => Verdict::NotFound(why),
+            _ => Verdict::Ambiguous(quality::Reason::MatchesFavourAnotherPose),
+        };
     }
     let answer_free_space = seen.violation(&local);
     if answer_free_space.is_some_and(|v| v > tu.free_space_max_share)
@@ -201,11 +333,11 @@ pub fn judge(
         .enumerate()
         .map(|(k, &(i, rivalry))| {
             let p = &polished[i];
-            let pose = if k == 0 { local } else { p.pose };
-            let free_space_violation = if k == 0 {
-                answer_free_space
-            } else {
-                p.free_space
+            // The answer, and the answer it replaced, as fitted finely.
+            let (pose, free_space_violation) = match replaced {
+                _ if k == 0 => (local, answer_free_space),
+                Some(r) if r.index == i => (r.fit.local, seen.violation(&r.fit.local)),
+                _ => (p.pose, p.free_space),
             };
             let (angle_deg, distance) = difference(&local, &pose, &centroid);
             Candidate {
@@ -225,5 +357,63 @@ pub fn judge(
         figures,
         verdict,
         candidates,
+        fit: fit.clone(),
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::align::Tuning;
+    use crate::geometry::rigid::Rigid;
+
+    fn scored(overlap: f64, explained: usize, free_space: Option<f64>) -> Scored {
+        Scored {
+            pose: Rigid::identity(),
+            overlap,
+            explained,
+            evidence: 0.0,
+            iterations: 0,
+            free_space,
+        }
+    }
+
+    /// The rule of [`overlap_leader`]: the distinct pose with the most consistent overlap, past
+    /// the lead, with at least one explained match; free space counts against a rival.
+    #[test]
+    fn the_overlap_leader_is_the_distinct_pose_with_the_most_consistent_overlap() {
+        let tu = Tuning::default();
+        let polished = [
+            scored(0.40, 30, None),      // 0: the first answer
+            scored(0.45, 5, None),       // 1: more overlap, a few matches
+            scored(0.50, 0, None),       // 2: still more, no match agrees
+            scored(0.60, 8, Some(0.05)), // 3: most tight overlap, 0.50 consistent
+            scored(0.405, 12, None),     // 4: within the lead
+        ];
+        assert_eq!(overlap_leader(&polished, 0, &[0, 1, 2], &tu), Some(1));
+        assert_eq!(overlap_leader(&polished, 0, &[1, 0, 3], &tu), Some(3));
+        assert_eq!(overlap_leader(&polished, 0, &[0, 2], &tu), None, "no match");
+        assert_eq!(
+            overlap_leader(&polished, 0, &[0, 4], &tu),
+            None,
+            "within the lead"
+        );
+        assert_eq!(overlap_leader(&polished, 0, &[0], &tu), None);
+        assert_eq!(overlap_leader(&polished, 0, &[], &tu), None);
+        let seen = [
+            scored(0.40, 30, None),
+            scored(0.45, 5, None),
+            scored(0.48, 8, Some(0.02)), // 0.44 consistent
+        ];
+        assert_eq!(overlap_leader(&seen, 0, &[0, 2, 1], &tu), Some(1));
+        let off = Tuning {
+            answer_overlap_lead: 2.0,
+            ..tu
+        };
+        assert_eq!(
+            overlap_leader(&polished, 0, &[0, 1, 3], &off),
+            None,
+            "rule off"
+        );
+    }
 }

@@ -348,18 +348,21 @@ fn register_traced(
     )?;
     clock.lap("verdict");
     Ok(Alignment {
-        transform: refined.local.between_origins(source.origin, target.origin),
-        local: refined.local,
+        transform: judged
+            .fit
+            .local
+            .between_origins(source.origin, target.origin),
+        local: judged.fit.local,
         figures: judged.figures,
         verdict: judged.verdict,
         voxel: source.voxel,
         radius: source.settings.radius,
         inlier_threshold: tau,
         keypoints: [source.keypoints.len(), target.keypoints.len()],
-        icp_iterations: refined.icp_iterations,
+        icp_iterations: judged.fit.icp_iterations,
         timings: clock.stages,
         candidates: judged.candidates,
-        constraint: refined.constraint,
+        constraint: judged.fit.constraint,
         tuning: params.tuning,
         viewpoints: params.viewpoints,
     })

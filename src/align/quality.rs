@@ -68,6 +68,10 @@ pub enum Reason {
     /// The best pose puts part of one scan where the other scan's sensor saw through (see
     /// [`super::visibility`]).
     ContradictsFreeSpace,
+    /// The matched features favour another listed pose, but not clearly; the answer is the
+    /// listed pose that lays more of SOURCE on TARGET (see [`super::judge::judge`]), and the
+    /// matches' choice is the second candidate.
+    MatchesFavourAnotherPose,
 }
 
 impl Reason {
@@ -85,6 +89,9 @@ impl Reason {
             }
             Reason::ContradictsFreeSpace => {
                 "the best pose puts part of one scan where the other scan's sensor saw through (see free_space_violation of the candidates); check the sensor positions given, or whether the scans show the same objects in the same state"
+            }
+            Reason::MatchesFavourAnotherPose => {
+                "the matched features did not single out one pose: this pose lays more of one scan on the other, while the matches favour candidate 2; see the candidates"
             }
             Reason::WeaklyConstrained => {
                 "the fit is free along a direction (see weak directions): nothing in the overlap stops a slide or turn; give scans that share an edge, hole or corner across it"

@@ -202,16 +202,11 @@ pub struct Refined {
     pub order: Vec<usize>,
     /// Most evidence of any coarse pose.
     pub most: Most,
-    /// The best coarse pose (`None` when there was none).
-    pub best: Option<Scored>,
     /// The best pose before the fine fit (the identity when there was none).
     pub coarse: Rigid,
-    /// The answer: SOURCE local → TARGET local after the fine fit.
-    pub local: Rigid,
-    /// ICP iterations of the fine fit (and of the refit on the stable sample).
-    pub icp_iterations: usize,
-    /// Constraint analysis of the fine fit.
-    pub constraint: Constraint,
+    /// The fine fit of the best coarse pose ([`fit_fine`]); the judge may answer with another
+    /// listed pose ([`super::judge`]).
+    pub fit: FineFit,
     /// The strongest [`rivalry`] of a distinct pose that differs from the best by a slide only
     /// (rotations within [`super::Tuning::start_angle_deg`]), 0 when there is none; see
     /// [`super::quality::slid_rival`].
@@ -297,6 +292,41 @@ pub fn fine(
             .fold(0.0, f64::max)
     });
     let coarse = best.map_or(Rigid::identity(), |b| b.pose);
+    let fit = fit_fine(&coarse, source, target, params, tau);
+    Refined {
+        polished,
+        order,
+        most,
+        coarse,
+        fit,
+        slide_rivalry,
+    }
+}
+
+/// The fine fit of a pose: where it ends, how many ICP iterations it took, and how firmly the
+/// fit holds it.
+#[derive(Debug, Clone)]
+pub struct FineFit {
+    /// SOURCE local → TARGET local after the fine fit.
+    pub local: Rigid,
+    /// ICP iterations of the fine fit (and of the refit on the stable sample).
+    pub icp_iterations: usize,
+    /// Constraint analysis of the fit.
+    pub constraint: Constraint,
+}
+
+/// Point-to-plane ICP of the fine points from `start` (pairing distance
+/// [`super::Tuning::fine_max_distance_taus`]), then the constraint analysis of the fit
+/// (Gelfand, Ikemoto, Rusinkiewicz & Levoy 2003); where a motion looks weak the fit is redone
+/// on a stability-aware sample and judged on every point again.
+pub fn fit_fine(
+    start: &Rigid,
+    source: &PreparedScan,
+    target: &PreparedScan,
+    params: &AlignParams,
+    tau: f64,
+) -> FineFit {
+    let tu = &params.tuning;
     let fine_icp = IcpParams {
         max_distance: tu.fine_max_distance_taus * tau,
         min_scale: tu.fine_min_scale_voxels * source.voxel,
@@ -308,7 +338,7 @@ pub fn fine(
         &ft.fine_points,
         &ft.fine_normals,
         ft.fine_index(),
-        &coarse,
+        start,
         &fine_icp,
     );
     let mut local = fit.transform;
@@ -349,15 +379,9 @@ pub fn fine(
         );
         constraint = analyse(&p2, &n2, target.origin);
     }
-    Refined {
-        polished,
-        order,
-        most,
-        best,
-        coarse,
+    FineFit {
         local,
         icp_iterations,
         constraint,
-        slide_rivalry,
     }
 }

@@ -139,6 +139,15 @@ pub struct Tuning {
     /// rivals keep the yard's ground: 71–77 % coverage against 78 %, 9–12 matches against 80
     /// with the harmonic descriptors, up to 16 against 73 with FPFH) and does not count.
     pub rival_match_share: f64,
+    /// When the verdict is not `confident`, the listed rival with the largest consistent
+    /// overlap (share of SOURCE keypoints, [`super::candidates::Scored::consistent_overlap`])
+    /// becomes the answer when it exceeds the first answer's by more than this
+    /// ([`super::judge::judge`]; set from the benchmark, DEVELOPERS.md, Registration, "The
+    /// answer of an ambiguous verdict"). Above 1 the rule is off.
+    pub answer_overlap_lead: f64,
+    /// … and when it explains at least this many matches (a pose that no matched pair agrees
+    /// with is not taken for the answer).
+    pub answer_min_explained: usize,
     /// Full-resolution pairs count in the RMSE when closer than this many TARGET point
     /// spacings (and at most one fine voxel).
     pub rmse_pairing_spacings: f64,
@@ -217,6 +226,8 @@ impl Default for Tuning {
             list_overlap_share: 0.8,
             rival_overlap_share: 0.9,
             rival_match_share: 0.25,
+            answer_overlap_lead: 0.01,
+            answer_min_explained: 1,
             rmse_pairing_spacings: 3.0,
             free_space_margin_voxels: 1.5,
             free_space_noise_sigmas: 3.0,

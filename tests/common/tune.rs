@@ -11,7 +11,9 @@
 //! [`Tuning::pair_turn_deg`]), `fpfh_matches` (0 or 1, [`Tuning::baseline_matches`]), `version` (descriptor version),
 //! `min_keep`, `max_keep`, `ratio`, `neighbours` (matching), `explain`, `interleave` (0 or 1),
 //! `list`, `list_share` ([`Tuning::list_rivalry`], [`Tuning::list_overlap_share`]),
-//! `distinct_angle`, `distinct_taus` ([`Tuning::distinct_angle_deg`] and its distance), `pool` (hypotheses and ranking: DEVELOPERS.md, Registration, "Hypotheses: where the truth
+//! `distinct_angle`, `distinct_taus` ([`Tuning::distinct_angle_deg`] and its distance),
+//! `answer_lead`, `answer_matches` ([`Tuning::answer_overlap_lead`] — 2 turns the answer's
+//! overlap rule off — and [`Tuning::answer_min_explained`]), `pool` (hypotheses and ranking: DEVELOPERS.md, Registration, "Hypotheses: where the truth
 //! is found"), `icp_sample`, `coarse_tolerance`, `self_maps`, `self_queries`, `self_overlap`
 //! (near-self-symmetries, [`Tuning::self_maps`] …).
 
@@ -59,6 +61,8 @@ pub fn tuned(mut params: AlignParams, source: &Cloud, target: &Cloud) -> AlignPa
             "list_share" => tu.list_overlap_share = x,
             "rival_overlap" => tu.rival_overlap_share = x,
             "rival_matches" => tu.rival_match_share = x,
+            "answer_lead" => tu.answer_overlap_lead = x,
+            "answer_matches" => tu.answer_min_explained = x as usize,
             "self_maps" => tu.self_maps = x as usize,
             "self_queries" => tu.self_map_queries = x as usize,
             "self_overlap" => tu.self_map_overlap = x,
