@@ -855,6 +855,7 @@ fn fpfh_matches_right_a_bracket_pair_the_harmonic_matches_turn() {
         "rotation error {:.1}°",
         is_right(&p, &b.transform).1
     );
+}
 
 /// The first yard pair of the benchmark (seed as in the tables, where it is pair 32 of
 /// `EQUISCAN_BENCH_PAIRS=4,3,1`): the matches favour a pose turned 90°, which lays less of
