@@ -73,6 +73,7 @@ pub struct Scored {
 /// pairs with both sensor positions (DEVELOPERS.md, Registration, "Known sensor positions"):
 /// with 10 a stacked shaft pair turned right and a flange pair listed its truth; no verdict
 /// got worse.
+pub const FREE_SPACE_WEIGHT: f64 = 10.0;
 
 /// The most evidence of either kind that any refined pose has: the scale of
 /// [`Scored::score`].
