@@ -68,11 +68,10 @@ pub struct Scored {
 /// surface (see [`Scored::consistent_overlap`]). A point in front of a measured surface by
 /// more than the margin is physically excluded, while a point near the other surface may be
 /// there by chance, so one counts for many: true poses put at most 0.1 % of the points there
-/// (32 benchmark pairs, the depot stations), i.e. lose at most 0.01 of overlap, while the
-/// stacked poses of the benchmark put 1–5 % there. Measured with 2 and 10 on 36 benchmark
-/// pairs with both sensor positions (DEVELOPERS.md, Registration, "Known sensor positions"):
-/// with 10 a stacked shaft pair turned right and a flange pair listed its truth; no verdict
-/// got worse.
+/// (32 benchmark pairs, the depot stations), i.e. lose at most 0.01 of overlap, while wrong
+/// poses of the benchmark put 1–10 % there. Measured with 2 and 10 on 36 benchmark pairs with
+/// both sensor positions (DEVELOPERS.md, Registration, "Known sensor positions"): with 10 a
+/// stacked shaft pair turned right and a flange pair listed its truth; no verdict got worse.
 pub const FREE_SPACE_WEIGHT: f64 = 10.0;
 
 /// The most evidence of either kind that any refined pose has: the scale of
