@@ -18,9 +18,10 @@ pub struct Candidate {
     /// Ranking score (tight overlap × explained correspondences over the most any pose
     /// explains), in [0, 1].
     pub score: f64,
-    /// How close this pose comes to the best, in [0, 1] (1 for the best itself; see
-    /// [`rivalry`]); the verdict is ambiguous when the first rival comes within
-    /// [`super::quality::MIN_MARGIN`] of 1.
+    /// How close this pose comes to the answer (the first candidate), in [0, 1] (1 for the
+    /// answer itself; see [`rivalry`]); the verdict is ambiguous when the first rival comes
+    /// within [`super::quality::MIN_MARGIN`] of 1. A rival that scores above the answer has rivalry
+    /// 1 (the first answer, when a larger overlap replaced it, [`super::judge::judge`]).
     pub rivalry: f64,
     /// Tight overlap: fraction of SOURCE keypoints on TARGET's surface with agreeing normals.
     pub overlap: f64,
@@ -30,9 +31,9 @@ pub struct Candidate {
     /// in the overlap whose detail agrees where this pose lays them (see [`super::evidence`]);
     /// reported beside the ranking figures, not used by them.
     pub evidence: f64,
-    /// Rotation angle between this pose and the best one, degrees.
+    /// Rotation angle between this pose and the answer, degrees.
     pub angle_deg: f64,
-    /// Distance between where this pose and the best one put SOURCE's keypoint centroid, file
+    /// Distance between where this pose and the answer put SOURCE's keypoint centroid, file
     /// units.
     pub distance: f64,
     /// Share of the tested keypoints, 0 to 1, that this pose puts in space a sensor saw
@@ -65,14 +66,8 @@ pub struct Scored {
 }
 
 /// Each keypoint a pose puts in seen-through space cancels this many keypoints on the
-/// surface (see [`Scored::consistent_overlap`]). A point in front of a measured surface by
-/// more than the margin is physically excluded, while a point near the other surface may be
-/// there by chance, so one counts for many: true poses put at most 0.1 % of the points there
-/// (32 benchmark pairs, the depot stations), i.e. lose at most 0.01 of overlap, while wrong
-/// poses of the benchmark put 1–10 % there. Measured with 2 and 10 on 36 benchmark pairs with
-/// both sensor positions (DEVELOPERS.md, Registration, "Known sensor positions"): with 10 a
-/// stacked shaft pair turned right and a flange pair listed its truth; no verdict got worse.
-pub const FREE_SPACE_WEIGHT: f64 = 10.0;
+/// surface (see [`Scored::consistent_overlap`]).
+pub const FREE_SPACE_WEIGHT: f64 = 2.0;
 
 /// The most evidence of either kind that any refined pose has: the scale of
 /// [`Scored::score`].
