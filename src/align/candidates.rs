@@ -18,10 +18,9 @@ pub struct Candidate {
     /// Ranking score (tight overlap × explained correspondences over the most any pose
     /// explains), in [0, 1].
     pub score: f64,
-    /// How close this pose comes to the answer (the first candidate), in [0, 1] (1 for the
-    /// answer itself; see [`rivalry`]); the verdict is ambiguous when the first rival comes
-    /// within [`super::quality::MIN_MARGIN`] of 1. A rival that scores above the answer has rivalry
-    /// 1 (the first answer, when a larger overlap replaced it, [`super::judge::judge`]).
+    /// How close this pose comes to the best, in [0, 1] (1 for the best itself; see
+    /// [`rivalry`]); the verdict is ambiguous when the first rival comes within
+    /// [`super::quality::MIN_MARGIN`] of 1.
     pub rivalry: f64,
     /// Tight overlap: fraction of SOURCE keypoints on TARGET's surface with agreeing normals.
     pub overlap: f64,
@@ -31,9 +30,9 @@ pub struct Candidate {
     /// in the overlap whose detail agrees where this pose lays them (see [`super::evidence`]);
     /// reported beside the ranking figures, not used by them.
     pub evidence: f64,
-    /// Rotation angle between this pose and the answer, degrees.
+    /// Rotation angle between this pose and the best one, degrees.
     pub angle_deg: f64,
-    /// Distance between where this pose and the answer put SOURCE's keypoint centroid, file
+    /// Distance between where this pose and the best one put SOURCE's keypoint centroid, file
     /// units.
     pub distance: f64,
     /// Share of the tested keypoints, 0 to 1, that this pose puts in space a sensor saw
