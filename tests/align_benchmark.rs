@@ -21,8 +21,8 @@ use common::tune::tuned;
 use common::{bunny, errors};
 use equiscan::Cloud;
 use equiscan::align::{
-    AlignParams, Alignment, Method, Motion, Reason, Rigid, Tuning, Verdict, align_pair,
-    align_pair_traced,
+    AlignParams, Alignment, Method, Motion, PreparedScan, Reason, Rigid, Tuning, Verdict,
+    Viewpoints, align_pair, align_pair_traced,
 };
 use equiscan::spatial::{KdIndex, estimate_spacing};
 use nalgebra::Vector3;
@@ -39,8 +39,9 @@ struct Run {
     rot: f64,
     /// Poses the method returned or listed, for the stacked test.
     poses: Vec<Rigid>,
-    /// Per candidate: rivalry, overlap, explained matches, right.
-    listed: Vec<(f64, f64, usize, bool)>,
+    /// Per candidate: rivalry, overlap, explained matches, right, free-space violation share
+    /// (`None` without sensor positions).
+    listed: Vec<(f64, f64, usize, bool, Option<f64>)>,
     /// Weak directions of the final fit.
     weak: usize,
     /// Margin, smallest eigenvalue ratio of the fit's normal matrix, explained matches and
@@ -77,11 +78,46 @@ fn offered(a: &Alignment) -> Vec<Rigid> {
     v
 }
 
-fn run(p: &Pair, method: Method, seed: u64, version: u32) -> Run {
+/// One way of running a pair: the method, and whether both sensor positions are passed to
+/// `align` (free-space consistency, src/align/visibility.rs).
+#[derive(Clone, Copy, PartialEq)]
+struct Arm {
+    method: Method,
+    sensors: bool,
+}
+
+impl Arm {
+    /// The column name: the method, with "+sensors" when the positions are known.
+    fn name(&self) -> String {
+        let m = self.method.name();
+        if self.sensors {
+            format!("{m}+sensors")
+        } else {
+            m.to_string()
+        }
+    }
+}
+
+/// The sensor positions of `p` as `align` takes them (SOURCE's in SOURCE file coordinates,
+/// TARGET's in TARGET file coordinates, as the generator gives them), when `known`.
+fn viewpoints(p: &Pair, known: bool) -> Viewpoints {
+    let finite = |v: [f64; 3]| v.iter().all(|x| x.is_finite()).then_some(v);
+    if known {
+        Viewpoints {
+            source: finite(p.viewpoints[0]),
+            target: finite(p.viewpoints[1]),
+        }
+    } else {
+        Viewpoints::default()
+    }
+}
+
+fn run(p: &Pair, arm: Arm, seed: u64, version: u32) -> Run {
     let params = AlignParams {
-        method,
+        method: arm.method,
         seed,
         descriptor_version: version,
+        viewpoints: viewpoints(p, arm.sensors),
         ..AlignParams::default()
     };
     let params = tuned(params, &p.source, &p.target);
@@ -107,6 +143,7 @@ fn run(p: &Pair, method: Method, seed: u64, version: u32) -> Run {
                     c.overlap,
                     c.explained,
                     is_right(p, &c.transform).0,
+                    c.free_space_violation,
                 )
             })
             .collect(),
@@ -147,6 +184,17 @@ fn pairs(per_part: u64, bunnies: u64, yard: u64) -> Vec<Pair> {
             .parse()
             .expect("EQUISCAN_BENCH_FIRST: a seed offset, e.g. 500")
     });
+    // `EQUISCAN_BENCH_PICK=46,122` keeps those pairs of the list that the other keys give
+    // (numbered as the per-pair lines number them), in the order given.
+    let pick: Option<Vec<usize>> = std::env::var("EQUISCAN_BENCH_PICK").ok().map(|v| {
+        v.split(',')
+            .map(|x| {
+                x.trim()
+                    .parse()
+                    .expect("EQUISCAN_BENCH_PICK: pair numbers, e.g. 46,122")
+            })
+            .collect()
+    });
     let mut jobs: Vec<(usize, u64)> = Vec::new();
     for (k, s) in all.iter().enumerate() {
         let n = if !keep(s.name) {
@@ -161,6 +209,16 @@ fn pairs(per_part: u64, bunnies: u64, yard: u64) -> Vec<Pair> {
     let mesh = bunny();
     let bunnies = if keep("bunny") { bunnies } else { 0 };
     jobs.extend((first..first + bunnies).map(|i| (usize::MAX, 90_000 + i)));
+    if let Some(pick) = pick {
+        jobs = pick
+            .iter()
+            .map(|&i| {
+                *jobs
+                    .get(i)
+                    .unwrap_or_else(|| panic!("EQUISCAN_BENCH_PICK: no pair {i}"))
+            })
+            .collect();
+    }
     jobs.par_iter()
         .map(|&(k, seed)| {
             if k == usize::MAX {
@@ -181,12 +239,12 @@ struct Row {
     runs: Vec<Run>,
 }
 
-fn evaluate(ps: &[Pair], methods: &[Method]) -> Vec<Row> {
+fn evaluate(ps: &[Pair], methods: &[Arm]) -> Vec<Row> {
     evaluate_version(ps, methods, AlignParams::default().descriptor_version)
 }
 
 /// [`evaluate`] with harmonic descriptors of the given version.
-fn evaluate_version(ps: &[Pair], methods: &[Method], version: u32) -> Vec<Row> {
+fn evaluate_version(ps: &[Pair], methods: &[Arm], version: u32) -> Vec<Row> {
     ps.iter()
         .enumerate()
         .map(|(i, p)| {
@@ -229,7 +287,14 @@ fn evaluate_version(ps: &[Pair], methods: &[Method], version: u32) -> Vec<Row> {
                         r.overlap,
                         r.listed
                             .iter()
-                            .map(|c| format!("{:.2}/{:.2}/{}/{}", c.0, c.1, c.2, u8::from(c.3)))
+                            .map(|c| format!(
+                                "{:.2}/{:.2}/{}/{}{}",
+                                c.0,
+                                c.1,
+                                c.2,
+                                u8::from(c.3),
+                                c.4.map_or(String::new(), |f| format!("/{f:.3}"))
+                            ))
                             .collect::<Vec<_>>()
                     ))
                     .collect::<Vec<_>>()
@@ -250,7 +315,7 @@ fn pct(a: usize, b: usize) -> String {
 
 /// Prints one table: a row per group, per method the share right, confident-and-wrong count,
 /// ambiguous share and truth-listed share; stacked pairs counted apart.
-fn table(title: &str, rows: &[Row], methods: &[Method], key: &dyn Fn(&Row) -> String) {
+fn table(title: &str, rows: &[Row], methods: &[Arm], key: &dyn Fn(&Row) -> String) {
     let mut keys: Vec<String> = rows.iter().map(key).collect();
     keys.sort();
     keys.dedup();
@@ -283,7 +348,7 @@ fn table(title: &str, rows: &[Row], methods: &[Method], key: &dyn Fn(&Row) -> St
     }
 }
 
-fn reliability(rows: &[Row], methods: &[Method]) {
+fn reliability(rows: &[Row], methods: &[Arm]) {
     println!("\nReliability: confidence bin → pairs, share right (all pairs, stacked included)\n");
     println!(
         "| confidence | {} |",
@@ -361,12 +426,59 @@ fn bench_size() -> (u64, u64, u64) {
     (n[0], n[1], n[2])
 }
 
-/// Methods to run: `EQUISCAN_BENCH_METHODS=equivariant` or `fpfh` (default both).
-fn bench_methods() -> Vec<Method> {
-    match std::env::var("EQUISCAN_BENCH_METHODS").as_deref() {
+/// Methods to run: `EQUISCAN_BENCH_METHODS=equivariant` or `fpfh` (default both); each with
+/// the sensor positions unknown (default, `EQUISCAN_BENCH_VIEWPOINTS=0`), known (`1`: both
+/// positions passed to `align`, the bunny's far along its orthographic view directions) or
+/// both ways (`both`: each pair run twice per method, columns "METHOD" and "METHOD+sensors").
+fn bench_methods() -> Vec<Arm> {
+    let methods = match std::env::var("EQUISCAN_BENCH_METHODS").as_deref() {
         Ok("equivariant") => vec![Method::Equivariant],
         Ok("fpfh") => vec![Method::Fpfh],
         _ => vec![Method::Equivariant, Method::Fpfh],
+    };
+    let sensors: &[bool] = match std::env::var("EQUISCAN_BENCH_VIEWPOINTS").as_deref() {
+        Err(_) | Ok("0") => &[false],
+        Ok("1") => &[true],
+        Ok("both") => &[false, true],
+        Ok(other) => panic!("EQUISCAN_BENCH_VIEWPOINTS: 0, 1 or both, not {other}"),
+    };
+    methods
+        .iter()
+        .flat_map(|&method| sensors.iter().map(move |&sensors| Arm { method, sensors }))
+        .collect()
+}
+
+/// One line per arm: confident answers and the share right, confident and wrong, truth
+/// among the answer and the listed candidates, and answers right on pairs not stacked and on
+/// stacked pairs (the condition "sensor positions known" or "unknown" is part of the arm).
+fn by_sensor_positions(rows: &[Row], methods: &[Arm]) {
+    println!("\nBy sensor positions (all pairs)\n");
+    println!(
+        "| method | sensor positions | confident | of which right | confident wrong | truth listed | right, not stacked | right, stacked |"
+    );
+    println!("|---|---|---|---|---|---|---|---|");
+    for (mi, m) in methods.iter().enumerate() {
+        let runs = || rows.iter().map(|r| &r.runs[mi]);
+        let conf: Vec<&Run> = runs().filter(|r| r.confident).collect();
+        let cw = conf.iter().filter(|r| !r.right).count();
+        let listed = runs().filter(|r| r.truth_listed).count();
+        let plain: Vec<&Row> = rows.iter().filter(|r| !r.stacked).collect();
+        let stacked: Vec<&Row> = rows.iter().filter(|r| r.stacked).collect();
+        let right = |g: &[&Row]| g.iter().filter(|r| r.runs[mi].right).count();
+        println!(
+            "| {} | {} | {} | {} | {cw} | {} ({listed}) | {} ({} of {}) | {} ({} of {}) |",
+            m.method.name(),
+            if m.sensors { "known" } else { "unknown" },
+            conf.len(),
+            pct(conf.len() - cw, conf.len()),
+            pct(listed, rows.len()),
+            pct(right(&plain), plain.len()),
+            right(&plain),
+            plain.len(),
+            pct(right(&stacked), stacked.len()),
+            right(&stacked),
+            stacked.len(),
+        );
     }
 }
 
@@ -395,6 +507,7 @@ fn registration_benchmark_tables() {
         )
     });
     reliability(&rows, &methods);
+    by_sensor_positions(&rows, &methods);
 }
 
 /// Two pairs per part, one bunny pair and one yard pair, default method: nothing confident
@@ -402,7 +515,13 @@ fn registration_benchmark_tables() {
 #[test]
 fn benchmark_subset_has_no_confident_wrong_answer() {
     let ps = pairs(2, 1, 1);
-    let rows = evaluate(&ps, &[Method::Equivariant]);
+    let rows = evaluate(
+        &ps,
+        &[Arm {
+            method: Method::Equivariant,
+            sensors: false,
+        }],
+    );
     for (i, r) in rows.iter().enumerate() {
         let x = &r.runs[0];
         assert!(
@@ -421,7 +540,11 @@ fn benchmark_subset_has_no_confident_wrong_answer() {
 fn benchmark_subset_by_descriptor_version() {
     let ps = pairs(2, 1, 1);
     for version in [1, 2] {
-        let rows = evaluate_version(&ps, &[Method::Equivariant], version);
+        let arm = Arm {
+            method: Method::Equivariant,
+            sensors: false,
+        };
+        let rows = evaluate_version(&ps, &[arm], version);
         let plain: Vec<&Row> = rows.iter().filter(|r| !r.stacked).collect();
         let right = plain.iter().filter(|r| r.runs[0].right).count();
         let cw = rows
@@ -493,6 +616,35 @@ fn the_slide_on_a_two_plane_part_is_a_weak_direction() {
     );
 }
 
+/// The free-space test ([`Visibility::tally`]) of the answer of `a` and of the truth of `p`,
+/// in both directions: per pose, SOURCE's sample in TARGET's sensor view and TARGET's in
+/// SOURCE's as tested/seen through/unmeasured.
+fn free_space(p: &Pair, params: &AlignParams, a: &Alignment) -> String {
+    use equiscan::align::visibility::{Counts, Visibility};
+    let s = PreparedScan::prepare("source", &p.source, params, a.voxel).unwrap();
+    let t = PreparedScan::prepare("target", &p.target, params, a.voxel).unwrap();
+    let seen = Visibility::new(&s, &t, &params.viewpoints, &params.tuning);
+    let local = |tf: &Rigid| {
+        let (so, to) = (Vector3::from(s.origin()), Vector3::from(t.origin()));
+        Rigid::new(tf.rotation, tf.rotation * so + tf.translation - to)
+    };
+    let c = |x: Option<Counts>| {
+        x.map_or("-".into(), |c| {
+            format!("{}/{}/{}", c.tested, c.seen_through, c.unmeasured)
+        })
+    };
+    let mut out = format!("free space (margin {:.3}):", seen.margin());
+    for (name, tf) in [("answer", &a.transform), ("truth", &p.truth)] {
+        let x = seen.tally(&local(tf));
+        out += &format!(
+            " {name} in target {} in source {}",
+            c(x.in_target),
+            c(x.in_source)
+        );
+    }
+    out
+}
+
 /// Principal axes (columns, largest spread first) and centroid of `pts`.
 fn principal(pts: &[Vector3<f64>]) -> (nalgebra::Matrix3<f64>, Vector3<f64>) {
     let n = pts.len().max(1) as f64;
@@ -517,15 +669,19 @@ fn principal(pts: &[Vector3<f64>]) -> (nalgebra::Matrix3<f64>, Vector3<f64>) {
 /// axis in the principal axes of TARGET and of the union of TARGET and the truly placed
 /// SOURCE, and the shift of SOURCE's centroid) and at which stage a pose near the truth
 /// (within 5° and 3 % of the diagonal) still existed. Size as the tables
-/// (`EQUISCAN_BENCH_PAIRS`, `EQUISCAN_BENCH_SHAPES`).
+/// (`EQUISCAN_BENCH_PAIRS`, `EQUISCAN_BENCH_SHAPES`, `EQUISCAN_BENCH_PICK`); with
+/// `EQUISCAN_BENCH_VIEWPOINTS=1` both sensor positions are passed and each line also gives
+/// the free-space test of the answer and of the truth in both directions (`free_space`).
 #[test]
 #[ignore = "diagnosis: --release --ignored --nocapture"]
 fn benchmark_diagnosis() {
     let (per_part, bunnies, yard) = bench_size();
     let ps = pairs(per_part, bunnies, yard);
+    let known = std::env::var("EQUISCAN_BENCH_VIEWPOINTS").is_ok_and(|v| v == "1");
     for (i, p) in ps.iter().enumerate() {
         let params = AlignParams {
             seed: 1 + i as u64,
+            viewpoints: viewpoints(p, known),
             ..AlignParams::default()
         };
         let params = tuned(params, &p.source, &p.target);
@@ -592,6 +748,9 @@ fn benchmark_diagnosis() {
             lead.0,
             lead.1
         );
+        if known {
+            line += &format!("\n    {}", free_space(p, &params, &a));
+        }
         if !right || st {
             // Motion carrying the answer's placement of SOURCE onto the true one (TARGET frame).
             let m = p.truth.compose(&a.transform.inverse());
@@ -674,7 +833,9 @@ fn match_diagnosis() {
     use equiscan::align::{equivariant, hypotheses};
     let (per_part, bunnies, yard) = bench_size();
     let ps = pairs(per_part, bunnies, yard);
-    let methods = bench_methods();
+    // The arms' methods (sensor positions play no part in matching).
+    let mut methods: Vec<Method> = bench_methods().iter().map(|a| a.method).collect();
+    methods.dedup();
     // Sums per method: kept, true, possible, true with rotation within 5° / 15°, pairs with a
     // near hypothesis from the method's own step / from RANSAC on its matches.
     let mut sums = vec![[0usize; 7]; methods.len()];

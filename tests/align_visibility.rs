@@ -448,3 +448,63 @@ fn an_ambiguous_summary_lists_two_candidates_and_draws_them() {
     let png = std::fs::read(dir.path().join("pic.png")).unwrap();
     assert!(png.starts_with(b"\x89PNG") && png.len() > 10_000);
 }
+
+/// A stacked benchmark pair (channel, seed 7003 of tests/align_benchmark.rs: views 73° apart,
+/// 38 % overlap): without the sensor positions the answer is a wrong pose that lays SOURCE on
+/// TARGET at least as well as the truth does (what the benchmark calls stacked: overlap alone
+/// cannot reject it); with both positions that pose puts more than
+/// [`equiscan::align::Tuning::free_space_max_share`] of the tested points where a sensor saw
+/// through while the truth puts (almost) none there, so it is no longer offered as a result:
+/// the answer is right, or `not_found` (the truth is not among the poses refined for this
+/// pair, so free space can only withdraw the wrong one). Right = the
+/// registration issue's criterion (2°, 1 % of the diagonal); stacked = the benchmark's test
+/// (overlap within 2 TARGET spacings, `common::measured_overlap`, less 0.01).
+#[test]
+fn free_space_rejects_the_wrong_answer_of_a_stacked_pair() {
+    let p = common::shapes::pair(&shapes()[7], 7003);
+    assert_eq!(p.shape, "channel");
+    let right = |tf: &Rigid| {
+        let (r, t) = errors(&p.source, tf, &p.truth);
+        r <= 2.0 && t <= 0.01 * p.diagonal
+    };
+    let known = Viewpoints {
+        source: Some(p.viewpoints[0]),
+        target: Some(p.viewpoints[1]),
+    };
+    let without = align_pair(&p.source, &p.target, &AlignParams::default()).unwrap();
+    let stacked = without.transform;
+    let fit = |tf: &Rigid| common::measured_overlap(&p.source, &p.target, tf);
+    eprintln!(
+        "without: {:?}, right {}, overlap {:.3} (truth {:.3})",
+        without.verdict,
+        right(&stacked),
+        fit(&stacked),
+        fit(&p.truth)
+    );
+    assert!(!right(&stacked), "the pair is no longer a stacked case");
+    assert!(fit(&stacked) >= fit(&p.truth) - 0.01, "not stacked");
+    let params = AlignParams {
+        viewpoints: known,
+        ..AlignParams::default()
+    };
+    let with = align_pair(&p.source, &p.target, &params).unwrap();
+    let s = PreparedScan::prepare("s", &p.source, &params, with.voxel).unwrap();
+    let t = PreparedScan::prepare("t", &p.target, &params, with.voxel).unwrap();
+    let seen = Visibility::new(&s, &t, &known, &params.tuning);
+    let (bad, truth) = (
+        seen.violation(&local(&p, &stacked)).unwrap(),
+        seen.violation(&local(&p, &p.truth)).unwrap(),
+    );
+    eprintln!(
+        "with: {:?}, right {}, free space: stacked pose {bad:.3}, truth {truth:.3}",
+        with.verdict,
+        right(&with.transform)
+    );
+    assert!(bad > params.tuning.free_space_max_share, "stacked {bad}");
+    assert!(truth < 0.01, "truth {truth}");
+    assert!(
+        right(&with.transform) || matches!(with.verdict, Verdict::NotFound(_)),
+        "{:?}",
+        with.verdict
+    );
+}

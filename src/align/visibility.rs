@@ -225,25 +225,47 @@ impl Visibility {
         self.target.is_some() || self.source.is_some()
     }
 
+    /// What `pose` (SOURCE local → TARGET local) does to the tested points of each scan whose
+    /// other sensor is known: SOURCE keypoints against TARGET's range image, TARGET keypoints
+    /// (moved back by the inverse) against SOURCE's.
+    pub fn tally(&self, pose: &Rigid) -> Tally {
+        let count = |image: &RangeImage, pts: &[[f32; 3]], tf: &Rigid| {
+            let mut c = Counts {
+                tested: pts.len(),
+                ..Counts::default()
+            };
+            for p in pts {
+                match image.seen_through(&tf.apply_f32(*p), self.margin) {
+                    Some(true) => c.seen_through += 1,
+                    Some(false) => {}
+                    None => c.unmeasured += 1,
+                }
+            }
+            c
+        };
+        Tally {
+            in_target: self
+                .target
+                .as_ref()
+                .map(|image| count(image, &self.source_sample, pose)),
+            in_source: self
+                .source
+                .as_ref()
+                .map(|image| count(image, &self.target_sample, &pose.inverse())),
+        }
+    }
+
     /// Share of the tested points, in [0, 1], that `pose` (SOURCE local → TARGET local) puts
     /// in space a sensor saw through: SOURCE keypoints in front of TARGET's measured surface
     /// along TARGET's sensor rays, and TARGET keypoints (moved back by the inverse) in front of
     /// SOURCE's, over every keypoint of the sample of each scan whose sensor is known. `None`
     /// when no sensor position is known.
     pub fn violation(&self, pose: &Rigid) -> Option<f64> {
-        let count = |image: &RangeImage, pts: &[[f32; 3]], tf: &Rigid| {
-            pts.iter()
-                .filter(|p| image.seen_through(&tf.apply_f32(**p), self.margin) == Some(true))
-                .count()
-        };
+        let t = self.tally(pose);
         let (mut bad, mut tested) = (0usize, 0usize);
-        if let Some(image) = &self.target {
-            bad += count(image, &self.source_sample, pose);
-            tested += self.source_sample.len();
-        }
-        if let Some(image) = &self.source {
-            bad += count(image, &self.target_sample, &pose.inverse());
-            tested += self.target_sample.len();
+        for c in [t.in_target, t.in_source].into_iter().flatten() {
+            bad += c.seen_through;
+            tested += c.tested;
         }
         (self.known() && tested > 0).then(|| bad as f64 / tested as f64)
     }
@@ -258,6 +280,26 @@ impl Visibility {
             .par_iter_mut()
             .for_each(|s| s.free_space = self.violation(&s.pose));
     }
+}
+
+/// The points of one scan tested against the other scan's range image.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub struct Counts {
+    /// Points tested.
+    pub tested: usize,
+    /// Points in front of the measured surface by more than the margin.
+    pub seen_through: usize,
+    /// Points in a direction where nothing was measured (unknown: they never count).
+    pub unmeasured: usize,
+}
+
+/// The free-space test of one pose in both directions ([`Visibility::tally`]).
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub struct Tally {
+    /// SOURCE's sample against TARGET's sensor (`None` when TARGET's position is unknown).
+    pub in_target: Option<Counts>,
+    /// TARGET's sample against SOURCE's sensor (`None` when SOURCE's position is unknown).
+    pub in_source: Option<Counts>,
 }
 
 /// Robust estimate of a scan's noise along the surface normal (file units): for a strided

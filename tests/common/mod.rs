@@ -225,6 +225,9 @@ pub struct Problem {
     pub overlap: f64,
     /// Bounding-box diagonal of the mesh.
     pub diagonal: f64,
+    /// Unit view directions of SOURCE and TARGET (mesh frame, from the object towards the
+    /// viewer; the scans are orthographic).
+    pub views: [Vector3<f64>; 2],
 }
 
 /// Builds a problem: two views `separation_deg` apart, `points` per scan, noise as a fraction of
@@ -279,6 +282,7 @@ pub fn problem(
         truth,
         overlap,
         diagonal: d,
+        views: [v2.normalize(), v1.normalize()],
     }
 }
 

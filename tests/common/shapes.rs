@@ -542,8 +542,27 @@ fn assemble(
     }
 }
 
+/// How far along its view direction an orthographic bunny scan's sensor is placed, in
+/// diagonals: far enough that the rays of a sensor there diverge by at most 0.55 / 200 rad
+/// (2.8 mrad) over the scanned square, a sideways error of at most 0.3 % of the diagonal over
+/// the object's depth, under the free-space margin (at least 1.5 voxels).
+pub const BUNNY_SENSOR_DIAGONALS: f64 = 200.0;
+
+/// Sensor positions of an orthographic bunny problem: SOURCE's in SOURCE file coordinates (the
+/// random pose of `problem` applied, through the inverse of the truth), TARGET's in TARGET
+/// file coordinates (the mesh frame), each [`BUNNY_SENSOR_DIAGONALS`] diagonals from the mesh
+/// centre along the view direction.
+fn bunny_viewpoints(mesh: &super::Mesh, p: &super::Problem) -> [[f64; 3]; 2] {
+    let c = mesh.centre();
+    let far = BUNNY_SENSOR_DIAGONALS * p.diagonal;
+    let s = p.truth.inverse().apply(&(c + p.views[0] * far));
+    let t = c + p.views[1] * far;
+    [[s.x, s.y, s.z], [t.x, t.y, t.z]]
+}
+
 /// A bunny pair in the same terms (orthographic mesh scans of `common`): views 10–120° apart,
-/// the same noise and size ranges; the viewpoints are far along the view directions.
+/// the same noise and size ranges; the viewpoints are far along the view directions
+/// ([`BUNNY_SENSOR_DIAGONALS`]).
 pub fn bunny_pair(mesh: &super::Mesh, seed: u64) -> Pair {
     let mut rng = SplitMix64::new(seed ^ 0x5851_f42d_4c95_7f2d);
     let noise_frac = (0.0005f64.ln() + rng.next_f64() * (0.008f64 / 0.0005).ln()).exp();
@@ -555,7 +574,7 @@ pub fn bunny_pair(mesh: &super::Mesh, seed: u64) -> Pair {
         if (0.3..=0.9).contains(&p.overlap) {
             return Pair {
                 shape: "bunny",
-                viewpoints: [[f64::NAN; 3]; 2],
+                viewpoints: bunny_viewpoints(mesh, &p),
                 overlap: p.overlap,
                 noise_frac,
                 separation: sep,
@@ -568,7 +587,7 @@ pub fn bunny_pair(mesh: &super::Mesh, seed: u64) -> Pair {
     }
     Pair {
         shape: "bunny",
-        viewpoints: [[f64::NAN; 3]; 2],
+        viewpoints: bunny_viewpoints(mesh, &p),
         overlap: p.overlap,
         noise_frac,
         separation: f64::NAN,
