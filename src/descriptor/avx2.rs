@@ -119,31 +119,14 @@ pub(crate) fn directions_closed(
     assert!(dx.len() == jp && dy.len() == jp && dz.len() == jp);
     assert!(rho.len() >= jp && y.len() >= nk * jp);
     let s = _mm256_set1_ps;
-    let one = s(1.0);
     let inv_r8 = s(inv_r);
     let mut sh = [s(0.0); 25];
     for j0 in (0..jp).step_by(LANES) {
         // SAFETY: `j0 + 8 ≤ jp` and every slice holds at least `jp` values (asserted above);
         // the stores to `y` stay below `nk·jp`.
         unsafe {
-            let q = _mm256_loadu_ps(d2.as_ptr().add(j0));
-            let dist = _mm256_sqrt_ps(q);
-            let r8 = _mm256_min_ps(_mm256_mul_ps(dist, inv_r8), one);
+            let r8 = harmonics8([dx, dy, dz, d2], j0, inv_r8, fade, nk, &mut sh, y);
             _mm256_storeu_ps(rho.as_mut_ptr().add(j0), r8);
-            let inv = _mm256_div_ps(one, dist);
-            let x = _mm256_mul_ps(_mm256_loadu_ps(dx.as_ptr().add(j0)), inv);
-            let yv = _mm256_mul_ps(_mm256_loadu_ps(dy.as_ptr().add(j0)), inv);
-            let z = _mm256_mul_ps(_mm256_loadu_ps(dz.as_ptr().add(j0)), inv);
-            closed8(x, yv, z, &mut sh);
-            if let Some(inv_rho0) = fade {
-                let h = fade8(_mm256_mul_ps(r8, s(inv_rho0)));
-                for v in sh[1..nk].iter_mut() {
-                    *v = _mm256_mul_ps(*v, h);
-                }
-            }
-            for (kk, v) in sh[..nk].iter().enumerate() {
-                _mm256_storeu_ps(y.as_mut_ptr().add(kk * jp + j0), *v);
-            }
         }
     }
 }
@@ -191,23 +174,7 @@ pub(crate) fn directions_weights(
         // SAFETY: `j0 + 8 ≤ jp` and every slice holds at least `jp` values (asserted above);
         // the stores to `y` stay below `nk·jp`, those to `w` below `n_sh·jp`.
         unsafe {
-            let q = _mm256_loadu_ps(d2.as_ptr().add(j0));
-            let dist = _mm256_sqrt_ps(q);
-            let r8 = _mm256_min_ps(_mm256_mul_ps(dist, inv_r8), one);
-            let inv = _mm256_div_ps(one, dist);
-            let x = _mm256_mul_ps(_mm256_loadu_ps(dx.as_ptr().add(j0)), inv);
-            let yv = _mm256_mul_ps(_mm256_loadu_ps(dy.as_ptr().add(j0)), inv);
-            let z = _mm256_mul_ps(_mm256_loadu_ps(dz.as_ptr().add(j0)), inv);
-            closed8(x, yv, z, &mut sh);
-            if let Some(inv_rho0) = fade {
-                let h = fade8(_mm256_mul_ps(r8, s(inv_rho0)));
-                for v in sh[1..nk].iter_mut() {
-                    *v = _mm256_mul_ps(*v, h);
-                }
-            }
-            for (kk, v) in sh[..nk].iter().enumerate() {
-                _mm256_storeu_ps(y.as_mut_ptr().add(kk * jp + j0), *v);
-            }
+            let r8 = harmonics8([dx, dy, dz, d2], j0, inv_r8, fade, nk, &mut sh, y);
             // The weights, at ρ = 1 in the padding lanes.
             let pad = _mm256_cmpgt_epi32(
                 _mm256_add_epi32(lane, _mm256_set1_epi32(j0 as i32)),
@@ -232,6 +199,50 @@ pub(crate) fn directions_weights(
         }
     }
     wsum
+}
+
+/// The harmonics of the eight neighbours `j0..j0 + 8` (offsets `d = [dx, dy, dz, |d|²]`),
+/// stored to `y[k·J + j]` (`J = d[3].len()`) for the `nk` harmonics, degrees `l ≥ 1` times the
+/// fade when `fade = Some(1/ρ₀)`; returns their `ρ = min(|d|·inv_r, 1)`. The shared body of
+/// [`directions_closed`] and [`directions_weights`].
+///
+/// # Safety
+/// `j0 + 8 ≤ J`, the offsets hold at least `J` values each and `y` at least `nk·J`.
+#[target_feature(enable = "avx2,fma")]
+#[inline]
+unsafe fn harmonics8(
+    d: [&[f32]; 4],
+    j0: usize,
+    inv_r8: __m256,
+    fade: Option<f32>,
+    nk: usize,
+    sh: &mut [__m256; 25],
+    y: &mut [f32],
+) -> __m256 {
+    let [dx, dy, dz, d2] = d;
+    let jp = d2.len();
+    let one = _mm256_set1_ps(1.0);
+    // SAFETY: the caller's bounds (above).
+    unsafe {
+        let q = _mm256_loadu_ps(d2.as_ptr().add(j0));
+        let dist = _mm256_sqrt_ps(q);
+        let r8 = _mm256_min_ps(_mm256_mul_ps(dist, inv_r8), one);
+        let inv = _mm256_div_ps(one, dist);
+        let x = _mm256_mul_ps(_mm256_loadu_ps(dx.as_ptr().add(j0)), inv);
+        let yv = _mm256_mul_ps(_mm256_loadu_ps(dy.as_ptr().add(j0)), inv);
+        let z = _mm256_mul_ps(_mm256_loadu_ps(dz.as_ptr().add(j0)), inv);
+        closed8(x, yv, z, sh);
+        if let Some(inv_rho0) = fade {
+            let h = fade8(_mm256_mul_ps(r8, _mm256_set1_ps(inv_rho0)));
+            for v in sh[1..nk].iter_mut() {
+                *v = _mm256_mul_ps(*v, h);
+            }
+        }
+        for (kk, v) in sh[..nk].iter().enumerate() {
+            _mm256_storeu_ps(y.as_mut_ptr().add(kk * jp + j0), *v);
+        }
+        r8
+    }
 }
 
 /// The cutoff of [`super::radial::cutoff`] lane by lane, the same operations.
