@@ -458,15 +458,14 @@ pub(crate) fn gather(
     let b_ix = _mm256_setr_epi32(0, 0, 0, 0, 1, 2, 1, 2);
     let ones = _mm256_set1_ps(1.0);
     for &i in &ids[whole..] {
-        let q = points[i as usize];
-        let d = [q[0] - p[0], q[1] - p[1], q[2] - p[2]];
-        let d2 = d[0] * d[0] + d[1] * d[1] + d[2] * d[2];
-        gx[m] = d[0];
-        gy[m] = d[1];
-        gz[m] = d[2];
-        gd2[m] = d2;
-        zeros += (d2 == 0.0) as u32;
-        let keep = d2 > 0.0 && d2 <= r2;
+        let (d, keep) = super::engine::gather_hit(
+            points[i as usize],
+            p,
+            r2,
+            m,
+            [&mut *gx, &mut *gy, &mut *gz, &mut *gd2],
+            &mut zeros,
+        );
         m += keep as usize;
         let mask = if keep { u32::MAX } else { 0 };
         // Lanes 0–2 of `dv` hold the offset; the permutations read no other lane.

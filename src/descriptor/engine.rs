@@ -879,6 +879,30 @@ fn sort_distinct(ids: &mut [u32], bits: &mut Vec<u64>, summary: &mut Vec<u64>) {
     debug_assert_eq!(k, n, "indices must be distinct");
 }
 
+/// One hit of [`gather`] (and of the AVX2 build's last `n mod 8` hits): the offset `d = q − p`
+/// and `d² = dx² + dy² + dz²` (products then sums, in this order) written at slot `m` of
+/// `g = [gx, gy, gz, gd2]`, `zeros` counted up when `d² = 0`; returns `d` and whether the hit
+/// is kept (`0 < d² ≤ r2`).
+#[inline(always)]
+pub(super) fn gather_hit(
+    q: [f32; 3],
+    p: [f32; 3],
+    r2: f32,
+    m: usize,
+    g: [&mut [f32]; 4],
+    zeros: &mut u32,
+) -> ([f32; 3], bool) {
+    let d = [q[0] - p[0], q[1] - p[1], q[2] - p[2]];
+    let d2 = d[0] * d[0] + d[1] * d[1] + d[2] * d[2];
+    let [gx, gy, gz, gd2] = g;
+    gx[m] = d[0];
+    gy[m] = d[1];
+    gz[m] = d[2];
+    gd2[m] = d2;
+    *zeros += (d2 == 0.0) as u32;
+    (d, d2 > 0.0 && d2 <= r2)
+}
+
 /// The offsets `q − p` of the points `ids` (ascending) of `points` from the centre `p`, with
 /// their squared distances `dx² + dy² + dz²` (f32, products then sums, in this order), written
 /// at the front of `gx`, `gy`, `gz`, `gd2` for the hits with `0 < d² ≤ r2` (branch-free
@@ -901,15 +925,7 @@ pub(super) fn gather(
     let mut zeros = 0u32;
     let mut mo = Moments::default();
     for &i in ids {
-        let q = points[i as usize];
-        let d = [q[0] - p[0], q[1] - p[1], q[2] - p[2]];
-        let d2 = d[0] * d[0] + d[1] * d[1] + d[2] * d[2];
-        gx[m] = d[0];
-        gy[m] = d[1];
-        gz[m] = d[2];
-        gd2[m] = d2;
-        zeros += (d2 == 0.0) as u32;
-        let keep = d2 > 0.0 && d2 <= r2;
+        let (d, keep) = gather_hit(points[i as usize], p, r2, m, [gx, gy, gz, gd2], &mut zeros);
         m += keep as usize;
         // A dropped hit adds +0 to every moment, which leaves each sum's bits as they are
         // (the sums start at +0 and so never hold −0): the moments of the kept ones.
