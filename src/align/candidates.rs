@@ -1,10 +1,7 @@
 //! Rival poses: the distinct refined poses that explain the data nearly as well as the best,
 //! listed so that a user can choose when the verdict is ambiguous.
 
-use std::collections::HashMap;
-
 use nalgebra::{Matrix3, Rotation3, SymmetricEigen, Unit, Vector3};
-use rayon::prelude::*;
 use serde::{Serialize, Serializer};
 
 use super::consensus::{Pairs, same_pose};
@@ -125,156 +122,61 @@ fn principal_frame(points: &[Vector3<f64>]) -> Option<(Vector3<f64>, Matrix3<f64
     Some((c, SymmetricEigen::new(cov / n).eigenvectors))
 }
 
-/// The translations on which the most `votes` agree: votes are counted in cells of `cell` with
-/// their 26 neighbours, and up to `count` peaks are returned best first, each as the mean vote
-/// of its cell's neighbourhood with the number of votes there, each peak's cell more than two
-/// cells from every better one. Ties go to the smallest cell.
-fn vote_peaks(votes: &[Vector3<f64>], cell: f64, count: usize) -> Vec<(Vector3<f64>, usize)> {
-    let key = |v: &Vector3<f64>| {
-        [
-            (v.x / cell).floor() as i64,
-            (v.y / cell).floor() as i64,
-            (v.z / cell).floor() as i64,
-        ]
-    };
-    let mut bins: HashMap<[i64; 3], usize> = HashMap::new();
-    for v in votes {
-        *bins.entry(key(v)).or_insert(0) += 1;
-    }
-    let mut counted: Vec<([i64; 3], usize)> = bins
-        .keys()
-        .map(|c| {
-            let mut n = 0;
-            for dx in -1..=1 {
-                for dy in -1..=1 {
-                    for dz in -1..=1 {
-                        n += bins.get(&[c[0] + dx, c[1] + dy, c[2] + dz]).unwrap_or(&0);
-                    }
-                }
-            }
-            (*c, n)
-        })
-        .collect();
-    counted.sort_unstable_by(|a, b| b.1.cmp(&a.1).then(a.0.cmp(&b.0)));
-    let mut peaks: Vec<[i64; 3]> = Vec::new();
-    for (c, _) in counted {
-        if peaks.len() >= count {
-            break;
-        }
-        if peaks
-            .iter()
-            .all(|p| (0..3).any(|a| (p[a] - c[a]).abs() > 2))
-        {
-            peaks.push(c);
-        }
-    }
-    peaks
-        .iter()
-        .map(|c| {
-            let near: Vec<&Vector3<f64>> = votes
-                .iter()
-                .filter(|v| {
-                    let k = key(v);
-                    (0..3).all(|a| (k[a] - c[a]).abs() <= 1)
-                })
-                .collect();
-            let t = near.iter().fold(Vector3::zeros(), |a, v| a + *v) / near.len() as f64;
-            (t, near.len())
-        })
-        .collect()
-}
-
-/// The translations on which the most matched pairs agree for a given `rotation`: each pair
-/// votes `dst − R src` ([`vote_peaks`], cells of `tau`), and up to `count` peaks are returned,
-/// best first, each with the pairs the pose then explains.
-fn voted_translations(
+/// The translation on which the most matched pairs agree for a given `rotation`: each pair
+/// votes `dst − R src`, votes are counted in cells of `tau` (with the 26 cells around), and
+/// the mean vote of the best cell's neighbourhood is returned with the pairs the pose then
+/// explains; `None` below 3. Ties go to the smallest cell.
+fn voted_translation(
     rotation: &Matrix3<f64>,
     pairs: &Pairs,
     tau: f64,
-    count: usize,
-) -> Vec<(Vector3<f64>, usize)> {
+) -> Option<(Vector3<f64>, usize)> {
     let votes: Vec<Vector3<f64>> = pairs
         .src
         .iter()
         .zip(&pairs.dst)
         .map(|(s, d)| d - rotation * s)
         .collect();
-    vote_peaks(&votes, tau, count)
-        .into_iter()
-        .map(|(t, _)| (t, pairs.support(&Rigid::new(*rotation, t), tau)))
-        .collect()
-}
-
-/// The translation on which the most matched pairs agree for a given `rotation`
-/// ([`voted_translations`], the best peak); `None` when it explains fewer than 3 pairs.
-fn voted_translation(
-    rotation: &Matrix3<f64>,
-    pairs: &Pairs,
-    tau: f64,
-) -> Option<(Vector3<f64>, usize)> {
-    voted_translations(rotation, pairs, tau, 1)
-        .into_iter()
-        .next()
-        .filter(|(_, support)| *support >= 3)
-}
-
-/// SOURCE keypoints in the translation search of the half turns ([`surface_translations`]),
-/// an even stride through them.
-const SURFACE_SEARCH_SAMPLE: usize = 200;
-
-/// TARGET keypoints are gathered in cells of this many τ for [`surface_translations`].
-const SURFACE_SEARCH_CELL_TAUS: f64 = 2.0;
-
-/// The translations at which `rotation` lays the most of SOURCE on TARGET, from the surfaces
-/// alone (no matches): a Hough transform over translations (Hough 1962; Ballard 1981, from
-/// memory). Each point of an even `sample` of SOURCE keypoints, turned, votes `m − R p` for
-/// the mean point `m` of every occupied cell of TARGET's keypoints (cells of
-/// [`SURFACE_SEARCH_CELL_TAUS`] τ, `cells`), so that a translation's votes count the sample
-/// points it lays near TARGET; the best `count` peaks ([`vote_peaks`], cells of `tau`) with at
-/// least a tenth of the sample are returned. On a stacked pair the kept matches vote for the
-/// stacked pose, and a half turn of it about an axis through a centroid lies too far from the
-/// side-by-side pose for ICP to reach it (DEVELOPERS.md, Registration, "Half turns placed by
-/// the surfaces").
-fn surface_translations(
-    rotation: &Matrix3<f64>,
-    sample: &[Vector3<f64>],
-    cells: &[Vector3<f64>],
-    tau: f64,
-    count: usize,
-) -> Vec<Vector3<f64>> {
-    let votes: Vec<Vector3<f64>> = sample
+    let cell = |v: &Vector3<f64>| {
+        [
+            (v.x / tau).floor() as i64,
+            (v.y / tau).floor() as i64,
+            (v.z / tau).floor() as i64,
+        ]
+    };
+    let mut cells: Vec<[i64; 3]> = votes.iter().map(cell).collect();
+    cells.sort_unstable();
+    let count = |c: &[i64; 3]| {
+        let mut n = 0;
+        for dx in -1..=1 {
+            for dy in -1..=1 {
+                for dz in -1..=1 {
+                    let k = [c[0] + dx, c[1] + dy, c[2] + dz];
+                    let lo = cells.partition_point(|x| x < &k);
+                    n += cells[lo..].partition_point(|x| x == &k);
+                }
+            }
+        }
+        n
+    };
+    let mut best: Option<([i64; 3], usize)> = None;
+    for c in cells.iter() {
+        let n = count(c);
+        if best.is_none_or(|b| n > b.1) {
+            best = Some((*c, n));
+        }
+    }
+    let (c, _) = best?;
+    let near: Vec<&Vector3<f64>> = votes
         .iter()
-        .flat_map(|p| {
-            let q = rotation * p;
-            cells.iter().map(move |m| m - q)
+        .filter(|v| {
+            let k = cell(v);
+            (0..3).all(|a| (k[a] - c[a]).abs() <= 1)
         })
         .collect();
-    vote_peaks(&votes, tau, count)
-        .into_iter()
-        .filter(|(_, n)| *n * 10 >= sample.len())
-        .map(|(t, _)| t)
-        .collect()
-}
-
-/// Mean point of each occupied cell of `points` (cells of `cell`), in the order of the cells.
-fn cell_means(points: &[Vector3<f64>], cell: f64) -> Vec<Vector3<f64>> {
-    let mut sums: HashMap<[i64; 3], (Vector3<f64>, usize)> = HashMap::new();
-    for p in points {
-        let k = [
-            (p.x / cell).floor() as i64,
-            (p.y / cell).floor() as i64,
-            (p.z / cell).floor() as i64,
-        ];
-        let e = sums.entry(k).or_insert((Vector3::zeros(), 0));
-        e.0 += p;
-        e.1 += 1;
-    }
-    let mut keyed: Vec<([i64; 3], Vector3<f64>)> = sums
-        .into_iter()
-        .map(|(k, (s, n))| (k, s / n as f64))
-        .collect();
-    keyed.sort_unstable_by(|a, b| a.0.cmp(&b.0));
-    keyed.into_iter().map(|(_, m)| m).collect()
+    let t = near.iter().fold(Vector3::zeros(), |a, v| a + *v) / near.len() as f64;
+    let support = pairs.support(&Rigid::new(*rotation, t), tau);
+    (support >= 3).then_some((t, support))
 }
 
 /// Near-symmetric alternatives of `best` (local frames) that the drawn hypotheses may have
@@ -287,11 +189,8 @@ fn cell_means(points: &[Vector3<f64>], cell: f64) -> Vec<Vector3<f64>> {
 /// Then slides by `±` the overlap's spread along each of `slides` (unit vectors, TARGET local
 /// frame). A turn about an axis through the wrong point lies too far from the pose it stands
 /// for to reach it by ICP, so each turned rotation is also given with the translation on which
-/// the most matched pairs agree (`voted_translation`), and each half turn also with up to
-/// `surface_peaks` translations at which it lays the most of SOURCE on TARGET
-/// ([`surface_translations`]; 0: none). Poses that coincide (within 1° and `tau`) are given
-/// once.
-#[allow(clippy::too_many_arguments)]
+/// the most matched pairs agree (`voted_translation`). Poses that coincide (within 1° and
+/// `tau`) are given once.
 pub fn alternatives(
     best: &Rigid,
     source: &[[f32; 3]],
@@ -300,7 +199,6 @@ pub fn alternatives(
     pairs: &Pairs,
     tau: f64,
     slides: &[Vector3<f64>],
-    surface_peaks: usize,
 ) -> Vec<Rigid> {
     let placed: Vec<Vector3<f64>> = source.iter().map(|p| best.apply_f32(*p)).collect();
     let near: Vec<Vector3<f64>> = placed
@@ -324,16 +222,12 @@ pub fn alternatives(
         }
     }
     let mut out: Vec<Rigid> = Vec::new();
-    let mut half_turns: Vec<Matrix3<f64>> = Vec::new();
     for (c, axes, turns) in frames {
         for k in 0..3 {
             let axis = Unit::new_normalize(axes.column(k).into_owned());
             for &deg in turns {
                 let r = *Rotation3::from_axis_angle(&axis, deg.to_radians()).matrix();
                 let rotation = r * best.rotation;
-                if deg == 180.0 {
-                    half_turns.push(rotation);
-                }
                 let turned = Rigid::new(rotation, r * (best.translation - c) + c);
                 let voted =
                     voted_translation(&rotation, pairs, tau).map(|(t, _)| Rigid::new(rotation, t));
@@ -341,36 +235,6 @@ pub fn alternatives(
                     if out.iter().all(|o| !same_pose(o, &pose, 1.0, tau)) {
                         out.push(pose);
                     }
-                }
-            }
-        }
-    }
-    if surface_peaks > 0 {
-        let stride = source.len().div_ceil(SURFACE_SEARCH_SAMPLE).max(1);
-        let sample: Vec<Vector3<f64>> = source
-            .iter()
-            .step_by(stride)
-            .map(|p| crate::geometry::vec3(*p))
-            .collect();
-        let cells = cell_means(&target, SURFACE_SEARCH_CELL_TAUS * tau);
-        let found: Vec<Vec<Vector3<f64>>> = half_turns
-            .par_iter()
-            .map(|r| {
-                let voted = voted_translations(r, pairs, tau, surface_peaks + 1);
-                voted
-                    .into_iter()
-                    .skip(1)
-                    .filter(|(_, support)| *support >= 3)
-                    .map(|(t, _)| t)
-                    .chain(surface_translations(r, &sample, &cells, tau, surface_peaks))
-                    .collect()
-            })
-            .collect();
-        for (rotation, ts) in half_turns.iter().zip(found) {
-            for t in ts {
-                let pose = Rigid::new(*rotation, t);
-                if out.iter().all(|o| !same_pose(o, &pose, 1.0, tau)) {
-                    out.push(pose);
                 }
             }
         }

@@ -176,7 +176,6 @@ pub fn coarse(
             pairs,
             tau,
             &slides,
-            tu.half_turn_peaks,
         );
         polished.extend(alts.par_iter().map(from).collect::<Vec<_>>());
         let (target_maps, source_maps) = rayon::join(

@@ -178,10 +178,6 @@ pub struct Tuning {
     /// A self-map is a near-symmetry when it lays at least this share of the scan's keypoints on
     /// the scan's own surface (tight overlap, normals agreeing).
     pub self_map_overlap: f64,
-    /// Each half turn among the leader's alternatives is also placed at up to this many
-    /// translations where it lays the most of SOURCE on TARGET, found from the surfaces alone
-    /// (a Hough vote over translations, [`super::candidates::alternatives`]); 0: none.
-    pub half_turn_peaks: usize,
 }
 
 impl Default for Tuning {
@@ -241,7 +237,6 @@ impl Default for Tuning {
             self_maps: 0,
             self_map_queries: 200,
             self_map_overlap: 0.3,
-            half_turn_peaks: 0,
         }
     }
 }

@@ -15,8 +15,7 @@
 //! `answer_lead`, `answer_matches` ([`Tuning::answer_overlap_lead`] — 2 turns the answer's
 //! overlap rule off — and [`Tuning::answer_min_explained`]), `pool` (hypotheses and ranking: DEVELOPERS.md, Registration, "Hypotheses: where the truth
 //! is found"), `icp_sample`, `coarse_tolerance`, `self_maps`, `self_queries`, `self_overlap`
-//! (near-self-symmetries, [`Tuning::self_maps`] …), `half_turn_peaks`
-//! ([`Tuning::half_turn_peaks`]).
+//! (near-self-symmetries, [`Tuning::self_maps`] …).
 
 use equiscan::Cloud;
 use equiscan::align::prepared_scan::pair_voxel;
@@ -67,7 +66,6 @@ pub fn tuned(mut params: AlignParams, source: &Cloud, target: &Cloud) -> AlignPa
             "self_maps" => tu.self_maps = x as usize,
             "self_queries" => tu.self_map_queries = x as usize,
             "self_overlap" => tu.self_map_overlap = x,
-            "half_turn_peaks" => tu.half_turn_peaks = x as usize,
             "version" => params.descriptor_version = x as u32,
             "radius" => params.radius = Some(x * voxel(&params)),
             "keypoints" => params.voxel = Some(voxel(&params) / x.sqrt()),
