@@ -594,6 +594,34 @@ fn a_symmetric_part_is_ambiguous_with_the_turned_pose_listed() {
     );
 }
 
+/// Two stacked pairs of the full benchmark (pair 189, bossplate seed 19; pair 248, channel
+/// seed 10; alignment seeds 190 and 249 as in the tables) whose answer is a half turn of the
+/// true pose: it explains 56 and 90 matches, and a listed rival lays 0.86 and 0.81 as much of
+/// SOURCE on TARGET with 18 and 31 of them. With `Tuning::rival_overlap_share` at 0.9 both were
+/// `confident` and 180° off; at 0.8 such a rival has real support of its own and the verdict
+/// is `ambiguous` (DEVELOPERS.md, Registration, "Half turns of stacked pairs"). Right and
+/// wrong against the generator's pose (tests/common/shapes.rs).
+#[test]
+fn a_stacked_half_turn_beside_a_rival_as_large_is_not_confident() {
+    let all = shapes();
+    for (name, i, index) in [("bossplate", 19u64, 189u64), ("channel", 10, 248)] {
+        let k = all.iter().position(|s| s.name == name).unwrap();
+        let p = pair(&all[k], 1000 * k as u64 + i);
+        let params = AlignParams {
+            seed: 1 + index,
+            ..AlignParams::default()
+        };
+        let a = align_pair(&p.source, &p.target, &params).unwrap();
+        let (right, rot) = is_right(&p, &a.transform);
+        eprintln!("{name} seed {i}: {:?}, {rot:.1}° off", a.verdict);
+        assert!(
+            right || a.verdict == Verdict::Ambiguous(Reason::AmbiguousSymmetricShape),
+            "{name} seed {i}: {:?} and {rot:.1}° off",
+            a.verdict
+        );
+    }
+}
+
 /// Two plates meeting along the y axis, no hole: the fit is free to slide along y and must say
 /// so (a weak direction along ±y, in TARGET's frame, which is the part's), never `confident`.
 #[test]
