@@ -179,8 +179,8 @@ mod tests {
             Verdict::NotFound(Reason::TooFewDistinctivePoints)
         );
         let tu = crate::align::Tuning::default();
-        assert!(rival_as_large([(0.5, 1.0), (0.95, 0.3)], &tu));
-        assert!(!rival_as_large([(0.5, 1.0), (0.85, 0.3)], &tu));
+        assert!(rival_as_large([(0.5, 1.0), (0.85, 0.3)], &tu));
+        assert!(!rival_as_large([(0.5, 1.0), (0.75, 0.3)], &tu));
         assert!(!rival_as_large([(1.0, 0.1)], &tu), "dominant plane");
         assert!(!rival_as_large([], &tu));
         assert!(confidence(40, 0.5, 0.6) > 0.98);
