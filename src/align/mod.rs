@@ -57,6 +57,7 @@ pub mod rank;
 pub mod refine;
 pub mod report;
 pub mod residual;
+pub mod revolution;
 pub mod slides;
 pub mod symmetry;
 pub mod truth;

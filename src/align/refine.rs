@@ -28,6 +28,7 @@ use super::icp::{IcpParams, icp_point_to_plane, oriented_fit};
 use super::pipeline::AlignParams;
 use super::prepared_scan::PreparedScan;
 use super::rank::Ranked;
+use super::revolution;
 use super::rigid::{Rigid, rotation_error_deg};
 use super::symmetry;
 
@@ -178,6 +179,8 @@ pub fn coarse(
             &slides,
         );
         polished.extend(alts.par_iter().map(from).collect::<Vec<_>>());
+        let revolved = revolution::leader_turns(&leader, source, target, tu);
+        polished.extend(revolved.par_iter().map(from).collect::<Vec<_>>());
         let (target_maps, source_maps) = rayon::join(
             || symmetry::self_maps(target, params, tau),
             || symmetry::self_maps(source, params, tau),

@@ -178,6 +178,13 @@ pub struct Tuning {
     /// A self-map is a near-symmetry when it lays at least this share of the scan's keypoints on
     /// the scan's own surface (tight overlap, normals agreeing).
     pub self_map_overlap: f64,
+    /// The leading pose is also turned about TARGET's axis of near-revolution
+    /// ([`super::revolution`]) every this many degrees, each turn refined like the other
+    /// alternatives (0: off).
+    pub revolution_step_deg: f64,
+    /// … when that axis is real: the free turn's residual cost is at most this share of the
+    /// next firmest turn's ([`super::revolution::Axis::ratio`]).
+    pub revolution_max_ratio: f64,
 }
 
 impl Default for Tuning {
@@ -237,6 +244,8 @@ impl Default for Tuning {
             self_maps: 0,
             self_map_queries: 200,
             self_map_overlap: 0.3,
+            revolution_step_deg: 30.0,
+            revolution_max_ratio: 0.1,
         }
     }
 }
