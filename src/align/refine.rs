@@ -179,7 +179,7 @@ pub fn coarse(
             &slides,
         );
         polished.extend(alts.par_iter().map(from).collect::<Vec<_>>());
-        let revolved = revolution::leader_turns(&leader, source, target, tu);
+        let revolved = revolution::leader_turns(&leader, source, target, pairs, tau, tu);
         polished.extend(revolved.par_iter().map(from).collect::<Vec<_>>());
         let (target_maps, source_maps) = rayon::join(
             || symmetry::self_maps(target, params, tau),

@@ -25,6 +25,7 @@
 
 use nalgebra::{Matrix3, Rotation3, SymmetricEigen, Unit, Vector3};
 
+use super::consensus::Pairs;
 use super::prepared_scan::PreparedScan;
 use super::rigid::Rigid;
 use super::tuning::Tuning;
@@ -200,6 +201,8 @@ pub fn leader_turns(
     leader: &Rigid,
     source: &PreparedScan,
     target: &PreparedScan,
+    pairs: &Pairs,
+    tau: f64,
     tu: &Tuning,
 ) -> Vec<Rigid> {
     if tu.revolution_step_deg <= 0.0 {
@@ -216,7 +219,37 @@ pub fn leader_turns(
         Vec::new()
     };
     out.extend(turns(&start, &at, tu.revolution_step_deg));
+    out.extend(matched_turn(&start, &at, pairs, tau, tu.distinct_angle_deg));
     out
+}
+
+/// The turn of `pose` about `axis`, in whole degrees at least `exclude_deg` from no turn, that
+/// brings the most matched pairs within `tau` (ties: the smallest angle); `None` when it
+/// brings fewer than 3. Where the surface of revolution lets every turn fit, the matches on
+/// the small detail are what single out one.
+pub fn matched_turn(
+    pose: &Rigid,
+    axis: &Axis,
+    pairs: &Pairs,
+    tau: f64,
+    exclude_deg: f64,
+) -> Option<Rigid> {
+    let first = exclude_deg.ceil().max(1.0) as usize;
+    let dir = Unit::new_normalize(axis.direction);
+    let p = axis.through;
+    let turned = |deg: usize| {
+        let r = *Rotation3::from_axis_angle(&dir, (deg as f64).to_radians()).matrix();
+        Rigid::new(r * pose.rotation, r * (pose.translation - p) + p)
+    };
+    let mut best: Option<(Rigid, usize)> = None;
+    for deg in first..=(360 - first) {
+        let t = turned(deg);
+        let n = pairs.support(&t, tau);
+        if best.is_none_or(|b| n > b.1) {
+            best = Some((t, n));
+        }
+    }
+    best.filter(|b| b.1 >= 3).map(|b| b.0)
 }
 
 #[cfg(test)]

@@ -244,8 +244,8 @@ impl Default for Tuning {
             self_maps: 0,
             self_map_queries: 200,
             self_map_overlap: 0.3,
-            revolution_step_deg: 30.0,
-            revolution_max_ratio: 0.1,
+            revolution_step_deg: 0.0,
+            revolution_max_ratio: 0.2,
         }
     }
 }
