@@ -5,8 +5,10 @@
 //! the turned poses apart. Two partial views of such a part are easily laid on each other turned
 //! by tens of degrees; the drawn hypotheses and the quarter and half turns of
 //! [`super::candidates::alternatives`] do not start near the truth then. This module finds the
-//! axis and turns the leading pose about it in even steps, so that the coarse ICP can reach the
-//! turned truth from one of them.
+//! axis, lays SOURCE's axis on TARGET's under the leading pose ([`laid_on_axis`]) and turns that
+//! pose about TARGET's axis in even steps and by the angle most matched pairs agree on
+//! ([`leader_turns`]), so that the coarse ICP may reach the turned truth from one of them (off
+//! by default: measured in DEVELOPERS.md, Registration, "Turns about an axis of revolution").
 //!
 //! Method: every normal line of a surface of revolution meets its axis, so the turn about the
 //! axis moves each point along its tangent plane (line-geometric characterisation of rotational
@@ -146,20 +148,23 @@ fn pseudo_inverse(m: &Matrix3<f64>) -> Matrix3<f64> {
     out
 }
 
-/// `pose` (SOURCE → the axis's frame) turned about `axis` by every multiple of `step_deg` short
-/// of a full turn (none when `step_deg` is not in (0°, 180°]).
+/// `pose` (SOURCE → the axis's frame) followed by the turn about `axis` by `deg` degrees.
+pub fn turned(pose: &Rigid, axis: &Axis, deg: f64) -> Rigid {
+    let dir = Unit::new_normalize(axis.direction);
+    let r = *Rotation3::from_axis_angle(&dir, deg.to_radians()).matrix();
+    let p = axis.through;
+    Rigid::new(r * pose.rotation, r * (pose.translation - p) + p)
+}
+
+/// `pose` turned about `axis` ([`turned`]) by every multiple of `step_deg` short of a full
+/// turn (none when `step_deg` is not in (0°, 180°]).
 pub fn turns(pose: &Rigid, axis: &Axis, step_deg: f64) -> Vec<Rigid> {
     if !(step_deg > 0.0 && step_deg <= 180.0) {
         return Vec::new();
     }
     let count = (360.0 / step_deg).round() as usize;
-    let dir = Unit::new_normalize(axis.direction);
-    let p = axis.through;
     (1..count)
-        .map(|k| {
-            let r = *Rotation3::from_axis_angle(&dir, (k as f64 * step_deg).to_radians()).matrix();
-            Rigid::new(r * pose.rotation, r * (pose.translation - p) + p)
-        })
+        .map(|k| turned(pose, axis, k as f64 * step_deg))
         .collect()
 }
 
@@ -234,16 +239,10 @@ pub fn matched_turn(
     tau: f64,
     exclude_deg: f64,
 ) -> Option<Rigid> {
-    let first = exclude_deg.ceil().max(1.0) as usize;
-    let dir = Unit::new_normalize(axis.direction);
-    let p = axis.through;
-    let turned = |deg: usize| {
-        let r = *Rotation3::from_axis_angle(&dir, (deg as f64).to_radians()).matrix();
-        Rigid::new(r * pose.rotation, r * (pose.translation - p) + p)
-    };
+    let first = (exclude_deg.ceil().max(1.0) as usize).min(180);
     let mut best: Option<(Rigid, usize)> = None;
     for deg in first..=(360 - first) {
-        let t = turned(deg);
+        let t = turned(pose, axis, deg as f64);
         let n = pairs.support(&t, tau);
         if best.is_none_or(|b| n > b.1) {
             best = Some((t, n));
@@ -255,6 +254,7 @@ pub fn matched_turn(
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::geometry::rigid::rotation_error_deg;
 
     /// A deterministic unit-ish jitter (a linear congruential walk) in [-1, 1].
     fn walk(seed: u64) -> impl FnMut() -> f64 {
@@ -346,6 +346,50 @@ mod tests {
         }
         let boxed = axis_of_revolution(&bp, &bn).expect("a least free turn");
         assert!(boxed.ratio > 0.2, "{boxed:?}");
+    }
+
+    /// A pose that lays SOURCE's axis 3° and 0.5 off TARGET's is corrected onto it; the turn
+    /// that 20 matched pairs agree on (the construction's 75°) is the one found.
+    #[test]
+    fn lays_the_axis_on_and_finds_the_matched_turn() {
+        let onto = Axis {
+            direction: Vector3::z(),
+            through: Vector3::new(1.0, 2.0, 0.0),
+            ratio: 0.0,
+        };
+        let from = Axis {
+            direction: Vector3::new(0.0, 1.0, 0.0),
+            through: Vector3::new(0.0, 0.0, 4.0),
+            ratio: 0.0,
+        };
+        // Carries SOURCE's y axis onto z, 3° off, through a point 0.5 from TARGET's axis.
+        let tilt =
+            *Rotation3::from_axis_angle(&Vector3::x_axis(), (90.0f64 + 3.0).to_radians()).matrix();
+        let pose = Rigid::new(tilt, Vector3::new(1.5, 2.0, 0.0) - tilt * from.through);
+        let laid = laid_on_axis(&pose, &from, &onto);
+        let d = laid.rotation * from.direction;
+        assert!(d.cross(&onto.direction).norm() < 1e-12, "{d:?}");
+        let q = laid.apply(&from.through) - onto.through;
+        assert!((q - onto.direction * q.dot(&onto.direction)).norm() < 1e-12);
+
+        let truth = turned(&laid, &onto, 75.0);
+        let mut j = walk(3);
+        let mut pairs = Pairs {
+            src: Vec::new(),
+            dst: Vec::new(),
+        };
+        for k in 0..60 {
+            let s = Vector3::new(3.0 * j(), 3.0 * j(), 3.0 * j());
+            pairs.src.push(s);
+            pairs.dst.push(if k % 3 == 0 {
+                truth.apply(&s)
+            } else {
+                Vector3::new(5.0 * j(), 5.0 * j(), 5.0 * j())
+            });
+        }
+        let found = matched_turn(&laid, &onto, &pairs, 0.01, 10.0).expect("a turn");
+        assert!(rotation_error_deg(&found.rotation, &truth.rotation) < 1e-9);
+        assert!((found.translation - truth.translation).norm() < 1e-9);
     }
 
     /// Turns keep the pose's action on the axis's points and rotate the rest about the axis by
