@@ -182,7 +182,24 @@ pub fn coarse(
         );
         polished.extend(alts.par_iter().map(from).collect::<Vec<_>>());
         let revolved = revolution::leader_turns(&leader, source, target, pairs, tau, tu);
-        polished.extend(revolved.par_iter().map(from).collect::<Vec<_>>());
+        let held = IcpParams {
+            max_distance: tu.revolution_icp_distance_taus * tau,
+            ..icp
+        };
+        let from_turn = |s: &Rigid| {
+            polish(
+                &sample,
+                s,
+                &held,
+                pairs,
+                distinctive,
+                source,
+                target,
+                params,
+                tau,
+            )
+        };
+        polished.extend(revolved.par_iter().map(from_turn).collect::<Vec<_>>());
         let (target_maps, source_maps) = rayon::join(
             || symmetry::self_maps(target, params, tau),
             || symmetry::self_maps(source, params, tau),

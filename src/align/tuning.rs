@@ -185,6 +185,11 @@ pub struct Tuning {
     /// … when that axis is real: the free turn's residual cost is at most this share of the
     /// next firmest turn's ([`super::revolution::Axis::ratio`]).
     pub revolution_max_ratio: f64,
+    /// Largest pairing distance of the coarse ICP of those turns, in τ: the turn about the axis
+    /// is nearly free, and with the coarse [`Tuning::icp_max_distance_taus`] the fit drifts
+    /// from a start near the truth to the stacked overlap (DEVELOPERS.md, Registration, "Turns
+    /// about an axis of revolution").
+    pub revolution_icp_distance_taus: f64,
 }
 
 impl Default for Tuning {
@@ -246,6 +251,7 @@ impl Default for Tuning {
             self_map_overlap: 0.3,
             revolution_step_deg: 0.0,
             revolution_max_ratio: 0.2,
+            revolution_icp_distance_taus: 0.5,
         }
     }
 }
