@@ -13,11 +13,12 @@
 //! near-revolution ([`super::revolution`]; off by default,
 //! [`super::Tuning::revolution_step_deg`]). Each result is scored by its tight overlap (the
 //! share of SOURCE keypoints on the TARGET surface within the plane tolerance, normals
-//! agreeing) and the matches it explains. Fine: ICP on the fine points from the best distinct pose; the 6×6
-//! normal matrix of the fit ([`super::constraint`], Gelfand, Ikemoto, Rusinkiewicz & Levoy
-//! 2003) names weakly constrained motions, and where one looks weak the fit is redone on a
-//! stability-aware sample and judged on every point again. Before the fine fit, the leader's
-//! parallel-face slides ([`super::slides`]) join the coarse poses as poses of their own.
+//! agreeing) and the matches it explains. Fine: ICP on the fine points from the best distinct
+//! pose; the 6×6 normal matrix of the fit ([`super::constraint`], Gelfand, Ikemoto,
+//! Rusinkiewicz & Levoy 2003) names weakly constrained motions, and where one looks weak the
+//! fit is redone on a stability-aware sample and judged on every point again. Before the fine
+//! fit, the leader's parallel-face slides ([`super::slides`]) join the coarse poses as poses of
+//! their own.
 
 use nalgebra::Vector3;
 use rayon::prelude::*;

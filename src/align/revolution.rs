@@ -200,8 +200,12 @@ pub fn laid_on_axis(pose: &Rigid, from: &Axis, onto: &Axis) -> Rigid {
 }
 
 /// The turns of `leader` (SOURCE local → TARGET local) about the axis of near-revolution of
-/// TARGET's keypoints ([`axis_of_revolution`]) every [`Tuning::revolution_step_deg`], when
-/// that axis is real (ratio at most [`Tuning::revolution_max_ratio`]); none otherwise.
+/// TARGET's keypoints ([`axis_of_revolution`]), when that axis is real (ratio at most
+/// [`Tuning::revolution_max_ratio`]); none otherwise, or when [`Tuning::revolution_step_deg`]
+/// is 0. When SOURCE has such an axis too, the leader is first laid on TARGET's
+/// ([`laid_on_axis`]) and that pose is the first given; then its turns every
+/// [`Tuning::revolution_step_deg`] ([`turns`]) and the turn the matched pairs agree on
+/// ([`matched_turn`], at least [`Tuning::distinct_angle_deg`] from it).
 pub fn leader_turns(
     leader: &Rigid,
     source: &PreparedScan,

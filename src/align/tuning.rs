@@ -179,8 +179,10 @@ pub struct Tuning {
     /// the scan's own surface (tight overlap, normals agreeing).
     pub self_map_overlap: f64,
     /// The leading pose is also turned about TARGET's axis of near-revolution
-    /// ([`super::revolution`]) every this many degrees, each turn refined like the other
-    /// alternatives (0: off).
+    /// ([`super::revolution`]) every this many degrees, each turn refined by the coarse ICP
+    /// within [`Tuning::revolution_icp_distance_taus`] (0: off, the default: no truth newly
+    /// listed on the mid-size benchmark, DEVELOPERS.md, Registration, "Turns about an axis of
+    /// revolution").
     pub revolution_step_deg: f64,
     /// … when that axis is real: the free turn's residual cost is at most this share of the
     /// next firmest turn's ([`super::revolution::Axis::ratio`]).
