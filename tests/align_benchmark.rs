@@ -740,6 +740,17 @@ fn benchmark_diagnosis() {
                 )
             })
             .collect();
+        // The refined pose closest to the truth in rotation (index, rotation error, translation
+        // error in % of the diagonal), near or not.
+        let closest = tr
+            .refined
+            .iter()
+            .enumerate()
+            .map(|(k, r)| {
+                let (rot, trans) = errors(&p.source, &r.0, &p.truth);
+                (k, rot, 100.0 * trans / p.diagonal)
+            })
+            .min_by(|x, y| x.1.total_cmp(&y.1));
         let lead = tr
             .refined
             .iter()
@@ -764,7 +775,7 @@ fn benchmark_diagnosis() {
             a.candidates.first().map_or(0, |c| c.explained),
         );
         let mut line = format!(
-            "pair {i} {} ovl {:.2} noise {:.4} stacked {st} {:?} right {right} confident {confident} listed {listed} rot {rot:.1} margin {:.3} | hyps {} near {hyp} | ranked {} near at {ranked:?} | refined {} lead ovl {:.3} k {} near: {refined:?}",
+            "pair {i} {} ovl {:.2} noise {:.4} stacked {st} {:?} right {right} confident {confident} listed {listed} rot {rot:.1} margin {:.3} | hyps {} near {hyp} | ranked {} near at {ranked:?} | refined {} lead ovl {:.3} k {} closest {closest:.1?} near: {refined:?}",
             p.shape,
             p.overlap,
             p.noise_frac,

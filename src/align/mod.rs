@@ -22,7 +22,8 @@
 //!    from the near-symmetric alternatives of the leader ([`candidates`]: turns about the
 //!    principal axes of the overlap, half turns about those of TARGET and of both scans, slides
 //!    along weak directions; and the leader composed with the near-self-symmetries of either
-//!    scan, [`symmetry`]), ranked by tight
+//!    scan, [`symmetry`], or turned about TARGET's axis of near-revolution, [`revolution`],
+//!    both off by default), ranked by tight
 //!    overlap × explained matches; fine ICP from the best pose; [`constraint`]: the 6×6 normal
 //!    matrix of the fit, its weak directions, and a refit on a stability-aware sample when a
 //!    direction looks weak (Gelfand, Ikemoto, Rusinkiewicz & Levoy 2003);
@@ -57,6 +58,7 @@ pub mod rank;
 pub mod refine;
 pub mod report;
 pub mod residual;
+pub mod revolution;
 pub mod slides;
 pub mod symmetry;
 pub mod truth;

@@ -9,13 +9,16 @@
 //! translation the matches vote for, slides along weakly constrained directions) are refined
 //! too, since the drawn hypotheses need not contain them, and so is the leader composed with
 //! each near-self-symmetry of TARGET and of SOURCE ([`super::symmetry`]; off by default,
-//! [`super::Tuning::self_maps`]). Each result is scored by its tight overlap (the share of
-//! SOURCE keypoints on the TARGET surface within the plane tolerance, normals agreeing) and the
-//! matches it explains. Fine: ICP on the fine points from the best distinct pose; the 6×6
-//! normal matrix of the fit ([`super::constraint`], Gelfand, Ikemoto, Rusinkiewicz & Levoy
-//! 2003) names weakly constrained motions, and where one looks weak the fit is redone on a
-//! stability-aware sample and judged on every point again. Before the fine fit, the leader's
-//! parallel-face slides ([`super::slides`]) join the coarse poses as poses of their own.
+//! [`super::Tuning::self_maps`]), and so are the leader's turns about TARGET's axis of
+//! near-revolution ([`super::revolution`]; off by default,
+//! [`super::Tuning::revolution_step_deg`]). Each result is scored by its tight overlap (the
+//! share of SOURCE keypoints on the TARGET surface within the plane tolerance, normals
+//! agreeing) and the matches it explains. Fine: ICP on the fine points from the best distinct
+//! pose; the 6×6 normal matrix of the fit ([`super::constraint`], Gelfand, Ikemoto,
+//! Rusinkiewicz & Levoy 2003) names weakly constrained motions, and where one looks weak the
+//! fit is redone on a stability-aware sample and judged on every point again. Before the fine
+//! fit, the leader's parallel-face slides ([`super::slides`]) join the coarse poses as poses of
+//! their own.
 
 use nalgebra::Vector3;
 use rayon::prelude::*;
@@ -28,6 +31,7 @@ use super::icp::{IcpParams, icp_point_to_plane, oriented_fit};
 use super::pipeline::AlignParams;
 use super::prepared_scan::PreparedScan;
 use super::rank::Ranked;
+use super::revolution;
 use super::rigid::{Rigid, rotation_error_deg};
 use super::symmetry;
 
@@ -178,6 +182,25 @@ pub fn coarse(
             &slides,
         );
         polished.extend(alts.par_iter().map(from).collect::<Vec<_>>());
+        let revolved = revolution::leader_turns(&leader, source, target, pairs, tau, tu);
+        let held = IcpParams {
+            max_distance: tu.revolution_icp_distance_taus * tau,
+            ..icp
+        };
+        let from_turn = |s: &Rigid| {
+            polish(
+                &sample,
+                s,
+                &held,
+                pairs,
+                distinctive,
+                source,
+                target,
+                params,
+                tau,
+            )
+        };
+        polished.extend(revolved.par_iter().map(from_turn).collect::<Vec<_>>());
         let (target_maps, source_maps) = rayon::join(
             || symmetry::self_maps(target, params, tau),
             || symmetry::self_maps(source, params, tau),

@@ -179,6 +179,20 @@ pub struct Tuning {
     /// A self-map is a near-symmetry when it lays at least this share of the scan's keypoints on
     /// the scan's own surface (tight overlap, normals agreeing).
     pub self_map_overlap: f64,
+    /// The leading pose is also turned about TARGET's axis of near-revolution
+    /// ([`super::revolution`]) every this many degrees, each turn refined by the coarse ICP
+    /// within [`Tuning::revolution_icp_distance_taus`] (0: off, the default: no truth newly
+    /// listed on the mid-size benchmark, DEVELOPERS.md, Registration, "Turns about an axis of
+    /// revolution").
+    pub revolution_step_deg: f64,
+    /// … when that axis is real: the free turn's residual cost is at most this share of the
+    /// next firmest turn's ([`super::revolution::Axis::ratio`]).
+    pub revolution_max_ratio: f64,
+    /// Largest pairing distance of the coarse ICP of those turns, in τ: the turn about the axis
+    /// is nearly free, and with the coarse [`Tuning::icp_max_distance_taus`] the fit drifts
+    /// from a start near the truth to the stacked overlap (DEVELOPERS.md, Registration, "Turns
+    /// about an axis of revolution").
+    pub revolution_icp_distance_taus: f64,
 }
 
 impl Default for Tuning {
@@ -238,6 +252,9 @@ impl Default for Tuning {
             self_maps: 0,
             self_map_queries: 200,
             self_map_overlap: 0.3,
+            revolution_step_deg: 0.0,
+            revolution_max_ratio: 0.2,
+            revolution_icp_distance_taus: 0.5,
         }
     }
 }

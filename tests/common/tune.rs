@@ -15,7 +15,8 @@
 //! `answer_lead`, `answer_matches` ([`Tuning::answer_overlap_lead`] — 2 turns the answer's
 //! overlap rule off — and [`Tuning::answer_min_explained`]), `pool` (hypotheses and ranking: DEVELOPERS.md, Registration, "Hypotheses: where the truth
 //! is found"), `icp_sample`, `coarse_tolerance`, `self_maps`, `self_queries`, `self_overlap`
-//! (near-self-symmetries, [`Tuning::self_maps`] …).
+//! (near-self-symmetries, [`Tuning::self_maps`] …), `revolve_step`, `revolve_ratio`, `revolve_icp`
+//! (turns about the axis of near-revolution, [`Tuning::revolution_step_deg`] …).
 
 use equiscan::Cloud;
 use equiscan::align::prepared_scan::pair_voxel;
@@ -69,6 +70,9 @@ pub fn tuned(mut params: AlignParams, source: &Cloud, target: &Cloud) -> AlignPa
             "version" => params.descriptor_version = x as u32,
             "radius" => params.radius = Some(x * voxel(&params)),
             "keypoints" => params.voxel = Some(voxel(&params) / x.sqrt()),
+            "revolve_step" => tu.revolution_step_deg = x,
+            "revolve_ratio" => tu.revolution_max_ratio = x,
+            "revolve_icp" => tu.revolution_icp_distance_taus = x,
             _ => panic!("EQUISCAN_BENCH_TUNE: unknown key {key}"),
         }
     }
