@@ -72,6 +72,11 @@ pub enum Reason {
     /// listed pose that lays more of SOURCE on TARGET (see [`super::judge::judge`]), and the
     /// matches' choice is the second candidate.
     MatchesFavourAnotherPose,
+    /// The fit is not pinned down: restarted a few degrees or a few inlier thresholds away
+    /// along its weakest motions, it ends at another pose that fits the fine points as well
+    /// (a shallow basin of a nearly symmetric shape, see [`super::pinning`]); that pose is the
+    /// second candidate.
+    FitNotPinned,
 }
 
 impl Reason {
@@ -92,6 +97,9 @@ impl Reason {
             }
             Reason::MatchesFavourAnotherPose => {
                 "the matched features did not single out one pose: this pose lays more of one scan on the other, while the matches favour candidate 2; see the candidates"
+            }
+            Reason::FitNotPinned => {
+                "the fit is not pinned down: started a few degrees or a few points' spacing away, it settles at another pose that fits as well (candidate 2); check which of the two is right, or give scans that show more of the distinctive detail"
             }
             Reason::WeaklyConstrained => {
                 "the fit is free along a direction (see weak directions): nothing in the overlap stops a slide or turn; give scans that share an edge, hole or corner across it"

@@ -178,6 +178,22 @@ pub struct Tuning {
     /// A self-map is a near-symmetry when it lays at least this share of the scan's keypoints on
     /// the scan's own surface (tight overlap, normals agreeing).
     pub self_map_overlap: f64,
+    /// Restart test of a `confident` answer ([`super::pinning`]): the fine fit is restarted
+    /// from the answer moved along this many of the weakest motions of its normal matrix, in
+    /// both senses (0: off).
+    pub pin_directions: usize,
+    /// A restart along a rotational motion turns the answer this many degrees.
+    pub pin_turn_deg: f64,
+    /// A restart along a translational motion slides the answer this many τ.
+    pub pin_slide_taus: f64,
+    /// A restart ends away from the answer when its rotation differs by more than this many
+    /// degrees …
+    pub pin_angle_deg: f64,
+    /// … or it moves SOURCE's fine centroid by more than this many τ.
+    pub pin_distance_taus: f64,
+    /// A restart's end fits as well as the answer when its tight fine overlap is at least
+    /// 1 − this share of the answer's.
+    pub pin_fit_margin: f64,
 }
 
 impl Default for Tuning {
@@ -237,6 +253,12 @@ impl Default for Tuning {
             self_maps: 0,
             self_map_queries: 200,
             self_map_overlap: 0.3,
+            pin_directions: 2,
+            pin_turn_deg: 3.0,
+            pin_slide_taus: 1.0,
+            pin_angle_deg: 1.0,
+            pin_distance_taus: 1.0,
+            pin_fit_margin: 0.03,
         }
     }
 }

@@ -15,7 +15,8 @@
 //! `answer_lead`, `answer_matches` ([`Tuning::answer_overlap_lead`] — 2 turns the answer's
 //! overlap rule off — and [`Tuning::answer_min_explained`]), `pool` (hypotheses and ranking: DEVELOPERS.md, Registration, "Hypotheses: where the truth
 //! is found"), `icp_sample`, `coarse_tolerance`, `self_maps`, `self_queries`, `self_overlap`
-//! (near-self-symmetries, [`Tuning::self_maps`] …).
+//! (near-self-symmetries, [`Tuning::self_maps`] …), `pin_directions`, `pin_turn`, `pin_slide`,
+//! `pin_angle`, `pin_distance`, `pin_margin` (the restart test, [`Tuning::pin_directions`] …).
 
 use equiscan::Cloud;
 use equiscan::align::prepared_scan::pair_voxel;
@@ -66,6 +67,12 @@ pub fn tuned(mut params: AlignParams, source: &Cloud, target: &Cloud) -> AlignPa
             "self_maps" => tu.self_maps = x as usize,
             "self_queries" => tu.self_map_queries = x as usize,
             "self_overlap" => tu.self_map_overlap = x,
+            "pin_directions" => tu.pin_directions = x as usize,
+            "pin_turn" => tu.pin_turn_deg = x,
+            "pin_slide" => tu.pin_slide_taus = x,
+            "pin_angle" => tu.pin_angle_deg = x,
+            "pin_distance" => tu.pin_distance_taus = x,
+            "pin_margin" => tu.pin_fit_margin = x,
             "version" => params.descriptor_version = x as u32,
             "radius" => params.radius = Some(x * voxel(&params)),
             "keypoints" => params.voxel = Some(voxel(&params) / x.sqrt()),
