@@ -134,7 +134,7 @@ pub fn restart_test(
         .par_iter()
         .map(|s| {
             let end = icp_point_to_plane(
-                &source.fine_points,
+                &source.keypoints,
                 &target.fine_points,
                 &target.fine_normals,
                 target.fine_index(),
