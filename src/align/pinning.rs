@@ -5,9 +5,11 @@
 //! basin a few degrees from the truth, and the fit there is firm by every local figure: the
 //! normal matrix's smallest eigenvalue is above the weak threshold, the residual is small.
 //! What tells such a basin from a pinned pose is where the fit goes when it is started a little
-//! off: restarted from small motions along the weakest directions of the fit's own normal
-//! matrix (the eigenvectors of the 6 × 6 matrix of Gelfand, Ikemoto, Rusinkiewicz & Levoy 2003,
-//! [`super::constraint::motions`]; a turn of [`super::Tuning::pin_turn_deg`] about a rotational
+//! off: point-to-plane ICP of SOURCE's keypoints onto TARGET's fine points (the fine fit's
+//! pairing distance and loss; the keypoints rather than the fine points keep it to about a
+//! tenth of a second on a 100 k-point pair), restarted from small motions along the weakest
+//! directions of the fit's own normal matrix (the eigenvectors of the 6 × 6 matrix of Gelfand,
+//! Ikemoto, Rusinkiewicz & Levoy 2003, [`super::constraint::motions`]; a turn of [`super::Tuning::pin_turn_deg`] about a rotational
 //! eigen-axis through its point nearest the overlap's centroid, a slide of
 //! [`super::Tuning::pin_slide_taus`] τ along a translational one, both signs), a pinned fit
 //! returns to the answer; a fit in a shallow basin ends at another pose. When such a pose lies
@@ -113,8 +115,8 @@ pub fn restarts(
     out
 }
 
-/// The restart test of `answer` (module docs): the best-fitting pose that a restarted fine fit
-/// ends at away from the answer and fitting as well, or `None` when every restart returns to
+/// The restart test of `answer` (module docs): the best-fitting pose (tight fine overlap) that a
+/// restarted fit ends at away from the answer and fitting as well, or `None` when every restart returns to
 /// the answer or fits worse (or the test is off, [`super::Tuning::pin_directions`] 0). Ties go
 /// to the earlier restart; the restarts run in parallel, each deterministic.
 pub fn restart_test(
