@@ -330,7 +330,7 @@ fn appraise(
         verdict = Verdict::NotFound(quality::Reason::ContradictsFreeSpace);
     }
     // The restart test of the fine fit (only for an answer that would be confident: it costs
-    // a few fine fits): a pose it reaches that fits as well is listed second.
+    // four ICP runs), a pose it reaches that fits as well listed second.
     let unpinned = match (verdict, best) {
         (Verdict::Confident, Some(_)) => pinning::restart_test(&local, source, target, params, tau)
             .map(|u| Scored {

@@ -9,9 +9,10 @@
 //! pairing distance and loss; the keypoints rather than the fine points keep it to about a
 //! tenth of a second on a 100 k-point pair), restarted from small motions along the weakest
 //! directions of the fit's own normal matrix (the eigenvectors of the 6 × 6 matrix of Gelfand,
-//! Ikemoto, Rusinkiewicz & Levoy 2003, [`super::constraint::motions`]; a turn of [`super::Tuning::pin_turn_deg`] about a rotational
-//! eigen-axis through its point nearest the overlap's centroid, a slide of
-//! [`super::Tuning::pin_slide_taus`] τ along a translational one, both signs), a pinned fit
+//! Ikemoto, Rusinkiewicz & Levoy 2003, [`super::constraint::motions`]; a turn of
+//! [`super::Tuning::pin_turn_deg`] about a rotational eigen-axis through its point nearest the
+//! overlap's centroid, a slide of [`super::Tuning::pin_slide_taus`] τ along a translational
+//! one, both signs), a pinned fit
 //! returns to the answer; a fit in a shallow basin ends at another pose. When such a pose lies
 //! farther than [`super::Tuning::pin_angle_deg`] or [`super::Tuning::pin_distance_taus`] τ
 //! from the answer and fits the fine points as well (its tight fine overlap, the share of
@@ -31,7 +32,7 @@ use super::prepared_scan::PreparedScan;
 use super::refine::fine_icp;
 use super::rigid::{Rigid, rotation_error_deg};
 
-/// A pose that a restarted fine fit reached, away from the answer, fitting as well.
+/// A pose that a restarted fit reached, away from the answer, fitting as well.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Unpinned {
     /// SOURCE local → TARGET local.
@@ -40,7 +41,7 @@ pub struct Unpinned {
     pub fit: f64,
     /// The answer's tight fine overlap.
     pub answer_fit: f64,
-    /// ICP iterations of the restarted fit.
+    /// ICP iterations of that restart.
     pub iterations: usize,
 }
 
@@ -115,10 +116,11 @@ pub fn restarts(
     out
 }
 
-/// The restart test of `answer` (module docs): the best-fitting pose (tight fine overlap) that a
-/// restarted fit ends at away from the answer and fitting as well, or `None` when every restart returns to
-/// the answer or fits worse (or the test is off, [`super::Tuning::pin_directions`] 0). Ties go
-/// to the earlier restart; the restarts run in parallel, each deterministic.
+/// The restart test of `answer` (module docs): the best-fitting pose (tight fine overlap) that
+/// a restarted fit ends at away from the answer and fitting as well, or `None` when every
+/// restart returns to the answer or fits worse (or the test is off,
+/// [`super::Tuning::pin_directions`] 0). Ties go to the earlier restart; the restarts run in
+/// parallel, each deterministic.
 pub fn restart_test(
     answer: &Rigid,
     source: &PreparedScan,

@@ -178,9 +178,9 @@ pub struct Tuning {
     /// A self-map is a near-symmetry when it lays at least this share of the scan's keypoints on
     /// the scan's own surface (tight overlap, normals agreeing).
     pub self_map_overlap: f64,
-    /// Restart test of a `confident` answer ([`super::pinning`]): the fine fit is restarted
-    /// from the answer moved along this many of the weakest motions of its normal matrix, in
-    /// both senses (0: off).
+    /// Restart test of a `confident` answer ([`super::pinning`]): ICP of SOURCE's keypoints
+    /// onto TARGET's fine points is restarted from the answer moved along this many of the
+    /// weakest motions of its normal matrix, in both senses (0: off).
     pub pin_directions: usize,
     /// A restart along a rotational motion turns the answer this many degrees.
     pub pin_turn_deg: f64,

@@ -67,15 +67,15 @@ pub fn tuned(mut params: AlignParams, source: &Cloud, target: &Cloud) -> AlignPa
             "self_maps" => tu.self_maps = x as usize,
             "self_queries" => tu.self_map_queries = x as usize,
             "self_overlap" => tu.self_map_overlap = x,
+            "version" => params.descriptor_version = x as u32,
+            "radius" => params.radius = Some(x * voxel(&params)),
+            "keypoints" => params.voxel = Some(voxel(&params) / x.sqrt()),
             "pin_directions" => tu.pin_directions = x as usize,
             "pin_turn" => tu.pin_turn_deg = x,
             "pin_slide" => tu.pin_slide_taus = x,
             "pin_angle" => tu.pin_angle_deg = x,
             "pin_distance" => tu.pin_distance_taus = x,
             "pin_margin" => tu.pin_fit_margin = x,
-            "version" => params.descriptor_version = x as u32,
-            "radius" => params.radius = Some(x * voxel(&params)),
-            "keypoints" => params.voxel = Some(voxel(&params) / x.sqrt()),
             _ => panic!("EQUISCAN_BENCH_TUNE: unknown key {key}"),
         }
     }
