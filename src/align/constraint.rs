@@ -141,6 +141,21 @@ pub fn analyse(points: &[Vector3<f64>], normals: &[Vector3<f64>], origin: [f64; 
     }
 }
 
+/// The six motions of the normal matrix of points `p` (TARGET's local frame) with unit normals
+/// `n`, weakest first, each described as a slide or a turn like a [`WeakDirection`] (local
+/// frame, no origin added; `ratio` is its eigenvalue over the largest).
+pub fn motions(points: &[Vector3<f64>], normals: &[Vector3<f64>]) -> Vec<WeakDirection> {
+    let (v, c, l) = rows(points, normals);
+    let (vals, vecs) = eigen(&v);
+    let top = vals[5].max(f64::MIN_POSITIVE);
+    (0..6)
+        .map(|k| {
+            let x = vecs.column(k).into_owned();
+            direction(&x, c, l, Vector3::zeros(), vals[k] / top)
+        })
+        .collect()
+}
+
 /// The motion `x = (ω L, t)` (an eigenvector of the normal matrix of points about `c` at mean
 /// distance `l`) described as a slide or a turn, reported with `origin` added.
 fn direction(

@@ -22,12 +22,14 @@ use nalgebra::Vector3;
 
 use super::candidates::{Candidate, FREE_SPACE_WEIGHT, Scored, difference, rivalry};
 use super::consensus::{self, Pairs};
+use super::evidence::Distinctive;
 use super::icp::fit_quality;
+use super::pinning;
 use super::pipeline::AlignParams;
 use super::prepared_scan::PreparedScan;
 use super::quality::{self, Figures, Verdict};
 use super::rank::Ranked;
-use super::refine::{FineFit, Refined, fit_fine};
+use super::refine::{FineFit, Refined, fit_fine, tight_overlap};
 use super::residual::full_resolution_rmse;
 use super::visibility::Visibility;
 use crate::error::Result;
@@ -64,6 +66,7 @@ struct Inputs<'a> {
     ranked: &'a Ranked,
     pairs: &'a Pairs,
     correspondences: usize,
+    distinctive: &'a Distinctive,
     source: &'a PreparedScan,
     target: &'a PreparedScan,
     params: &'a AlignParams,
@@ -89,6 +92,7 @@ pub fn judge(
     ranked: &Ranked,
     pairs: &Pairs,
     correspondences: usize,
+    distinctive: &Distinctive,
     source: &PreparedScan,
     target: &PreparedScan,
     params: &AlignParams,
@@ -100,6 +104,7 @@ pub fn judge(
         ranked,
         pairs,
         correspondences,
+        distinctive,
         source,
         target,
         params,
@@ -179,6 +184,7 @@ fn appraise(
         ranked,
         pairs,
         correspondences,
+        distinctive,
         source,
         target,
         params,
@@ -323,12 +329,29 @@ fn appraise(
     {
         verdict = Verdict::NotFound(quality::Reason::ContradictsFreeSpace);
     }
+    // The restart test of the fine fit (only for an answer that would be confident: it costs
+    // four ICP runs), a pose it reaches that fits as well listed second.
+    let unpinned = match (verdict, best) {
+        (Verdict::Confident, Some(_)) => pinning::restart_test(&local, source, target, params, tau)
+            .map(|u| Scored {
+                pose: u.pose,
+                overlap: tight_overlap(source, target, &u.pose, params, tau),
+                explained: pairs.support(&u.pose, tau),
+                evidence: distinctive.agreement(source, target, &u.pose, tau),
+                iterations: u.iterations,
+                free_space: seen.violation(&u.pose),
+            }),
+        _ => None,
+    };
+    if unpinned.is_some() {
+        verdict = Verdict::Ambiguous(quality::Reason::FitNotPinned);
+    }
     let centroid = source
         .keypoints
         .iter()
         .fold(Vector3::zeros(), |a, p| a + crate::geometry::vec3(*p))
         / n;
-    let candidates = listed
+    let mut candidates = listed
         .iter()
         .enumerate()
         .map(|(k, &(i, rivalry))| {
@@ -352,7 +375,25 @@ fn appraise(
                 free_space_violation,
             }
         })
-        .collect();
+        .collect::<Vec<Candidate>>();
+    if let (Some(u), Some(b)) = (unpinned, best) {
+        let (angle_deg, distance) = difference(&local, &u.pose, &centroid);
+        candidates.insert(
+            1.min(candidates.len()),
+            Candidate {
+                transform: u.pose.between_origins(source.origin, target.origin),
+                score: u.score(most),
+                rivalry: rivalry(&u, &b, most),
+                overlap: u.overlap,
+                explained: u.explained,
+                evidence: u.evidence,
+                angle_deg,
+                distance,
+                free_space_violation: u.free_space,
+            },
+        );
+        candidates.truncate(tu.candidates);
+    }
     Ok(Judgement {
         figures,
         verdict,

@@ -340,6 +340,7 @@ fn register_traced(
         &ranked,
         explaining.0,
         explaining.1,
+        &found.distinctive,
         source,
         target,
         params,

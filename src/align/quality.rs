@@ -12,8 +12,10 @@
 //!
 //! confidence = `(1 − e^(−consensus/10)) · min(1, overlap/0.25) · min(1, margin/0.25)`, in [0, 1].
 //! The verdict is confident when consensus ≥ [`MIN_CONSENSUS`], overlap ≥ [`MIN_OVERLAP`],
-//! margin ≥ [`MIN_MARGIN`] and the fit has no weak direction (set by the pipeline); a low
-//! margin or a weak direction makes it ambiguous, the rest not found.
+//! margin ≥ [`MIN_MARGIN`] and the fit has no weak direction (set by the pipeline), and then
+//! only when restarts of the fit a little off return to it ([`super::pinning`], in the judge);
+//! a low margin, a weak direction or a fit that is not pinned makes it ambiguous, the rest not
+//! found.
 
 use serde::{Deserialize, Serialize};
 
@@ -72,6 +74,11 @@ pub enum Reason {
     /// listed pose that lays more of SOURCE on TARGET (see [`super::judge::judge`]), and the
     /// matches' choice is the second candidate.
     MatchesFavourAnotherPose,
+    /// The fit is not pinned down: restarted a few degrees or a few inlier thresholds away
+    /// along its weakest motions, it ends at another pose that fits the fine points as well
+    /// (a shallow basin of a nearly symmetric shape, see [`super::pinning`]); that pose is the
+    /// second candidate.
+    FitNotPinned,
 }
 
 impl Reason {
@@ -92,6 +99,9 @@ impl Reason {
             }
             Reason::MatchesFavourAnotherPose => {
                 "the matched features did not single out one pose: this pose lays more of one scan on the other, while the matches favour candidate 2; see the candidates"
+            }
+            Reason::FitNotPinned => {
+                "the fit is not pinned down: started a few degrees or a few points' spacing away, it settles at another pose that fits as well (candidate 2); check which of the two is right, or give scans that show more of the distinctive detail"
             }
             Reason::WeaklyConstrained => {
                 "the fit is free along a direction (see weak directions): nothing in the overlap stops a slide or turn; give scans that share an edge, hole or corner across it"

@@ -326,6 +326,18 @@ pub fn fine(
     }
 }
 
+/// The fine ICP settings of `params` for inlier threshold `tau` and voxel size `voxel`: the
+/// coarse ones with the pairing distance [`super::Tuning::fine_max_distance_taus`] and the
+/// loss scale floor [`super::Tuning::fine_min_scale_voxels`].
+pub(super) fn fine_icp(params: &AlignParams, tau: f64, voxel: f64) -> IcpParams {
+    let tu = &params.tuning;
+    IcpParams {
+        max_distance: tu.fine_max_distance_taus * tau,
+        min_scale: tu.fine_min_scale_voxels * voxel,
+        ..coarse_icp(params, tau, voxel)
+    }
+}
+
 /// The fine fit of a pose: where it ends, how many ICP iterations it took, and how firmly the
 /// fit holds it.
 #[derive(Debug, Clone)]
@@ -350,11 +362,7 @@ pub fn fit_fine(
     tau: f64,
 ) -> FineFit {
     let tu = &params.tuning;
-    let fine_icp = IcpParams {
-        max_distance: tu.fine_max_distance_taus * tau,
-        min_scale: tu.fine_min_scale_voxels * source.voxel,
-        ..coarse_icp(params, tau, source.voxel)
-    };
+    let fine_icp = fine_icp(params, tau, source.voxel);
     let (fs, ft) = (source, target);
     let fit = icp_point_to_plane(
         &fs.fine_points,

@@ -193,6 +193,22 @@ pub struct Tuning {
     /// from a start near the truth to the stacked overlap (DEVELOPERS.md, Registration, "Turns
     /// about an axis of revolution").
     pub revolution_icp_distance_taus: f64,
+    /// Restart test of a `confident` answer ([`super::pinning`]): ICP of SOURCE's keypoints
+    /// onto TARGET's fine points is restarted from the answer moved along this many of the
+    /// weakest motions of its normal matrix, in both senses (0: off).
+    pub pin_directions: usize,
+    /// A restart along a rotational motion turns the answer this many degrees.
+    pub pin_turn_deg: f64,
+    /// A restart along a translational motion slides the answer this many τ.
+    pub pin_slide_taus: f64,
+    /// A restart ends away from the answer when its rotation differs by more than this many
+    /// degrees …
+    pub pin_angle_deg: f64,
+    /// … or it moves SOURCE's fine centroid by more than this many τ.
+    pub pin_distance_taus: f64,
+    /// A restart's end fits as well as the answer when its tight fine overlap is at least
+    /// 1 − this share of the answer's.
+    pub pin_fit_margin: f64,
 }
 
 impl Default for Tuning {
@@ -255,6 +271,12 @@ impl Default for Tuning {
             revolution_step_deg: 0.0,
             revolution_max_ratio: 0.2,
             revolution_icp_distance_taus: 0.5,
+            pin_directions: 2,
+            pin_turn_deg: 3.0,
+            pin_slide_taus: 1.0,
+            pin_angle_deg: 1.0,
+            pin_distance_taus: 1.0,
+            pin_fit_margin: 0.03,
         }
     }
 }

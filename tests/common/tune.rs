@@ -16,7 +16,9 @@
 //! overlap rule off — and [`Tuning::answer_min_explained`]), `pool` (hypotheses and ranking: DEVELOPERS.md, Registration, "Hypotheses: where the truth
 //! is found"), `icp_sample`, `coarse_tolerance`, `self_maps`, `self_queries`, `self_overlap`
 //! (near-self-symmetries, [`Tuning::self_maps`] …), `revolve_step`, `revolve_ratio`, `revolve_icp`
-//! (turns about the axis of near-revolution, [`Tuning::revolution_step_deg`] …).
+//! (turns about the axis of near-revolution, [`Tuning::revolution_step_deg`] …), `pin_directions`,
+//! `pin_turn`, `pin_slide`, `pin_angle`, `pin_distance`, `pin_margin` (the restart test,
+//! [`Tuning::pin_directions`] …).
 
 use equiscan::Cloud;
 use equiscan::align::prepared_scan::pair_voxel;
@@ -73,6 +75,12 @@ pub fn tuned(mut params: AlignParams, source: &Cloud, target: &Cloud) -> AlignPa
             "revolve_step" => tu.revolution_step_deg = x,
             "revolve_ratio" => tu.revolution_max_ratio = x,
             "revolve_icp" => tu.revolution_icp_distance_taus = x,
+            "pin_directions" => tu.pin_directions = x as usize,
+            "pin_turn" => tu.pin_turn_deg = x,
+            "pin_slide" => tu.pin_slide_taus = x,
+            "pin_angle" => tu.pin_angle_deg = x,
+            "pin_distance" => tu.pin_distance_taus = x,
+            "pin_margin" => tu.pin_fit_margin = x,
             _ => panic!("EQUISCAN_BENCH_TUNE: unknown key {key}"),
         }
     }
