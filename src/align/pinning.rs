@@ -26,10 +26,10 @@ use nalgebra::{Rotation3, Unit, Vector3};
 use rayon::prelude::*;
 
 use super::constraint::{Motion, motions, paired};
-use super::icp::{icp_point_to_plane, oriented_fit};
+use super::icp::icp_point_to_plane;
 use super::pipeline::AlignParams;
 use super::prepared_scan::PreparedScan;
-use super::refine::fine_icp;
+use super::refine::{fine_icp, tight_share};
 use super::rigid::{Rigid, rotation_error_deg};
 
 /// A pose that a restarted fit reached, away from the answer, fitting as well.
@@ -54,19 +54,18 @@ pub fn fine_fit(
     params: &AlignParams,
     tau: f64,
 ) -> f64 {
-    let tu = &params.tuning;
-    oriented_fit(
-        &source.fine_points,
-        &source.fine_normals,
-        &target.fine_points,
-        &target.fine_normals,
-        target.fine_index(),
+    tight_share(
+        (&source.fine_points, &source.fine_normals),
+        (
+            &target.fine_points,
+            &target.fine_normals,
+            target.fine_index(),
+        ),
+        source.voxel,
         pose,
+        params,
         tau,
-        tu.plane_tolerance_voxels * source.voxel,
-        tu.normal_angle_deg,
-    ) as f64
-        / source.fine_points.len().max(1) as f64
+    )
 }
 
 /// The start poses of the restart test of `answer`: for each of the

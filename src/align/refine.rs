@@ -34,6 +34,7 @@ use super::rank::Ranked;
 use super::revolution;
 use super::rigid::{Rigid, rotation_error_deg};
 use super::symmetry;
+use crate::spatial::KdIndex;
 
 /// The coarse ICP settings of `params` for inlier threshold `tau` and voxel size `voxel`.
 pub(super) fn coarse_icp(params: &AlignParams, tau: f64, voxel: f64) -> IcpParams {
@@ -56,19 +57,41 @@ pub fn tight_overlap(
     params: &AlignParams,
     tau: f64,
 ) -> f64 {
+    tight_share(
+        (&source.keypoints, &source.normals),
+        (&target.keypoints, &target.normals, target.keypoint_index()),
+        source.voxel,
+        pose,
+        params,
+        tau,
+    )
+}
+
+/// The share of `source` points (positions, normals) that `pose` lays within the plane
+/// tolerance ([`super::Tuning::plane_tolerance_voxels`] × `voxel`) of the `target` surface
+/// (positions, normals, tree; paired within τ), normal lines within
+/// [`super::Tuning::normal_angle_deg`]: the tight overlap of the keypoints or of the fine points.
+pub(super) fn tight_share(
+    source: (&[[f32; 3]], &[[f32; 3]]),
+    target: (&[[f32; 3]], &[[f32; 3]], &KdIndex),
+    voxel: f64,
+    pose: &Rigid,
+    params: &AlignParams,
+    tau: f64,
+) -> f64 {
     let tu = &params.tuning;
     oriented_fit(
-        &source.keypoints,
-        &source.normals,
-        &target.keypoints,
-        &target.normals,
-        target.keypoint_index(),
+        source.0,
+        source.1,
+        target.0,
+        target.1,
+        target.2,
         pose,
         tau,
-        tu.plane_tolerance_voxels * source.voxel,
+        tu.plane_tolerance_voxels * voxel,
         tu.normal_angle_deg,
     ) as f64
-        / source.keypoints.len() as f64
+        / source.0.len().max(1) as f64
 }
 
 /// Point-to-plane ICP of `points` (SOURCE keypoints, or a sample of them) onto TARGET's
@@ -135,11 +158,11 @@ pub fn coarse(
             starts.push(h.transform);
         }
     }
-    let from = |start: &Rigid| {
+    let with = |icp: &IcpParams, start: &Rigid| {
         polish(
             &sample,
             start,
-            &icp,
+            icp,
             pairs,
             distinctive,
             source,
@@ -148,6 +171,7 @@ pub fn coarse(
             tau,
         )
     };
+    let from = |start: &Rigid| with(&icp, start);
     let mut polished: Vec<Scored> = starts.par_iter().map(from).collect();
     let leader = distinct_best(
         &polished,
@@ -187,20 +211,12 @@ pub fn coarse(
             max_distance: tu.revolution_icp_distance_taus * tau,
             ..icp
         };
-        let from_turn = |s: &Rigid| {
-            polish(
-                &sample,
-                s,
-                &held,
-                pairs,
-                distinctive,
-                source,
-                target,
-                params,
-                tau,
-            )
-        };
-        polished.extend(revolved.par_iter().map(from_turn).collect::<Vec<_>>());
+        polished.extend(
+            revolved
+                .par_iter()
+                .map(|s| with(&held, s))
+                .collect::<Vec<_>>(),
+        );
         let (target_maps, source_maps) = rayon::join(
             || symmetry::self_maps(target, params, tau),
             || symmetry::self_maps(source, params, tau),
