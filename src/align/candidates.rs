@@ -1,7 +1,7 @@
 //! Rival poses: the distinct refined poses that explain the data nearly as well as the best,
 //! listed so that a user can choose when the verdict is ambiguous.
 
-use nalgebra::{Matrix3, Rotation3, SymmetricEigen, Unit, Vector3};
+use nalgebra::{Matrix3, SymmetricEigen, Vector3};
 use serde::{Serialize, Serializer};
 
 use super::consensus::{Pairs, same_pose};
@@ -224,11 +224,10 @@ pub fn alternatives(
     let mut out: Vec<Rigid> = Vec::new();
     for (c, axes, turns) in frames {
         for k in 0..3 {
-            let axis = Unit::new_normalize(axes.column(k).into_owned());
+            let axis = axes.column(k).into_owned();
             for &deg in turns {
-                let r = *Rotation3::from_axis_angle(&axis, deg.to_radians()).matrix();
-                let rotation = r * best.rotation;
-                let turned = Rigid::new(rotation, r * (best.translation - c) + c);
+                let turned = best.turned_about(&axis, &c, deg);
+                let rotation = turned.rotation;
                 let voted =
                     voted_translation(&rotation, pairs, tau).map(|(t, _)| Rigid::new(rotation, t));
                 for pose in std::iter::once(turned).chain(voted) {
@@ -322,6 +321,7 @@ pub fn rivalry(other: &Scored, best: &Scored, most: Most) -> f64 {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use nalgebra::Rotation3;
 
     /// 20 pairs that agree on a known pose among 40 that point anywhere: the vote finds the
     /// pose's translation for its rotation, and nothing for a rotation no pair agrees on.

@@ -60,18 +60,30 @@ fn listing_weight(other: &Scored, best: &Scored, rivalry: f64, share_floor: f64)
     }
 }
 
-/// What every appraisal of an answer looks at.
-struct Inputs<'a> {
-    refined: &'a Refined,
-    ranked: &'a Ranked,
-    pairs: &'a Pairs,
-    correspondences: usize,
-    distinctive: &'a Distinctive,
-    source: &'a PreparedScan,
-    target: &'a PreparedScan,
-    params: &'a AlignParams,
-    seen: &'a Visibility,
-    tau: f64,
+/// What the judge looks at: the refined poses, the ranked hypotheses, the kept matches (pairs
+/// and their count), the distinctive evidence, both scans, the parameters, the sensors'
+/// free-space test and the inlier threshold τ.
+pub struct Inputs<'a> {
+    /// The coarse poses, their order and the fine fit of the best.
+    pub refined: &'a Refined,
+    /// The ranked hypotheses (rivals that were not refined).
+    pub ranked: &'a Ranked,
+    /// The kept matches as point pairs (local frames).
+    pub pairs: &'a Pairs,
+    /// How many matches were kept.
+    pub correspondences: usize,
+    /// Distinctive evidence of a pose.
+    pub distinctive: &'a Distinctive,
+    /// SOURCE.
+    pub source: &'a PreparedScan,
+    /// TARGET.
+    pub target: &'a PreparedScan,
+    /// The run's parameters.
+    pub params: &'a AlignParams,
+    /// The free-space test (no-op without sensor positions).
+    pub seen: &'a Visibility,
+    /// Inlier threshold τ (local units).
+    pub tau: f64,
 }
 
 /// Judges the refined answer of `source` onto `target`.
@@ -86,33 +98,17 @@ struct Inputs<'a> {
 /// rivals and candidates all describe it, with the first answer listed second); its verdict is
 /// never `confident`: `not_found` when its figures and the first answer's both say so, else
 /// `ambiguous` with [`quality::Reason::MatchesFavourAnotherPose`].
-#[allow(clippy::too_many_arguments)]
-pub fn judge(
-    refined: &Refined,
-    ranked: &Ranked,
-    pairs: &Pairs,
-    correspondences: usize,
-    distinctive: &Distinctive,
-    source: &PreparedScan,
-    target: &PreparedScan,
-    params: &AlignParams,
-    seen: &Visibility,
-    tau: f64,
-) -> Result<Judgement> {
-    let inputs = Inputs {
+pub fn judge(inputs: &Inputs<'_>) -> Result<Judgement> {
+    let Inputs {
         refined,
-        ranked,
-        pairs,
-        correspondences,
-        distinctive,
         source,
         target,
         params,
-        seen,
         tau,
-    };
+        ..
+    } = *inputs;
     let first = refined.order.first().copied();
-    let judged = appraise(&inputs, first, &refined.fit, None)?;
+    let judged = appraise(inputs, first, &refined.fit, None)?;
     if judged.verdict == Verdict::Confident {
         return Ok(judged);
     }
@@ -129,7 +125,7 @@ pub fn judge(
         fit: &refined.fit,
         verdict: judged.verdict,
     };
-    appraise(&inputs, Some(other), &fit, Some(replaced))
+    appraise(inputs, Some(other), &fit, Some(replaced))
 }
 
 /// The first answer, when another distinct pose took its place.

@@ -22,15 +22,16 @@
 //!
 //! Lengths in TARGET's local frame (SOURCE local → TARGET local poses), angles in degrees.
 
-use nalgebra::{Rotation3, Unit, Vector3};
+use nalgebra::Vector3;
 use rayon::prelude::*;
 
+use super::candidates::difference;
 use super::constraint::{Motion, motions, paired};
 use super::icp::icp_point_to_plane;
 use super::pipeline::AlignParams;
 use super::prepared_scan::PreparedScan;
 use super::refine::{fine_icp, tight_share};
-use super::rigid::{Rigid, rotation_error_deg};
+use super::rigid::Rigid;
 
 /// A pose that a restarted fit reached, away from the answer, fitting as well.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -97,19 +98,14 @@ pub fn restarts(
     for m in motions(&pts, &nrm).iter().take(tu.pin_directions) {
         let axis = Vector3::from(m.axis);
         for sense in [1.0, -1.0] {
-            let step = match m.motion {
+            out.push(match m.motion {
                 Motion::Turn => {
-                    let r = *Rotation3::from_axis_angle(
-                        &Unit::new_normalize(axis),
-                        sense * tu.pin_turn_deg.to_radians(),
-                    )
-                    .matrix();
-                    let c = Vector3::from(m.through);
-                    Rigid::new(r, c - r * c)
+                    answer.turned_about(&axis, &Vector3::from(m.through), sense * tu.pin_turn_deg)
                 }
-                Motion::Slide => Rigid::translation(sense * tu.pin_slide_taus * tau * axis),
-            };
-            out.push(step.compose(answer));
+                Motion::Slide => {
+                    Rigid::translation(sense * tu.pin_slide_taus * tau * axis).compose(answer)
+                }
+            });
         }
     }
     out
@@ -156,8 +152,8 @@ pub fn restart_test(
         .fold(Vector3::zeros(), |a, p| a + crate::geometry::vec3(*p))
         / n;
     let away = |p: &Rigid| {
-        rotation_error_deg(&p.rotation, &answer.rotation) > tu.pin_angle_deg
-            || (p.apply(&centroid) - answer.apply(&centroid)).norm() > tu.pin_distance_taus * tau
+        let (angle, distance) = difference(answer, p, &centroid);
+        angle > tu.pin_angle_deg || distance > tu.pin_distance_taus * tau
     };
     let mut best: Option<Unpinned> = None;
     for &(pose, fit, iterations) in &ends {

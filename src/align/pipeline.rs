@@ -335,18 +335,18 @@ fn register_traced(
     clock.lap("refinement");
     let refined = refine::fine(polished, coarse_count, source, target, params, tau);
     clock.lap("fine ICP");
-    let judged = judge::judge(
-        &refined,
-        &ranked,
-        explaining.0,
-        explaining.1,
-        &found.distinctive,
+    let judged = judge::judge(&judge::Inputs {
+        refined: &refined,
+        ranked: &ranked,
+        pairs: explaining.0,
+        correspondences: explaining.1,
+        distinctive: &found.distinctive,
         source,
         target,
         params,
-        &seen,
+        seen: &seen,
         tau,
-    )?;
+    })?;
     clock.lap("verdict");
     Ok(Alignment {
         transform: judged

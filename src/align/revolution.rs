@@ -25,7 +25,7 @@
 //! when that eigenvalue is a small share of the next one (a unique free turn; a ball turns
 //! freely about every axis and has none).
 
-use nalgebra::{Matrix3, Rotation3, SymmetricEigen, Unit, Vector3};
+use nalgebra::{Matrix3, Rotation3, SymmetricEigen, Vector3};
 
 use super::consensus::Pairs;
 use super::prepared_scan::PreparedScan;
@@ -150,10 +150,7 @@ fn pseudo_inverse(m: &Matrix3<f64>) -> Matrix3<f64> {
 
 /// `pose` (SOURCE → the axis's frame) followed by the turn about `axis` by `deg` degrees.
 pub fn turned(pose: &Rigid, axis: &Axis, deg: f64) -> Rigid {
-    let dir = Unit::new_normalize(axis.direction);
-    let r = *Rotation3::from_axis_angle(&dir, deg.to_radians()).matrix();
-    let p = axis.through;
-    Rigid::new(r * pose.rotation, r * (pose.translation - p) + p)
+    pose.turned_about(&axis.direction, &axis.through, deg)
 }
 
 /// `pose` turned about `axis` ([`turned`]) by every multiple of `step_deg` short of a full
