@@ -44,6 +44,10 @@ struct Run {
     listed: Vec<(f64, f64, usize, bool, Option<f64>)>,
     /// Weak directions of the final fit.
     weak: usize,
+    /// Distinctive evidence of the answer ([`equiscan::align::Candidate::evidence`]) and its
+    /// translation error in % of the diagonal.
+    evidence: f64,
+    trans_pct: f64,
     /// Margin, smallest eigenvalue ratio of the fit's normal matrix, explained matches and
     /// overlap of the answer (the figures behind the verdict).
     margin: f64,
@@ -148,6 +152,8 @@ fn run(p: &Pair, arm: Arm, seed: u64, version: u32) -> Run {
             })
             .collect(),
         weak: a.constraint.weak.len(),
+        evidence: a.candidates.first().map_or(0.0, |c| c.evidence),
+        trans_pct: 100.0 * errors(&p.source, &a.transform, &p.truth).1 / p.diagonal,
         margin: a.figures.margin,
         stiffness: a.constraint.ratios[0],
         inliers: a.figures.inliers,
@@ -271,7 +277,7 @@ fn evaluate_version(ps: &[Pair], methods: &[Arm], version: u32) -> Vec<Row> {
                     .iter()
                     .zip(methods)
                     .map(|(r, m)| format!(
-                        "{} right {} confident {} ambiguous {} listed {} conf {:.2} rot {:.1} {:.2}s weak {} margin {:.3} stiff {:.4} inliers {} ovl {:.3} cands {:?}",
+                        "{} right {} confident {} ambiguous {} listed {} conf {:.2} rot {:.1} {:.2}s weak {} margin {:.3} stiff {:.4} inliers {} ovl {:.3} evid {:.3} trans {:.2} cands {:?}",
                         m.name(),
                         r.right,
                         r.confident,
@@ -285,6 +291,8 @@ fn evaluate_version(ps: &[Pair], methods: &[Arm], version: u32) -> Vec<Row> {
                         r.stiffness,
                         r.inliers,
                         r.overlap,
+                        r.evidence,
+                        r.trans_pct,
                         r.listed
                             .iter()
                             .map(|c| format!(
@@ -790,6 +798,27 @@ fn benchmark_diagnosis() {
         if known {
             line += &format!("\n    {}", free_space(p, &params, &a));
         }
+        // A right refined pose that is not offered: how far the nearest offered pose lies from
+        // it (degrees, τ), and what was offered (overlap, matches, right).
+        if !listed && let Some(r) = tr.refined.iter().find(|r| is_right(p, &r.0).0) {
+            let c = p.source.centroid();
+            let nearest = offered(&a)
+                .iter()
+                .map(|tf| {
+                    let (ang, d) = equiscan::align::candidates::difference(&r.0, tf, &c);
+                    (ang, d / a.inlier_threshold)
+                })
+                .min_by(|x, y| (x.0 + x.1).total_cmp(&(y.0 + y.1)));
+            let cands: Vec<String> = a
+                .candidates
+                .iter()
+                .map(|c| format!("{:.3}/{}/{:.2}", c.overlap, c.explained, c.rivalry))
+                .collect();
+            line += &format!(
+                "\n    unlisted right ovl {:.3} k {}; nearest offered {nearest:.1?} (deg, tau); offered {cands:?}",
+                r.1, r.2
+            );
+        }
         if !right || st {
             // Motion carrying the answer's placement of SOURCE onto the true one (TARGET frame).
             let m = p.truth.compose(&a.transform.inverse());
@@ -1104,4 +1133,55 @@ fn an_ambiguous_answer_is_the_pose_that_overlaps_most() {
     assert!(replaced.score > answer.score && replaced.explained > answer.explained);
     assert!(answer.overlap > replaced.overlap + params.tuning.answer_overlap_lead);
     assert!(answer.explained >= params.tuning.answer_min_explained);
+}
+
+/// Diagnosis of near misses: the fine fit ([`equiscan::align::refine::fit_fine`]) started from
+/// the truth and from the pipeline's answer, per pair (size as the tables; pick pairs with
+/// `EQUISCAN_BENCH_PICK`): where each ends (rotation error, translation error in % of the
+/// diagonal) and its tight fine overlap ([`equiscan::align::pinning::fine_fit`]). Tells a near
+/// miss whose fit is a basin of its own (the truth stays put) from one where the objective's
+/// minimum itself lies off the truth (both end at the same place).
+#[test]
+#[ignore = "diagnosis: --release --ignored --nocapture"]
+fn fine_fit_diagnosis() {
+    use equiscan::align::pinning::fine_fit;
+    use equiscan::align::prepared_scan::{PreparedScan, pair_voxel};
+    use equiscan::align::refine::fit_fine;
+    let (per_part, bunnies, yard) = bench_size();
+    let ps = pairs(per_part, bunnies, yard);
+    for (i, p) in ps.iter().enumerate() {
+        let params = AlignParams {
+            seed: 1 + i as u64,
+            ..AlignParams::default()
+        };
+        let params = tuned(params, &p.source, &p.target);
+        let a = align_pair(&p.source, &p.target, &params).unwrap();
+        let voxel = pair_voxel(&params, ("source", &p.source), ("target", &p.target)).unwrap();
+        let s = PreparedScan::prepare("source", &p.source, &params, voxel).unwrap();
+        let t = PreparedScan::prepare("target", &p.target, &params, voxel).unwrap();
+        let tau = params.inlier_voxels * voxel;
+        let (so, to) = (Vector3::from(s.origin()), Vector3::from(t.origin()));
+        // File transform → local: x_t − o_t = R (x_s − o_s) + (t + R o_s − o_t).
+        let local = |f: &Rigid| Rigid::new(f.rotation, f.translation + f.rotation * so - to);
+        let report = |name: &str, start: &Rigid| {
+            let fit = fit_fine(&local(start), &s, &t, &params, tau);
+            let file = fit.local.between_origins(s.origin(), t.origin());
+            let (r, d) = errors(&p.source, &file, &p.truth);
+            format!(
+                "{name}: ends {r:.2}° {:.2} % diag, fine overlap {:.4} (start {:.4})",
+                100.0 * d / p.diagonal,
+                fine_fit(&s, &t, &fit.local, &params, tau),
+                fine_fit(&s, &t, &local(start), &params, tau),
+            )
+        };
+        let (right, rot) = is_right(p, &a.transform);
+        println!(
+            "pair {i} {} noise {:.4} verdict {:?} right {right} rot {rot:.2} | {} | {}",
+            p.shape,
+            p.noise_frac,
+            a.verdict,
+            report("from truth", &p.truth),
+            report("from answer", &a.transform),
+        );
+    }
 }

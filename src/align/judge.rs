@@ -19,6 +19,7 @@
 //! SOURCE on TARGET ([`judge`]).
 
 use nalgebra::Vector3;
+use rayon::prelude::*;
 
 use super::candidates::{Candidate, FREE_SPACE_WEIGHT, Scored, difference, rivalry};
 use super::consensus::{self, Pairs};
@@ -31,6 +32,7 @@ use super::quality::{self, Figures, Verdict};
 use super::rank::Ranked;
 use super::refine::{FineFit, Refined, fit_fine, tight_overlap};
 use super::residual::full_resolution_rmse;
+use super::rigid::Rigid;
 use super::visibility::Visibility;
 use crate::error::Result;
 
@@ -281,7 +283,15 @@ fn appraise(
     });
     let (rmse, _) =
         full_resolution_rmse(&source.points, &target.points, &full.index, &local, pairing);
-    let inliers = pairs.support(&local, tau);
+    // The fine fit moves the answer by a fraction of τ, which can carry a few matched keypoints
+    // (each up to about a voxel from its true spot) across the τ gate either way: with
+    // [`super::Tuning::consensus_at_coarse`], the matches that agree with the coarse pose
+    // count too (the larger of the two counts).
+    let at_fine = pairs.support(&local, tau);
+    let inliers = match best {
+        Some(b) if tu.consensus_at_coarse => at_fine.max(b.explained),
+        _ => at_fine,
+    };
     let mut figures = Figures {
         rmse,
         overlap,
@@ -347,28 +357,29 @@ fn appraise(
         .iter()
         .fold(Vector3::zeros(), |a, p| a + crate::geometry::vec3(*p))
         / n;
-    let mut candidates = listed
+    let fit_rivals = tu.list_fine_fit && verdict != Verdict::Confident;
+    let shown = shown_poses(
+        inputs,
+        (&listed, &by_weight),
+        (local, answer_free_space),
+        replaced,
+        fit_rivals,
+    );
+    let mut candidates = shown
         .iter()
-        .enumerate()
-        .map(|(k, &(i, rivalry))| {
-            let p = &polished[i];
-            // The answer, and the answer it replaced, as fitted finely.
-            let (pose, free_space_violation) = match replaced {
-                _ if k == 0 => (local, answer_free_space),
-                Some(r) if r.index == i => (r.fit.local, seen.violation(&r.fit.local)),
-                _ => (p.pose, p.free_space),
-            };
-            let (angle_deg, distance) = difference(&local, &pose, &centroid);
+        .map(|s| {
+            let p = &polished[s.index];
+            let (angle_deg, distance) = difference(&local, &s.pose, &centroid);
             Candidate {
-                transform: pose.between_origins(source.origin, target.origin),
+                transform: s.pose.between_origins(source.origin, target.origin),
                 score: p.score(most),
-                rivalry,
+                rivalry: s.rivalry,
                 overlap: p.overlap,
                 explained: p.explained,
                 evidence: p.evidence,
                 angle_deg,
                 distance,
-                free_space_violation,
+                free_space_violation: s.free_space,
             }
         })
         .collect::<Vec<Candidate>>();
@@ -396,6 +407,99 @@ fn appraise(
         candidates,
         fit: fit.clone(),
     })
+}
+
+/// A listed pose as reported: its index into `polished`, its rivalry, the pose (local frames)
+/// and its free-space violation share.
+struct Shown {
+    index: usize,
+    rivalry: f64,
+    pose: Rigid,
+    free_space: Option<f64>,
+}
+
+/// The poses reported for `listed` (the answer first, then the answer it replaced, then the
+/// rivals): the answer (with its free-space share) and the replaced answer as fitted finely.
+/// The rivals are the coarse poses, or, with `fit_rivals` ([`super::Tuning::list_fine_fit`] on
+/// a verdict that is not `confident`), their fine fits ([`fit_fine`]), taken from `by_weight`
+/// (index, rivalry, listing weight; best first, down to [`super::Tuning::list_rivalry`]) until
+/// [`super::Tuning::candidates`] are shown: a rival whose fine fit lands within
+/// [`super::Tuning::start_angle_deg`] and one τ of a pose already shown is left out. Each batch
+/// of fits runs in parallel; the result does not depend on the threads.
+fn shown_poses(
+    inputs: &Inputs<'_>,
+    (listed, by_weight): (&[(usize, f64)], &[(usize, f64, f64)]),
+    (answer, answer_free_space): (Rigid, Option<f64>),
+    replaced: Option<Replaced<'_>>,
+    fit_rivals: bool,
+) -> Vec<Shown> {
+    let Inputs {
+        refined,
+        source,
+        target,
+        params,
+        seen,
+        tau,
+        ..
+    } = *inputs;
+    let tu = &params.tuning;
+    let polished = &refined.polished;
+    let fixed = listed.len().min(1 + usize::from(replaced.is_some()));
+    let mut shown: Vec<Shown> = listed[..fixed]
+        .iter()
+        .enumerate()
+        .map(|(k, &(index, rivalry))| {
+            let (pose, free_space) = match replaced {
+                _ if k == 0 => (answer, answer_free_space),
+                Some(r) => (r.fit.local, seen.violation(&r.fit.local)),
+                None => (polished[index].pose, polished[index].free_space),
+            };
+            Shown {
+                index,
+                rivalry,
+                pose,
+                free_space,
+            }
+        })
+        .collect();
+    if !fit_rivals {
+        shown.extend(listed[fixed..].iter().map(|&(index, rivalry)| Shown {
+            index,
+            rivalry,
+            pose: polished[index].pose,
+            free_space: polished[index].free_space,
+        }));
+        return shown;
+    }
+    let mut pending = by_weight
+        .iter()
+        .filter(|x| x.2 >= tu.list_rivalry)
+        .map(|x| (x.0, x.1));
+    loop {
+        let need = tu.candidates.saturating_sub(shown.len());
+        let batch: Vec<(usize, f64)> = pending.by_ref().take(need).collect();
+        if batch.is_empty() {
+            break;
+        }
+        let fitted: Vec<Rigid> = batch
+            .par_iter()
+            .map(|&(i, _)| fit_fine(&polished[i].pose, source, target, params, tau).local)
+            .collect();
+        for (&(index, rivalry), pose) in batch.iter().zip(fitted) {
+            let apart = shown
+                .iter()
+                .all(|s| !consensus::same_pose(&s.pose, &pose, tu.start_angle_deg, tau));
+            if apart {
+                shown.push(Shown {
+                    index,
+                    rivalry,
+                    pose,
+                    free_space: seen.violation(&pose),
+                });
+            }
+        }
+    }
+    shown
 }
 
 #[cfg(test)]

@@ -11,6 +11,19 @@ pub const TARGET_KEYPOINTS: f64 = 5000.0;
 /// Neighbours used for PCA normals at the keypoints.
 pub const NORMAL_NEIGHBOURS: usize = 12;
 
+/// Neighbours used for PCA normals at the fine points: as many fine points as lie, on average,
+/// in the area of [`NORMAL_NEIGHBOURS`] keypoints, `NORMAL_NEIGHBOURS × fine / keypoints` for
+/// `fine` fine points and `keypoints` keypoints of the same cloud, between
+/// [`NORMAL_NEIGHBOURS`] and 192 (about 48 on a dense scan at the default fine grid of half a
+/// voxel; 12 on a scan whose points are no denser than the keypoints). With 12 fine neighbours
+/// on dense scans (a quarter of that area) the normals of the benchmark's noisiest scans (noise
+/// 0.4–0.8 % of the diagonal) tilted enough to pull the point-to-plane fit 2–4° off the truth
+/// (DEVELOPERS.md, Registration, "Precision of the fine fit").
+pub fn fine_normal_neighbours(fine: usize, keypoints: usize) -> usize {
+    let n = NORMAL_NEIGHBOURS as f64 * fine as f64 / keypoints.max(1) as f64;
+    (n.round() as usize).clamp(NORMAL_NEIGHBOURS, 192)
+}
+
 /// A cloud reduced to keypoints, with normals and an index over the keypoints.
 pub struct Prepared {
     /// Keypoint positions (local frame of the cloud).
@@ -92,6 +105,16 @@ pub fn count(n: usize, one: &str, many: &str) -> String {
 
 /// Downsamples `points` on a voxel grid of edge `voxel`, estimates normals and builds the index.
 pub fn prepare(name: &str, points: &[[f32; 3]], voxel: f64) -> Result<Prepared> {
+    prepare_with(name, points, voxel, NORMAL_NEIGHBOURS)
+}
+
+/// [`prepare`] with the normals fitted to each point's `neighbours` nearest points.
+pub fn prepare_with(
+    name: &str,
+    points: &[[f32; 3]],
+    voxel: f64,
+    neighbours: usize,
+) -> Result<Prepared> {
     let keep = voxel_downsample(points, voxel as f32);
     let kp: Vec<[f32; 3]> = keep.iter().map(|&i| points[i]).collect();
     if kp.len() < 10 {
@@ -106,7 +129,7 @@ pub fn prepare(name: &str, points: &[[f32; 3]], voxel: f64) -> Result<Prepared> 
     }
     let index = KdIndex::new(&kp)?;
     let all: Vec<usize> = (0..kp.len()).collect();
-    let mut normals = estimate_normals(&kp, &index, &all, NORMAL_NEIGHBOURS, None);
+    let mut normals = estimate_normals(&kp, &index, &all, neighbours, None);
     let mut c = [0.0f64; 3];
     for p in &kp {
         for k in 0..3 {
@@ -139,6 +162,15 @@ mod tests {
         assert_eq!(figure(1200.4), "1200");
         assert_eq!(figure(-2.5), "-2.5");
         assert_eq!(figure(f64::NAN), "NaN");
+    }
+
+    #[test]
+    fn fine_normals_cover_the_area_of_the_keypoint_normals() {
+        assert_eq!(fine_normal_neighbours(20_000, 5_000), 48);
+        assert_eq!(fine_normal_neighbours(5_000, 5_000), NORMAL_NEIGHBOURS);
+        assert_eq!(fine_normal_neighbours(4_000, 5_000), NORMAL_NEIGHBOURS);
+        assert_eq!(fine_normal_neighbours(1_000_000, 5_000), 192);
+        assert_eq!(fine_normal_neighbours(10, 0), 120);
     }
 
     #[test]

@@ -21,15 +21,19 @@ use serde::{Deserialize, Serialize};
 use super::equivariant::{self, EquivariantRecipe};
 use super::fpfh::{FPFH_LEN, fpfh};
 use super::pipeline::{AlignParams, Method};
-use super::prep::{choose_voxel, figure, prepare, spacing_of};
+use super::prep::{
+    choose_voxel, figure, fine_normal_neighbours, prepare, prepare_with, spacing_of,
+};
 use super::tuning::Tuning;
 use crate::cloud::Cloud;
 use crate::error::{Error, Kind, Result};
 use crate::spatial::{KdIndex, estimate_spacing_with, voxel_downsample};
 
 /// Version of the stored form of a [`PreparedScan`]; a scan stored with another version is
-/// refused on load (prepare it again).
-pub const PREPARED_SCAN_VERSION: u32 = 1;
+/// refused on load (prepare it again). 2: the fine normals are fitted to more neighbours
+/// ([`super::prep::fine_normal_neighbours`]), so a scan stored by version 1 would register
+/// differently from the same cloud prepared now.
+pub const PREPARED_SCAN_VERSION: u32 = 2;
 
 /// Descriptor rows at the keypoints of one cloud.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -236,7 +240,8 @@ impl<'a> Geometry<'a> {
             .map(|i| cloud.positions[i])
             .collect();
         let keypoints = prepare(name, &fine, voxel)?;
-        let fine = prepare(name, &fine, fine_voxel)?;
+        let neighbours = fine_normal_neighbours(fine.len(), keypoints.points.len());
+        let fine = prepare_with(name, &fine, fine_voxel, neighbours)?;
         Ok(Geometry {
             name,
             cloud,

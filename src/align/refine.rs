@@ -27,7 +27,7 @@ use super::candidates::{Most, Scored, alternatives, distinct_best, rivalry};
 use super::consensus::{self, Pairs};
 use super::constraint::{Constraint, Motion, analyse, paired, stable_sample};
 use super::evidence::Distinctive;
-use super::icp::{IcpParams, icp_point_to_plane, oriented_fit};
+use super::icp::{IcpOutcome, IcpParams, icp_point_to_plane, oriented_fit};
 use super::pipeline::AlignParams;
 use super::prepared_scan::PreparedScan;
 use super::rank::Ranked;
@@ -354,6 +354,23 @@ pub(super) fn fine_icp(params: &AlignParams, tau: f64, voxel: f64) -> IcpParams 
     }
 }
 
+/// The settings of the last stage of the fine fit: the fine ones with the pairing distance
+/// [`super::Tuning::fine_final_distance_taus`], or `None` when that stage is off (0, or not
+/// below [`super::Tuning::fine_max_distance_taus`]). Pairs up to one τ apart include SOURCE
+/// points past the edge of TARGET's scan paired with TARGET's edge; on a curved, noisy surface
+/// they pull the fit along the overlap (a few degrees on the benchmark's noisiest pairs,
+/// DEVELOPERS.md, Registration, "Precision of the fine fit"). Rejecting pairs far apart, as
+/// pairs on a mesh boundary are rejected in G. Turk & M. Levoy, "Zippered polygon meshes from
+/// range images", SIGGRAPH 1994, is the common practice this follows.
+pub(super) fn final_icp(params: &AlignParams, tau: f64, voxel: f64) -> Option<IcpParams> {
+    let tu = &params.tuning;
+    let d = tu.fine_final_distance_taus;
+    (d > 0.0 && d < tu.fine_max_distance_taus).then(|| IcpParams {
+        max_distance: d * tau,
+        ..fine_icp(params, tau, voxel)
+    })
+}
+
 /// The fine fit of a pose: where it ends, how many ICP iterations it took, and how firmly the
 /// fit holds it.
 #[derive(Debug, Clone)]
@@ -388,6 +405,25 @@ pub fn fit_fine(
         start,
         &fine_icp,
     );
+    let last = final_icp(params, tau, source.voxel);
+    let fit = match &last {
+        Some(tight) => {
+            let again = icp_point_to_plane(
+                &fs.fine_points,
+                &ft.fine_points,
+                &ft.fine_normals,
+                ft.fine_index(),
+                &fit.transform,
+                tight,
+            );
+            IcpOutcome {
+                iterations: fit.iterations + again.iterations,
+                ..again
+            }
+        }
+        None => fit,
+    };
+    let last = last.unwrap_or(fine_icp);
     let mut local = fit.transform;
     let mut icp_iterations = fit.iterations;
     let (pts, nrm, idx) = paired(
@@ -411,7 +447,7 @@ pub fn fit_fine(
             &ft.fine_normals,
             ft.fine_index(),
             &local,
-            &fine_icp,
+            &last,
         );
         local = again.transform;
         icp_iterations += again.iterations;

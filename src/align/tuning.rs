@@ -209,6 +209,18 @@ pub struct Tuning {
     /// A restart's end fits as well as the answer when its tight fine overlap is at least
     /// 1 − this share of the answer's.
     pub pin_fit_margin: f64,
+    /// When the verdict is not `confident`, the listed rivals are fitted finely like the answer
+    /// (ICP on the fine points, [`super::refine::fit_fine`]) before they are reported; a rival
+    /// whose fine fit lands on a pose already listed (within [`Tuning::start_angle_deg`] and one
+    /// τ) gives its place to the next by listing weight. The verdict is taken on the coarse
+    /// poses before this.
+    pub list_fine_fit: bool,
+    /// The fine fit ends with a second ICP whose pairing distance is this many τ
+    /// ([`super::refine::final_icp`]; 0: off); the restart test's fits end the same way.
+    pub fine_final_distance_taus: f64,
+    /// The agreeing matches of the answer (the verdict's consensus) are the larger of those at
+    /// its fine fit and at its coarse pose.
+    pub consensus_at_coarse: bool,
 }
 
 impl Default for Tuning {
@@ -277,6 +289,9 @@ impl Default for Tuning {
             pin_angle_deg: 1.0,
             pin_distance_taus: 1.0,
             pin_fit_margin: 0.03,
+            list_fine_fit: true,
+            fine_final_distance_taus: 0.3,
+            consensus_at_coarse: true,
         }
     }
 }

@@ -18,7 +18,7 @@
 //! (near-self-symmetries, [`Tuning::self_maps`] …), `revolve_step`, `revolve_ratio`, `revolve_icp`
 //! (turns about the axis of near-revolution, [`Tuning::revolution_step_deg`] …), `pin_directions`,
 //! `pin_turn`, `pin_slide`, `pin_angle`, `pin_distance`, `pin_margin` (the restart test,
-//! [`Tuning::pin_directions`] …).
+//! [`Tuning::pin_directions`] …), `list_fine` (0 or 1, [`Tuning::list_fine_fit`]).
 
 use equiscan::Cloud;
 use equiscan::align::prepared_scan::pair_voxel;
@@ -81,6 +81,10 @@ pub fn tuned(mut params: AlignParams, source: &Cloud, target: &Cloud) -> AlignPa
             "pin_angle" => tu.pin_angle_deg = x,
             "pin_distance" => tu.pin_distance_taus = x,
             "pin_margin" => tu.pin_fit_margin = x,
+            "list_fine" => tu.list_fine_fit = x != 0.0,
+            "fine_distance" => tu.fine_max_distance_taus = x,
+            "fine_final" => tu.fine_final_distance_taus = x,
+            "consensus_coarse" => tu.consensus_at_coarse = x != 0.0,
             _ => panic!("EQUISCAN_BENCH_TUNE: unknown key {key}"),
         }
     }
