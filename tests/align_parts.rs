@@ -52,8 +52,10 @@ fn part_scans_get_no_confident_wrong_pose() {
     }
     let v: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(truth_file).unwrap()).unwrap();
-    // Parts aligned with the default settings today (DEVELOPERS.md, Registration).
-    let must_align = ["elbow"];
+    // Parts aligned with the default settings today (DEVELOPERS.md, Registration). None since
+    // the rival rule counts rivals with half the overlap ("Rival rule at half the overlap"):
+    // the elbow's half-turned rivals explain 10–13 of its 13 matches, and it is `ambiguous`.
+    let must_align: [&str; 0] = [];
     for part in v["parts"].as_array().unwrap() {
         let name = part["name"].as_str().unwrap();
         let symmetric = part["symmetry"].as_str().unwrap_or("none") != "none";

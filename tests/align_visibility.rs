@@ -326,7 +326,10 @@ fn print_pair_conditions() {
 /// without the positions, a pose turned by about 25° about the branch lays SOURCE on TARGET
 /// nearly as well as the truth (overlap alone does not separate them) and the verdict is
 /// `ambiguous`; with them, that pose puts several per cent of the tested points where a sensor
-/// saw through, the truth puts none, and the answer is the truth, `confident`. Sensor
+/// saw through, the truth puts none, and that pose no longer comes within 0.8 of the truth.
+/// (The answer was then `confident`; since a rival with half the overlap and real matches counts
+/// (DEVELOPERS.md, Registration, "Rival rule at half the overlap"), a half turn with 0.79 of the
+/// overlap and 1 % seen through keeps it `ambiguous`.) Sensor
 /// directions, size and noise of benchmark pair `tee` seed 6000 (`print_pair_conditions`).
 #[test]
 fn free_space_resolves_a_pose_that_overlap_alone_does_not() {
@@ -388,10 +391,9 @@ fn free_space_resolves_a_pose_that_overlap_alone_does_not() {
         .expect("a wrong pose that overlaps nearly as well");
     assert!(rival.rivalry >= 0.8, "rivalry {}", rival.rivalry);
     assert!(matches!(without.verdict, Verdict::Ambiguous(_)));
-    // Free space: the same pose is now contradicted, no rival comes within 0.8, and the answer
-    // is confident.
+    // Free space: the same pose is now contradicted and no rival comes within 0.8.
     assert!(with.candidates[1..].iter().all(|c| c.rivalry < 0.8));
-    assert_eq!(with.verdict, Verdict::Confident);
+    assert!(right(&with.transform));
     assert!(with.candidates[0].free_space_violation.unwrap() < 0.01);
     let wrong = Visibility::new(
         &PreparedScan::prepare("s", &p.source, &AlignParams::default(), with.voxel).unwrap(),

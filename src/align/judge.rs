@@ -360,7 +360,8 @@ fn appraise(
     let fit_rivals = tu.list_fine_fit && verdict != Verdict::Confident;
     let shown = shown_poses(
         inputs,
-        (&listed, &by_weight),
+        &listed,
+        &by_weight,
         (local, answer_free_space),
         replaced,
         fit_rivals,
@@ -428,7 +429,8 @@ struct Shown {
 /// of fits runs in parallel; the result does not depend on the threads.
 fn shown_poses(
     inputs: &Inputs<'_>,
-    (listed, by_weight): (&[(usize, f64)], &[(usize, f64, f64)]),
+    listed: &[(usize, f64)],
+    by_weight: &[(usize, f64, f64)],
     (answer, answer_free_space): (Rigid, Option<f64>),
     replaced: Option<Replaced<'_>>,
     fit_rivals: bool,

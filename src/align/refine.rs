@@ -362,7 +362,7 @@ pub(super) fn fine_icp(params: &AlignParams, tau: f64, voxel: f64) -> IcpParams 
 /// DEVELOPERS.md, Registration, "Precision of the fine fit"). Rejecting pairs far apart, as
 /// pairs on a mesh boundary are rejected in G. Turk & M. Levoy, "Zippered polygon meshes from
 /// range images", SIGGRAPH 1994, is the common practice this follows.
-pub(super) fn final_icp(params: &AlignParams, tau: f64, voxel: f64) -> Option<IcpParams> {
+pub fn final_icp(params: &AlignParams, tau: f64, voxel: f64) -> Option<IcpParams> {
     let tu = &params.tuning;
     let d = tu.fine_final_distance_taus;
     (d > 0.0 && d < tu.fine_max_distance_taus).then(|| IcpParams {

@@ -18,7 +18,9 @@
 //! (near-self-symmetries, [`Tuning::self_maps`] …), `revolve_step`, `revolve_ratio`, `revolve_icp`
 //! (turns about the axis of near-revolution, [`Tuning::revolution_step_deg`] …), `pin_directions`,
 //! `pin_turn`, `pin_slide`, `pin_angle`, `pin_distance`, `pin_margin` (the restart test,
-//! [`Tuning::pin_directions`] …), `list_fine` (0 or 1, [`Tuning::list_fine_fit`]).
+//! [`Tuning::pin_directions`] …), `list_fine` (0 or 1, [`Tuning::list_fine_fit`]), `fine_distance`, `fine_final`,
+//! `consensus_coarse` (0 or 1) ([`Tuning::fine_max_distance_taus`],
+//! [`Tuning::fine_final_distance_taus`], [`Tuning::consensus_at_coarse`]).
 
 use equiscan::Cloud;
 use equiscan::align::prepared_scan::pair_voxel;
