@@ -189,8 +189,10 @@ mod tests {
             Verdict::NotFound(Reason::TooFewDistinctivePoints)
         );
         let tu = crate::align::Tuning::default();
-        assert!(rival_as_large([(0.5, 1.0), (0.85, 0.3)], &tu));
-        assert!(!rival_as_large([(0.5, 1.0), (0.75, 0.3)], &tu));
+        // At the default shares (half the overlap, a quarter of the matches).
+        assert!(rival_as_large([(0.4, 1.0), (0.55, 0.3)], &tu));
+        assert!(!rival_as_large([(0.4, 1.0), (0.45, 0.3)], &tu));
+        assert!(!rival_as_large([(0.6, 0.2)], &tu));
         assert!(!rival_as_large([(1.0, 0.1)], &tu), "dominant plane");
         assert!(!rival_as_large([], &tu));
         assert!(confidence(40, 0.5, 0.6) > 0.98);
