@@ -435,17 +435,8 @@ fn shown_poses(
     replaced: Option<Replaced<'_>>,
     fit_rivals: bool,
 ) -> Vec<Shown> {
-    let Inputs {
-        refined,
-        source,
-        target,
-        params,
-        seen,
-        tau,
-        ..
-    } = *inputs;
-    let tu = &params.tuning;
-    let polished = &refined.polished;
+    let (seen, tu, tau) = (inputs.seen, &inputs.params.tuning, inputs.tau);
+    let polished = &inputs.refined.polished;
     let fixed = listed.len().min(1 + usize::from(replaced.is_some()));
     let mut shown: Vec<Shown> = listed[..fixed]
         .iter()
@@ -485,7 +476,10 @@ fn shown_poses(
         }
         let fitted: Vec<Rigid> = batch
             .par_iter()
-            .map(|&(i, _)| fit_fine(&polished[i].pose, source, target, params, tau).local)
+            .map(|&(i, _)| {
+                let (source, target, params) = (inputs.source, inputs.target, inputs.params);
+                fit_fine(&polished[i].pose, source, target, params, tau).local
+            })
             .collect();
         for (&(index, rivalry), pose) in batch.iter().zip(fitted) {
             let apart = shown
