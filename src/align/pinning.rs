@@ -27,10 +27,9 @@ use rayon::prelude::*;
 
 use super::candidates::difference;
 use super::constraint::{Motion, motions, paired};
-use super::icp::{IcpOutcome, IcpParams, icp_point_to_plane};
 use super::pipeline::AlignParams;
 use super::prepared_scan::PreparedScan;
-use super::refine::{final_icp, fine_icp, tight_share};
+use super::refine::{fit_onto_fine, tight_share};
 use super::rigid::Rigid;
 
 /// A pose that a restarted fit reached, away from the answer, fitting as well.
@@ -128,29 +127,10 @@ pub fn restart_test(
     if starts.is_empty() {
         return None;
     }
-    let icp = fine_icp(params, tau, source.voxel);
-    let last = final_icp(params, tau, source.voxel);
     let ends: Vec<(Rigid, f64, usize)> = starts
         .par_iter()
         .map(|s| {
-            let run = |from: &Rigid, icp: &IcpParams| {
-                icp_point_to_plane(
-                    &source.keypoints,
-                    &target.fine_points,
-                    &target.fine_normals,
-                    target.fine_index(),
-                    from,
-                    icp,
-                )
-            };
-            let mut end = run(s, &icp);
-            if let Some(tight) = &last {
-                let again = run(&end.transform, tight);
-                end = IcpOutcome {
-                    iterations: end.iterations + again.iterations,
-                    ..again
-                };
-            }
+            let end = fit_onto_fine(&source.keypoints, target, s, params, tau);
             let fit = fine_fit(source, target, &end.transform, params, tau);
             (end.transform, fit, end.iterations)
         })

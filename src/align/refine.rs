@@ -371,6 +371,40 @@ pub fn final_icp(params: &AlignParams, tau: f64, voxel: f64) -> Option<IcpParams
     })
 }
 
+/// Point-to-plane ICP of `points` (SOURCE's fine points or keypoints, local frame) onto
+/// TARGET's fine points from `start`: at the fine pairing distance, then, when it is on, the last
+/// stage ([`final_icp`]) from where that ended; the iterations of both are added. The fine fit
+/// and the restart test ([`super::pinning`]) both end this way.
+pub(super) fn fit_onto_fine(
+    points: &[[f32; 3]],
+    target: &PreparedScan,
+    start: &Rigid,
+    params: &AlignParams,
+    tau: f64,
+) -> IcpOutcome {
+    let run = |from: &Rigid, icp: &IcpParams| {
+        icp_point_to_plane(
+            points,
+            &target.fine_points,
+            &target.fine_normals,
+            target.fine_index(),
+            from,
+            icp,
+        )
+    };
+    let first = run(start, &fine_icp(params, tau, target.voxel));
+    match final_icp(params, tau, target.voxel) {
+        Some(tight) => {
+            let again = run(&first.transform, &tight);
+            IcpOutcome {
+                iterations: first.iterations + again.iterations,
+                ..again
+            }
+        }
+        None => first,
+    }
+}
+
 /// The fine fit of a pose: where it ends, how many ICP iterations it took, and how firmly the
 /// fit holds it.
 #[derive(Debug, Clone)]
@@ -397,32 +431,8 @@ pub fn fit_fine(
     let tu = &params.tuning;
     let fine_icp = fine_icp(params, tau, source.voxel);
     let (fs, ft) = (source, target);
-    let fit = icp_point_to_plane(
-        &fs.fine_points,
-        &ft.fine_points,
-        &ft.fine_normals,
-        ft.fine_index(),
-        start,
-        &fine_icp,
-    );
+    let fit = fit_onto_fine(&fs.fine_points, ft, start, params, tau);
     let last = final_icp(params, tau, source.voxel);
-    let fit = match &last {
-        Some(tight) => {
-            let again = icp_point_to_plane(
-                &fs.fine_points,
-                &ft.fine_points,
-                &ft.fine_normals,
-                ft.fine_index(),
-                &fit.transform,
-                tight,
-            );
-            IcpOutcome {
-                iterations: fit.iterations + again.iterations,
-                ..again
-            }
-        }
-        None => fit,
-    };
     let last = last.unwrap_or(fine_icp);
     let mut local = fit.transform;
     let mut icp_iterations = fit.iterations;
