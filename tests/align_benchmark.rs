@@ -630,6 +630,55 @@ fn a_stacked_half_turn_beside_a_rival_as_large_is_not_confident() {
     }
 }
 
+/// Two stacked boss-plate pairs of held-out seed sets whose answer was `confident` and 90° or
+/// 180° off while a listed rival laid more of SOURCE on TARGET than the answer (1.11 and 1.28
+/// times its overlap) with a fifth of its matches: the equivariant method on seed 830 (pair 200
+/// of `EQUISCAN_BENCH_FIRST=800`, alignment seed 201) and FPFH on seed 704 (pair 174 of
+/// `EQUISCAN_BENCH_FIRST=700`, alignment seed 175). Such a rival has real support whatever its
+/// matches ([`Tuning::rival_overlap_lead`]; DEVELOPERS.md, Registration, "A rival that covers
+/// more"): the verdict must not be `confident` unless the answer is right, and with the rule
+/// off the same runs are `confident` and wrong (so the check can fail). Right and wrong
+/// against the generator's pose (tests/common/shapes.rs).
+#[test]
+fn a_rival_that_covers_more_than_the_answer_is_not_overruled_by_matches() {
+    let all = shapes();
+    let k = all.iter().position(|s| s.name == "bossplate").unwrap();
+    for (method, i, index) in [
+        (Method::Equivariant, 830u64, 200u64),
+        (Method::Fpfh, 704, 174),
+    ] {
+        let p = pair(&all[k], 1000 * k as u64 + i);
+        let params = AlignParams {
+            method,
+            seed: 1 + index,
+            ..AlignParams::default()
+        };
+        let off = AlignParams {
+            tuning: Tuning {
+                rival_overlap_lead: f64::INFINITY,
+                ..params.tuning
+            },
+            ..params
+        };
+        let before = align_pair(&p.source, &p.target, &off).unwrap();
+        let (right_before, rot_before) = is_right(&p, &before.transform);
+        assert!(
+            before.verdict == Verdict::Confident && !right_before,
+            "{} seed {i} without the rule: {:?}, {rot_before:.1}° off (the case this test guards)",
+            method.name(),
+            before.verdict
+        );
+        let a = align_pair(&p.source, &p.target, &params).unwrap();
+        let (right, rot) = is_right(&p, &a.transform);
+        eprintln!("{} seed {i}: {:?}, {rot:.1}° off", method.name(), a.verdict);
+        assert!(
+            right || a.verdict != Verdict::Confident,
+            "{} seed {i}: confident and {rot:.1}° off",
+            method.name()
+        );
+    }
+}
+
 /// Two plates meeting along the y axis, no hole: the fit is free to slide along y and must say
 /// so (a weak direction along ±y, in TARGET's frame, which is the part's), never `confident`.
 #[test]

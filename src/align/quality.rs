@@ -45,13 +45,14 @@ pub fn slid_rival(slide_rivalry: f64) -> bool {
 /// True when a listed rival has real support of its own: one of `shares` (each rival's
 /// consistent overlap and explained matches, as shares of the answer's) reaches
 /// [`super::Tuning::rival_overlap_share`] in overlap and [`super::Tuning::rival_match_share`]
-/// in matches. On the registration benchmark a stacked wrong answer was often confident while
+/// in matches, or exceeds [`super::Tuning::rival_overlap_lead`] in overlap whatever its
+/// matches. On the registration benchmark a stacked wrong answer was often confident while
 /// a rival laying as much of SOURCE on TARGET (often the true, side-by-side pose) explained
 /// fewer matches: the matches, not the surface, had decided.
 pub fn rival_as_large(shares: impl IntoIterator<Item = (f64, f64)>, tu: &super::Tuning) -> bool {
-    shares
-        .into_iter()
-        .any(|(o, k)| o >= tu.rival_overlap_share && k >= tu.rival_match_share)
+    shares.into_iter().any(|(o, k)| {
+        (o >= tu.rival_overlap_share && k >= tu.rival_match_share) || o > tu.rival_overlap_lead
+    })
 }
 
 /// Why no confident alignment was found.
@@ -194,6 +195,14 @@ mod tests {
         assert!(!rival_as_large([(0.4, 1.0), (0.45, 0.3)], &tu));
         assert!(!rival_as_large([(0.6, 0.2)], &tu));
         assert!(!rival_as_large([(1.0, 0.1)], &tu), "dominant plane");
+        assert!(
+            !rival_as_large([(0.98, 0.12)], &tu),
+            "the depot's ground-plane rivals"
+        );
+        assert!(
+            rival_as_large([(1.1, 0.0)], &tu),
+            "more overlap, no matches"
+        );
         assert!(!rival_as_large([], &tu));
         assert!(confidence(40, 0.5, 0.6) > 0.98);
         assert!(confidence(40, 0.5, 0.0) == 0.0);

@@ -142,6 +142,13 @@ pub struct Tuning {
     /// rivals keep the yard's ground: 71–77 % coverage against 78 %, 9–12 matches against 80
     /// with the harmonic descriptors, up to 16 against 73 with FPFH) and does not count.
     pub rival_match_share: f64,
+    /// A listed rival whose consistent overlap exceeds this multiple of the answer's has real
+    /// support whatever its matches: the surface prefers it and only the matches chose the
+    /// answer, the mark of a nearly symmetric part (a quarter-turned boss plate on new seeds,
+    /// DEVELOPERS.md, Registration, "A rival that covers more"). The depot demo's ground-plane
+    /// rivals stay below it (up to 0.978 of the answer's coverage). Above it by any amount, the
+    /// verdict is `ambiguous`; a very large value turns the rule off.
+    pub rival_overlap_lead: f64,
     /// When the verdict is not `confident`, the listed rival with the largest consistent
     /// overlap (share of SOURCE keypoints, [`super::candidates::Scored::consistent_overlap`])
     /// becomes the answer when it exceeds the first answer's by more than this
@@ -275,6 +282,7 @@ impl Default for Tuning {
             list_overlap_share: 0.8,
             rival_overlap_share: 0.5,
             rival_match_share: 0.25,
+            rival_overlap_lead: 1.0,
             answer_overlap_lead: 0.01,
             answer_min_explained: 1,
             rmse_pairing_spacings: 3.0,

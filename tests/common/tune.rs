@@ -20,7 +20,9 @@
 //! `pin_turn`, `pin_slide`, `pin_angle`, `pin_distance`, `pin_margin` (the restart test,
 //! [`Tuning::pin_directions`] …), `list_fine` (0 or 1, [`Tuning::list_fine_fit`]), `fine_distance`, `fine_final`,
 //! `consensus_coarse` (0 or 1) ([`Tuning::fine_max_distance_taus`],
-//! [`Tuning::fine_final_distance_taus`], [`Tuning::consensus_at_coarse`]).
+//! [`Tuning::fine_final_distance_taus`], [`Tuning::consensus_at_coarse`]), `rival_lead`
+//! ([`Tuning::rival_overlap_lead`]), `slide_range`, `slide_share` ([`Tuning::slide_range_taus`],
+//! [`Tuning::slide_min_share`]).
 
 use equiscan::Cloud;
 use equiscan::align::prepared_scan::pair_voxel;
@@ -66,6 +68,9 @@ pub fn tuned(mut params: AlignParams, source: &Cloud, target: &Cloud) -> AlignPa
             "list_share" => tu.list_overlap_share = x,
             "rival_overlap" => tu.rival_overlap_share = x,
             "rival_matches" => tu.rival_match_share = x,
+            "rival_lead" => tu.rival_overlap_lead = x,
+            "slide_range" => tu.slide_range_taus = x,
+            "slide_share" => tu.slide_min_share = x,
             "answer_lead" => tu.answer_overlap_lead = x,
             "answer_matches" => tu.answer_min_explained = x as usize,
             "self_maps" => tu.self_maps = x as usize,
