@@ -1223,14 +1223,26 @@ fn fine_fit_diagnosis() {
                 fine_fit(&s, &t, &local(start), &params, tau),
             )
         };
+        // The same fit the other way round (TARGET's fine points onto SOURCE's, from the
+        // answer's inverse), inverted back: where it ends.
+        let reverse = |start: &Rigid| {
+            let back = fit_fine(&local(start).inverse(), &t, &s, &params, tau);
+            let file = back.local.inverse().between_origins(s.origin(), t.origin());
+            let (r, d) = errors(&p.source, &file, &p.truth);
+            format!(
+                "reverse from answer: ends {r:.2}° {:.2} % diag",
+                100.0 * d / p.diagonal
+            )
+        };
         let (right, rot) = is_right(p, &a.transform);
         println!(
-            "pair {i} {} noise {:.4} verdict {:?} right {right} rot {rot:.2} | {} | {}",
+            "pair {i} {} noise {:.4} verdict {:?} right {right} rot {rot:.2} | {} | {} | {}",
             p.shape,
             p.noise_frac,
             a.verdict,
             report("from truth", &p.truth),
             report("from answer", &a.transform),
+            reverse(&a.transform),
         );
     }
 }

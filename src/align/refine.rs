@@ -217,6 +217,25 @@ pub fn coarse(
                 .map(|s| with(&held, s))
                 .collect::<Vec<_>>(),
         );
+        let fine_held = IcpParams {
+            max_distance: tu.fine_max_distance_taus * tau,
+            ..icp
+        };
+        let held_turns =
+            revolution::held_turns(&leader, source, target, pairs, params, tau, &fine_held);
+        polished.extend(
+            held_turns
+                .par_iter()
+                .map(|pose| Scored {
+                    pose: *pose,
+                    overlap: tight_overlap(source, target, pose, params, tau),
+                    explained: pairs.support(pose, tau),
+                    evidence: distinctive.agreement(source, target, pose, tau),
+                    iterations: 0,
+                    free_space: None,
+                })
+                .collect::<Vec<_>>(),
+        );
         let (target_maps, source_maps) = rayon::join(
             || symmetry::self_maps(target, params, tau),
             || symmetry::self_maps(source, params, tau),

@@ -26,9 +26,13 @@
 //! freely about every axis and has none).
 
 use nalgebra::{Matrix3, Rotation3, SymmetricEigen, Vector3};
+use rayon::prelude::*;
 
 use super::consensus::Pairs;
+use super::icp::{IcpParams, icp_point_to_plane};
+use super::pipeline::AlignParams;
 use super::prepared_scan::PreparedScan;
+use super::refine::{fit_onto_fine, tight_overlap};
 use super::rigid::Rigid;
 use super::tuning::Tuning;
 
@@ -252,6 +256,130 @@ pub fn matched_turn(
     best.filter(|b| b.1 >= 3).map(|b| b.0)
 }
 
+/// The turn (degrees, right-handed about `direction`, in (−180°, 180°]) that rotation `r`
+/// makes about `direction`: the twist of its swing–twist decomposition (the quaternion's
+/// vector part projected on the unit direction).
+pub fn twist_deg(r: &Matrix3<f64>, direction: &Vector3<f64>) -> f64 {
+    let q = nalgebra::UnitQuaternion::from_matrix(r);
+    let along = q.imag().dot(direction);
+    let deg = 2.0 * along.atan2(q.w).to_degrees();
+    if deg > 180.0 {
+        deg - 360.0
+    } else if deg <= -180.0 {
+        deg + 360.0
+    } else {
+        deg
+    }
+}
+
+/// Point-to-plane ICP of `points` (SOURCE local) onto TARGET's keypoints from `start`, with
+/// the turn about `axis` (TARGET local) held: after every iteration the turn that iteration
+/// made about the axis is undone, so that on a near-surface of revolution the fit adapts the
+/// other five motions but cannot slide round to the stacked overlap. At most `icp`'s
+/// iteration count; stops when an iteration moves the pose less than its tolerance.
+pub fn fit_holding_turn(
+    points: &[[f32; 3]],
+    target: &PreparedScan,
+    start: &Rigid,
+    axis: &Axis,
+    icp: &IcpParams,
+) -> Rigid {
+    let one = IcpParams {
+        max_iterations: 1,
+        ..*icp
+    };
+    let mut pose = *start;
+    for _ in 0..icp.max_iterations {
+        let out = icp_point_to_plane(
+            points,
+            &target.keypoints,
+            &target.normals,
+            target.keypoint_index(),
+            &pose,
+            &one,
+        );
+        let turn = twist_deg(
+            &(out.transform.rotation * pose.rotation.transpose()),
+            &axis.direction,
+        );
+        let next = turned(&out.transform, axis, -turn);
+        let moved = (next.translation - pose.translation).norm();
+        let angle = super::rigid::rotation_error_deg(&next.rotation, &pose.rotation);
+        pose = next;
+        if moved < icp.tolerance * icp.max_distance && angle.to_radians() < icp.tolerance {
+            break;
+        }
+    }
+    pose
+}
+
+/// The leading pose turned about TARGET's axis of near-revolution to the best local maxima of
+/// its tight overlap, each fitted with the turn held ([`fit_holding_turn`]); none when
+/// [`Tuning::held_turns`] is 0 or TARGET has no axis (ratio above
+/// [`Tuning::revolution_max_ratio`]). When SOURCE has an axis too, the leader is first laid on
+/// TARGET's ([`laid_on_axis`]). The tight overlap is sampled every
+/// [`Tuning::held_turn_step_deg`] over the full turn (three-sample circular mean); maxima within
+/// [`Tuning::distinct_angle_deg`] of no turn, or below [`Tuning::slide_min_share`] of the
+/// leader's tight overlap, do not count; the [`Tuning::held_turns`] highest are fitted, and so
+/// is the turn the matched pairs agree on ([`matched_turn`]); each held fit is then released
+/// onto the fine points. Deterministic (angles ascending, ties to the smaller angle).
+pub fn held_turns(
+    leader: &Rigid,
+    source: &PreparedScan,
+    target: &PreparedScan,
+    pairs: &Pairs,
+    params: &AlignParams,
+    tau: f64,
+    icp: &IcpParams,
+) -> Vec<Rigid> {
+    let tu = &params.tuning;
+    if tu.held_turns == 0 || !(tu.held_turn_step_deg > 0.0 && tu.held_turn_step_deg <= 90.0) {
+        return Vec::new();
+    }
+    let Some(at) = scan_axis(target).filter(|a| a.ratio <= tu.revolution_max_ratio) else {
+        return Vec::new();
+    };
+    let from = scan_axis(source).filter(|a| a.ratio <= tu.revolution_max_ratio);
+    let start = from.map_or(*leader, |a| laid_on_axis(leader, &a, &at));
+    let count = (360.0 / tu.held_turn_step_deg).round() as usize;
+    let angle = |k: usize| k as f64 * 360.0 / count as f64;
+    let profile: Vec<f64> = (0..count)
+        .into_par_iter()
+        .map(|k| tight_overlap(source, target, &turned(&start, &at, angle(k)), params, tau))
+        .collect();
+    let mean =
+        |k: usize| (profile[(k + count - 1) % count] + profile[k] + profile[(k + 1) % count]) / 3.0;
+    let floor = tu.slide_min_share * profile[0];
+    let mut peaks: Vec<(usize, f64)> = (1..count)
+        .filter(|&k| {
+            let a = angle(k);
+            a >= tu.distinct_angle_deg && a <= 360.0 - tu.distinct_angle_deg
+        })
+        .map(|k| (k, mean(k)))
+        .filter(|&(k, v)| {
+            v >= floor && v >= mean((k + count - 1) % count) && v >= mean((k + 1) % count)
+        })
+        .collect();
+    peaks.sort_by(|a, b| b.1.total_cmp(&a.1).then(a.0.cmp(&b.0)));
+    let mut starts: Vec<Rigid> = peaks
+        .iter()
+        .take(tu.held_turns)
+        .map(|&(k, _)| turned(&start, &at, angle(k)))
+        .collect();
+    starts.extend(matched_turn(&start, &at, pairs, tau, tu.distinct_angle_deg));
+    // Released: the held fit is refitted onto the fine points with every motion free (the
+    // fine fit's two stages, [`super::refine::fit_onto_fine`]). A turned pose that is no
+    // minimum of its own (a pipe bend turned about its axis) slides back to the leader and is
+    // then no distinct rival; one held by its detail stays.
+    starts
+        .par_iter()
+        .map(|s| {
+            let held = fit_holding_turn(&source.keypoints, target, s, &at, icp);
+            fit_onto_fine(&source.keypoints, target, &held, params, tau).transform
+        })
+        .collect()
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -395,6 +523,23 @@ mod tests {
 
     /// Turns keep the pose's action on the axis's points and rotate the rest about the axis by
     /// the stated steps.
+    /// Swing–twist: for `R = swing · twist` with the swing about a direction perpendicular to
+    /// `a`, the twist about `a` is recovered exactly (quaternion algebra: the swing adds no
+    /// component along `a`), and its sign follows the turn's sense.
+    #[test]
+    fn twist_is_the_turn_about_the_direction() {
+        let a = Vector3::new(0.3, -0.2, 0.9).normalize();
+        let twist =
+            Rotation3::from_axis_angle(&nalgebra::Unit::new_normalize(a), 37f64.to_radians());
+        let perp = a.cross(&Vector3::x()).normalize();
+        let swing =
+            Rotation3::from_axis_angle(&nalgebra::Unit::new_normalize(perp), 12f64.to_radians());
+        let r = swing * twist;
+        assert!((twist_deg(r.matrix(), &a) - 37.0).abs() < 1e-9);
+        assert!((twist_deg(twist.inverse().matrix(), &a) + 37.0).abs() < 1e-9);
+        assert!(twist_deg(swing.matrix(), &a).abs() < 1e-9);
+    }
+
     #[test]
     fn turns_rotate_about_the_axis_by_the_step() {
         let axis = Axis {

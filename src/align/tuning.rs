@@ -202,6 +202,14 @@ pub struct Tuning {
     /// from a start near the truth to the stacked overlap (DEVELOPERS.md, Registration, "Turns
     /// about an axis of revolution").
     pub revolution_icp_distance_taus: f64,
+    /// Turns of the leading pose about TARGET's axis of near-revolution with the turn held
+    /// ([`super::revolution::held_turns`]): this many of the best local maxima of the tight
+    /// overlap over the turn angle (sampled every [`Tuning::held_turn_step_deg`]) are fitted by
+    /// ICP with their turn about the axis held fixed, so that the fit cannot drift back to the
+    /// stacked pose (0: off).
+    pub held_turns: usize,
+    /// Angle step of the tight-overlap profile of [`Tuning::held_turns`], degrees.
+    pub held_turn_step_deg: f64,
     /// Restart test of a `confident` answer ([`super::pinning`]): ICP of SOURCE's keypoints
     /// onto TARGET's fine points is restarted from the answer moved along this many of the
     /// weakest motions of its normal matrix, in both senses (0: off).
@@ -297,6 +305,8 @@ impl Default for Tuning {
             revolution_step_deg: 0.0,
             revolution_max_ratio: 0.2,
             revolution_icp_distance_taus: 0.5,
+            held_turns: 0,
+            held_turn_step_deg: 2.0,
             pin_directions: 2,
             pin_turn_deg: 3.0,
             pin_slide_taus: 1.0,

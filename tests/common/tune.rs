@@ -82,6 +82,8 @@ pub fn tuned(mut params: AlignParams, source: &Cloud, target: &Cloud) -> AlignPa
             "revolve_step" => tu.revolution_step_deg = x,
             "revolve_ratio" => tu.revolution_max_ratio = x,
             "revolve_icp" => tu.revolution_icp_distance_taus = x,
+            "held_turns" => tu.held_turns = x as usize,
+            "held_step" => tu.held_turn_step_deg = x,
             "pin_directions" => tu.pin_directions = x as usize,
             "pin_turn" => tu.pin_turn_deg = x,
             "pin_slide" => tu.pin_slide_taus = x,
