@@ -29,7 +29,7 @@ use nalgebra::{Matrix3, Rotation3, SymmetricEigen, Vector3};
 use rayon::prelude::*;
 
 use super::consensus::Pairs;
-use super::icp::{IcpParams, icp_point_to_plane};
+use super::icp::{IcpParams, fit_quality, icp_point_to_plane};
 use super::pipeline::AlignParams;
 use super::prepared_scan::PreparedScan;
 use super::refine::{fit_onto_fine, tight_overlap};
@@ -343,13 +343,28 @@ pub fn held_turns(
     let start = from.map_or(*leader, |a| laid_on_axis(leader, &a, &at));
     let count = (360.0 / tu.held_turn_step_deg).round() as usize;
     let angle = |k: usize| k as f64 * 360.0 / count as f64;
-    let profile: Vec<f64> = (0..count)
+    // Per angle: the tight overlap, and the value the maxima are sought on (the tight overlap,
+    // or with `held_turn_fit_share` its share of the keypoints within τ).
+    let profile: Vec<(f64, f64)> = (0..count)
         .into_par_iter()
-        .map(|k| tight_overlap(source, target, &turned(&start, &at, angle(k)), params, tau))
+        .map(|k| {
+            let pose = turned(&start, &at, angle(k));
+            let tight = tight_overlap(source, target, &pose, params, tau);
+            if tu.held_turn_fit_share {
+                let near = fit_quality(&source.keypoints, target.keypoint_index(), &pose, tau).1;
+                (
+                    tight,
+                    tight * source.keypoints.len() as f64 / near.max(1) as f64,
+                )
+            } else {
+                (tight, tight)
+            }
+        })
         .collect();
-    let mean =
-        |k: usize| (profile[(k + count - 1) % count] + profile[k] + profile[(k + 1) % count]) / 3.0;
-    let floor = tu.slide_min_share * profile[0];
+    let mean = |k: usize| {
+        (profile[(k + count - 1) % count].1 + profile[k].1 + profile[(k + 1) % count].1) / 3.0
+    };
+    let floor = tu.slide_min_share * profile[0].0;
     let mut peaks: Vec<(usize, f64)> = (1..count)
         .filter(|&k| {
             let a = angle(k);
@@ -357,7 +372,9 @@ pub fn held_turns(
         })
         .map(|k| (k, mean(k)))
         .filter(|&(k, v)| {
-            v >= floor && v >= mean((k + count - 1) % count) && v >= mean((k + 1) % count)
+            profile[k].0 >= floor
+                && v >= mean((k + count - 1) % count)
+                && v >= mean((k + 1) % count)
         })
         .collect();
     peaks.sort_by(|a, b| b.1.total_cmp(&a.1).then(a.0.cmp(&b.0)));

@@ -210,6 +210,10 @@ pub struct Tuning {
     pub held_turns: usize,
     /// Angle step of the tight-overlap profile of [`Tuning::held_turns`], degrees.
     pub held_turn_step_deg: f64,
+    /// The profile of [`Tuning::held_turns`] is the tight overlap over the share of SOURCE
+    /// keypoints within τ (how well the overlapping part fits, whatever its extent) instead of
+    /// the tight overlap itself.
+    pub held_turn_fit_share: bool,
     /// Restart test of a `confident` answer ([`super::pinning`]): ICP of SOURCE's keypoints
     /// onto TARGET's fine points is restarted from the answer moved along this many of the
     /// weakest motions of its normal matrix, in both senses (0: off).
@@ -307,6 +311,7 @@ impl Default for Tuning {
             revolution_icp_distance_taus: 0.5,
             held_turns: 0,
             held_turn_step_deg: 2.0,
+            held_turn_fit_share: false,
             pin_directions: 2,
             pin_turn_deg: 3.0,
             pin_slide_taus: 1.0,
