@@ -11,7 +11,8 @@
 //! each near-self-symmetry of TARGET and of SOURCE ([`super::symmetry`]; off by default,
 //! [`super::Tuning::self_maps`]), and so are the leader's turns about TARGET's axis of
 //! near-revolution ([`super::revolution`]; off by default,
-//! [`super::Tuning::revolution_step_deg`]). Each result is scored by its tight overlap (the
+//! [`super::Tuning::revolution_step_deg`]), free or held during ICP and then released
+//! ([`super::revolution::held_turns`]; off by default, [`super::Tuning::held_turns`]). Each result is scored by its tight overlap (the
 //! share of SOURCE keypoints on the TARGET surface within the plane tolerance, normals
 //! agreeing) and the matches it explains. Fine: ICP on the fine points from the best distinct
 //! pose; the 6×6 normal matrix of the fit ([`super::constraint`], Gelfand, Ikemoto,
@@ -117,12 +118,34 @@ pub(super) fn polish(
         start,
         icp,
     );
+    scored(
+        &out.transform,
+        out.iterations,
+        pairs,
+        distinctive,
+        (source, target),
+        params,
+        tau,
+    )
+}
+
+/// `pose` scored: its tight overlap, the matches it explains and its distinctive evidence
+/// (`iterations`: the ICP iterations that reached it; no free-space test yet).
+fn scored(
+    pose: &Rigid,
+    iterations: usize,
+    pairs: &Pairs,
+    distinctive: &Distinctive,
+    (source, target): (&PreparedScan, &PreparedScan),
+    params: &AlignParams,
+    tau: f64,
+) -> Scored {
     Scored {
-        pose: out.transform,
-        overlap: tight_overlap(source, target, &out.transform, params, tau),
-        explained: pairs.support(&out.transform, tau),
-        evidence: distinctive.agreement(source, target, &out.transform, tau),
-        iterations: out.iterations,
+        pose: *pose,
+        overlap: tight_overlap(source, target, pose, params, tau),
+        explained: pairs.support(pose, tau),
+        evidence: distinctive.agreement(source, target, pose, tau),
+        iterations,
         free_space: None,
     }
 }
@@ -226,14 +249,7 @@ pub fn coarse(
         polished.extend(
             held_turns
                 .par_iter()
-                .map(|pose| Scored {
-                    pose: *pose,
-                    overlap: tight_overlap(source, target, pose, params, tau),
-                    explained: pairs.support(pose, tau),
-                    evidence: distinctive.agreement(source, target, pose, tau),
-                    iterations: 0,
-                    free_space: None,
-                })
+                .map(|pose| scored(pose, 0, pairs, distinctive, (source, target), params, tau))
                 .collect::<Vec<_>>(),
         );
         let (target_maps, source_maps) = rayon::join(
