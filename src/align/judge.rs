@@ -477,8 +477,8 @@ fn shown_poses(
         let fitted: Vec<Rigid> = batch
             .par_iter()
             .map(|&(i, _)| {
-                let (source, target, params) = (inputs.source, inputs.target, inputs.params);
-                fit_fine(&polished[i].pose, source, target, params, tau).local
+                let pose = &polished[i].pose;
+                fit_fine(pose, inputs.source, inputs.target, inputs.params, tau).local
             })
             .collect();
         for (&(index, rivalry), pose) in batch.iter().zip(fitted) {

@@ -12,9 +12,9 @@
 //! [`super::Tuning::self_maps`]), and so are the leader's turns about TARGET's axis of
 //! near-revolution ([`super::revolution`]; off by default,
 //! [`super::Tuning::revolution_step_deg`]), free or held during ICP and then released
-//! ([`super::revolution::held_turns`]; off by default, [`super::Tuning::held_turns`]). Each result is scored by its tight overlap (the
-//! share of SOURCE keypoints on the TARGET surface within the plane tolerance, normals
-//! agreeing) and the matches it explains. Fine: ICP on the fine points from the best distinct
+//! ([`super::revolution::held_turns`]; off by default, [`super::Tuning::held_turns`]). Each
+//! result is scored by its tight overlap (the share of SOURCE keypoints on the TARGET surface
+//! within the plane tolerance, normals agreeing) and the matches it explains. Fine: ICP on the fine points from the best distinct
 //! pose; the 6×6 normal matrix of the fit ([`super::constraint`], Gelfand, Ikemoto,
 //! Rusinkiewicz & Levoy 2003) names weakly constrained motions, and where one looks weak the
 //! fit is redone on a stability-aware sample and judged on every point again. Before the fine

@@ -538,8 +538,6 @@ mod tests {
         assert!((found.translation - truth.translation).norm() < 1e-9);
     }
 
-    /// Turns keep the pose's action on the axis's points and rotate the rest about the axis by
-    /// the stated steps.
     /// Swing–twist: for `R = swing · twist` with the swing about a direction perpendicular to
     /// `a`, the twist about `a` is recovered exactly (quaternion algebra: the swing adds no
     /// component along `a`), and its sign follows the turn's sense.
@@ -557,6 +555,8 @@ mod tests {
         assert!(twist_deg(swing.matrix(), &a).abs() < 1e-9);
     }
 
+    /// Turns keep the pose's action on the axis's points and rotate the rest about the axis by
+    /// the stated steps.
     #[test]
     fn turns_rotate_about_the_axis_by_the_step() {
         let axis = Axis {
