@@ -127,10 +127,18 @@ pub fn restart_test(
     if starts.is_empty() {
         return None;
     }
+    let keypoints = match tu
+        .fine_smoothing
+        .then(|| source.smoothed_fine(tu))
+        .flatten()
+    {
+        Some(smoothed) => &smoothed.keypoints,
+        None => &source.keypoints,
+    };
     let ends: Vec<(Rigid, f64, usize)> = starts
         .par_iter()
         .map(|s| {
-            let end = fit_onto_fine(&source.keypoints, target, s, params, tau);
+            let end = fit_onto_fine(keypoints, target, s, params, tau);
             let fit = fine_fit(source, target, &end.transform, params, tau);
             (end.transform, fit, end.iterations)
         })

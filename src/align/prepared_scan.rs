@@ -121,6 +121,18 @@ pub struct PreparedScan {
     fine_index: KdIndex,
     #[serde(skip)]
     full: OnceLock<std::result::Result<FullIndex, Error>>,
+    #[serde(skip)]
+    smoothed: OnceLock<Option<SmoothedFine>>,
+}
+
+/// The fine points moved onto their neighbourhoods' least-squares planes
+/// ([`crate::spatial::project_to_local_planes`], the normals' neighbourhood size), with a tree
+/// over them and the keypoints smoothed alike (on the fine points' planes): the points of the
+/// fine fit and of its restart test when [`Tuning::fine_smoothing`] is on.
+pub(crate) struct SmoothedFine {
+    pub(crate) points: Vec<[f32; 3]>,
+    pub(crate) index: KdIndex,
+    pub(crate) keypoints: Vec<[f32; 3]>,
 }
 
 /// The k-d tree over every point and the measured point spacing, built when first needed.
@@ -308,6 +320,7 @@ impl<'a> Geometry<'a> {
             keypoint_index,
             fine_index,
             full: OnceLock::new(),
+            smoothed: OnceLock::new(),
         })
     }
 }
@@ -394,6 +407,37 @@ impl PreparedScan {
     /// The k-d tree over the fine points.
     pub fn fine_index(&self) -> &KdIndex {
         &self.fine_index
+    }
+
+    /// The fine points smoothed ([`SmoothedFine`]), built on first use; `None` when no tree can
+    /// be built over them.
+    pub(crate) fn smoothed_fine(&self, tuning: &Tuning) -> Option<&SmoothedFine> {
+        self.smoothed
+            .get_or_init(|| {
+                let k = match tuning.fine_smoothing_neighbours {
+                    0 => fine_normal_neighbours(self.fine_points.len(), self.keypoints.len()),
+                    k => k,
+                };
+                let (fine, index) = (&self.fine_points, &self.fine_index);
+                let smooth = |at| {
+                    crate::spatial::project_to_local_planes(
+                        at,
+                        fine,
+                        index,
+                        k,
+                        tuning.fine_smoothing_spread,
+                    )
+                };
+                let points = smooth(fine);
+                let keypoints = smooth(&self.keypoints);
+                let index = KdIndex::new(&points).ok()?;
+                Some(SmoothedFine {
+                    points,
+                    index,
+                    keypoints,
+                })
+            })
+            .as_ref()
     }
 
     /// The k-d tree over every point and the measured spacing, built on first use.
@@ -567,6 +611,7 @@ impl TryFrom<StoredScan> for PreparedScan {
             keypoint_index,
             fine_index,
             full: OnceLock::new(),
+            smoothed: OnceLock::new(),
         })
     }
 }

@@ -417,12 +417,13 @@ pub(super) fn fit_onto_fine(
     params: &AlignParams,
     tau: f64,
 ) -> IcpOutcome {
+    let (target_points, target_index) = fit_cloud(target, params);
     let run = |from: &Rigid, icp: &IcpParams| {
         icp_point_to_plane(
             points,
-            &target.fine_points,
+            target_points,
             &target.fine_normals,
-            target.fine_index(),
+            target_index,
             from,
             icp,
         )
@@ -437,6 +438,23 @@ pub(super) fn fit_onto_fine(
             }
         }
         None => first,
+    }
+}
+
+/// A scan's fine points and their tree as the fine fit pairs them: smoothed
+/// ([`PreparedScan::smoothed_fine`]) when [`super::Tuning::fine_smoothing`] is on.
+pub(super) fn fit_cloud<'a>(
+    scan: &'a PreparedScan,
+    params: &AlignParams,
+) -> (&'a [[f32; 3]], &'a KdIndex) {
+    match params
+        .tuning
+        .fine_smoothing
+        .then(|| scan.smoothed_fine(&params.tuning))
+        .flatten()
+    {
+        Some(s) => (&s.points, &s.index),
+        None => (&scan.fine_points, scan.fine_index()),
     }
 }
 
@@ -466,18 +484,18 @@ pub fn fit_fine(
     let tu = &params.tuning;
     let fine_icp = fine_icp(params, tau, source.voxel);
     let (fs, ft) = (source, target);
-    let fit = fit_onto_fine(&fs.fine_points, ft, start, params, tau);
+    let (source_points, _) = if params.tuning.fine_smoothing_source {
+        fit_cloud(fs, params)
+    } else {
+        (&fs.fine_points[..], fs.fine_index())
+    };
+    let (target_points, target_index) = fit_cloud(ft, params);
+    let fit = fit_onto_fine(source_points, ft, start, params, tau);
     let last = final_icp(params, tau, source.voxel);
     let last = last.unwrap_or(fine_icp);
     let mut local = fit.transform;
     let mut icp_iterations = fit.iterations;
-    let (pts, nrm, idx) = paired(
-        &fs.fine_points,
-        &ft.fine_normals,
-        ft.fine_index(),
-        &local,
-        tau,
-    );
+    let (pts, nrm, idx) = paired(source_points, &ft.fine_normals, target_index, &local, tau);
     let mut constraint = analyse(&pts, &nrm, target.origin);
     if !constraint.weak.is_empty() && pts.len() > tu.stable_sample {
         let keep = stable_sample(
@@ -485,12 +503,12 @@ pub fn fit_fine(
             &nrm,
             tu.stable_sample.max(pts.len() / tu.stable_one_in),
         );
-        let chosen: Vec<[f32; 3]> = keep.iter().map(|&k| fs.fine_points[idx[k]]).collect();
+        let chosen: Vec<[f32; 3]> = keep.iter().map(|&k| source_points[idx[k]]).collect();
         let again = icp_point_to_plane(
             &chosen,
-            &ft.fine_points,
+            target_points,
             &ft.fine_normals,
-            ft.fine_index(),
+            target_index,
             &local,
             &last,
         );
@@ -498,13 +516,7 @@ pub fn fit_fine(
         icp_iterations += again.iterations;
         // Judged on every point again: on the sample, the few most tilted normals of a noisy
         // plane would pass for a constraint.
-        let (p2, n2, _) = paired(
-            &fs.fine_points,
-            &ft.fine_normals,
-            ft.fine_index(),
-            &local,
-            tau,
-        );
+        let (p2, n2, _) = paired(source_points, &ft.fine_normals, target_index, &local, tau);
         constraint = analyse(&p2, &n2, target.origin);
     }
     FineFit {

@@ -239,6 +239,19 @@ pub struct Tuning {
     /// The fine fit ends with a second ICP whose pairing distance is this many τ
     /// ([`super::refine::final_icp`]; 0: off); the restart test's fits end the same way.
     pub fine_final_distance_taus: f64,
+    /// The fine fit pairs both scans' fine points smoothed: each moved onto the least-squares
+    /// plane of its normal neighbourhood ([`crate::spatial::project_to_local_planes`]), so that
+    /// the noise of the two scans does not pull the fit on curved surfaces.
+    pub fine_smoothing: bool,
+    /// A fine point is smoothed only where its neighbourhood spreads across its plane no more
+    /// than this many times the median spread (the neighbourhood covariance's smallest
+    /// eigenvalue) of the scan's fine points: noise, not an edge
+    /// ([`crate::spatial::project_to_local_planes`]).
+    pub fine_smoothing_spread: f64,
+    /// Neighbours of the smoothing's planes (0: as many as the fine normals take).
+    pub fine_smoothing_neighbours: usize,
+    /// The smoothing moves SOURCE's points too (else only TARGET's).
+    pub fine_smoothing_source: bool,
     /// The agreeing matches of the answer (the verdict's consensus, at least
     /// [`super::quality::MIN_CONSENSUS`] for `confident`) are the larger of the counts at its
     /// fine fit and at its coarse pose: a fit that moves the pose by a fraction of τ can carry a
@@ -320,6 +333,10 @@ impl Default for Tuning {
             pin_fit_margin: 0.03,
             list_fine_fit: true,
             fine_final_distance_taus: 0.3,
+            fine_smoothing: false,
+            fine_smoothing_spread: f64::INFINITY,
+            fine_smoothing_neighbours: 0,
+            fine_smoothing_source: true,
             consensus_at_coarse: true,
         }
     }

@@ -17,7 +17,7 @@ pub(crate) use grid::PACK;
 pub use grid::{CellGrid, GridQuery, MAX_CELLS_PER_AXIS, order_by_key};
 pub use index::KdIndex;
 pub use index_track::NearestTrack;
-pub use normals::estimate_normals;
+pub use normals::{estimate_normals, project_to_local_planes};
 pub use spacing::{
     SUPPORT_RADIUS_PER_SPACING, estimate_spacing, estimate_spacing_with, suggested_support_radius,
 };

@@ -23,7 +23,7 @@
 //! [`Tuning::fine_final_distance_taus`], [`Tuning::consensus_at_coarse`]), `rival_lead`
 //! ([`Tuning::rival_overlap_lead`]), `slide_range`, `slide_share` ([`Tuning::slide_range_taus`],
 //! [`Tuning::slide_min_share`]), `held_turns`, `held_step`, `held_share` (0 or 1) (turns held
-//! about the axis, [`Tuning::held_turns`] …).
+//! about the axis, [`Tuning::held_turns`] …), `smooth` (0 or 1, [`Tuning::fine_smoothing`]).
 
 use equiscan::Cloud;
 use equiscan::align::prepared_scan::pair_voxel;
@@ -86,6 +86,10 @@ pub fn tuned(mut params: AlignParams, source: &Cloud, target: &Cloud) -> AlignPa
             "held_turns" => tu.held_turns = x as usize,
             "held_step" => tu.held_turn_step_deg = x,
             "held_share" => tu.held_turn_fit_share = x != 0.0,
+            "smooth" => tu.fine_smoothing = x != 0.0,
+            "spread" => tu.fine_smoothing_spread = x,
+            "smooth_k" => tu.fine_smoothing_neighbours = x as usize,
+            "smooth_src" => tu.fine_smoothing_source = x != 0.0,
             "pin_directions" => tu.pin_directions = x as usize,
             "pin_turn" => tu.pin_turn_deg = x,
             "pin_slide" => tu.pin_slide_taus = x,
