@@ -241,7 +241,9 @@ pub struct Tuning {
     pub fine_final_distance_taus: f64,
     /// The fine fit pairs both scans' fine points smoothed: each moved onto the least-squares
     /// plane of its normal neighbourhood ([`crate::spatial::project_to_local_planes`]), so that
-    /// the noise of the two scans does not pull the fit on curved surfaces.
+    /// the noise of the two scans does not pull the fit on curved surfaces. Off: measured on
+    /// new seeds it mends the noisy curved near misses but not enough else to be adopted
+    /// (DEVELOPERS.md, Registration, "Smoothed fine fit").
     pub fine_smoothing: bool,
     /// A fine point is smoothed only where its neighbourhood spreads across its plane no more
     /// than this many times the median spread (the neighbourhood covariance's smallest
@@ -334,7 +336,7 @@ impl Default for Tuning {
             list_fine_fit: true,
             fine_final_distance_taus: 0.3,
             fine_smoothing: false,
-            fine_smoothing_spread: f64::INFINITY,
+            fine_smoothing_spread: 1.0,
             fine_smoothing_neighbours: 0,
             fine_smoothing_source: true,
             consensus_at_coarse: true,

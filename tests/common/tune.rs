@@ -23,7 +23,9 @@
 //! [`Tuning::fine_final_distance_taus`], [`Tuning::consensus_at_coarse`]), `rival_lead`
 //! ([`Tuning::rival_overlap_lead`]), `slide_range`, `slide_share` ([`Tuning::slide_range_taus`],
 //! [`Tuning::slide_min_share`]), `held_turns`, `held_step`, `held_share` (0 or 1) (turns held
-//! about the axis, [`Tuning::held_turns`] …), `smooth` (0 or 1, [`Tuning::fine_smoothing`]).
+//! about the axis, [`Tuning::held_turns`] …), `smooth` (0 or 1,
+//! [`Tuning::fine_smoothing`]), `spread`, `smooth_k`, `smooth_src` (0 or 1)
+//! ([`Tuning::fine_smoothing_spread`] …).
 
 use equiscan::Cloud;
 use equiscan::align::prepared_scan::pair_voxel;
