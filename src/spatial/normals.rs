@@ -24,25 +24,7 @@ pub fn estimate_normals(
             if hits.len() < 3 {
                 return [0.0; 3];
             }
-            let n = hits.len() as f64;
-            let mut mean = Vector3::zeros();
-            for &(j, _) in &hits {
-                mean += to_v(points[j]);
-            }
-            mean /= n;
-            let mut cov = Matrix3::zeros();
-            for &(j, _) in &hits {
-                let d = to_v(points[j]) - mean;
-                cov += d * d.transpose();
-            }
-            let eig = SymmetricEigen::new(cov / n);
-            let (imin, _) = eig
-                .eigenvalues
-                .iter()
-                .enumerate()
-                .min_by(|a, b| a.1.total_cmp(b.1))
-                .expect("three eigenvalues");
-            let mut nrm: Vector3<f64> = eig.eigenvectors.column(imin).into_owned();
+            let (_, mut nrm, _) = local_plane(points, &hits);
             let flip = match viewpoint {
                 Some(v) => nrm.dot(&(to_v(v) - to_v(points[i]))) < 0.0,
                 None => {
@@ -90,28 +72,10 @@ pub fn project_to_local_planes(
             if hits.len() < 3 {
                 return None;
             }
-            let n = hits.len() as f64;
-            let mut mean = Vector3::zeros();
-            for &(j, _) in &hits {
-                mean += to_v(points[j]);
-            }
-            mean /= n;
-            let mut cov = Matrix3::zeros();
-            for &(j, _) in &hits {
-                let d = to_v(points[j]) - mean;
-                cov += d * d.transpose();
-            }
-            let eig = SymmetricEigen::new(cov / n);
-            let (imin, spread) = eig
-                .eigenvalues
-                .iter()
-                .enumerate()
-                .min_by(|a, b| a.1.total_cmp(b.1))
-                .expect("three eigenvalues");
-            let nrm: Vector3<f64> = eig.eigenvectors.column(imin).into_owned();
+            let (mean, nrm, spread) = local_plane(points, &hits);
             let v = to_v(p);
             let q = v - nrm * nrm.dot(&(v - mean));
-            Some(([q.x as f32, q.y as f32, q.z as f32], *spread))
+            Some(([q.x as f32, q.y as f32, q.z as f32], spread))
         })
         .collect();
     let mut spreads: Vec<f64> = planes.iter().flatten().map(|&(_, s)| s).collect();
@@ -130,6 +94,31 @@ pub fn project_to_local_planes(
             _ => p,
         })
         .collect()
+}
+
+/// The least-squares plane of the points `hits` (indices into `points`, at least 3): their
+/// mean, the unit eigenvector of their covariance with the smallest eigenvalue (the normal, of
+/// either sense), and that eigenvalue (the mean squared distance from the plane).
+fn local_plane(points: &[[f32; 3]], hits: &[(usize, f32)]) -> (Vector3<f64>, Vector3<f64>, f64) {
+    let n = hits.len() as f64;
+    let mut mean = Vector3::zeros();
+    for &(j, _) in hits {
+        mean += to_v(points[j]);
+    }
+    mean /= n;
+    let mut cov = Matrix3::zeros();
+    for &(j, _) in hits {
+        let d = to_v(points[j]) - mean;
+        cov += d * d.transpose();
+    }
+    let eig = SymmetricEigen::new(cov / n);
+    let (imin, spread) = eig
+        .eigenvalues
+        .iter()
+        .enumerate()
+        .min_by(|a, b| a.1.total_cmp(b.1))
+        .expect("three eigenvalues");
+    (mean, eig.eigenvectors.column(imin).into_owned(), *spread)
 }
 
 fn to_v(p: [f32; 3]) -> Vector3<f64> {
