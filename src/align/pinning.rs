@@ -29,7 +29,7 @@ use super::candidates::difference;
 use super::constraint::{Motion, motions, paired};
 use super::pipeline::AlignParams;
 use super::prepared_scan::PreparedScan;
-use super::refine::{fit_onto_fine, tight_share};
+use super::refine::{fit_onto_fine, smoothed_source, tight_share};
 use super::rigid::Rigid;
 
 /// A pose that a restarted fit reached, away from the answer, fitting as well.
@@ -127,13 +127,9 @@ pub fn restart_test(
     if starts.is_empty() {
         return None;
     }
-    let keypoints = match tu
-        .fine_smoothing
-        .then(|| source.smoothed_fine(tu))
-        .flatten()
-    {
-        Some(smoothed) => &smoothed.keypoints,
-        None => &source.keypoints,
+    let keypoints = match smoothed_source(source, params) {
+        Some(smoothed) => &smoothed.keypoints[..],
+        None => &source.keypoints[..],
     };
     let ends: Vec<(Rigid, f64, usize)> = starts
         .par_iter()

@@ -409,8 +409,8 @@ impl PreparedScan {
         &self.fine_index
     }
 
-    /// The fine points smoothed ([`SmoothedFine`]), built on first use; `None` when no tree can
-    /// be built over them.
+    /// The fine points smoothed ([`SmoothedFine`]), built on first use with that call's
+    /// `tuning` (later calls get the same points); `None` when no tree can be built over them.
     pub(crate) fn smoothed_fine(&self, tuning: &Tuning) -> Option<&SmoothedFine> {
         self.smoothed
             .get_or_init(|| {

@@ -30,7 +30,7 @@ use super::constraint::{Constraint, Motion, analyse, paired, stable_sample};
 use super::evidence::Distinctive;
 use super::icp::{IcpOutcome, IcpParams, icp_point_to_plane, oriented_fit};
 use super::pipeline::AlignParams;
-use super::prepared_scan::PreparedScan;
+use super::prepared_scan::{PreparedScan, SmoothedFine};
 use super::rank::Ranked;
 use super::revolution;
 use super::rigid::{Rigid, rotation_error_deg};
@@ -458,6 +458,18 @@ pub(super) fn fit_cloud<'a>(
     }
 }
 
+/// SOURCE's smoothed points for the fine fit and its restart test: `Some` when
+/// [`super::Tuning::fine_smoothing`] and [`super::Tuning::fine_smoothing_source`] are both on.
+pub(super) fn smoothed_source<'a>(
+    scan: &'a PreparedScan,
+    params: &AlignParams,
+) -> Option<&'a SmoothedFine> {
+    let tu = &params.tuning;
+    (tu.fine_smoothing && tu.fine_smoothing_source)
+        .then(|| scan.smoothed_fine(tu))
+        .flatten()
+}
+
 /// The fine fit of a pose: where it ends, how many ICP iterations it took, and how firmly the
 /// fit holds it.
 #[derive(Debug, Clone)]
@@ -484,10 +496,9 @@ pub fn fit_fine(
     let tu = &params.tuning;
     let fine_icp = fine_icp(params, tau, source.voxel);
     let (fs, ft) = (source, target);
-    let (source_points, _) = if params.tuning.fine_smoothing_source {
-        fit_cloud(fs, params)
-    } else {
-        (&fs.fine_points[..], fs.fine_index())
+    let source_points = match smoothed_source(fs, params) {
+        Some(smoothed) => &smoothed.points[..],
+        None => &fs.fine_points[..],
     };
     let (target_points, target_index) = fit_cloud(ft, params);
     let fit = fit_onto_fine(source_points, ft, start, params, tau);
