@@ -174,6 +174,21 @@ fn stacked(p: &Pair, poses: &[Rigid]) -> bool {
         .any(|tf| fit(&p.source, &p.target, &index, tf, gate) >= truth - 0.01)
 }
 
+/// The number of the `i`-th pair of the list in the per-pair lines of a run without
+/// `EQUISCAN_BENCH_PICK` (the same other keys): with a pick, the picked number, so that a pair
+/// rerun alone is printed, and aligned with the seed, as in the full run.
+fn pair_number(i: usize) -> usize {
+    std::env::var("EQUISCAN_BENCH_PICK")
+        .ok()
+        .and_then(|v| v.split(',').nth(i).and_then(|x| x.trim().parse().ok()))
+        .unwrap_or(i)
+}
+
+/// The alignment seed of the `i`-th pair of the list: `1 +` its [`pair_number`].
+fn align_seed(i: usize) -> u64 {
+    1 + pair_number(i) as u64
+}
+
 /// The benchmark pairs: `per_part` seeds for each of the eight parts, `bunny` bunny pairs and
 /// `yard` scene pairs, generated in parallel (each from its own seed).
 fn pairs(per_part: u64, bunnies: u64, yard: u64) -> Vec<Pair> {
@@ -254,7 +269,7 @@ fn evaluate_version(ps: &[Pair], methods: &[Arm], version: u32) -> Vec<Row> {
     ps.iter()
         .enumerate()
         .map(|(i, p)| {
-            let runs: Vec<Run> = methods.iter().map(|&m| run(p, m, 1 + i as u64, version)).collect();
+            let runs: Vec<Run> = methods.iter().map(|&m| run(p, m, align_seed(i), version)).collect();
             let poses: Vec<Rigid> = runs.iter().flat_map(|r| r.poses.clone()).collect();
             let row = Row {
                 shape: p.shape,
@@ -265,7 +280,8 @@ fn evaluate_version(ps: &[Pair], methods: &[Arm], version: u32) -> Vec<Row> {
                 runs,
             };
             println!(
-                "pair {i} {} overlap {:.2} noise {:.4} points {}+{} sep {:.0} stacked {}: {}",
+                "pair {} {} overlap {:.2} noise {:.4} points {}+{} sep {:.0} stacked {}: {}",
+                pair_number(i),
                 p.shape,
                 p.overlap,
                 p.noise_frac,
@@ -781,7 +797,7 @@ fn benchmark_diagnosis() {
     let known = std::env::var("EQUISCAN_BENCH_VIEWPOINTS").is_ok_and(|v| v == "1");
     for (i, p) in ps.iter().enumerate() {
         let params = AlignParams {
-            seed: 1 + i as u64,
+            seed: align_seed(i),
             viewpoints: viewpoints(p, known),
             ..AlignParams::default()
         };
@@ -848,7 +864,8 @@ fn benchmark_diagnosis() {
             a.candidates.first().map_or(0, |c| c.explained),
         );
         let mut line = format!(
-            "pair {i} {} ovl {:.2} noise {:.4} stacked {st} {:?} right {right} confident {confident} listed {listed} rot {rot:.1} margin {:.3} | hyps {} near {hyp} | ranked {} near at {ranked:?} | refined {} lead ovl {:.3} k {} closest {closest:.1?} near: {refined:?}",
+            "pair {} {} ovl {:.2} noise {:.4} stacked {st} {:?} right {right} confident {confident} listed {listed} rot {rot:.1} margin {:.3} | hyps {} near {hyp} | ranked {} near at {ranked:?} | refined {} lead ovl {:.3} k {} closest {closest:.1?} near: {refined:?}",
+            pair_number(i),
             p.shape,
             p.overlap,
             p.noise_frac,
@@ -910,12 +927,13 @@ fn benchmark_diagnosis() {
                 .pseudo_inverse(1e-9)
                 .map_or(Vector3::zeros(), |pi| -(pi * m.translation));
             line += &format!(
-                "\n    motion {angle:.1}° axis in target axes {:.2?} in union axes {:.2?}, axis point - union centroid in union axes {:.2?} (diag {:.3}), answer centroid - truth {:.4}",
+                "\n    motion {angle:.1}° axis in target axes {:.2?} in union axes {:.2?}, axis point - union centroid in union axes {:.2?} (diag {:.3}), answer centroid - truth {:.4} (TARGET frame {:.2?})",
                 (at.transpose() * axis).map(|x| x.abs()).as_slice(),
                 (au.transpose() * axis).map(|x| x.abs()).as_slice(),
                 (au.transpose() * (fix - cu)).as_slice(),
                 p.diagonal,
                 (answer_c - sc).norm(),
+                (sc - answer_c).as_slice(),
             );
         }
         println!("{line}");
@@ -977,7 +995,7 @@ fn match_diagnosis() {
             let params = tuned(
                 AlignParams {
                     method,
-                    seed: 1 + i as u64,
+                    seed: align_seed(i),
                     ..AlignParams::default()
                 },
                 &p.source,
@@ -1216,7 +1234,7 @@ fn fine_fit_diagnosis() {
     let ps = pairs(per_part, bunnies, yard);
     for (i, p) in ps.iter().enumerate() {
         let params = AlignParams {
-            seed: 1 + i as u64,
+            seed: align_seed(i),
             ..AlignParams::default()
         };
         let params = tuned(params, &p.source, &p.target);
@@ -1252,7 +1270,8 @@ fn fine_fit_diagnosis() {
         };
         let (right, rot) = is_right(p, &a.transform);
         println!(
-            "pair {i} {} noise {:.4} verdict {:?} right {right} rot {rot:.2} | {} | {} | {}",
+            "pair {} {} noise {:.4} verdict {:?} right {right} rot {rot:.2} | {} | {} | {}",
+            pair_number(i),
             p.shape,
             p.noise_frac,
             a.verdict,
