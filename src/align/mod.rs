@@ -60,6 +60,7 @@ pub mod refine;
 pub mod report;
 pub mod residual;
 pub mod revolution;
+pub mod sides;
 pub mod slides;
 pub mod symmetry;
 pub mod truth;

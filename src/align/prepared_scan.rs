@@ -123,6 +123,8 @@ pub struct PreparedScan {
     full: OnceLock<std::result::Result<FullIndex, Error>>,
     #[serde(skip)]
     smoothed: OnceLock<Option<SmoothedFine>>,
+    #[serde(skip)]
+    sides: OnceLock<crate::spatial::Oriented>,
 }
 
 /// The fine points moved onto their neighbourhoods' least-squares planes
@@ -134,6 +136,10 @@ pub(crate) struct SmoothedFine {
     pub(crate) index: KdIndex,
     pub(crate) keypoints: Vec<[f32; 3]>,
 }
+
+/// Neighbours per keypoint in the graph over which the keypoint normals are oriented
+/// ([`PreparedScan::sides`]).
+pub(crate) const SIDE_NEIGHBOURS: usize = 10;
 
 /// The k-d tree over every point and the measured point spacing, built when first needed.
 pub(crate) struct FullIndex {
@@ -321,6 +327,7 @@ impl<'a> Geometry<'a> {
             fine_index,
             full: OnceLock::new(),
             smoothed: OnceLock::new(),
+            sides: OnceLock::new(),
         })
     }
 }
@@ -438,6 +445,20 @@ impl PreparedScan {
                 })
             })
             .as_ref()
+    }
+
+    /// The keypoint normals oriented consistently over the keypoints' neighbour graph
+    /// ([`crate::spatial::orient_consistently`], [`SIDE_NEIGHBOURS`] neighbours), built on
+    /// first use: which side of its surface the scan saw, up to one flip per component.
+    pub(crate) fn sides(&self) -> &crate::spatial::Oriented {
+        self.sides.get_or_init(|| {
+            crate::spatial::orient_consistently(
+                &self.keypoints,
+                &self.normals,
+                &self.keypoint_index,
+                SIDE_NEIGHBOURS,
+            )
+        })
     }
 
     /// The k-d tree over every point and the measured spacing, built on first use.
@@ -612,6 +633,7 @@ impl TryFrom<StoredScan> for PreparedScan {
             fine_index,
             full: OnceLock::new(),
             smoothed: OnceLock::new(),
+            sides: OnceLock::new(),
         })
     }
 }

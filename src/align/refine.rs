@@ -50,7 +50,8 @@ pub(super) fn coarse_icp(params: &AlignParams, tau: f64, voxel: f64) -> IcpParam
 }
 
 /// The tight overlap of `pose`: the share of SOURCE keypoints within the plane tolerance of the
-/// TARGET surface, normals agreeing.
+/// TARGET surface, normals agreeing; less [`super::Tuning::side_weight`] × the share laid on
+/// the opposite side of the surface ([`super::sides`]), at least 0.
 pub fn tight_overlap(
     source: &PreparedScan,
     target: &PreparedScan,
@@ -58,6 +59,13 @@ pub fn tight_overlap(
     params: &AlignParams,
     tau: f64,
 ) -> f64 {
+    let w = params.tuning.side_weight;
+    if w > 0.0 {
+        // One pass gives both: the tight keypoints are the consistent and the opposed ones.
+        let a = super::sides::side_agreement(source, target, pose, params, tau);
+        let n = source.keypoints.len().max(1) as f64;
+        return ((a.consistent as f64 + (1.0 - w) * a.opposed as f64) / n).max(0.0);
+    }
     tight_share(
         (&source.keypoints, &source.normals),
         (&target.keypoints, &target.normals, target.keypoint_index()),

@@ -118,6 +118,9 @@ pub struct Tuning {
     pub slide_range_taus: f64,
     /// A slide is refined when its tight overlap reaches this share of the leader's.
     pub slide_min_share: f64,
+    /// Each SOURCE keypoint that a pose lays on the opposite side of a surface from the one
+    /// TARGET saw ([`super::sides`]) takes this many keypoints off its tight overlap (0: off).
+    pub side_weight: f64,
     /// Distinct refined poses listed as candidates.
     pub candidates: usize,
     /// Rivals listed as candidates come at least this close to the best (see
@@ -304,6 +307,7 @@ impl Default for Tuning {
             stable_one_in: 4,
             slide_range_taus: 4.0,
             slide_min_share: 0.3,
+            side_weight: 0.0,
             candidates: 5,
             list_rivalry: 0.3,
             list_overlap_share: 0.8,

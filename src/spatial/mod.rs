@@ -9,6 +9,7 @@ mod grid;
 mod index;
 mod index_track;
 mod normals;
+mod orientation;
 mod spacing;
 mod voxel;
 
@@ -18,6 +19,7 @@ pub use grid::{CellGrid, GridQuery, MAX_CELLS_PER_AXIS, order_by_key};
 pub use index::KdIndex;
 pub use index_track::NearestTrack;
 pub use normals::{estimate_normals, project_to_local_planes};
+pub use orientation::{Oriented, orient_consistently};
 pub use spacing::{
     SUPPORT_RADIUS_PER_SPACING, estimate_spacing, estimate_spacing_with, suggested_support_radius,
 };

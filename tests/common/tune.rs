@@ -22,7 +22,7 @@
 //! `consensus_coarse` (0 or 1) ([`Tuning::fine_max_distance_taus`],
 //! [`Tuning::fine_final_distance_taus`], [`Tuning::consensus_at_coarse`]), `rival_lead`
 //! ([`Tuning::rival_overlap_lead`]), `slide_range`, `slide_share` ([`Tuning::slide_range_taus`],
-//! [`Tuning::slide_min_share`]), `held_turns`, `held_step`, `held_share` (0 or 1) (turns held
+//! [`Tuning::slide_min_share`]), `side` ([`Tuning::side_weight`]), `held_turns`, `held_step`, `held_share` (0 or 1) (turns held
 //! about the axis, [`Tuning::held_turns`] …), `smooth` (0 or 1,
 //! [`Tuning::fine_smoothing`]), `spread`, `smooth_k`, `smooth_src` (0 or 1)
 //! ([`Tuning::fine_smoothing_spread`] …).
@@ -74,6 +74,7 @@ pub fn tuned(mut params: AlignParams, source: &Cloud, target: &Cloud) -> AlignPa
             "rival_lead" => tu.rival_overlap_lead = x,
             "slide_range" => tu.slide_range_taus = x,
             "slide_share" => tu.slide_min_share = x,
+            "side" => tu.side_weight = x,
             "answer_lead" => tu.answer_overlap_lead = x,
             "answer_matches" => tu.answer_min_explained = x as usize,
             "self_maps" => tu.self_maps = x as usize,
