@@ -30,7 +30,7 @@ use super::pipeline::AlignParams;
 use super::prepared_scan::PreparedScan;
 use super::quality::{self, Figures, Verdict};
 use super::rank::Ranked;
-use super::refine::{FineFit, Refined, fit_fine, tight_overlap};
+use super::refine::{FineFit, Refined, fit_fine, scored_overlap};
 use super::residual::full_resolution_rmse;
 use super::rigid::Rigid;
 use super::visibility::Visibility;
@@ -341,7 +341,7 @@ fn appraise(
         (Verdict::Confident, Some(_)) => pinning::restart_test(&local, source, target, params, tau)
             .map(|u| Scored {
                 pose: u.pose,
-                overlap: tight_overlap(source, target, &u.pose, params, tau),
+                overlap: scored_overlap(source, target, &u.pose, params, tau),
                 explained: pairs.support(&u.pose, tau),
                 evidence: distinctive.agreement(source, target, &u.pose, tau),
                 iterations: u.iterations,

@@ -50,8 +50,7 @@ pub(super) fn coarse_icp(params: &AlignParams, tau: f64, voxel: f64) -> IcpParam
 }
 
 /// The tight overlap of `pose`: the share of SOURCE keypoints within the plane tolerance of the
-/// TARGET surface, normals agreeing; less [`super::Tuning::side_weight`] × the share laid on
-/// the opposite side of the surface ([`super::sides`]), at least 0.
+/// TARGET surface, normals agreeing.
 pub fn tight_overlap(
     source: &PreparedScan,
     target: &PreparedScan,
@@ -59,13 +58,6 @@ pub fn tight_overlap(
     params: &AlignParams,
     tau: f64,
 ) -> f64 {
-    let w = params.tuning.side_weight;
-    if w > 0.0 {
-        // One pass gives both: the tight keypoints are the consistent and the opposed ones.
-        let a = super::sides::side_agreement(source, target, pose, params, tau);
-        let n = source.keypoints.len().max(1) as f64;
-        return ((a.consistent as f64 + (1.0 - w) * a.opposed as f64) / n).max(0.0);
-    }
     tight_share(
         (&source.keypoints, &source.normals),
         (&target.keypoints, &target.normals, target.keypoint_index()),
@@ -74,6 +66,28 @@ pub fn tight_overlap(
         params,
         tau,
     )
+}
+
+/// The tight overlap that scores a refined pose: [`tight_overlap`] less
+/// [`super::Tuning::side_weight`] × the share of SOURCE keypoints laid on the opposite side of
+/// the surface ([`super::sides`]), at least 0. The searches that sample the tight overlap along
+/// a slide or a turn use [`tight_overlap`]: they look for where surfaces fit, and the score then
+/// weighs the side.
+pub fn scored_overlap(
+    source: &PreparedScan,
+    target: &PreparedScan,
+    pose: &Rigid,
+    params: &AlignParams,
+    tau: f64,
+) -> f64 {
+    let w = params.tuning.side_weight;
+    if w <= 0.0 {
+        return tight_overlap(source, target, pose, params, tau);
+    }
+    // One pass gives both: the tight keypoints are the consistent and the opposed ones.
+    let a = super::sides::side_agreement(source, target, pose, params, tau);
+    let n = source.keypoints.len().max(1) as f64;
+    ((a.consistent as f64 + (1.0 - w) * a.opposed as f64) / n).max(0.0)
 }
 
 /// The share of `source` points (positions, normals) that `pose` lays within the plane
@@ -150,7 +164,7 @@ fn scored(
 ) -> Scored {
     Scored {
         pose: *pose,
-        overlap: tight_overlap(source, target, pose, params, tau),
+        overlap: scored_overlap(source, target, pose, params, tau),
         explained: pairs.support(pose, tau),
         evidence: distinctive.agreement(source, target, pose, tau),
         iterations,

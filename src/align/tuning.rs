@@ -119,7 +119,8 @@ pub struct Tuning {
     /// A slide is refined when its tight overlap reaches this share of the leader's.
     pub slide_min_share: f64,
     /// Each SOURCE keypoint that a pose lays on the opposite side of a surface from the one
-    /// TARGET saw ([`super::sides`]) takes this many keypoints off its tight overlap (0: off).
+    /// TARGET saw ([`super::sides`]) takes this many keypoints off the tight overlap that scores
+    /// it ([`super::refine::scored_overlap`]; 0: off).
     pub side_weight: f64,
     /// Distinct refined poses listed as candidates.
     pub candidates: usize,
