@@ -152,12 +152,65 @@ pub fn fit_quality(
     (rmse, n)
 }
 
-/// For `source` moved by `tf`: the number of points whose nearest target point lies within
-/// `max_distance`, whose distance to that point's tangent plane is at most `plane_tolerance`, and
-/// whose orientation agrees: the source normal, rotated by `tf`, makes an angle of at most `max_angle_deg` with the target
+/// The tight test of one moved point (the tight overlap's, [`oriented_fit`]): its nearest target
+/// point lies within the cutoff, its distance to that point's tangent plane is at most the plane
+/// tolerance, and its normal, rotated, makes an angle of at most the largest angle with the target
 /// normal's line (sign ignored, as PCA normals of a one-sided scan carry no reliable outward
-/// sense). A wrong pose that lays a flat face of the source on a flat face of the target fits
-/// the plane test along that face, but the edges and other faces then cross the target's
+/// sense).
+pub struct TightTest<'a> {
+    target: &'a [[f32; 3]],
+    target_normals: &'a [[f32; 3]],
+    target_index: &'a KdIndex,
+    tf: &'a Rigid,
+    cutoff2: f64,
+    plane_tolerance: f64,
+    min_cos: f64,
+}
+
+impl<'a> TightTest<'a> {
+    /// The test for points moved by `tf` onto the target (positions, normals, tree), paired
+    /// within `max_distance`.
+    pub fn new(
+        (target, target_normals, target_index): (&'a [[f32; 3]], &'a [[f32; 3]], &'a KdIndex),
+        tf: &'a Rigid,
+        max_distance: f64,
+        plane_tolerance: f64,
+        max_angle_deg: f64,
+    ) -> TightTest<'a> {
+        TightTest {
+            target,
+            target_normals,
+            target_index,
+            tf,
+            cutoff2: max_distance * max_distance,
+            plane_tolerance,
+            min_cos: max_angle_deg.to_radians().cos(),
+        }
+    }
+
+    /// For source point `p` with normal `normal`: the index of the target point it is tight on
+    /// and the cosine between the rotated normal and that point's normal (signed), or `None`.
+    pub fn check(&self, p: [f32; 3], normal: [f32; 3]) -> Option<(usize, f64)> {
+        let pm = self.tf.apply_f32(p);
+        let (j, _) = self
+            .target_index
+            .nearest_within([pm.x as f32, pm.y as f32, pm.z as f32], self.cutoff2)?;
+        let n = self.target_normals[j];
+        let q = self.target[j];
+        let d: f64 = (0..3).map(|k| n[k] as f64 * (pm[k] - q[k] as f64)).sum();
+        if d.abs() > self.plane_tolerance {
+            return None;
+        }
+        let nr = self.tf.rotation * crate::geometry::vec3(normal);
+        let c: f64 = (0..3).map(|k| n[k] as f64 * nr[k]).sum();
+        (c.abs() >= self.min_cos).then_some((j, c))
+    }
+}
+
+/// For `source` moved by `tf`: the number of points that pass the [`TightTest`] (nearest target
+/// point within `max_distance`, within `plane_tolerance` of its tangent plane, normal lines within
+/// `max_angle_deg`). A wrong pose that lays a flat face of the source on a flat face of the target
+/// fits the plane test along that face, but the edges and other faces then cross the target's
 /// surface at an angle.
 #[allow(clippy::too_many_arguments)]
 pub fn oriented_fit(
@@ -171,33 +224,22 @@ pub fn oriented_fit(
     plane_tolerance: f64,
     max_angle_deg: f64,
 ) -> usize {
-    let cutoff2 = max_distance * max_distance;
-    let min_cos = max_angle_deg.to_radians().cos();
+    let test = TightTest::new(
+        (target, target_normals, target_index),
+        tf,
+        max_distance,
+        plane_tolerance,
+        max_angle_deg,
+    );
     let parts: Vec<usize> = source
         .par_chunks(CHUNK)
         .zip(source_normals.par_chunks(CHUNK))
         .map(|(chunk, normals)| {
-            let mut tight = 0usize;
-            for (p, ns) in chunk.iter().zip(normals) {
-                let pm = tf.apply_f32(*p);
-                let Some((j, _)) =
-                    target_index.nearest_within([pm.x as f32, pm.y as f32, pm.z as f32], cutoff2)
-                else {
-                    continue;
-                };
-                let n = target_normals[j];
-                let q = target[j];
-                let d: f64 = (0..3).map(|k| n[k] as f64 * (pm[k] - q[k] as f64)).sum();
-                if d.abs() > plane_tolerance {
-                    continue;
-                }
-                let nr = tf.rotation * crate::geometry::vec3(*ns);
-                let c: f64 = (0..3).map(|k| n[k] as f64 * nr[k]).sum();
-                if c.abs() >= min_cos {
-                    tight += 1;
-                }
-            }
-            tight
+            chunk
+                .iter()
+                .zip(normals)
+                .filter(|(p, ns)| test.check(**p, **ns).is_some())
+                .count()
         })
         .collect();
     parts.iter().sum()

@@ -13,6 +13,7 @@
 
 use rayon::prelude::*;
 
+use super::icp::TightTest;
 use super::pipeline::AlignParams;
 use super::prepared_scan::PreparedScan;
 use super::rigid::Rigid;
@@ -35,8 +36,8 @@ impl SideAgreement {
 
 /// The [`SideAgreement`] of `pose` (local frames): SOURCE keypoints within τ of their nearest
 /// TARGET keypoint, within the plane tolerance of its tangent plane and with normal lines within
-/// [`super::Tuning::normal_angle_deg`] (the tight overlap's test, [`super::icp::oriented_fit`]:
-/// `consistent + opposed` is the tight overlap's count), counted per pair of components by the
+/// [`super::Tuning::normal_angle_deg`] (the tight overlap's [`TightTest`]: `consistent +
+/// opposed` is the tight overlap's count), counted per pair of components by the
 /// sign of their oriented normals' dot product.
 pub fn side_agreement(
     source: &PreparedScan,
@@ -47,25 +48,16 @@ pub fn side_agreement(
 ) -> SideAgreement {
     let tu = &params.tuning;
     let (ss, ts) = (source.sides(), target.sides());
-    let cutoff2 = tau * tau;
-    let plane = tu.plane_tolerance_voxels * source.voxel;
-    let min_cos = tu.normal_angle_deg.to_radians().cos();
+    let tight = TightTest::new(
+        (&target.keypoints, &target.normals, target.keypoint_index()),
+        pose,
+        tau,
+        tu.plane_tolerance_voxels * source.voxel,
+        tu.normal_angle_deg,
+    );
     // (SOURCE component, TARGET component, agrees) per tight keypoint, in keypoint order.
     let test = |i: usize| -> Option<(u32, u32, bool)> {
-        let q = pose.apply_f32(source.keypoints[i]);
-        let (j, _) = target
-            .keypoint_index()
-            .nearest_within([q.x as f32, q.y as f32, q.z as f32], cutoff2)?;
-        let (tp, tn) = (target.keypoints[j], target.normals[j]);
-        let d: f64 = (0..3).map(|k| tn[k] as f64 * (q[k] - tp[k] as f64)).sum();
-        if d.abs() > plane {
-            return None;
-        }
-        let nr = pose.rotation * crate::geometry::vec3(source.normals[i]);
-        let c: f64 = (0..3).map(|k| tn[k] as f64 * nr[k]).sum();
-        if c.abs() < min_cos {
-            return None;
-        }
+        let (j, c) = tight.check(source.keypoints[i], source.normals[i])?;
         let signed = c * ss.sign[i] as f64 * ts.sign[j] as f64;
         Some((ss.component[i], ts.component[j], signed > 0.0))
     };

@@ -22,8 +22,8 @@
 //! `consensus_coarse` (0 or 1) ([`Tuning::fine_max_distance_taus`],
 //! [`Tuning::fine_final_distance_taus`], [`Tuning::consensus_at_coarse`]), `rival_lead`
 //! ([`Tuning::rival_overlap_lead`]), `slide_range`, `slide_share` ([`Tuning::slide_range_taus`],
-//! [`Tuning::slide_min_share`]), `side` ([`Tuning::side_weight`]), `held_turns`, `held_step`, `held_share` (0 or 1) (turns held
-//! about the axis, [`Tuning::held_turns`] …), `smooth` (0 or 1,
+//! [`Tuning::slide_min_share`]), `side` ([`Tuning::side_weight`]), `held_turns`, `held_step`,
+//! `held_share` (0 or 1) (turns held about the axis, [`Tuning::held_turns`] …), `smooth` (0 or 1,
 //! [`Tuning::fine_smoothing`]), `spread`, `smooth_k`, `smooth_src` (0 or 1)
 //! ([`Tuning::fine_smoothing_spread`] …).
 
