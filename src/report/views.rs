@@ -408,6 +408,9 @@ fn wrap_words(text: &str, scale: u32, max_width: i64, max_lines: usize) -> Vec<S
         .collect()
 }
 
+/// Most rows of the red "NOT ALIGNED" band: an ambiguous verdict's reason and its advice fit
+/// in full on a 1 800-pixel picture.
+const MAX_WARNING_ROWS: usize = 4;
 /// Most rows of figure lines under the heading; more lines go to further columns.
 const MAX_HEADER_ROWS: usize = 6;
 /// Most columns of figure lines.
@@ -425,7 +428,7 @@ fn draw_header(canvas: &mut Canvas, text: &FigureText) -> i64 {
     }
     if !text.warning.is_empty() {
         let words = format!("NOT ALIGNED: {}", text.warning);
-        let rows = wrap_words(&words, 3, usable - 20, 2);
+        let rows = wrap_words(&words, 3, usable - 20, MAX_WARNING_ROWS);
         let pitch = Canvas::line_height(3) as i64 + 4;
         let band = rows.len() as i64 * pitch + 10;
         canvas.fill_rect(MARGIN, y, usable as u32, band as u32, WARNING);
