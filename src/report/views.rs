@@ -892,6 +892,34 @@ pub fn render_cloud_views(
 mod tests {
     use super::*;
 
+    /// The red band of an ambiguous picture holds every verdict reason with the advice after it
+    /// (src/align/report.rs) without cutting it, at the picture's width.
+    #[test]
+    fn every_reason_fits_the_warning_band_uncut() {
+        use crate::align::Reason;
+        let usable = ALIGNMENT_SIZE[0] as i64 - 2 * MARGIN;
+        for reason in [
+            Reason::TooFewDistinctivePoints,
+            Reason::TooLittleOverlap,
+            Reason::AmbiguousSymmetricShape,
+            Reason::WeaklyConstrained,
+            Reason::ContradictsFreeSpace,
+            Reason::MatchesFavourAnotherPose,
+            Reason::FitNotPinned,
+        ] {
+            let words = format!(
+                "NOT ALIGNED: {}; choose between the rows with what you know about the scans",
+                reason.explain()
+            );
+            let rows = wrap_words(&words, 3, usable - 20, MAX_WARNING_ROWS);
+            assert!(
+                rows.iter().all(|r| !r.ends_with("...")),
+                "{reason:?} is cut: {rows:?}"
+            );
+            assert_eq!(rows.join(" "), words);
+        }
+    }
+
     #[test]
     fn nice_lengths_follow_one_two_five() {
         let cases = [
