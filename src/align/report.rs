@@ -1000,6 +1000,12 @@ pub fn write_pair_picture(
     render_alignment_views(&layers, &text, path)
 }
 
+/// The red band's text on the picture of an ambiguous result: the verdict's reason (`why`) and
+/// what to do with the two rows of candidates drawn under it.
+pub fn ambiguous_warning(why: &str) -> String {
+    format!("{why}; choose between the rows with what you know about the scans")
+}
+
 /// The picture of an ambiguous result: the first two candidates in two rows (three views
 /// each), their scores and how they differ in the heading. `layers` are SOURCE (shifted by
 /// `unshift`'s inverse, as in the before row of the usual picture) and TARGET, `names` their
@@ -1044,7 +1050,7 @@ fn write_candidates_picture(
         lines,
         footer: r.caution.clone(),
         unit: r.settings.units.label().to_string(),
-        warning: format!("{why}; choose between the rows with what you know about the scans"),
+        warning: ambiguous_warning(&why),
     };
     draw_alignment_rows(&[moving, fixed], &rows, &text)?.save_png(path)
 }

@@ -411,6 +411,16 @@ fn wrap_words(text: &str, scale: u32, max_width: i64, max_lines: usize) -> Vec<S
 /// Most rows of the red "NOT ALIGNED" band: an ambiguous verdict's reason and its advice fit
 /// in full on a 1 800-pixel picture.
 const MAX_WARNING_ROWS: usize = 4;
+/// The red band's rows for `warning` across `usable` pixels (scale 3, 10-pixel inset).
+fn warning_rows(warning: &str, usable: i64) -> Vec<String> {
+    wrap_words(
+        &format!("NOT ALIGNED: {warning}"),
+        3,
+        usable - 20,
+        MAX_WARNING_ROWS,
+    )
+}
+
 /// Most rows of figure lines under the heading; more lines go to further columns.
 const MAX_HEADER_ROWS: usize = 6;
 /// Most columns of figure lines.
@@ -427,8 +437,7 @@ fn draw_header(canvas: &mut Canvas, text: &FigureText) -> i64 {
         y += Canvas::line_height(3) as i64 + 6;
     }
     if !text.warning.is_empty() {
-        let words = format!("NOT ALIGNED: {}", text.warning);
-        let rows = wrap_words(&words, 3, usable - 20, MAX_WARNING_ROWS);
+        let rows = warning_rows(&text.warning, usable);
         let pitch = Canvas::line_height(3) as i64 + 4;
         let band = rows.len() as i64 * pitch + 10;
         canvas.fill_rect(MARGIN, y, usable as u32, band as u32, WARNING);
@@ -907,16 +916,13 @@ mod tests {
             Reason::MatchesFavourAnotherPose,
             Reason::FitNotPinned,
         ] {
-            let words = format!(
-                "NOT ALIGNED: {}; choose between the rows with what you know about the scans",
-                reason.explain()
-            );
-            let rows = wrap_words(&words, 3, usable - 20, MAX_WARNING_ROWS);
+            let warning = crate::align::report::ambiguous_warning(reason.explain());
+            let rows = warning_rows(&warning, usable);
             assert!(
                 rows.iter().all(|r| !r.ends_with("...")),
                 "{reason:?} is cut: {rows:?}"
             );
-            assert_eq!(rows.join(" "), words);
+            assert_eq!(rows.join(" "), format!("NOT ALIGNED: {warning}"));
         }
     }
 
