@@ -27,13 +27,6 @@ pub struct SideAgreement {
     pub opposed: usize,
 }
 
-impl SideAgreement {
-    /// The opposed keypoints as a share of SOURCE's keypoints (the unit of the tight overlap).
-    pub fn opposed_share(&self, keypoints: usize) -> f64 {
-        self.opposed as f64 / keypoints.max(1) as f64
-    }
-}
-
 /// The [`SideAgreement`] of `pose` (local frames): SOURCE keypoints within τ of their nearest
 /// TARGET keypoint, within the plane tolerance of its tangent plane and with normal lines within
 /// [`super::Tuning::normal_angle_deg`] (the tight overlap's [`TightTest`]: `consistent +

@@ -1,9 +1,9 @@
 //! Consistent normal orientation: the signs of unoriented (PCA) normals chosen so that
 //! neighbouring normals agree, by propagation along a minimum spanning tree of the k-nearest
 //! neighbour graph with edge cost `1 − |nᵢ · nⱼ|` (Hoppe, DeRose, Duchamp, McDonald & Stuetzle
-//! 1992, "Surface reconstruction from unorganized points", section 3.3). Along the tree the
-//! orientation crosses smooth regions first and sharp edges last, through the blended normals
-//! that a neighbourhood straddling an edge gets.
+//! 1992, "Surface reconstruction from unorganized points", section 3.3; from memory). Along
+//! the tree the orientation crosses smooth regions first and sharp edges last, through the
+//! blended normals that a neighbourhood straddling an edge gets.
 //!
 //! The result is one sign per connected component of the graph, up to a flip of the whole
 //! component: either every normal of a one-sided scan points out of the part or every one points
