@@ -906,6 +906,16 @@ mod tests {
     #[test]
     fn every_reason_fits_the_warning_band_uncut() {
         use crate::align::Reason;
+        // A new reason fails to compile here until it is added to the list below.
+        let _every_reason_is_listed = |r: Reason| match r {
+            Reason::TooFewDistinctivePoints
+            | Reason::TooLittleOverlap
+            | Reason::AmbiguousSymmetricShape
+            | Reason::WeaklyConstrained
+            | Reason::ContradictsFreeSpace
+            | Reason::MatchesFavourAnotherPose
+            | Reason::FitNotPinned => (),
+        };
         let usable = ALIGNMENT_SIZE[0] as i64 - 2 * MARGIN;
         for reason in [
             Reason::TooFewDistinctivePoints,
