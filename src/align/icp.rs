@@ -62,10 +62,31 @@ const CHUNK: usize = 512;
 struct Pair {
     residual: f64,
     jac: Vector6<f64>,
+    /// Which points were paired: the source index in the high 32 bits, the target's in the low.
+    key: u64,
+}
+
+/// Longest cycle of pairings that [`icp_point_to_plane`] looks for, in iterations.
+const MAX_CYCLE: usize = 4;
+
+/// True when two poses differ by less than an update that counts as converged: a turn below
+/// `tolerance` (radians; the Frobenius norm of the rotations' difference over √2, which is the
+/// angle for small turns) and a shift below `tolerance × max_distance`.
+fn within_tolerance(a: &Rigid, b: &Rigid, params: &IcpParams) -> bool {
+    (a.rotation - b.rotation).norm() / std::f64::consts::SQRT_2 < params.tolerance
+        && (a.translation - b.translation).norm() < params.tolerance * params.max_distance
 }
 
 /// Refines `init` (mapping `source` into the target's frame) by point-to-plane ICP against
 /// `target` with unit `target_normals`, indexed by `target_index`.
+///
+/// A run that does not converge often ends in a cycle: the same pairs every second (or third,
+/// fourth) iteration, the pose stepping back and forth between two nearly fixed poses (a
+/// pairing that flips with each step), the steps never below the tolerance. Once the pairs of
+/// an iteration are those of 2 to [`MAX_CYCLE`] iterations before and its pose is within the
+/// tolerance of that iteration's, the run has converged to the cycle and stops: it returns the
+/// cycle's pose of the same phase as the iteration cap (the pose the capped run would have
+/// ended near), with `converged` false and the iterations actually run.
 pub fn icp_point_to_plane(
     source: &[[f32; 3]],
     target: &[[f32; 3]],
@@ -74,11 +95,38 @@ pub fn icp_point_to_plane(
     init: &Rigid,
     params: &IcpParams,
 ) -> IcpOutcome {
+    icp_run(
+        source,
+        target,
+        target_normals,
+        target_index,
+        init,
+        params,
+        MAX_CYCLE,
+    )
+    .0
+}
+
+/// [`icp_point_to_plane`] looking for cycles up to `max_cycle` iterations long (below 2: none);
+/// also the period of the cycle that ended the run, if one did.
+fn icp_run(
+    source: &[[f32; 3]],
+    target: &[[f32; 3]],
+    target_normals: &[[f32; 3]],
+    target_index: &KdIndex,
+    init: &Rigid,
+    params: &IcpParams,
+    max_cycle: usize,
+) -> (IcpOutcome, Option<usize>) {
     let mut tf = *init;
+    let mut cycle = None;
     let mut converged = false;
     let mut iterations = 0;
     let cutoff2 = params.max_distance * params.max_distance;
     let mut tracks = vec![NearestTrack::default(); source.len()];
+    // The poses and pairs of the last iterations, oldest first.
+    let mut history: std::collections::VecDeque<(Rigid, Vec<u64>)> =
+        std::collections::VecDeque::with_capacity(max_cycle);
     for _ in 0..params.max_iterations {
         iterations += 1;
         let pairs = collect_pairs(
@@ -93,6 +141,23 @@ pub fn icp_point_to_plane(
         if pairs.len() < 6 {
             break;
         }
+        let keys: Vec<u64> = pairs.iter().map(|p| p.key).collect();
+        let period = (2..=max_cycle.min(history.len())).find(|&p| {
+            let (pose, earlier) = &history[history.len() - p];
+            *earlier == keys && within_tolerance(pose, &tf, params)
+        });
+        if let Some(p) = period {
+            // Iteration k repeats k − p; the pose after the cap (iteration N) is near that of
+            // iteration k − p + r with r = (N + 1 − k) mod p, which the history holds.
+            let r = (params.max_iterations + 1 - iterations) % p;
+            tf = history[history.len() - (p - r)].0;
+            cycle = Some(p);
+            break;
+        }
+        if history.len() == max_cycle.max(1) {
+            history.pop_front();
+        }
+        history.push_back((tf, keys));
         let scale = robust_scale(&pairs).max(params.min_scale);
         let (a, b) = normal_equations(&pairs, scale, params.loss);
         let Some((next, turn, shift)) = point_to_plane_step(&a, &b, &tf) else {
@@ -105,14 +170,15 @@ pub fn icp_point_to_plane(
         }
     }
     let (rmse, pairs) = fit_quality(source, target_index, &tf, params.max_distance);
-    IcpOutcome {
+    let outcome = IcpOutcome {
         transform: tf,
         iterations,
         converged,
         rmse,
         pairs,
         fitness: pairs as f64 / source.len().max(1) as f64,
-    }
+    };
+    (outcome, cycle)
 }
 
 /// RMSE of nearest-neighbour distances below `max_distance` and how many source points have
@@ -260,9 +326,10 @@ fn collect_pairs(
     let chunks: Vec<Vec<Pair>> = source
         .par_chunks(CHUNK)
         .zip(tracks.par_chunks_mut(CHUNK))
-        .map(|(chunk, tracks)| {
+        .enumerate()
+        .map(|(c, (chunk, tracks))| {
             let mut out = Vec::with_capacity(chunk.len());
-            for (p, track) in chunk.iter().zip(tracks) {
+            for (k, (p, track)) in chunk.iter().zip(tracks).enumerate() {
                 let pm = tf.apply_f32(*p);
                 let centre = [pm.x as f32, pm.y as f32, pm.z as f32];
                 let Some(j) = track.nearest_within(index, target, centre, cutoff2) else {
@@ -276,10 +343,11 @@ fn collect_pairs(
                 let q = target[j];
                 let q = crate::geometry::vec3(q);
                 let residual = n.dot(&(pm - q));
-                let c = pm.cross(&n);
+                let cr = pm.cross(&n);
                 out.push(Pair {
                     residual,
-                    jac: Vector6::new(c.x, c.y, c.z, n.x, n.y, n.z),
+                    jac: Vector6::new(cr.x, cr.y, cr.z, n.x, n.y, n.z),
+                    key: (((c * CHUNK + k) as u64) << 32) | j as u64,
                 });
             }
             out
@@ -411,5 +479,73 @@ mod tests {
             );
             assert!(out.fitness > 0.9, "{loss:?}: fitness {}", out.fitness);
         }
+    }
+
+    /// Noisy samplings of the wavy surface, overlapping in part: the source and the target are
+    /// different noisy draws, so that pairings can flip from one step to the next and runs end
+    /// in cycles. A run stopped at a detected cycle must end within a hundred tolerances of where
+    /// the run without the detection ends at the iteration cap, with the same pairs and fewer
+    /// iterations, and cycles must occur (else the test shows nothing).
+    #[test]
+    fn a_run_stopped_at_a_cycle_ends_where_the_capped_run_ends() {
+        use crate::so3::rng::SplitMix64;
+        let mut rng = SplitMix64::new(11);
+        let mut draw = |jitter: f32, from: f32| -> Vec<[f32; 3]> {
+            let mut v = Vec::new();
+            for i in 0..40 {
+                for j in 0..40 {
+                    let x = from + i as f32 * 0.03 + jitter * (rng.next_f64() as f32 - 0.5);
+                    let y = j as f32 * 0.03 + jitter * (rng.next_f64() as f32 - 0.5);
+                    let z = 0.2 * (3.0 * x).sin() * (2.0 * y).cos()
+                        + 0.02 * (rng.next_f64() as f32 - 0.5);
+                    v.push([x, y, z]);
+                }
+            }
+            v
+        };
+        let target = draw(0.02, 0.0);
+        let index = KdIndex::new(&target).unwrap();
+        let all: Vec<usize> = (0..target.len()).collect();
+        let normals = estimate_normals(&target, &index, &all, 10, None);
+        let source = draw(0.02, 0.4);
+        let params = IcpParams {
+            max_distance: 0.08,
+            min_scale: 0.0005,
+            loss: RobustLoss::Tukey,
+            max_iterations: 40,
+            tolerance: 1e-9,
+        };
+        let mut cycles = 0;
+        for k in 0..12 {
+            let a = 0.01 * k as f64;
+            let start = Rigid::new(
+                *Rotation3::new(Vector3::new(a, -0.5 * a, 0.02)).matrix(),
+                Vector3::new(0.01, -0.005 * k as f64, 0.01),
+            );
+            let run = |c| icp_run(&source, &target, &normals, &index, &start, &params, c);
+            let (with, period) = run(MAX_CYCLE);
+            let (without, none) = run(0);
+            assert_eq!(none, None);
+            cycles += usize::from(period.is_some());
+            // Within a hundred times the tolerance of where the capped run ends.
+            let near = IcpParams {
+                tolerance: 100.0 * params.tolerance,
+                ..params
+            };
+            assert!(
+                within_tolerance(&with.transform, &without.transform, &near),
+                "start {k}: period {period:?}\n{:?}\n{:?}",
+                with.transform,
+                without.transform
+            );
+            assert_eq!(with.pairs, without.pairs, "start {k}");
+            if period.is_some() {
+                assert!(with.iterations < without.iterations, "start {k}");
+                assert!(!without.converged, "start {k}");
+            } else {
+                assert_eq!(with.iterations, without.iterations, "start {k}");
+            }
+        }
+        assert!(cycles > 0, "no run ended in a cycle");
     }
 }
