@@ -1269,9 +1269,12 @@ fn fine_fit_diagnosis() {
             let back = fit_fine(&local(start).inverse(), &t, &s, &params, tau);
             let file = back.local.inverse().between_origins(s.origin(), t.origin());
             let (r, d) = errors(&p.source, &file, &p.truth);
+            // How far the reverse fit ends from the start, measured as the errors are.
+            let (rs, ds) = errors(&p.source, &file, start);
             format!(
-                "reverse from answer: ends {r:.2}° {:.2} % diag",
-                100.0 * d / p.diagonal
+                "reverse from answer: ends {r:.2}° {:.2} % diag; {rs:.2}° {:.2} % diag from the answer",
+                100.0 * d / p.diagonal,
+                100.0 * ds / p.diagonal
             )
         };
         let (right, rot) = is_right(p, &a.transform);

@@ -299,6 +299,7 @@ fn appraise(
         inliers,
         margin,
         confidence: 0.0,
+        reverse_fit_turn_deg: None,
     };
     figures.confidence = quality::confidence(inliers, overlap, margin);
     let mut verdict = quality::verdict(&figures);
@@ -351,6 +352,14 @@ fn appraise(
     };
     if unpinned.is_some() {
         verdict = Verdict::Ambiguous(quality::Reason::FitNotPinned);
+    }
+    // The fit made the other way round (one more fine fit, only for an answer still confident).
+    if verdict == Verdict::Confident && tu.reverse_fit_max_deg > 0.0 {
+        let turn = pinning::reverse_fit_turn(&local, source, target, params, tau);
+        figures.reverse_fit_turn_deg = Some(turn);
+        if turn > tu.reverse_fit_max_deg {
+            verdict = Verdict::Ambiguous(quality::Reason::FitsDisagree);
+        }
     }
     let centroid = source
         .keypoints

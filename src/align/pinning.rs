@@ -29,7 +29,7 @@ use super::candidates::difference;
 use super::constraint::{Motion, motions, paired};
 use super::pipeline::AlignParams;
 use super::prepared_scan::PreparedScan;
-use super::refine::{fit_onto_fine, smoothed_source, tight_share};
+use super::refine::{fit_fine, fit_onto_fine, smoothed_source, tight_share};
 use super::rigid::Rigid;
 
 /// A pose that a restarted fit reached, away from the answer, fitting as well.
@@ -43,6 +43,24 @@ pub struct Unpinned {
     pub answer_fit: f64,
     /// ICP iterations of that restart.
     pub iterations: usize,
+}
+
+/// The turn, in degrees, between `answer` (SOURCE local → TARGET local) and the fine fit made
+/// the other way round: TARGET's fine points fitted onto SOURCE's (SOURCE's normals, the same
+/// ICP stages and constraint refit as [`super::refine::fit_fine`]) from `answer`'s inverse,
+/// inverted back. Point-to-plane ICP uses the normals of one scan only, so on a pinned pose
+/// both fits end together, while a pose held by too little detail for the noise ends where
+/// each scan's noise pulls it, and the two fits part (forward–backward consistency, common
+/// practice in registration and motion estimation).
+pub fn reverse_fit_turn(
+    answer: &Rigid,
+    source: &PreparedScan,
+    target: &PreparedScan,
+    params: &AlignParams,
+    tau: f64,
+) -> f64 {
+    let back = fit_fine(&answer.inverse(), target, source, params, tau);
+    super::rigid::rotation_error_deg(&back.local.inverse().rotation, &answer.rotation)
 }
 
 /// The tight overlap of `pose` on the fine points: the share of SOURCE's fine points within

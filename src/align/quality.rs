@@ -84,6 +84,9 @@ pub enum Reason {
     /// (a shallow basin of a nearly symmetric shape, see [`super::pinning`]); that pose is the
     /// second candidate.
     FitNotPinned,
+    /// Fitted the other way round (TARGET onto SOURCE), the pose turns by more than
+    /// [`super::Tuning::reverse_fit_max_deg`] (see [`super::pinning::reverse_fit_turn`]).
+    FitsDisagree,
 }
 
 impl Reason {
@@ -107,6 +110,9 @@ impl Reason {
             }
             Reason::FitNotPinned => {
                 "the fit is not pinned down: started a few degrees or a few points' spacing away, it settles at another pose that fits as well (candidate 2); check which of the two is right, or give scans that show more of the distinctive detail"
+            }
+            Reason::FitsDisagree => {
+                "fitted the other way round (the target's points onto the source's) the pose turns by more than a degree (see fit.reverse_fit_turn_deg): what pins it is too slight for the noise; check the pose, or give scans with less noise or more of the distinctive detail"
             }
             Reason::WeaklyConstrained => {
                 "the fit is free along a direction (see weak directions): nothing in the overlap stops a slide or turn; give scans that share an edge, hole or corner across it"
@@ -145,6 +151,10 @@ pub struct Figures {
     pub margin: f64,
     /// Confidence figure in [0, 1].
     pub confidence: f64,
+    /// Turn between the answer and its fit made the other way round, degrees
+    /// ([`super::pinning::reverse_fit_turn`]); measured only for an answer that passed every
+    /// other test of a `confident` verdict.
+    pub reverse_fit_turn_deg: Option<f64>,
 }
 
 /// Confidence from consensus, overlap and margin (formula in the module docs).
@@ -179,6 +189,7 @@ mod tests {
             inliers: 40,
             margin: 0.6,
             confidence: 0.0,
+            reverse_fit_turn_deg: None,
         };
         assert_eq!(verdict(&f), Verdict::Confident);
         f.margin = 0.05;

@@ -207,6 +207,11 @@ pub struct FitFigures {
     pub lead: f64,
     /// Confidence figure, 0 to 1.
     pub confidence: f64,
+    /// Turn, degrees, between the pose and the fit made the other way round (TARGET's points
+    /// fitted onto SOURCE's); measured for a pose that passed every other test of
+    /// `confident`, absent otherwise.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub reverse_fit_turn_deg: Option<f64>,
 }
 
 /// The report of one pair.
@@ -541,6 +546,7 @@ impl PairReport {
                 agreeing_pairs: a.figures.inliers,
                 lead: a.figures.margin,
                 confidence: a.figures.confidence,
+                reverse_fit_turn_deg: a.figures.reverse_fit_turn_deg,
             },
             settings: Settings {
                 method: method.name().to_string(),

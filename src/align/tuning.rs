@@ -234,6 +234,13 @@ pub struct Tuning {
     /// A restart's end fits as well as the answer when its tight fine overlap is at least
     /// 1 − this share of the answer's.
     pub pin_fit_margin: f64,
+    /// A `confident` answer is also fitted the other way round (TARGET's fine points onto
+    /// SOURCE's, from the answer's inverse; [`super::pinning::reverse_fit_turn`]); when that fit
+    /// ends turned more than this many degrees from the answer, the verdict is `ambiguous`
+    /// (0: off). 1°, half the 2° of a right answer on the registration benchmark; set from the
+    /// confident answers of five benchmark sets (DEVELOPERS.md, Registration, "Fitted both
+    /// ways").
+    pub reverse_fit_max_deg: f64,
     /// When the verdict is not `confident`, the listed rivals are fitted finely like the answer
     /// (ICP on the fine points, [`super::refine::fit_fine`]) before they are reported; a rival
     /// whose fine fit lands on a pose already listed (within [`Tuning::start_angle_deg`] and one
@@ -338,6 +345,7 @@ impl Default for Tuning {
             pin_angle_deg: 1.0,
             pin_distance_taus: 1.0,
             pin_fit_margin: 0.03,
+            reverse_fit_max_deg: 1.0,
             list_fine_fit: true,
             fine_final_distance_taus: 0.3,
             fine_smoothing: false,

@@ -914,7 +914,8 @@ mod tests {
             | Reason::WeaklyConstrained
             | Reason::ContradictsFreeSpace
             | Reason::MatchesFavourAnotherPose
-            | Reason::FitNotPinned => (),
+            | Reason::FitNotPinned
+            | Reason::FitsDisagree => (),
         };
         let usable = ALIGNMENT_SIZE[0] as i64 - 2 * MARGIN;
         for reason in [
@@ -925,6 +926,7 @@ mod tests {
             Reason::ContradictsFreeSpace,
             Reason::MatchesFavourAnotherPose,
             Reason::FitNotPinned,
+            Reason::FitsDisagree,
         ] {
             let warning = crate::align::report::ambiguous_warning(reason.explain());
             let rows = warning_rows(&warning, usable);

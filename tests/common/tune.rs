@@ -95,6 +95,7 @@ pub fn tuned(mut params: AlignParams, source: &Cloud, target: &Cloud) -> AlignPa
             "smooth_src" => tu.fine_smoothing_source = x != 0.0,
             "pin_directions" => tu.pin_directions = x as usize,
             "pin_turn" => tu.pin_turn_deg = x,
+            "reverse_max" => tu.reverse_fit_max_deg = x,
             "pin_slide" => tu.pin_slide_taus = x,
             "pin_angle" => tu.pin_angle_deg = x,
             "pin_distance" => tu.pin_distance_taus = x,
