@@ -13,9 +13,10 @@
 //! confidence = `(1 − e^(−consensus/10)) · min(1, overlap/0.25) · min(1, margin/0.25)`, in [0, 1].
 //! The verdict is confident when consensus ≥ [`MIN_CONSENSUS`], overlap ≥ [`MIN_OVERLAP`],
 //! margin ≥ [`MIN_MARGIN`] and the fit has no weak direction (set by the pipeline), and then
-//! only when restarts of the fit a little off return to it ([`super::pinning`], in the judge);
-//! a low margin, a weak direction or a fit that is not pinned makes it ambiguous, the rest not
-//! found.
+//! only when restarts of the fit a little off return to it and the fit made the other way round
+//! ends within [`super::Tuning::reverse_fit_max_deg`] of it ([`super::pinning`], in the judge);
+//! a low margin, a weak direction, a fit that is not pinned or fits that part make it
+//! ambiguous, the rest not found.
 
 use serde::{Deserialize, Serialize};
 

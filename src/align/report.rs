@@ -232,7 +232,7 @@ pub struct PairReport {
     pub verdict: String,
     /// Why nothing confident was found (`too_few_distinctive_points`, `too_little_overlap`,
     /// `ambiguous_symmetric_shape`, `weakly_constrained`, `matches_favour_another_pose`,
-    /// `fit_not_pinned`, `contradicts_free_space`).
+    /// `fit_not_pinned`, `fits_disagree`, `contradicts_free_space`).
     pub reason: Option<Reason>,
     /// The reason in words.
     pub reason_text: Option<String>,
