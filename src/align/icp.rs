@@ -67,7 +67,7 @@ struct Pair {
 }
 
 /// Longest cycle of pairings that [`icp_point_to_plane`] looks for, in iterations.
-const MAX_CYCLE: usize = 4;
+pub const MAX_CYCLE: usize = 4;
 
 /// True when two poses differ by less than an update that counts as converged: a turn below
 /// `tolerance` (radians; the Frobenius norm of the rotations' difference over √2, which is the
