@@ -1284,7 +1284,7 @@ fn an_ambiguous_answer_is_the_pose_that_overlaps_most() {
 #[test]
 #[ignore = "diagnosis: --release --ignored --nocapture"]
 fn fine_fit_diagnosis() {
-    use equiscan::align::pinning::fine_fit;
+    use equiscan::align::pinning::{fine_fit, reverse_fit};
     use equiscan::align::prepared_scan::{PreparedScan, pair_voxel};
     use equiscan::align::refine::fit_fine;
     let (per_part, bunnies, yard) = bench_size();
@@ -1317,8 +1317,8 @@ fn fine_fit_diagnosis() {
         // The same fit the other way round (TARGET's fine points onto SOURCE's, from the
         // answer's inverse), inverted back: where it ends.
         let reverse = |start: &Rigid| {
-            let back = fit_fine(&local(start).inverse(), &t, &s, &params, tau);
-            let file = back.local.inverse().between_origins(s.origin(), t.origin());
+            let back = reverse_fit(&local(start), &s, &t, &params, tau);
+            let file = back.between_origins(s.origin(), t.origin());
             let (r, d) = errors(&p.source, &file, &p.truth);
             // How far the reverse fit ends from the start, measured as the errors are.
             let (rs, ds) = errors(&p.source, &file, start);

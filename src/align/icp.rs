@@ -154,10 +154,12 @@ fn icp_run(
             cycle = Some(p);
             break;
         }
-        if history.len() == max_cycle.max(1) {
-            history.pop_front();
+        if max_cycle >= 2 {
+            if history.len() == max_cycle {
+                history.pop_front();
+            }
+            history.push_back((tf, keys));
         }
-        history.push_back((tf, keys));
         let scale = robust_scale(&pairs).max(params.min_scale);
         let (a, b) = normal_equations(&pairs, scale, params.loss);
         let Some((next, turn, shift)) = point_to_plane_step(&a, &b, &tf) else {

@@ -59,8 +59,22 @@ pub fn reverse_fit_turn(
     params: &AlignParams,
     tau: f64,
 ) -> f64 {
-    let back = fit_fine(&answer.inverse(), target, source, params, tau);
-    super::rigid::rotation_error_deg(&back.local.inverse().rotation, &answer.rotation)
+    let back = reverse_fit(answer, source, target, params, tau);
+    super::rigid::rotation_error_deg(&back.rotation, &answer.rotation)
+}
+
+/// The fit of [`reverse_fit_turn`] itself: TARGET's fine points fitted onto SOURCE's from
+/// `answer`'s inverse, inverted back (SOURCE local → TARGET local, as `answer`).
+pub fn reverse_fit(
+    answer: &Rigid,
+    source: &PreparedScan,
+    target: &PreparedScan,
+    params: &AlignParams,
+    tau: f64,
+) -> Rigid {
+    fit_fine(&answer.inverse(), target, source, params, tau)
+        .local
+        .inverse()
 }
 
 /// The tight overlap of `pose` on the fine points: the share of SOURCE's fine points within
