@@ -40,8 +40,9 @@ struct Run {
     /// Poses the method returned or listed, for the stacked test.
     poses: Vec<Rigid>,
     /// Per candidate: rivalry, overlap, explained matches, right, free-space violation share
-    /// (`None` without sensor positions).
-    listed: Vec<(f64, f64, usize, bool, Option<f64>)>,
+    /// (`None` without sensor positions), angle from the answer (degrees) and distance from it
+    /// (% of the diagonal), distinctive evidence.
+    listed: Vec<(f64, f64, usize, bool, Option<f64>, f64, f64, f64)>,
     /// Weak directions of the final fit.
     weak: usize,
     /// Distinctive evidence of the answer ([`equiscan::align::Candidate::evidence`]) and its
@@ -148,6 +149,9 @@ fn run(p: &Pair, arm: Arm, seed: u64, version: u32) -> Run {
                     c.explained,
                     is_right(p, &c.transform).0,
                     c.free_space_violation,
+                    c.angle_deg,
+                    100.0 * c.distance / p.diagonal,
+                    c.evidence,
                 )
             })
             .collect(),
@@ -312,11 +316,14 @@ fn evaluate_version(ps: &[Pair], methods: &[Arm], version: u32) -> Vec<Row> {
                         r.listed
                             .iter()
                             .map(|c| format!(
-                                "{:.2}/{:.2}/{}/{}{}",
+                                "{:.2}/{:.2}/{}/{}/{:.1}/{:.2}/{:.3}{}",
                                 c.0,
                                 c.1,
                                 c.2,
                                 u8::from(c.3),
+                                c.5,
+                                c.6,
+                                c.7,
                                 c.4.map_or(String::new(), |f| format!("/{f:.3}"))
                             ))
                             .collect::<Vec<_>>()
