@@ -25,6 +25,7 @@ use super::candidates::{Candidate, FREE_SPACE_WEIGHT, Scored, difference, rivalr
 use super::consensus::{self, Pairs};
 use super::evidence::Distinctive;
 use super::icp::fit_quality;
+use super::off_plane::OffPlane;
 use super::pinning;
 use super::pipeline::AlignParams;
 use super::prepared_scan::PreparedScan;
@@ -312,15 +313,42 @@ fn appraise(
     {
         verdict = Verdict::Ambiguous(quality::Reason::AmbiguousSymmetricShape);
     }
-    let shares = listed.iter().skip(1).filter_map(|&(i, _)| {
-        let (p, b) = (&polished[i], best.as_ref()?);
-        Some((
-            p.consistent_overlap() / b.consistent_overlap().max(f64::MIN_POSITIVE),
-            p.explained as f64 / b.explained.max(1) as f64,
-        ))
-    });
-    if verdict == Verdict::Confident && quality::rival_as_large(shares, tu) {
+    // Each listed rival's consistent overlap and explained matches as shares of the answer's.
+    let shares: Vec<(usize, f64, f64)> = listed
+        .iter()
+        .skip(1)
+        .filter_map(|&(i, _)| {
+            let (p, b) = (&polished[i], best.as_ref()?);
+            Some((
+                i,
+                p.consistent_overlap() / b.consistent_overlap().max(f64::MIN_POSITIVE),
+                p.explained as f64 / b.explained.max(1) as f64,
+            ))
+        })
+        .collect();
+    if verdict == Verdict::Confident
+        && quality::rival_as_large(shares.iter().map(|s| (s.1, s.2)), tu)
+    {
         verdict = Verdict::Ambiguous(quality::Reason::AmbiguousSymmetricShape);
+    }
+    // A rival laying nearly as much whatever its matches, unless all it keeps is the largest
+    // plane ([`off_plane`]).
+    if verdict == Verdict::Confident
+        && let Some(b) = best.as_ref()
+        && shares.iter().any(|s| s.1 >= tu.rival_near_overlap)
+    {
+        let off = OffPlane::new(source, tau, tu.normal_angle_deg);
+        let answer_off = off.overlap(source, target, &b.pose, params, tau);
+        let off_share = |i: usize| {
+            off.overlap(source, target, &polished[i].pose, params, tau)
+                / answer_off.max(f64::MIN_POSITIVE)
+        };
+        if shares
+            .iter()
+            .any(|s| s.1 >= tu.rival_near_overlap && off_share(s.0) >= tu.rival_off_plane_share)
+        {
+            verdict = Verdict::Ambiguous(quality::Reason::AmbiguousSymmetricShape);
+        }
     }
     // An answer that replaced another is `ambiguous` because the matches favour that other
     // pose; `not_found` only when the replaced answer was not found either.

@@ -50,6 +50,7 @@ pub mod icp;
 pub mod judge;
 pub mod matching;
 pub mod multi;
+pub mod off_plane;
 pub mod pinning;
 pub mod pipeline;
 pub mod prep;

@@ -153,6 +153,16 @@ pub struct Tuning {
     /// rivals stay below it (up to 0.978 of the answer's coverage). Above it by any amount, the
     /// verdict is `ambiguous`; a very large value turns the rule off.
     pub rival_overlap_lead: f64,
+    /// A listed rival whose consistent overlap is at least this share of the answer's makes the
+    /// verdict `ambiguous` whatever its matches, when it also lays at least
+    /// [`Tuning::rival_off_plane_share`] as much as the answer of SOURCE's keypoints off its
+    /// largest plane ([`super::off_plane`]): the surfaces alone do not decide between two such
+    /// poses, and on stacked pairs the matches follow the overlap (DEVELOPERS.md, Registration,
+    /// "A rival laying nearly as much, off the largest plane"). Above 1 the rule is off.
+    pub rival_near_overlap: f64,
+    /// See [`Tuning::rival_near_overlap`]: a rival that keeps only the largest plane (the depot
+    /// demo's ground-plane rivals lay 0–1 % as much as the answer off the ground) does not count.
+    pub rival_off_plane_share: f64,
     /// When the verdict is not `confident`, the listed rival with the largest consistent
     /// overlap (share of SOURCE keypoints, [`super::candidates::Scored::consistent_overlap`])
     /// becomes the answer when it exceeds the first answer's by more than this
@@ -322,6 +332,8 @@ impl Default for Tuning {
             rival_overlap_share: 0.5,
             rival_match_share: 0.25,
             rival_overlap_lead: 1.0,
+            rival_near_overlap: 0.8,
+            rival_off_plane_share: 0.1,
             answer_overlap_lead: 0.01,
             answer_min_explained: 1,
             rmse_pairing_spacings: 3.0,

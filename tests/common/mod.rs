@@ -358,3 +358,62 @@ pub fn view_ring(
 }
 pub mod shapes;
 pub mod tune;
+
+/// For the benchmark's per-pair lines ("off the largest plane"): SOURCE sample points (at most about 3 000, evenly
+/// strided, global coordinates) that lie farther than `gate` from SOURCE's largest plane
+/// (RANSAC over the sample, 400 draws, fixed seed; Fischler & Bolles 1981).
+pub fn off_plane_sample(source: &Cloud, gate: f64) -> Vec<Vector3<f64>> {
+    let stride = source.len().div_ceil(3000).max(1);
+    let pts: Vec<Vector3<f64>> = (0..source.len())
+        .step_by(stride)
+        .map(|i| Vector3::from(source.global(i)))
+        .collect();
+    if pts.len() < 3 {
+        return pts;
+    }
+    let mut rng = SplitMix64::new(0x9e37_79b9);
+    let mut best: Option<(usize, Vector3<f64>, f64)> = None;
+    for _ in 0..400 {
+        let a = pts[rng.below(pts.len() as u64) as usize];
+        let b = pts[rng.below(pts.len() as u64) as usize];
+        let c = pts[rng.below(pts.len() as u64) as usize];
+        let n = (b - a).cross(&(c - a));
+        if n.norm() < 1e-12 {
+            continue;
+        }
+        let n = n.normalize();
+        let d = n.dot(&a);
+        let count = pts.iter().filter(|p| (n.dot(p) - d).abs() <= gate).count();
+        if best.is_none_or(|x| count > x.0) {
+            best = Some((count, n, d));
+        }
+    }
+    match best {
+        Some((_, n, d)) => pts
+            .into_iter()
+            .filter(|p| (n.dot(p) - d).abs() > gate)
+            .collect(),
+        None => pts,
+    }
+}
+
+/// Share of `points` (SOURCE global coordinates) that `tf` lays within `gate` of a TARGET
+/// point.
+pub fn share_near(
+    points: &[Vector3<f64>],
+    target: &Cloud,
+    index: &KdIndex,
+    tf: &Rigid,
+    gate: f64,
+) -> f64 {
+    let o = Vector3::from(target.origin);
+    let near = points
+        .iter()
+        .filter(|p| {
+            let q = tf.apply(p) - o;
+            let (_, d2) = index.nearest_one([q.x as f32, q.y as f32, q.z as f32]);
+            (d2 as f64).sqrt() <= gate
+        })
+        .count();
+    near as f64 / points.len().max(1) as f64
+}

@@ -72,6 +72,8 @@ pub fn tuned(mut params: AlignParams, source: &Cloud, target: &Cloud) -> AlignPa
             "rival_overlap" => tu.rival_overlap_share = x,
             "rival_matches" => tu.rival_match_share = x,
             "rival_lead" => tu.rival_overlap_lead = x,
+            "rival_near" => tu.rival_near_overlap = x,
+            "rival_off_plane" => tu.rival_off_plane_share = x,
             "slide_range" => tu.slide_range_taus = x,
             "slide_share" => tu.slide_min_share = x,
             "side" => tu.side_weight = x,
