@@ -39,13 +39,8 @@ struct Run {
     rot: f64,
     /// Poses the method returned or listed, for the stacked test.
     poses: Vec<Rigid>,
-    /// Per candidate: rivalry, overlap, explained matches, right, free-space violation share
-    /// (`None` without sensor positions), angle from the answer (degrees) and distance from it
-    /// (% of the diagonal), distinctive evidence, and the share of SOURCE's points off its
-    /// largest plane that it lays near TARGET over the answer's ([`common::off_plane_sample`],
-    /// printed as `off…`; the harness's own measure, on a sample of every point, beside the
-    /// library's on keypoints in src/align/off_plane.rs).
-    listed: Vec<(f64, f64, usize, bool, Option<f64>, f64, f64, f64, f64)>,
+    /// Each candidate as the per-pair lines print it.
+    listed: Vec<Listed>,
     /// Weak directions of the final fit.
     weak: usize,
     /// Distinctive evidence of the answer ([`equiscan::align::Candidate::evidence`]) and its
@@ -58,6 +53,27 @@ struct Run {
     stiffness: f64,
     inliers: usize,
     overlap: f64,
+}
+
+/// One listed candidate as the per-pair lines print it (`rivalry/overlap/matches/right/angle/
+/// distance/evidence/off…[/free space]`).
+struct Listed {
+    rivalry: f64,
+    overlap: f64,
+    explained: usize,
+    right: bool,
+    /// Free-space violation share (`None` without sensor positions).
+    free_space: Option<f64>,
+    /// Angle from the answer, degrees.
+    angle_deg: f64,
+    /// Distance from the answer, % of the diagonal.
+    distance_pct: f64,
+    /// Distinctive evidence.
+    evidence: f64,
+    /// The share of SOURCE's points off its largest plane that it lays near TARGET over the
+    /// answer's ([`common::off_plane_sample`]; the harness's own measure, on a sample of every
+    /// point, beside the library's on keypoints in src/align/off_plane.rs).
+    off_plane: f64,
 }
 
 /// Fraction of (a sample of) SOURCE points that `tf` puts within `gate` of a TARGET point.
@@ -155,19 +171,17 @@ fn run(p: &Pair, arm: Arm, seed: u64, version: u32) -> Run {
         listed: a
             .candidates
             .iter()
-            .map(|c| {
-                (
-                    c.rivalry,
-                    c.overlap,
-                    c.explained,
-                    is_right(p, &c.transform).0,
-                    c.free_space_violation,
-                    c.angle_deg,
-                    100.0 * c.distance / p.diagonal,
-                    c.evidence,
-                    common::share_near(&off, &p.target, &off_index, &c.transform, gate)
-                        / off_answer.max(1e-9),
-                )
+            .map(|c| Listed {
+                rivalry: c.rivalry,
+                overlap: c.overlap,
+                explained: c.explained,
+                right: is_right(p, &c.transform).0,
+                free_space: c.free_space_violation,
+                angle_deg: c.angle_deg,
+                distance_pct: 100.0 * c.distance / p.diagonal,
+                evidence: c.evidence,
+                off_plane: common::share_near(&off, &p.target, &off_index, &c.transform, gate)
+                    / off_answer.max(1e-9),
             })
             .collect(),
         weak: a.constraint.weak.len(),
@@ -332,15 +346,15 @@ fn evaluate_version(ps: &[Pair], methods: &[Arm], version: u32) -> Vec<Row> {
                             .iter()
                             .map(|c| format!(
                                 "{:.2}/{:.2}/{}/{}/{:.1}/{:.2}/{:.3}/off{:.3}{}",
-                                c.0,
-                                c.1,
-                                c.2,
-                                u8::from(c.3),
-                                c.5,
-                                c.6,
-                                c.7,
-                                c.8,
-                                c.4.map_or(String::new(), |f| format!("/{f:.3}"))
+                                c.rivalry,
+                                c.overlap,
+                                c.explained,
+                                u8::from(c.right),
+                                c.angle_deg,
+                                c.distance_pct,
+                                c.evidence,
+                                c.off_plane,
+                                c.free_space.map_or(String::new(), |f| format!("/{f:.3}"))
                             ))
                             .collect::<Vec<_>>()
                     ))

@@ -3,14 +3,15 @@
 //! A plane laid on a plane fits under any turn about its normal and any slide along it, so a
 //! rival pose that keeps a scene's ground (or a part's largest face) on the other scan's keeps
 //! most of the overlap while it lays nothing else right: the depot demo's rivals lay 0.93–0.98
-//! of the answer's overlap and none of the points off the ground. A stacked view of a
+//! of the answer's overlap and almost none of the points off the ground (0–1 %). A stacked view of a
 //! near-symmetric part laid turned on the other keeps its other faces on each other too. The
 //! largest plane of SOURCE's keypoints is found by RANSAC (Fischler & Bolles 1981, "Random
 //! sample consensus", CACM 24(6)): planes through three keypoints drawn with a fixed seed,
 //! inliers within the inlier threshold τ of the plane with normals within
 //! [`super::Tuning::normal_angle_deg`] of its normal (sign ignored); the most inliers wins,
 //! the first drawn on a tie. The keypoints that are not inliers are the *off-plane* keypoints,
-//! and a pose's off-plane overlap is their tight overlap ([`super::refine::tight_share`]).
+//! and a pose's off-plane overlap is their tight overlap (as [`super::refine::tight_overlap`]
+//! over all keypoints).
 
 use nalgebra::Vector3;
 
