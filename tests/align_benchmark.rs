@@ -715,9 +715,12 @@ fn a_rival_that_covers_more_than_the_answer_is_not_overruled_by_matches() {
             seed: 1 + index,
             ..AlignParams::default()
         };
+        // Off: this rule, and the later one of a rival laying nearly as much
+        // (`rival_near_overlap`), which catches the same case.
         let off = AlignParams {
             tuning: Tuning {
                 rival_overlap_lead: f64::INFINITY,
+                rival_near_overlap: f64::INFINITY,
                 ..params.tuning
             },
             ..params
