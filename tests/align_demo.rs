@@ -4,6 +4,7 @@
 
 use std::path::Path;
 
+use equiscan::Cloud;
 use equiscan::align::{AlignParams, Method, Rigid, Verdict, align_pair, rotation_error_deg};
 use equiscan::io::read_cloud;
 use nalgebra::Vector3;
@@ -16,19 +17,25 @@ fn truth(root: &Path) -> Rigid {
     Rigid::from_rows(&m).unwrap()
 }
 
-#[test]
-fn depot_stations_register_within_a_centimetre() {
-    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+/// Station 2 (SOURCE) and station 1 (TARGET), or `None` when scans/ is absent.
+fn stations(root: &Path) -> Option<(Cloud, Cloud)> {
     let (s, t) = (
         root.join("scans/depot_station2.laz"),
         root.join("scans/depot_station1.laz"),
     );
     if !s.exists() || !t.exists() {
+        return None;
+    }
+    Some((read_cloud(&s).unwrap().0, read_cloud(&t).unwrap().0))
+}
+
+#[test]
+fn depot_stations_register_within_a_centimetre() {
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    let Some((source, target)) = stations(root) else {
         eprintln!("scans/ not present: skipped");
         return;
-    }
-    let (source, _) = read_cloud(&s).unwrap();
-    let (target, _) = read_cloud(&t).unwrap();
+    };
     let truth = truth(root);
     let mut c = Vector3::zeros();
     for i in 0..source.len() {
@@ -73,16 +80,10 @@ fn depot_stations_register_within_a_centimetre() {
 #[test]
 fn depot_rivals_keep_only_the_ground() {
     let root = Path::new(env!("CARGO_MANIFEST_DIR"));
-    let (s, t) = (
-        root.join("scans/depot_station2.laz"),
-        root.join("scans/depot_station1.laz"),
-    );
-    if !s.exists() || !t.exists() {
+    let Some((source, target)) = stations(root) else {
         eprintln!("scans/ not present: skipped");
         return;
-    }
-    let (source, _) = read_cloud(&s).unwrap();
-    let (target, _) = read_cloud(&t).unwrap();
+    };
     for method in [Method::Equivariant, Method::Fpfh] {
         let params = AlignParams {
             method,
