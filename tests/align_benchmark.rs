@@ -19,7 +19,6 @@ use std::time::Instant;
 use common::shapes::{Pair, bunny_pair, pair, pair_from, shapes, test_shapes};
 use common::tune::tuned;
 use common::{bunny, errors};
-use equiscan::Cloud;
 use equiscan::align::{
     AlignParams, Alignment, Method, Motion, PreparedScan, Reason, Rigid, Tuning, Verdict,
     Viewpoints, align_pair, align_pair_traced,
@@ -76,18 +75,11 @@ struct Listed {
     off_plane: f64,
 }
 
-/// Fraction of (a sample of) SOURCE points that `tf` puts within `gate` of a TARGET point.
-fn fit(source: &Cloud, target: &Cloud, index: &KdIndex, tf: &Rigid, gate: f64) -> f64 {
-    let stride = source.len().div_ceil(3000).max(1);
-    let o = Vector3::from(target.origin);
-    let (mut near, mut n) = (0usize, 0usize);
-    for i in (0..source.len()).step_by(stride) {
-        let p = tf.apply(&Vector3::from(source.global(i))) - o;
-        let (_, d2) = index.nearest_one([p.x as f32, p.y as f32, p.z as f32]);
-        n += 1;
-        near += usize::from((d2 as f64).sqrt() <= gate);
-    }
-    near as f64 / n.max(1) as f64
+/// The distance within which a SOURCE point counts as laid on TARGET: two TARGET point spacings,
+/// or three noise deviations when that is more.
+fn gate(p: &Pair) -> f64 {
+    let spacing = estimate_spacing(&p.target.positions).unwrap() as f64;
+    (2.0 * spacing).max(3.0 * p.noise_frac * p.diagonal)
 }
 
 fn is_right(p: &Pair, tf: &Rigid) -> (bool, f64) {
@@ -150,15 +142,9 @@ fn run(p: &Pair, arm: Arm, seed: u64, version: u32) -> Run {
     let seconds = t.elapsed().as_secs_f64();
     let (right, rot) = is_right(p, &a.transform);
     let poses = offered(&a);
-    let (off, off_index, gate) = {
-        let spacing = estimate_spacing(&p.target.positions).unwrap() as f64;
-        let gate = (2.0 * spacing).max(3.0 * p.noise_frac * p.diagonal);
-        (
-            common::off_plane_sample(&p.source, gate),
-            KdIndex::new(&p.target.positions).unwrap(),
-            gate,
-        )
-    };
+    let gate = gate(p);
+    let off = common::off_plane_sample(&p.source, gate);
+    let off_index = KdIndex::new(&p.target.positions).unwrap();
     let off_answer = common::share_near(&off, &p.target, &off_index, &a.transform, gate);
     Run {
         right,
@@ -198,13 +184,13 @@ fn run(p: &Pair, arm: Arm, seed: u64, version: u32) -> Run {
 /// Whether a wrong pose among `poses` fits SOURCE onto TARGET as well as the truth.
 fn stacked(p: &Pair, poses: &[Rigid]) -> bool {
     let index = KdIndex::new(&p.target.positions).unwrap();
-    let spacing = estimate_spacing(&p.target.positions).unwrap() as f64;
-    let gate = (2.0 * spacing).max(3.0 * p.noise_frac * p.diagonal);
-    let truth = fit(&p.source, &p.target, &index, &p.truth, gate);
+    let (sample, gate) = (common::sample_points(&p.source), gate(p));
+    let fit = |tf: &Rigid| common::share_near(&sample, &p.target, &index, tf, gate);
+    let truth = fit(&p.truth);
     poses
         .iter()
         .filter(|tf| !is_right(p, tf).0)
-        .any(|tf| fit(&p.source, &p.target, &index, tf, gate) >= truth - 0.01)
+        .any(|tf| fit(tf) >= truth - 0.01)
 }
 
 /// The number of the `i`-th pair of the list in the per-pair lines of a run without

@@ -359,15 +359,21 @@ pub fn view_ring(
 pub mod shapes;
 pub mod tune;
 
+/// At most about 3 000 of `source`'s points, evenly strided, in global coordinates: the sample
+/// on which the benchmark measures how much of SOURCE a pose lays on TARGET.
+pub fn sample_points(source: &Cloud) -> Vec<Vector3<f64>> {
+    let stride = source.len().div_ceil(3000).max(1);
+    (0..source.len())
+        .step_by(stride)
+        .map(|i| Vector3::from(source.global(i)))
+        .collect()
+}
+
 /// For the benchmark's per-pair lines ("off the largest plane"): SOURCE sample points (at most about 3 000, evenly
 /// strided, global coordinates) that lie farther than `gate` from SOURCE's largest plane
 /// (RANSAC over the sample, 400 draws, fixed seed; Fischler & Bolles 1981).
 pub fn off_plane_sample(source: &Cloud, gate: f64) -> Vec<Vector3<f64>> {
-    let stride = source.len().div_ceil(3000).max(1);
-    let pts: Vec<Vector3<f64>> = (0..source.len())
-        .step_by(stride)
-        .map(|i| Vector3::from(source.global(i)))
-        .collect();
+    let pts = sample_points(source);
     if pts.len() < 3 {
         return pts;
     }
