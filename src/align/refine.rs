@@ -217,6 +217,11 @@ pub fn coarse(
         )
     };
     let from = |start: &Rigid| with(&icp, start);
+    let alternative = IcpParams {
+        max_iterations: tu.alternative_icp_iterations.min(icp.max_iterations),
+        ..icp
+    };
+    let from_alternative = |start: &Rigid| with(&alternative, start);
     let mut polished: Vec<Scored> = starts.par_iter().map(from).collect();
     let leader = distinct_best(
         &polished,
@@ -250,7 +255,7 @@ pub fn coarse(
             tau,
             &slides,
         );
-        polished.extend(alts.par_iter().map(from).collect::<Vec<_>>());
+        polished.extend(alts.par_iter().map(from_alternative).collect::<Vec<_>>());
         let revolved = revolution::leader_turns(&leader, source, target, pairs, tau, tu);
         let held = IcpParams {
             max_distance: tu.revolution_icp_distance_taus * tau,
@@ -279,7 +284,7 @@ pub fn coarse(
             || symmetry::self_maps(source, params, tau),
         );
         let turned = symmetry::rivals(&leader, &target_maps, &source_maps);
-        polished.extend(turned.par_iter().map(from).collect::<Vec<_>>());
+        polished.extend(turned.par_iter().map(from_alternative).collect::<Vec<_>>());
     }
     polished
 }

@@ -105,6 +105,10 @@ pub struct Tuning {
     pub icp_sample: usize,
     /// Convergence tolerance of the coarse ICP runs (as [`Tuning::icp_tolerance`]).
     pub icp_coarse_tolerance: f64,
+    /// Most iterations of the coarse ICP runs from the leader's near-symmetric alternatives
+    /// ([`super::candidates::alternatives`] and the self-map rivals of [`super::symmetry`]),
+    /// at most [`Tuning::icp_max_iterations`].
+    pub alternative_icp_iterations: usize,
     /// Largest pairing distance of the fine ICP, in τ.
     pub fine_max_distance_taus: f64,
     /// Smallest scale of the robust loss of the fine ICP, in voxel sizes.
@@ -319,6 +323,7 @@ impl Default for Tuning {
             icp_tolerance: 1e-6,
             icp_sample: 1_000_000,
             icp_coarse_tolerance: 1e-6,
+            alternative_icp_iterations: 40,
             fine_max_distance_taus: 1.0,
             fine_min_scale_voxels: 0.02,
             stable_sample: 2000,

@@ -79,6 +79,7 @@ pub fn tuned(mut params: AlignParams, source: &Cloud, target: &Cloud) -> AlignPa
             "side" => tu.side_weight = x,
             "answer_lead" => tu.answer_overlap_lead = x,
             "answer_matches" => tu.answer_min_explained = x as usize,
+            "alt_iterations" => tu.alternative_icp_iterations = x as usize,
             "self_maps" => tu.self_maps = x as usize,
             "self_queries" => tu.self_map_queries = x as usize,
             "self_overlap" => tu.self_map_overlap = x,
