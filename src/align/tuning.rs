@@ -107,10 +107,10 @@ pub struct Tuning {
     pub icp_coarse_tolerance: f64,
     /// Most iterations of the coarse ICP runs from the leader's near-symmetric alternatives
     /// ([`super::candidates::alternatives`] and the self-map rivals of [`super::symmetry`]),
-    /// at most [`Tuning::icp_max_iterations`]. 20 takes about a quarter off the 100 k-point
-    /// bench, but lists 4–6 fewer truths per benchmark set, so the default is the full cap
-    /// (DEVELOPERS.md, Registration, "The near-symmetric alternatives hold the refinement's
-    /// time").
+    /// at most [`Tuning::icp_max_iterations`]. 20 takes about a fifth (0.25 s) off the
+    /// 100 k-point bench pair, but lists 4–6 fewer truths per benchmark set, so the default is
+    /// the full cap (DEVELOPERS.md, Registration, "The near-symmetric alternatives hold the
+    /// refinement's time").
     pub alternative_icp_iterations: usize,
     /// Largest pairing distance of the fine ICP, in τ.
     pub fine_max_distance_taus: f64,

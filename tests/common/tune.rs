@@ -14,7 +14,8 @@
 //! `distinct_angle`, `distinct_taus` ([`Tuning::distinct_angle_deg`] and its distance),
 //! `answer_lead`, `answer_matches` ([`Tuning::answer_overlap_lead`] — 2 turns the answer's
 //! overlap rule off — and [`Tuning::answer_min_explained`]), `pool` (hypotheses and ranking: DEVELOPERS.md, Registration, "Hypotheses: where the truth
-//! is found"), `icp_sample`, `coarse_tolerance`, `self_maps`, `self_queries`, `self_overlap`
+//! is found"), `icp_sample`, `coarse_tolerance`, `alt_iterations`
+//! ([`Tuning::alternative_icp_iterations`]), `self_maps`, `self_queries`, `self_overlap`
 //! (near-self-symmetries, [`Tuning::self_maps`] …), `revolve_step`, `revolve_ratio`, `revolve_icp`
 //! (turns about the axis of near-revolution, [`Tuning::revolution_step_deg`] …), `pin_directions`,
 //! `pin_turn`, `pin_slide`, `pin_angle`, `pin_distance`, `pin_margin` (the restart test,
