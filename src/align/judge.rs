@@ -303,7 +303,7 @@ fn appraise(
         reverse_fit_turn_deg: None,
     };
     figures.confidence = quality::confidence(inliers, overlap, margin);
-    let mut verdict = quality::verdict(&figures);
+    let mut verdict = quality::verdict(&figures, quality::min_consensus(params.method, tu));
     if verdict == Verdict::Confident && !fit.constraint.weak.is_empty() {
         verdict = Verdict::Ambiguous(quality::Reason::WeaklyConstrained);
     }

@@ -11,7 +11,8 @@
 //!   dominant plane lets a rival keep overlap but not the matched features.
 //!
 //! confidence = `(1 − e^(−consensus/10)) · min(1, overlap/0.25) · min(1, margin/0.25)`, in [0, 1].
-//! The verdict is confident when consensus ≥ [`MIN_CONSENSUS`], overlap ≥ [`MIN_OVERLAP`],
+//! The verdict is confident when consensus ≥ [`MIN_CONSENSUS`] ([`super::Tuning::fpfh_min_consensus`]
+//! for the FPFH baseline), overlap ≥ [`MIN_OVERLAP`],
 //! margin ≥ [`MIN_MARGIN`] and the fit has no weak direction (set by the pipeline), and then
 //! only when restarts of the fit a little off return to it and the fit made the other way round
 //! ends within [`super::Tuning::reverse_fit_max_deg`] of it ([`super::pinning`], in the judge);
@@ -26,6 +27,16 @@ use serde::{Deserialize, Serialize};
 /// "Fewest agreeing pairs"), while from 15 on nearly all were right. A confidence figure of at
 /// least `1 − e^(−1.5)` ≈ 0.78 from the matches alone.
 pub const MIN_CONSENSUS: usize = 15;
+
+/// The fewest agreeing pairs of a `confident` answer by `method`: [`MIN_CONSENSUS`] for the
+/// default method, [`super::Tuning::fpfh_min_consensus`] (25) for the FPFH baseline.
+pub fn min_consensus(method: super::Method, tu: &super::Tuning) -> usize {
+    match method {
+        super::Method::Equivariant => MIN_CONSENSUS,
+        super::Method::Fpfh => tu.fpfh_min_consensus,
+    }
+}
+
 /// Smallest overlap fraction accepted.
 pub const MIN_OVERLAP: f64 = 0.08;
 /// Smallest margin over a clearly different pose (a rival within 0.8 of the best makes the
@@ -164,9 +175,10 @@ pub fn confidence(inliers: usize, overlap: f64, margin: f64) -> f64 {
     s * (overlap / 0.25).clamp(0.0, 1.0) * (margin / 0.25).clamp(0.0, 1.0)
 }
 
-/// The verdict for a set of figures.
-pub fn verdict(f: &Figures) -> Verdict {
-    if f.inliers < MIN_CONSENSUS {
+/// The verdict for a set of figures, `min_consensus` the fewest agreeing pairs accepted
+/// ([`min_consensus`]).
+pub fn verdict(f: &Figures, min_consensus: usize) -> Verdict {
+    if f.inliers < min_consensus {
         Verdict::NotFound(Reason::TooFewDistinctivePoints)
     } else if f.overlap.is_nan() || f.overlap < MIN_OVERLAP {
         Verdict::NotFound(Reason::TooLittleOverlap)
@@ -192,17 +204,34 @@ mod tests {
             confidence: 0.0,
             reverse_fit_turn_deg: None,
         };
-        assert_eq!(verdict(&f), Verdict::Confident);
+        assert_eq!(verdict(&f, MIN_CONSENSUS), Verdict::Confident);
         f.margin = 0.05;
         assert_eq!(
-            verdict(&f),
+            verdict(&f, MIN_CONSENSUS),
             Verdict::Ambiguous(Reason::AmbiguousSymmetricShape)
         );
         f.overlap = 0.01;
-        assert_eq!(verdict(&f), Verdict::NotFound(Reason::TooLittleOverlap));
+        assert_eq!(
+            verdict(&f, MIN_CONSENSUS),
+            Verdict::NotFound(Reason::TooLittleOverlap)
+        );
         f.inliers = 3;
         assert_eq!(
-            verdict(&f),
+            verdict(&f, MIN_CONSENSUS),
+            Verdict::NotFound(Reason::TooFewDistinctivePoints)
+        );
+        // 20 agreeing pairs are enough for the default method, not for FPFH.
+        f.overlap = 0.5;
+        f.margin = 0.6;
+        f.inliers = 20;
+        let tu = crate::align::Tuning::default();
+        let floor = |m| min_consensus(m, &tu);
+        assert_eq!(
+            verdict(&f, floor(crate::align::Method::Equivariant)),
+            Verdict::Confident
+        );
+        assert_eq!(
+            verdict(&f, floor(crate::align::Method::Fpfh)),
             Verdict::NotFound(Reason::TooFewDistinctivePoints)
         );
         let tu = crate::align::Tuning::default();

@@ -258,6 +258,14 @@ pub struct Tuning {
     /// confident answers of five benchmark sets (DEVELOPERS.md, Registration, "Fitted both
     /// ways").
     pub reverse_fit_max_deg: f64,
+    /// Fewest agreeing pairs of a `confident` answer of the FPFH baseline
+    /// ([`super::quality::min_consensus`]; the default method's floor is
+    /// [`super::quality::MIN_CONSENSUS`], 15). 25: FPFH's histograms tell fewer surface points
+    /// apart, so on a near-symmetric part more of its matches agree on a wrong pose by chance.
+    /// On three full benchmark sets its `confident` answers with 15–24 agreeing pairs were right
+    /// 7 times in 9 (the two wrong ones noisy pipe bends fitted about 5° off), those with 25 or
+    /// more 116 times in 117 (DEVELOPERS.md, Registration, "Fewest agreeing pairs of FPFH").
+    pub fpfh_min_consensus: usize,
     /// When the verdict is not `confident`, the listed rivals are fitted finely like the answer
     /// (ICP on the fine points, [`super::refine::fit_fine`]) before they are reported; a rival
     /// whose fine fit lands on a pose already listed (within [`Tuning::start_angle_deg`] and one
@@ -366,6 +374,7 @@ impl Default for Tuning {
             pin_distance_taus: 1.0,
             pin_fit_margin: 0.03,
             reverse_fit_max_deg: 1.0,
+            fpfh_min_consensus: 25,
             list_fine_fit: true,
             fine_final_distance_taus: 0.3,
             fine_smoothing: false,

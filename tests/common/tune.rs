@@ -26,7 +26,8 @@
 //! [`Tuning::slide_min_share`]), `side` ([`Tuning::side_weight`]), `held_turns`, `held_step`,
 //! `held_share` (0 or 1) (turns held about the axis, [`Tuning::held_turns`] …), `smooth` (0 or 1,
 //! [`Tuning::fine_smoothing`]), `spread`, `smooth_k`, `smooth_src` (0 or 1)
-//! ([`Tuning::fine_smoothing_spread`] …).
+//! ([`Tuning::fine_smoothing_spread`] …), `reverse_max` ([`Tuning::reverse_fit_max_deg`]),
+//! `fpfh_consensus` ([`Tuning::fpfh_min_consensus`]).
 
 use equiscan::Cloud;
 use equiscan::align::prepared_scan::pair_voxel;
@@ -100,6 +101,7 @@ pub fn tuned(mut params: AlignParams, source: &Cloud, target: &Cloud) -> AlignPa
             "pin_directions" => tu.pin_directions = x as usize,
             "pin_turn" => tu.pin_turn_deg = x,
             "reverse_max" => tu.reverse_fit_max_deg = x,
+            "fpfh_consensus" => tu.fpfh_min_consensus = x as usize,
             "pin_slide" => tu.pin_slide_taus = x,
             "pin_angle" => tu.pin_angle_deg = x,
             "pin_distance" => tu.pin_distance_taus = x,
