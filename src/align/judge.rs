@@ -303,7 +303,7 @@ fn appraise(
         reverse_fit_turn_deg: None,
     };
     figures.confidence = quality::confidence(inliers, overlap, margin);
-    let mut verdict = quality::verdict(&figures, quality::min_consensus(params.method, tu));
+    let mut verdict = quality::verdict(&figures);
     if verdict == Verdict::Confident && !fit.constraint.weak.is_empty() {
         verdict = Verdict::Ambiguous(quality::Reason::WeaklyConstrained);
     }
@@ -388,6 +388,12 @@ fn appraise(
         if turn > tu.reverse_fit_max_deg {
             verdict = Verdict::Ambiguous(quality::Reason::FitsDisagree);
         }
+    }
+    // The method's own floor of agreeing pairs, last, so that it only takes `confident` away
+    // (FPFH's is higher than the default method's: [`super::Tuning::fpfh_min_consensus`]).
+    if verdict == Verdict::Confident && figures.inliers < quality::min_consensus(params.method, tu)
+    {
+        verdict = Verdict::NotFound(quality::Reason::TooFewDistinctivePoints);
     }
     let centroid = source
         .keypoints

@@ -175,10 +175,11 @@ pub fn confidence(inliers: usize, overlap: f64, margin: f64) -> f64 {
     s * (overlap / 0.25).clamp(0.0, 1.0) * (margin / 0.25).clamp(0.0, 1.0)
 }
 
-/// The verdict for a set of figures, `min_consensus` the fewest agreeing pairs accepted
-/// ([`min_consensus`]).
-pub fn verdict(f: &Figures, min_consensus: usize) -> Verdict {
-    if f.inliers < min_consensus {
+/// The verdict for a set of figures (the default method's floor of agreeing pairs; the FPFH
+/// baseline's higher floor, [`min_consensus`], is applied by the judge after every other test,
+/// so that it only takes `confident` away).
+pub fn verdict(f: &Figures) -> Verdict {
+    if f.inliers < MIN_CONSENSUS {
         Verdict::NotFound(Reason::TooFewDistinctivePoints)
     } else if f.overlap.is_nan() || f.overlap < MIN_OVERLAP {
         Verdict::NotFound(Reason::TooLittleOverlap)
@@ -204,37 +205,22 @@ mod tests {
             confidence: 0.0,
             reverse_fit_turn_deg: None,
         };
-        assert_eq!(verdict(&f, MIN_CONSENSUS), Verdict::Confident);
+        assert_eq!(verdict(&f), Verdict::Confident);
         f.margin = 0.05;
         assert_eq!(
-            verdict(&f, MIN_CONSENSUS),
+            verdict(&f),
             Verdict::Ambiguous(Reason::AmbiguousSymmetricShape)
         );
         f.overlap = 0.01;
-        assert_eq!(
-            verdict(&f, MIN_CONSENSUS),
-            Verdict::NotFound(Reason::TooLittleOverlap)
-        );
+        assert_eq!(verdict(&f), Verdict::NotFound(Reason::TooLittleOverlap));
         f.inliers = 3;
         assert_eq!(
-            verdict(&f, MIN_CONSENSUS),
-            Verdict::NotFound(Reason::TooFewDistinctivePoints)
-        );
-        // 20 agreeing pairs are enough for the default method, not for FPFH.
-        f.overlap = 0.5;
-        f.margin = 0.6;
-        f.inliers = 20;
-        let tu = crate::align::Tuning::default();
-        let floor = |m| min_consensus(m, &tu);
-        assert_eq!(
-            verdict(&f, floor(crate::align::Method::Equivariant)),
-            Verdict::Confident
-        );
-        assert_eq!(
-            verdict(&f, floor(crate::align::Method::Fpfh)),
+            verdict(&f),
             Verdict::NotFound(Reason::TooFewDistinctivePoints)
         );
         let tu = crate::align::Tuning::default();
+        assert_eq!(min_consensus(crate::align::Method::Equivariant, &tu), 15);
+        assert_eq!(min_consensus(crate::align::Method::Fpfh, &tu), 25);
         // At the default shares (half the overlap, a quarter of the matches).
         assert!(rival_as_large([(0.4, 1.0), (0.55, 0.3)], &tu));
         assert!(!rival_as_large([(0.4, 1.0), (0.45, 0.3)], &tu));
