@@ -166,8 +166,9 @@ fn icp_run(
         }
     }
     // The pairs' RMSE and count at the end are left to the caller ([`fit_quality`]): no
-    // caller of a run needs them, and one more bounded search per point cost about 3 % of a
-    // 100 k pair's time.
+    // caller of a run needs them, and one more bounded search per point of every run cost
+    // about a tenth of a 100 k pair's time (DEVELOPERS.md, Registration, "ICP runs without
+    // end-of-run figures").
     let outcome = IcpOutcome {
         transform: tf,
         iterations,

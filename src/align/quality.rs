@@ -11,8 +11,8 @@
 //!   dominant plane lets a rival keep overlap but not the matched features.
 //!
 //! confidence = `(1 − e^(−consensus/10)) · min(1, overlap/0.25) · min(1, margin/0.25)`, in [0, 1].
-//! The verdict is confident when consensus ≥ [`MIN_CONSENSUS`] ([`super::Tuning::fpfh_min_consensus`]
-//! for the FPFH baseline), overlap ≥ [`MIN_OVERLAP`],
+//! The verdict is confident when consensus ≥ [`MIN_CONSENSUS`]
+//! ([`super::Tuning::fpfh_min_consensus`] for the FPFH baseline), overlap ≥ [`MIN_OVERLAP`],
 //! margin ≥ [`MIN_MARGIN`] and the fit has no weak direction (set by the pipeline), and then
 //! only when restarts of the fit a little off return to it and the fit made the other way round
 //! ends within [`super::Tuning::reverse_fit_max_deg`] of it ([`super::pinning`], in the judge);
