@@ -745,13 +745,18 @@ fn a_rival_that_covers_more_than_the_answer_is_not_overruled_by_matches() {
 
 /// A guarded case of a verdict rule: run with the rule off (`off`), the answer must be
 /// `confident` and wrong (the case guarded, so the check can fail); with it on (`on`), not
-/// `confident` unless right, and then `ambiguous` for `reason`.
-fn guarded_case(label: &str, p: &Pair, (on, off): (&AlignParams, &AlignParams), reason: Reason) {
+/// `confident` unless right, and then `expected`. Returns the run with the rule off.
+fn guarded_case(
+    label: &str,
+    p: &Pair,
+    (on, off): (&AlignParams, &AlignParams),
+    expected: Verdict,
+) -> Alignment {
     let before = align_pair(&p.source, &p.target, off).unwrap();
     let (right_before, rot_before) = is_right(p, &before.transform);
     eprintln!(
-        "{label} without the rule: {:?}, {rot_before:.1}° off",
-        before.verdict
+        "{label} without the rule: {:?}, {rot_before:.1}° off, {} agreeing pairs",
+        before.verdict, before.figures.inliers
     );
     assert!(
         before.verdict == Verdict::Confident && !right_before,
@@ -761,10 +766,11 @@ fn guarded_case(label: &str, p: &Pair, (on, off): (&AlignParams, &AlignParams), 
     let (right, rot) = is_right(p, &a.transform);
     eprintln!("{label}: {:?}, {rot:.1}° off, {:?}", a.verdict, a.figures);
     assert!(
-        right || a.verdict == Verdict::Ambiguous(reason),
+        right || a.verdict == expected,
         "{label}: {:?} and {rot:.1}° off",
         a.verdict
     );
+    before
 }
 
 /// Two noisy pipe elbows of held-out seed sets that were `confident` and about 5° off: pair 103
@@ -797,7 +803,7 @@ fn a_noisy_elbow_whose_fits_part_is_not_confident() {
             &format!("elbow seed {seed}"),
             &p,
             (&params, &off),
-            Reason::FitsDisagree,
+            Verdict::Ambiguous(Reason::FitsDisagree),
         );
     }
 }
@@ -834,7 +840,7 @@ fn a_rival_laying_nearly_as_much_off_the_largest_plane_is_not_confident() {
             &format!("{name} seed {seed}"),
             &p,
             (&params, &off),
-            Reason::AmbiguousSymmetricShape,
+            Verdict::Ambiguous(Reason::AmbiguousSymmetricShape),
         );
     }
 }
@@ -845,8 +851,8 @@ fn a_rival_laying_nearly_as_much_off_the_largest_plane_is_not_confident() {
 /// 118). FPFH's floor of agreeing pairs ([`Tuning::fpfh_min_consensus`], 25; DEVELOPERS.md,
 /// Registration, "Fewest agreeing pairs of FPFH") must keep them from `confident`: with the
 /// floor at the default method's 15 both must be `confident` and wrong (the case guarded, so
-/// the check can fail); with it at 25, not `confident` unless right, and that because of the
-/// floor (fewer agreeing pairs than it). Right and wrong against the generator's pose
+/// the check can fail); with it at 25, not `confident` unless right, but `not_found` for too
+/// few agreeing pairs, and that because of the floor (fewer agreeing pairs than it). Right and wrong against the generator's pose
 /// (tests/common/shapes.rs).
 #[test]
 fn fpfh_needs_more_agreeing_pairs_to_be_confident() {
@@ -866,22 +872,11 @@ fn fpfh_needs_more_agreeing_pairs_to_be_confident() {
             },
             ..params
         };
-        let before = align_pair(&p.source, &p.target, &off).unwrap();
-        let (right_before, rot_before) = is_right(&p, &before.transform);
-        eprintln!(
-            "elbow seed {seed} with the floor at 15: {:?}, {rot_before:.1}° off, {} agreeing pairs",
-            before.verdict, before.figures.inliers
-        );
-        assert!(
-            before.verdict == Verdict::Confident && !right_before,
-            "elbow seed {seed} with the floor at 15: the case this test guards"
-        );
-        let a = align_pair(&p.source, &p.target, &params).unwrap();
-        let (right, rot) = is_right(&p, &a.transform);
-        eprintln!("elbow seed {seed}: {:?}, {rot:.1}° off", a.verdict);
-        assert!(
-            right || a.verdict != Verdict::Confident,
-            "elbow seed {seed}: confident and {rot:.1}° off"
+        let before = guarded_case(
+            &format!("FPFH elbow seed {seed}"),
+            &p,
+            (&params, &off),
+            Verdict::NotFound(Reason::TooFewDistinctivePoints),
         );
         assert!(before.figures.inliers < params.tuning.fpfh_min_consensus);
     }

@@ -106,7 +106,7 @@ impl Reason {
     pub fn explain(&self) -> &'static str {
         match self {
             Reason::TooFewDistinctivePoints => {
-                "too few distinctive points agree on one pose; give scans with more overlap or a larger support radius"
+                "too few distinctive points agree on one pose (15 matched pairs, 25 with --method fpfh); give scans with more overlap or a larger support radius, or use the default method"
             }
             Reason::TooLittleOverlap => {
                 "too little overlap between the scans after the best pose; check that they show the same place"
