@@ -18,7 +18,7 @@
 //! The answers are therefore those of [`KdIndex::nearest_within`] (the tests below compare
 //! them on points moving by steps from a thousandth of the cutoff to twice the cutoff).
 
-use super::KdIndex;
+use super::{CellGrid, GridQuery, KdIndex};
 
 /// Relative safety margin of the certificate and cutoff tests (the tree's f32 squared
 /// distances are exact to about 1e-7 relative).
@@ -68,6 +68,12 @@ fn nearest_listed(
     (best, second)
 }
 
+/// The smallest cell edge of a [`CellGrid`] that [`NearestTrack::nearest_within_gridded`]
+/// can search for squared cutoff `max_d2`: [`REACH`] × the cutoff, and a little more.
+pub fn track_grid_cell(max_d2: f64) -> f32 {
+    (REACH * max_d2.sqrt() * (1.0 + 4.0 * MARGIN)) as f32
+}
+
 impl NearestTrack {
     /// The answer of `index.nearest_within(centre, max_d2)` (its index only), `points` being
     /// the slice `index` was built from; searches the tree only when the list from the last
@@ -79,6 +85,23 @@ impl NearestTrack {
         centre: [f32; 3],
         max_d2: f64,
     ) -> Option<usize> {
+        self.nearest_within_gridded(index, None, points, centre, max_d2)
+    }
+
+    /// [`NearestTrack::nearest_within`] (the same answers), the track's searches (the bounded
+    /// search for the nearest distance and the radius search that lists the points within
+    /// `ρ`) made in `grid` when one is given: a [`CellGrid`] over the same `points` with a
+    /// cell of at least [`track_grid_cell`]`(max_d2)` (a smaller cell falls back to the
+    /// tree), `query` its row cache. The tree is still asked where the list does not decide.
+    pub fn nearest_within_gridded(
+        &mut self,
+        index: &KdIndex,
+        grid: Option<(&CellGrid, &mut GridQuery)>,
+        points: &[[f32; 3]],
+        centre: [f32; 3],
+        max_d2: f64,
+    ) -> Option<usize> {
+        let grid = grid.filter(|(g, _)| g.cell() >= track_grid_cell(max_d2));
         let cutoff = max_d2.sqrt();
         // The distance of the nearest listed point, when it is within the cutoff: the nearest
         // point of all is at most that far, so one radius search lists it.
@@ -108,6 +131,61 @@ impl NearestTrack {
         }
         self.at = Some(centre);
         self.near.clear();
+        let Some((grid, query)) = grid else {
+            return self.refill_from_tree(index, points, centre, max_d2, bound);
+        };
+        let nearest = match bound {
+            Some(u) => u * (1.0 + MARGIN),
+            None => {
+                // Every point within the reach (and a margin) is listed; the nearest of them
+                // is the nearest of all when there is one.
+                let reach = REACH * cutoff;
+                grid.within(
+                    centre,
+                    (reach * (1.0 + MARGIN)) as f32,
+                    query,
+                    &mut self.near,
+                );
+                let d1 = self
+                    .near
+                    .iter()
+                    .map(|&j| distance2(centre, points[j as usize]))
+                    .fold(f64::INFINITY, f64::min)
+                    .sqrt();
+                if d1 > cutoff * (1.0 + MARGIN) {
+                    // Beyond the cutoff or nothing within reach: no point lies within `d₁`.
+                    self.rho = d1.min(reach) * (1.0 - MARGIN);
+                    self.near.clear();
+                    return None;
+                }
+                d1
+            }
+        };
+        self.rho = nearest + SLACK * cutoff;
+        if bound.is_some() {
+            grid.within(centre, self.rho as f32, query, &mut self.near);
+        } else {
+            // The reach's list holds every point within `ρ < ` the reach.
+            let rho2 = self.rho * self.rho;
+            self.near
+                .retain(|&j| distance2(centre, points[j as usize]) <= rho2);
+        }
+        // The list's radius as tested (f32), a little inside for the f64 tests.
+        self.rho *= 1.0 - MARGIN;
+        self.decide(index, points, centre, max_d2)
+    }
+
+    /// The refill of [`NearestTrack::nearest_within_gridded`] by tree searches: the bounded
+    /// search for the nearest distance when `bound` does not give one, then the radius search.
+    fn refill_from_tree(
+        &mut self,
+        index: &KdIndex,
+        points: &[[f32; 3]],
+        centre: [f32; 3],
+        max_d2: f64,
+        bound: Option<f64>,
+    ) -> Option<usize> {
+        let cutoff = max_d2.sqrt();
         let nearest = match bound {
             Some(u) => u * (1.0 + MARGIN),
             None => {
@@ -130,6 +208,18 @@ impl NearestTrack {
         index.for_each_within(centre, self.rho as f32, |i, _| near.push(i as u32));
         // The list's radius as the tree tested it (f32), a little inside for the f64 tests.
         self.rho *= 1.0 - MARGIN;
+        self.decide(index, points, centre, max_d2)
+    }
+
+    /// The answer from a fresh list: its nearest point, or the tree's answer where two listed
+    /// points tie or the nearest lies at the cutoff.
+    fn decide(
+        &self,
+        index: &KdIndex,
+        points: &[[f32; 3]],
+        centre: [f32; 3],
+        max_d2: f64,
+    ) -> Option<usize> {
         let (best, second) = nearest_listed(&self.near, points, centre);
         let decided = best.filter(|&(_, e2)| {
             let tie = second <= e2 * (1.0 + MARGIN) + f64::MIN_POSITIVE;
@@ -150,9 +240,16 @@ mod tests {
 
     /// Points drifting through and around a noisy unit cube of 3 000 points (with exact
     /// duplicates, for ties), by steps that shrink as in a converging ICP run and by jumps:
-    /// every tracked answer is the untracked one.
+    /// every tracked answer is the untracked one, searching the tree, a grid of the smallest
+    /// cell, a grid of four times that cell, and a grid too fine to be used.
     #[test]
     fn tracked_answers_are_the_bounded_nearest() {
+        for grid_scale in [None, Some(1.0f32), Some(4.0), Some(0.5)] {
+            tracked_answers_with(grid_scale);
+        }
+    }
+
+    fn tracked_answers_with(grid_scale: Option<f32>) {
         let mut rng = SplitMix64::new(5);
         let mut pts: Vec<[f32; 3]> = (0..3000)
             .map(|_| std::array::from_fn(|_| rng.next_f64() as f32))
@@ -163,6 +260,9 @@ mod tests {
         let mut asked = 0usize;
         for cutoff in [0.02f64, 0.05, 0.2] {
             let max_d2 = cutoff * cutoff;
+            let grid =
+                grid_scale.map(|k| CellGrid::new(&pts, k * track_grid_cell(max_d2)).unwrap());
+            let mut query = GridQuery::default();
             for walker in 0..200 {
                 let mut track = NearestTrack::default();
                 let mut c: [f32; 3] = std::array::from_fn(|_| (rng.next_f64() * 1.4 - 0.2) as f32);
@@ -179,13 +279,22 @@ mod tests {
                     }
                     let want = index.nearest_within(c, max_d2).map(|(i, _)| i);
                     let before = track.at;
-                    let got = track.nearest_within(&index, &pts, c, max_d2);
+                    let got = match &grid {
+                        Some(g) => track.nearest_within_gridded(
+                            &index,
+                            Some((g, &mut query)),
+                            &pts,
+                            c,
+                            max_d2,
+                        ),
+                        None => track.nearest_within(&index, &pts, c, max_d2),
+                    };
                     asked += 1;
                     if track.at != before {
                         searched += 1;
                     }
                     // The same index, also among exact duplicates (ties go to the tree).
-                    assert_eq!(got, want, "{c:?}, cutoff {cutoff}");
+                    assert_eq!(got, want, "{c:?}, cutoff {cutoff}, grid {grid_scale:?}");
                 }
             }
         }
