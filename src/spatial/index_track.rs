@@ -153,9 +153,14 @@ impl NearestTrack {
                     .fold(f64::INFINITY, f64::min)
                     .sqrt();
                 if d1 > cutoff * (1.0 + MARGIN) {
-                    // Beyond the cutoff or nothing within reach: no point lies within `d₁`.
-                    self.rho = d1.min(reach) * (1.0 - MARGIN);
-                    self.near.clear();
+                    // Beyond the cutoff or nothing within reach: the answer is none, and the
+                    // list keeps the points within `d₁` and the slack (within the reach), so
+                    // that the point may move by more than `d₁ −` the cutoff before a search.
+                    self.rho = (d1 + SLACK * cutoff).min(reach);
+                    let rho2 = self.rho * self.rho;
+                    self.near
+                        .retain(|&j| distance2(centre, points[j as usize]) <= rho2);
+                    self.rho *= 1.0 - MARGIN;
                     return None;
                 }
                 d1
