@@ -11,7 +11,7 @@ use nalgebra::{Matrix6, Rotation3, Vector3, Vector6};
 use rayon::prelude::*;
 
 use super::rigid::Rigid;
-use crate::spatial::{CellGrid, GridQuery, KdIndex, NearestTrack, track_grid_cell};
+use crate::spatial::{KdIndex, NearestTrack, TrackGrids, TrackQueries};
 
 /// The robust loss applied to point-to-plane residuals.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
@@ -120,7 +120,7 @@ fn icp_run(
     let mut tracks = vec![NearestTrack::default(); source.len()];
     // The tracks' searches go to a grid where one can be built (a cutoff not tiny against the
     // target's extent): cheaper than the tree's, the same answers.
-    let grid = CellGrid::new(target, track_grid_cell(cutoff2)).ok();
+    let grid = TrackGrids::new(target, cutoff2);
     // The poses and pairs of the last iterations, oldest first.
     let mut history: std::collections::VecDeque<(Rigid, Vec<u64>)> =
         std::collections::VecDeque::with_capacity(max_cycle);
@@ -313,7 +313,7 @@ pub fn oriented_fit(
 /// from one iteration to the next: the points move little, and most answers need no search).
 fn collect_pairs(
     source: &[[f32; 3]],
-    (target, normals, index, grid): (&[[f32; 3]], &[[f32; 3]], &KdIndex, Option<&CellGrid>),
+    (target, normals, index, grid): (&[[f32; 3]], &[[f32; 3]], &KdIndex, Option<&TrackGrids>),
     tf: &Rigid,
     cutoff2: f64,
     tracks: &mut [NearestTrack],
@@ -324,7 +324,7 @@ fn collect_pairs(
         .enumerate()
         .map(|(c, (chunk, tracks))| {
             let mut out = Vec::with_capacity(chunk.len());
-            let mut query = GridQuery::default();
+            let mut query = TrackQueries::default();
             for (k, (p, track)) in chunk.iter().zip(tracks).enumerate() {
                 let pm = tf.apply_f32(*p);
                 let centre = [pm.x as f32, pm.y as f32, pm.z as f32];

@@ -70,8 +70,85 @@ fn nearest_listed(
 
 /// The smallest cell edge of a [`CellGrid`] that [`NearestTrack::nearest_within_gridded`]
 /// can search for squared cutoff `max_d2`: [`REACH`] × the cutoff, and a little more.
-pub fn track_grid_cell(max_d2: f64) -> f32 {
+fn track_grid_cell(max_d2: f64) -> f32 {
     (REACH * max_d2.sqrt() * (1.0 + 4.0 * MARGIN)) as f32
+}
+
+/// Cell edges of the finer grids of [`TrackGrids`], as shares of the cutoff: a refill near
+/// the surface lists the points within a small radius, and a grid of a cell just above it
+/// scans far fewer candidates than the grid of the reach.
+const FINER_CELLS: [f64; 2] = [0.3, 0.6];
+
+/// Cell grids over one point slice for the searches of gridded [`NearestTrack`]s: the grid of
+/// the reach ([`track_grid_cell`]) and finer ones ([`FINER_CELLS`]), ascending cell edge; a
+/// radius search goes to the finest grid whose cell holds the radius.
+#[derive(Debug)]
+pub struct TrackGrids {
+    grids: Vec<CellGrid>,
+}
+
+/// The row caches of the grids of a [`TrackGrids`], one per grid (one per thread or chunk).
+#[derive(Debug, Default, Clone)]
+pub struct TrackQueries {
+    queries: Vec<GridQuery>,
+}
+
+impl TrackGrids {
+    /// The grids over `points` for squared cutoff `max_d2`; `None` when the grid of the reach
+    /// cannot be built (a cutoff tiny against the points' extent: search the tree). A finer
+    /// grid that cannot be built is left out.
+    pub fn new(points: &[[f32; 3]], max_d2: f64) -> Option<TrackGrids> {
+        Self::with_shares(points, max_d2, &FINER_CELLS)
+    }
+
+    fn with_shares(points: &[[f32; 3]], max_d2: f64, shares: &[f64]) -> Option<TrackGrids> {
+        let reach = CellGrid::new(points, track_grid_cell(max_d2)).ok()?;
+        let cutoff = max_d2.sqrt();
+        let mut grids: Vec<CellGrid> = shares
+            .iter()
+            .filter_map(|&k| CellGrid::new(points, (k * cutoff) as f32).ok())
+            .filter(|g| g.cell() < reach.cell())
+            .collect();
+        grids.push(reach);
+        grids.sort_by(|a, b| a.cell().total_cmp(&b.cell()));
+        Some(TrackGrids { grids })
+    }
+
+    /// Appends to `out` every point within `radius` (at most the largest cell) of `centre`,
+    /// searching the finest grid whose cell holds the radius.
+    fn within(
+        &self,
+        centre: [f32; 3],
+        radius: f32,
+        queries: &mut TrackQueries,
+        out: &mut Vec<u32>,
+    ) {
+        queries
+            .queries
+            .resize_with(self.grids.len(), GridQuery::default);
+        let k = self
+            .grids
+            .iter()
+            .position(|g| g.cell() >= radius)
+            .unwrap_or(self.grids.len() - 1);
+        self.grids[k].within(centre, radius, &mut queries.queries[k], out);
+    }
+
+    /// Radii of the probes for the nearest distance: the cells of the finer grids, ascending,
+    /// then `reach` (within the cell of the grid of the reach).
+    fn probe_radii(&self, reach: f64) -> impl Iterator<Item = f64> + '_ {
+        let finer = &self.grids[..self.grids.len() - 1];
+        finer
+            .iter()
+            .map(|g| g.cell() as f64)
+            .filter(move |&c| c < reach)
+            .chain(std::iter::once(reach))
+    }
+
+    /// The cell of the grid of the reach.
+    fn largest_cell(&self) -> f32 {
+        self.grids.last().map_or(0.0, |g| g.cell())
+    }
 }
 
 impl NearestTrack {
@@ -90,18 +167,18 @@ impl NearestTrack {
 
     /// [`NearestTrack::nearest_within`] (the same answers), the track's searches (the bounded
     /// search for the nearest distance and the radius search that lists the points within
-    /// `ρ`) made in `grid` when one is given: a [`CellGrid`] over the same `points` with a
-    /// cell of at least [`track_grid_cell`]`(max_d2)` (a smaller cell falls back to the
-    /// tree), `query` its row cache. The tree is still asked where the list does not decide.
+    /// `ρ`) made in `grid` when one is given: [`TrackGrids`] over the same `points` built for
+    /// the same `max_d2` (grids for a smaller cutoff fall back to the tree), with the row
+    /// caches. The tree is still asked where the list does not decide.
     pub fn nearest_within_gridded(
         &mut self,
         index: &KdIndex,
-        grid: Option<(&CellGrid, &mut GridQuery)>,
+        grid: Option<(&TrackGrids, &mut TrackQueries)>,
         points: &[[f32; 3]],
         centre: [f32; 3],
         max_d2: f64,
     ) -> Option<usize> {
-        let grid = grid.filter(|(g, _)| g.cell() >= track_grid_cell(max_d2));
+        let grid = grid.filter(|(g, _)| g.largest_cell() >= track_grid_cell(max_d2));
         let cutoff = max_d2.sqrt();
         // The distance of the nearest listed point, when it is within the cutoff: the nearest
         // point of all is at most that far, so one radius search lists it.
@@ -134,46 +211,57 @@ impl NearestTrack {
         let Some((grid, query)) = grid else {
             return self.refill_from_tree(index, points, centre, max_d2, bound);
         };
-        let nearest = match bound {
-            Some(u) => u * (1.0 + MARGIN),
+        // The nearest distance, and the radius within which the list holds every point.
+        let (nearest, listed) = match bound {
+            Some(u) => (u * (1.0 + MARGIN), None),
             None => {
-                // Every point within the reach (and a margin) is listed; the nearest of them
-                // is the nearest of all when there is one.
+                // Probes of growing radius, the last the reach (and a margin): the first that
+                // finds a point well within its radius has found the nearest distance.
                 let reach = REACH * cutoff;
-                grid.within(
-                    centre,
-                    (reach * (1.0 + MARGIN)) as f32,
-                    query,
-                    &mut self.near,
-                );
-                let d1 = self
-                    .near
-                    .iter()
-                    .map(|&j| distance2(centre, points[j as usize]))
-                    .fold(f64::INFINITY, f64::min)
-                    .sqrt();
+                let mut probe = (f64::INFINITY, reach);
+                for r in grid.probe_radii(reach * (1.0 + MARGIN)) {
+                    self.near.clear();
+                    grid.within(centre, r as f32, query, &mut self.near);
+                    let d1 = self
+                        .near
+                        .iter()
+                        .map(|&j| distance2(centre, points[j as usize]))
+                        .fold(f64::INFINITY, f64::min)
+                        .sqrt();
+                    // Every point within `r`, up to the f32 rounding of the test, is listed.
+                    let r = (r * (1.0 - MARGIN)).min(reach);
+                    probe = (d1, r);
+                    if d1 <= r {
+                        break;
+                    }
+                }
+                let (d1, r) = probe;
                 if d1 > cutoff * (1.0 + MARGIN) {
                     // Beyond the cutoff or nothing within reach: the answer is none, and the
-                    // list keeps the points within `d₁` and the slack (within the reach), so
+                    // list keeps the points within `d₁` and the slack (within the probe), so
                     // that the point may move by more than `d₁ −` the cutoff before a search.
-                    self.rho = (d1 + SLACK * cutoff).min(reach);
+                    self.rho = (d1 + SLACK * cutoff).min(r);
                     let rho2 = self.rho * self.rho;
                     self.near
                         .retain(|&j| distance2(centre, points[j as usize]) <= rho2);
                     self.rho *= 1.0 - MARGIN;
                     return None;
                 }
-                d1
+                (d1, Some(r))
             }
         };
         self.rho = nearest + SLACK * cutoff;
-        if bound.is_some() {
-            grid.within(centre, self.rho as f32, query, &mut self.near);
-        } else {
-            // The reach's list holds every point within `ρ < ` the reach.
-            let rho2 = self.rho * self.rho;
-            self.near
-                .retain(|&j| distance2(centre, points[j as usize]) <= rho2);
+        match listed {
+            Some(r) if self.rho <= r => {
+                // The probe's list holds every point within `ρ`.
+                let rho2 = self.rho * self.rho;
+                self.near
+                    .retain(|&j| distance2(centre, points[j as usize]) <= rho2);
+            }
+            _ => {
+                self.near.clear();
+                grid.within(centre, self.rho as f32, query, &mut self.near);
+            }
         }
         // The list's radius as tested (f32), a little inside for the f64 tests.
         self.rho *= 1.0 - MARGIN;
@@ -249,12 +337,17 @@ mod tests {
     /// cell, a grid of four times that cell, and a grid too fine to be used.
     #[test]
     fn tracked_answers_are_the_bounded_nearest() {
-        for grid_scale in [None, Some(1.0f32), Some(4.0), Some(0.5)] {
-            tracked_answers_with(grid_scale);
+        for grids in [
+            None,
+            Some(&FINER_CELLS[..]),
+            Some(&[][..]),
+            Some(&[0.05, 0.9, 3.0][..]),
+        ] {
+            tracked_answers_with(grids);
         }
     }
 
-    fn tracked_answers_with(grid_scale: Option<f32>) {
+    fn tracked_answers_with(shares: Option<&[f64]>) {
         let mut rng = SplitMix64::new(5);
         let mut pts: Vec<[f32; 3]> = (0..3000)
             .map(|_| std::array::from_fn(|_| rng.next_f64() as f32))
@@ -265,9 +358,8 @@ mod tests {
         let mut asked = 0usize;
         for cutoff in [0.02f64, 0.05, 0.2] {
             let max_d2 = cutoff * cutoff;
-            let grid =
-                grid_scale.map(|k| CellGrid::new(&pts, k * track_grid_cell(max_d2)).unwrap());
-            let mut query = GridQuery::default();
+            let grid = shares.map(|k| TrackGrids::with_shares(&pts, max_d2, k).unwrap());
+            let mut query = TrackQueries::default();
             for walker in 0..200 {
                 let mut track = NearestTrack::default();
                 let mut c: [f32; 3] = std::array::from_fn(|_| (rng.next_f64() * 1.4 - 0.2) as f32);
@@ -299,7 +391,7 @@ mod tests {
                         searched += 1;
                     }
                     // The same index, also among exact duplicates (ties go to the tree).
-                    assert_eq!(got, want, "{c:?}, cutoff {cutoff}, grid {grid_scale:?}");
+                    assert_eq!(got, want, "{c:?}, cutoff {cutoff}, grids {shares:?}");
                 }
             }
         }

@@ -17,7 +17,7 @@ mod voxel;
 pub(crate) use grid::PACK;
 pub use grid::{CellGrid, GridQuery, MAX_CELLS_PER_AXIS, order_by_key};
 pub use index::KdIndex;
-pub use index_track::{NearestTrack, track_grid_cell};
+pub use index_track::{NearestTrack, TrackGrids, TrackQueries};
 pub use normals::{estimate_normals, project_to_local_planes};
 pub use orientation::{Oriented, orient_consistently};
 pub use spacing::{
