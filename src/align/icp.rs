@@ -118,9 +118,9 @@ fn icp_run(
     let mut iterations = 0;
     let cutoff2 = params.max_distance * params.max_distance;
     let mut tracks = vec![NearestTrack::default(); source.len()];
-    // The tracks' searches go to a grid where one can be built (a cutoff not tiny against the
+    // The tracks' searches go to grids where they can be built (a cutoff not tiny against the
     // target's extent): cheaper than the tree's, the same answers.
-    let grid = TrackGrids::new(target, cutoff2);
+    let grids = TrackGrids::new(target, cutoff2);
     // The poses and pairs of the last iterations, oldest first.
     let mut history: std::collections::VecDeque<(Rigid, Vec<u64>)> =
         std::collections::VecDeque::with_capacity(max_cycle);
@@ -128,7 +128,12 @@ fn icp_run(
         iterations += 1;
         let pairs = collect_pairs(
             source,
-            (target, target_normals, target_index, grid.as_ref()),
+            &PairingTarget {
+                points: target,
+                normals: target_normals,
+                index: target_index,
+                grids: grids.as_ref(),
+            },
             &tf,
             cutoff2,
             &mut tracks,
@@ -308,12 +313,21 @@ pub fn oriented_fit(
     parts.iter().sum()
 }
 
+/// What the pairing searches: TARGET's points, unit normals, tree, and the tracks' grids
+/// (none when they could not be built).
+struct PairingTarget<'a> {
+    points: &'a [[f32; 3]],
+    normals: &'a [[f32; 3]],
+    index: &'a KdIndex,
+    grids: Option<&'a TrackGrids>,
+}
+
 /// The pairs of `source` moved by `tf`: each point with its nearest target point within the
 /// cutoff ([`KdIndex::nearest_within`], through one [`NearestTrack`] per source point, kept
 /// from one iteration to the next: the points move little, and most answers need no search).
 fn collect_pairs(
     source: &[[f32; 3]],
-    (target, normals, index, grid): (&[[f32; 3]], &[[f32; 3]], &KdIndex, Option<&TrackGrids>),
+    target: &PairingTarget,
     tf: &Rigid,
     cutoff2: f64,
     tracks: &mut [NearestTrack],
@@ -328,18 +342,22 @@ fn collect_pairs(
             for (k, (p, track)) in chunk.iter().zip(tracks).enumerate() {
                 let pm = tf.apply_f32(*p);
                 let centre = [pm.x as f32, pm.y as f32, pm.z as f32];
-                let grid = grid.map(|g| (g, &mut query));
-                let Some(j) = track.nearest_within_gridded(index, grid, target, centre, cutoff2)
-                else {
+                let grids = target.grids.map(|g| (g, &mut query));
+                let Some(j) = track.nearest_within_gridded(
+                    target.index,
+                    grids,
+                    target.points,
+                    centre,
+                    cutoff2,
+                ) else {
                     continue;
                 };
-                let n = normals[j];
+                let n = target.normals[j];
                 let n = crate::geometry::vec3(n);
                 if n.norm_squared() < 0.5 {
                     continue;
                 }
-                let q = target[j];
-                let q = crate::geometry::vec3(q);
+                let q = crate::geometry::vec3(target.points[j]);
                 let residual = n.dot(&(pm - q));
                 let cr = pm.cross(&n);
                 out.push(Pair {
