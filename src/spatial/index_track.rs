@@ -17,6 +17,13 @@
 //! near-tie or a distance near the cutoff the answer is [`KdIndex::nearest_within`]'s own.
 //! The answers are therefore those of [`KdIndex::nearest_within`] (the tests below compare
 //! them on points moving by steps from a thousandth of the cutoff to twice the cutoff).
+//!
+//! The searches of a track go to the tree, or to [`TrackGrids`]: cell grids of 0.3, 0.6 and
+//! 1.5 × the cutoff over the same points. A radius search scans the finest grid whose cell
+//! holds the radius; the search for the nearest distance probes the grids at their cell edges
+//! (the last at the reach) and stops at the first probe that finds a point inside it. With
+//! grids, a track beyond the cutoff keeps the points within `d₁ +` a tenth of the cutoff
+//! (inside the probe) instead of an empty list. The undecided cases still ask the tree.
 
 use super::{CellGrid, GridQuery, KdIndex};
 
@@ -80,8 +87,9 @@ fn track_grid_cell(max_d2: f64) -> f32 {
 const FINER_CELLS: [f64; 2] = [0.3, 0.6];
 
 /// Cell grids over one point slice for the searches of gridded [`NearestTrack`]s: the grid of
-/// the reach ([`track_grid_cell`]) and finer ones ([`FINER_CELLS`]), ascending cell edge; a
-/// radius search goes to the finest grid whose cell holds the radius.
+/// the reach (a cell of 1.5 × the cutoff and a margin) and finer ones (0.3 and 0.6 × the
+/// cutoff), ascending cell edge; a radius search goes to the finest grid whose cell holds the
+/// radius.
 #[derive(Debug)]
 pub struct TrackGrids {
     grids: Vec<CellGrid>,
