@@ -743,6 +743,20 @@ fn a_rival_that_covers_more_than_the_answer_is_not_overruled_by_matches() {
     }
 }
 
+/// Pair `index` of a benchmark table: the generator's pair of shape `name` with seed `seed`
+/// (as in the tables' job list), aligned by `method` with the table's alignment seed
+/// (1 + the pair's number).
+fn table_case(name: &str, seed: u64, index: u64, method: Method) -> (Pair, AlignParams) {
+    let all = shapes();
+    let k = all.iter().position(|s| s.name == name).unwrap();
+    let params = AlignParams {
+        method,
+        seed: 1 + index,
+        ..AlignParams::default()
+    };
+    (pair(&all[k], 1000 * k as u64 + seed), params)
+}
+
 /// A guarded case of a verdict rule: run with the rule off (`off`), the answer must be
 /// `confident` and wrong (the case guarded, so the check can fail); with it on (`on`), not
 /// `confident` unless right, and then `expected`. Returns the run with the rule off.
@@ -784,14 +798,8 @@ fn guarded_case(
 /// (tests/common/shapes.rs).
 #[test]
 fn a_noisy_elbow_whose_fits_part_is_not_confident() {
-    let all = shapes();
-    let k = all.iter().position(|s| s.name == "elbow").unwrap();
     for (seed, index) in [(201u64, 103u64), (151, 119)] {
-        let p = pair(&all[k], 1000 * k as u64 + seed);
-        let params = AlignParams {
-            seed: 1 + index,
-            ..AlignParams::default()
-        };
+        let (p, params) = table_case("elbow", seed, index, Method::Equivariant);
         let off = AlignParams {
             tuning: Tuning {
                 reverse_fit_max_deg: 0.0,
@@ -821,14 +829,8 @@ fn a_noisy_elbow_whose_fits_part_is_not_confident() {
 /// against the generator's pose (tests/common/shapes.rs).
 #[test]
 fn a_rival_laying_nearly_as_much_off_the_largest_plane_is_not_confident() {
-    let all = shapes();
     for (name, seed, index) in [("channel", 235u64, 239u64), ("bracket", 241, 7)] {
-        let k = all.iter().position(|s| s.name == name).unwrap();
-        let p = pair(&all[k], 1000 * k as u64 + seed);
-        let params = AlignParams {
-            seed: 1 + index,
-            ..AlignParams::default()
-        };
+        let (p, params) = table_case(name, seed, index, Method::Equivariant);
         let off = AlignParams {
             tuning: Tuning {
                 rival_near_overlap: f64::INFINITY,
@@ -852,19 +854,12 @@ fn a_rival_laying_nearly_as_much_off_the_largest_plane_is_not_confident() {
 /// Registration, "Fewest agreeing pairs of FPFH") must keep them from `confident`: with the
 /// floor at the default method's 15 both must be `confident` and wrong (the case guarded, so
 /// the check can fail); with it at 25, not `confident` unless right, but `not_found` for too
-/// few agreeing pairs, and that because of the floor (fewer agreeing pairs than it). Right and wrong against the generator's pose
-/// (tests/common/shapes.rs).
+/// few agreeing pairs, and that because of the floor (fewer agreeing pairs than it). Right and
+/// wrong against the generator's pose (tests/common/shapes.rs).
 #[test]
 fn fpfh_needs_more_agreeing_pairs_to_be_confident() {
-    let all = shapes();
-    let k = all.iter().position(|s| s.name == "elbow").unwrap();
     for (seed, index) in [(248u64, 116u64), (249, 117)] {
-        let p = pair(&all[k], 1000 * k as u64 + seed);
-        let params = AlignParams {
-            method: Method::Fpfh,
-            seed: 1 + index,
-            ..AlignParams::default()
-        };
+        let (p, params) = table_case("elbow", seed, index, Method::Fpfh);
         let off = AlignParams {
             tuning: Tuning {
                 fpfh_min_consensus: equiscan::align::quality::MIN_CONSENSUS,
