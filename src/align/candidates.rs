@@ -25,6 +25,10 @@ pub struct Candidate {
     pub rivalry: f64,
     /// Tight overlap: fraction of SOURCE keypoints on TARGET's surface with agreeing normals.
     pub overlap: f64,
+    /// Fine overlap: fraction of SOURCE's fine points on TARGET's fine surface with agreeing
+    /// normals where this pose lays them after its fine fit; `None` (`null`) for a pose that
+    /// was not fitted finely (the rivals of a `confident` answer).
+    pub fine_overlap: Option<f64>,
     /// Matched keypoint pairs that this pose brings within the inlier threshold.
     pub explained: usize,
     /// Distinctive evidence, in [0, 1]: the weighted share of the distinctive SOURCE keypoints

@@ -103,32 +103,33 @@ pub struct Inputs<'a> {
 /// `ambiguous` with [`quality::Reason::MatchesFavourAnotherPose`].
 pub fn judge(inputs: &Inputs<'_>) -> Result<Judgement> {
     let Inputs {
-        refined,
-        source,
-        target,
-        params,
-        tau,
-        ..
+        refined, params, ..
     } = *inputs;
     let first = refined.order.first().copied();
-    let judged = appraise(inputs, first, &refined.fit, None)?;
+    let fits = FitCache::default();
+    let judged = appraise(inputs, first, &refined.fit, None, &fits)?;
     if judged.verdict == Verdict::Confident {
         return Ok(judged);
     }
     let Some(first) = first else {
         return Ok(judged);
     };
-    let Some(other) = overlap_leader(&refined.polished, first, &refined.order, &params.tuning)
-    else {
+    let tu = &params.tuning;
+    let chosen = if tu.answer_fine_pool > 0 && tu.answer_overlap_lead <= 1.0 {
+        fine_overlap_leader(inputs, first, &fits)
+    } else {
+        let other = overlap_leader(&refined.polished, first, &refined.order, &params.tuning);
+        other.map(|i| (i, fits.fit(inputs, i)))
+    };
+    let Some((other, fit)) = chosen else {
         return Ok(judged);
     };
-    let fit = fit_fine(&refined.polished[other].pose, source, target, params, tau);
     let replaced = Replaced {
         index: first,
         fit: &refined.fit,
         verdict: judged.verdict,
     };
-    appraise(inputs, Some(other), &fit, Some(replaced))
+    appraise(inputs, Some(other), &fit, Some(replaced), &fits)
 }
 
 /// The first answer, when another distinct pose took its place.
@@ -169,6 +170,100 @@ fn overlap_leader(
     })
 }
 
+/// The fine fits of refined poses made while judging (index into `polished`, its fit), so that
+/// no pose is fitted twice: the pool of [`fine_overlap_leader`] and the fitted rivals of the
+/// listing ([`shown_poses`]) share them. A fit depends on the pose alone, so the result does
+/// not depend on which thread made it first.
+#[derive(Default)]
+struct FitCache(std::sync::Mutex<Vec<(usize, FineFit)>>);
+
+impl FitCache {
+    /// The fine fit of refined pose `i`, made now or taken from an earlier call.
+    fn fit(&self, inputs: &Inputs<'_>, i: usize) -> FineFit {
+        let known = self.lock().iter().find(|f| f.0 == i).map(|f| f.1.clone());
+        known.unwrap_or_else(|| {
+            let pose = &inputs.refined.polished[i].pose;
+            let fit = fit_fine(
+                pose,
+                inputs.source,
+                inputs.target,
+                inputs.params,
+                inputs.tau,
+            );
+            self.lock().push((i, fit.clone()));
+            fit
+        })
+    }
+
+    fn lock(&self) -> std::sync::MutexGuard<'_, Vec<(usize, FineFit)>> {
+        self.0
+            .lock()
+            .unwrap_or_else(std::sync::PoisonError::into_inner)
+    }
+}
+
+/// With [`super::Tuning::answer_fine_pool`]: the first answer and up to that many other
+/// distinct refined poses (largest consistent overlap first, each explaining at least
+/// [`super::Tuning::answer_min_explained`] matches), each fitted finely and measured by its
+/// fine overlap ([`fine_consistent`]); the pose whose fine overlap leads the first answer's by
+/// more than [`super::Tuning::answer_fine_lead`], with its fine fit. The fits run in parallel;
+/// ties go to the pose with the larger consistent overlap, so the result does not depend on the
+/// threads.
+fn fine_overlap_leader(
+    inputs: &Inputs<'_>,
+    first: usize,
+    fits: &FitCache,
+) -> Option<(usize, FineFit)> {
+    let (refined, tu) = (inputs.refined, &inputs.params.tuning);
+    let polished = &refined.polished;
+    let mut pool: Vec<usize> = refined
+        .order
+        .iter()
+        .copied()
+        .filter(|&i| i != first && polished[i].explained >= tu.answer_min_explained)
+        .collect();
+    pool.sort_by(|&a, &b| {
+        polished[b]
+            .consistent_overlap()
+            .total_cmp(&polished[a].consistent_overlap())
+            .then(a.cmp(&b))
+    });
+    pool.truncate(tu.answer_fine_pool);
+    let base = fine_consistent(inputs, &refined.fit.local);
+    let fitted: Vec<(usize, FineFit, f64)> = pool
+        .par_iter()
+        .map(|&i| {
+            let fit = fits.fit(inputs, i);
+            let m = fine_consistent(inputs, &fit.local);
+            (i, fit, m)
+        })
+        .collect();
+    let mut best: Option<(usize, FineFit, f64)> = None;
+    for (i, fit, m) in fitted {
+        if best.as_ref().is_none_or(|b| m > b.2) {
+            best = Some((i, fit, m));
+        }
+    }
+    best.filter(|b| b.2 > base + tu.answer_fine_lead)
+        .map(|(i, fit, _)| (i, fit))
+}
+
+/// The fine overlap of a finely fitted `pose` ([`pinning::fine_fit`]: the share of SOURCE's
+/// fine points within the plane tolerance of TARGET's fine surface, normals agreeing) less
+/// [`FREE_SPACE_WEIGHT`] × its free-space violation share where a sensor position is known,
+/// at least 0 (as [`super::candidates::Scored::consistent_overlap`] on the keypoints).
+fn fine_consistent(inputs: &Inputs<'_>, pose: &Rigid) -> f64 {
+    let free = FREE_SPACE_WEIGHT * inputs.seen.violation(pose).unwrap_or(0.0);
+    let fine = pinning::fine_fit(
+        inputs.source,
+        inputs.target,
+        pose,
+        inputs.params,
+        inputs.tau,
+    );
+    (fine - free).max(0.0)
+}
+
 /// Figures, verdict and candidates of `answer` (an index into `polished`; `None` when nothing
 /// was refined) with its fine `fit`. `replaced`: the first answer, when `answer` took its place
 /// (listed second with its fine fit; the verdict is never `confident`, see [`judge`]).
@@ -177,6 +272,7 @@ fn appraise(
     answer: Option<usize>,
     fit: &FineFit,
     replaced: Option<Replaced<'_>>,
+    fits: &FitCache,
 ) -> Result<Judgement> {
     let Inputs {
         refined,
@@ -407,7 +503,7 @@ fn appraise(
         &by_weight,
         (local, answer_free_space),
         replaced,
-        fit_rivals,
+        fit_rivals.then_some(fits),
     );
     let mut candidates = shown
         .iter()
@@ -419,6 +515,9 @@ fn appraise(
                 score: p.score(most),
                 rivalry: s.rivalry,
                 overlap: p.overlap,
+                fine_overlap: s
+                    .fitted
+                    .then(|| pinning::fine_fit(source, target, &s.pose, params, tau)),
                 explained: p.explained,
                 evidence: p.evidence,
                 angle_deg,
@@ -436,6 +535,7 @@ fn appraise(
                 score: u.score(most),
                 rivalry: rivalry(&u, &b, most),
                 overlap: u.overlap,
+                fine_overlap: None,
                 explained: u.explained,
                 evidence: u.evidence,
                 angle_deg,
@@ -460,6 +560,8 @@ struct Shown {
     rivalry: f64,
     pose: Rigid,
     free_space: Option<f64>,
+    /// Whether `pose` is a fine fit (the answer, the answer it replaced, fitted rivals).
+    fitted: bool,
 }
 
 /// The poses reported for `listed` (the answer first, then the answer it replaced, then the
@@ -468,15 +570,16 @@ struct Shown {
 /// a verdict that is not `confident`), their fine fits ([`fit_fine`]), taken from `by_weight`
 /// (index, rivalry, listing weight; best first, down to [`super::Tuning::list_rivalry`]) until
 /// [`super::Tuning::candidates`] are shown: a rival whose fine fit lands within
-/// [`super::Tuning::start_angle_deg`] and one τ of a pose already shown is left out. Each batch
-/// of fits runs in parallel; the result does not depend on the threads.
+/// [`super::Tuning::start_angle_deg`] and one τ of a pose already shown is left out. The fits
+/// go through `fit_rivals`' cache, so that a pose fitted before is not fitted again. Each
+/// batch of fits runs in parallel; the result does not depend on the threads.
 fn shown_poses(
     inputs: &Inputs<'_>,
     listed: &[(usize, f64)],
     by_weight: &[(usize, f64, f64)],
     (answer, answer_free_space): (Rigid, Option<f64>),
     replaced: Option<Replaced<'_>>,
-    fit_rivals: bool,
+    fit_rivals: Option<&FitCache>,
 ) -> Vec<Shown> {
     let (seen, tu, tau) = (inputs.seen, &inputs.params.tuning, inputs.tau);
     let polished = &inputs.refined.polished;
@@ -495,18 +598,20 @@ fn shown_poses(
                 rivalry,
                 pose,
                 free_space,
+                fitted: k == 0 || replaced.is_some(),
             }
         })
         .collect();
-    if !fit_rivals {
+    let Some(fits) = fit_rivals else {
         shown.extend(listed[fixed..].iter().map(|&(index, rivalry)| Shown {
             index,
             rivalry,
             pose: polished[index].pose,
             free_space: polished[index].free_space,
+            fitted: false,
         }));
         return shown;
-    }
+    };
     let mut pending = by_weight
         .iter()
         .filter(|x| x.2 >= tu.list_rivalry)
@@ -519,10 +624,7 @@ fn shown_poses(
         }
         let fitted: Vec<Rigid> = batch
             .par_iter()
-            .map(|&(i, _)| {
-                let pose = &polished[i].pose;
-                fit_fine(pose, inputs.source, inputs.target, inputs.params, tau).local
-            })
+            .map(|&(i, _)| fits.fit(inputs, i).local)
             .collect();
         for (&(index, rivalry), pose) in batch.iter().zip(fitted) {
             let apart = shown
@@ -534,6 +636,7 @@ fn shown_poses(
                     rivalry,
                     pose,
                     free_space: seen.violation(&pose),
+                    fitted: true,
                 });
             }
         }

@@ -12,8 +12,10 @@
 //! `min_keep`, `max_keep`, `ratio`, `neighbours` (matching), `explain`, `interleave` (0 or 1),
 //! `list`, `list_share` ([`Tuning::list_rivalry`], [`Tuning::list_overlap_share`]),
 //! `distinct_angle`, `distinct_taus` ([`Tuning::distinct_angle_deg`] and its distance),
-//! `answer_lead`, `answer_matches` ([`Tuning::answer_overlap_lead`] — 2 turns the answer's
-//! overlap rule off — and [`Tuning::answer_min_explained`]), `pool` (hypotheses and ranking: DEVELOPERS.md, Registration, "Hypotheses: where the truth
+//! `answer_lead`, `answer_matches`, `answer_pool`, `answer_fine_lead`
+//! ([`Tuning::answer_overlap_lead`] — 2 turns the answer's overlap rule off —,
+//! [`Tuning::answer_min_explained`], [`Tuning::answer_fine_pool`] — 0 chooses on the coarse
+//! poses' keypoints — and [`Tuning::answer_fine_lead`]), `pool` (hypotheses and ranking: DEVELOPERS.md, Registration, "Hypotheses: where the truth
 //! is found"), `icp_sample`, `coarse_tolerance`, `alt_iterations`
 //! ([`Tuning::alternative_icp_iterations`]), `self_maps`, `self_queries`, `self_overlap`
 //! (near-self-symmetries, [`Tuning::self_maps`] …), `revolve_step`, `revolve_ratio`, `revolve_icp`
@@ -81,6 +83,8 @@ pub fn tuned(mut params: AlignParams, source: &Cloud, target: &Cloud) -> AlignPa
             "side" => tu.side_weight = x,
             "answer_lead" => tu.answer_overlap_lead = x,
             "answer_matches" => tu.answer_min_explained = x as usize,
+            "answer_pool" => tu.answer_fine_pool = x as usize,
+            "answer_fine_lead" => tu.answer_fine_lead = x,
             "alt_iterations" => tu.alternative_icp_iterations = x as usize,
             "self_maps" => tu.self_maps = x as usize,
             "self_queries" => tu.self_map_queries = x as usize,
