@@ -15,8 +15,8 @@
 //! free-space violation share; an answer whose share exceeds
 //! [`super::Tuning::free_space_max_share`] is `not_found` (`contradicts_free_space`).
 //! Candidates are given in file coordinates, the first being the answer: the best pose by
-//! score, or, when the verdict is not confident, the distinct pose that lays clearly more of
-//! SOURCE on TARGET ([`judge`]).
+//! score, or, when the verdict is not confident, the distinct pose that, fitted finely, lays
+//! clearly more of SOURCE on TARGET ([`judge`]).
 
 use nalgebra::Vector3;
 use rayon::prelude::*;
@@ -94,10 +94,13 @@ pub struct Inputs<'a> {
 /// The answer is first the best coarse pose by score (tight overlap × explained matches),
 /// fitted finely. When that verdict is not `confident`, the matches have not separated the
 /// poses, and on a pair of views that cannot be laid on top of each other the true pose lays
-/// more of SOURCE on TARGET than a wrong one: the distinct refined pose with the largest
-/// consistent overlap ([`Scored::consistent_overlap`]) then becomes the answer when it exceeds
-/// the first answer's by more than [`super::Tuning::answer_overlap_lead`] and explains a match
-/// (`overlap_leader`). It is fitted finely and appraised like the first (figures, constraint,
+/// more of SOURCE on TARGET than a wrong one: the first answer and up to
+/// [`super::Tuning::answer_fine_pool`] distinct refined poses that explain a match are fitted
+/// finely, and the one that lays the most of SOURCE's fine points on TARGET's surface becomes
+/// the answer when it leads the first answer by more than [`super::Tuning::answer_fine_lead`]
+/// (`fine_overlap_leader`; with the pool at 0, the largest consistent overlap of the coarse
+/// poses, [`Scored::consistent_overlap`], by more than
+/// [`super::Tuning::answer_overlap_lead`], `overlap_leader`). It is appraised like the first (figures, constraint,
 /// rivals and candidates all describe it, with the first answer listed second); its verdict is
 /// never `confident`: `not_found` when its figures and the first answer's both say so, else
 /// `ambiguous` with [`quality::Reason::MatchesFavourAnotherPose`].

@@ -715,9 +715,9 @@ impl PairReport {
                 let free = c.free_space_violation.map_or(String::new(), |v| {
                     format!(", free space {:.1} %", 100.0 * v)
                 });
-                let fine = c.fine_overlap.map_or(String::new(), |v| {
-                    format!(" (fine points {:.0} %)", 100.0 * v)
-                });
+                let fine = c
+                    .fine_overlap
+                    .map_or(String::new(), |v| format!(" (fine {:.0} %)", 100.0 * v));
                 format!(
                     "{head}: score {:.2}, coverage {:.0} %{fine}, {} agreeing pairs{free}",
                     c.score,
