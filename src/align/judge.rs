@@ -177,8 +177,14 @@ fn overlap_leader(
 /// no pose is fitted twice: the pool of [`fine_overlap_leader`] and the fitted rivals of the
 /// listing ([`shown_poses`]) share them. A fit depends on the pose alone, so the result does
 /// not depend on which thread made it first.
+///
+/// It also keeps the fine overlap measured of each pose ([`FitCache::fine_share`]), so that the
+/// pool's measure and a listed candidate's `fine_overlap` of the same pose are one pass.
 #[derive(Default)]
-struct FitCache(std::sync::Mutex<Vec<(usize, FineFit)>>);
+struct FitCache {
+    fits: std::sync::Mutex<Vec<(usize, FineFit)>>,
+    shares: std::sync::Mutex<Vec<(Rigid, f64)>>,
+}
 
 impl FitCache {
     /// The fine fit of refined pose `i`, made now or taken from an earlier call.
@@ -198,11 +204,37 @@ impl FitCache {
         })
     }
 
-    fn lock(&self) -> std::sync::MutexGuard<'_, Vec<(usize, FineFit)>> {
-        self.0
-            .lock()
-            .unwrap_or_else(std::sync::PoisonError::into_inner)
+    /// [`pinning::fine_fit`] of `pose` (the share of SOURCE's fine points within the plane
+    /// tolerance of TARGET's fine surface), measured now or taken from an earlier call on the
+    /// same pose (bit for bit).
+    fn fine_share(&self, inputs: &Inputs<'_>, pose: &Rigid) -> f64 {
+        let known = lock(&self.shares)
+            .iter()
+            .find(|m| m.0 == *pose)
+            .map(|m| m.1);
+        known.unwrap_or_else(|| {
+            let share = pinning::fine_fit(
+                inputs.source,
+                inputs.target,
+                pose,
+                inputs.params,
+                inputs.tau,
+            );
+            lock(&self.shares).push((*pose, share));
+            share
+        })
     }
+
+    fn lock(&self) -> std::sync::MutexGuard<'_, Vec<(usize, FineFit)>> {
+        lock(&self.fits)
+    }
+}
+
+/// `mutex` locked; a poisoned lock is taken as it is (its list only ever grows by whole entries).
+fn lock<T>(mutex: &std::sync::Mutex<T>) -> std::sync::MutexGuard<'_, T> {
+    mutex
+        .lock()
+        .unwrap_or_else(std::sync::PoisonError::into_inner)
 }
 
 /// With [`super::Tuning::answer_fine_pool`]: the first answer and up to that many other
@@ -232,12 +264,12 @@ fn fine_overlap_leader(
             .then(a.cmp(&b))
     });
     pool.truncate(tu.answer_fine_pool);
-    let base = fine_consistent(inputs, &refined.fit.local);
+    let base = fine_consistent(inputs, &refined.fit.local, fits);
     let fitted: Vec<(usize, FineFit, f64)> = pool
         .par_iter()
         .map(|&i| {
             let fit = fits.fit(inputs, i);
-            let m = fine_consistent(inputs, &fit.local);
+            let m = fine_consistent(inputs, &fit.local, fits);
             (i, fit, m)
         })
         .collect();
@@ -255,16 +287,9 @@ fn fine_overlap_leader(
 /// fine points within the plane tolerance of TARGET's fine surface, normals agreeing) less
 /// [`FREE_SPACE_WEIGHT`] × its free-space violation share where a sensor position is known,
 /// at least 0 (as [`super::candidates::Scored::consistent_overlap`] on the keypoints).
-fn fine_consistent(inputs: &Inputs<'_>, pose: &Rigid) -> f64 {
+fn fine_consistent(inputs: &Inputs<'_>, pose: &Rigid, fits: &FitCache) -> f64 {
     let free = FREE_SPACE_WEIGHT * inputs.seen.violation(pose).unwrap_or(0.0);
-    let fine = pinning::fine_fit(
-        inputs.source,
-        inputs.target,
-        pose,
-        inputs.params,
-        inputs.tau,
-    );
-    (fine - free).max(0.0)
+    (fits.fine_share(inputs, pose) - free).max(0.0)
 }
 
 /// Figures, verdict and candidates of `answer` (an index into `polished`; `None` when nothing
@@ -518,9 +543,7 @@ fn appraise(
                 score: p.score(most),
                 rivalry: s.rivalry,
                 overlap: p.overlap,
-                fine_overlap: s
-                    .fitted
-                    .then(|| pinning::fine_fit(source, target, &s.pose, params, tau)),
+                fine_overlap: s.fitted.then(|| fits.fine_share(inputs, &s.pose)),
                 explained: p.explained,
                 evidence: p.evidence,
                 angle_deg,
