@@ -99,9 +99,9 @@ pub struct Inputs<'a> {
 /// finely, and the one that lays the most of SOURCE's fine points on TARGET's surface becomes
 /// the answer when it leads the first answer by more than [`super::Tuning::answer_fine_lead`]
 /// (`fine_overlap_leader`; with the pool at 0, the largest consistent overlap of the coarse
-/// poses, [`Scored::consistent_overlap`], by more than
-/// [`super::Tuning::answer_overlap_lead`], `overlap_leader`). It is appraised like the first (figures, constraint,
-/// rivals and candidates all describe it, with the first answer listed second); its verdict is
+/// poses, [`Scored::consistent_overlap`], by more than [`super::Tuning::answer_overlap_lead`],
+/// `overlap_leader`). It is appraised like the first (figures, constraint, rivals and
+/// candidates all describe it, with the first answer listed second); its verdict is
 /// never `confident`: `not_found` when its figures and the first answer's both say so, else
 /// `ambiguous` with [`quality::Reason::MatchesFavourAnotherPose`].
 pub fn judge(inputs: &Inputs<'_>) -> Result<Judgement> {
@@ -189,7 +189,10 @@ struct FitCache {
 impl FitCache {
     /// The fine fit of refined pose `i`, made now or taken from an earlier call.
     fn fit(&self, inputs: &Inputs<'_>, i: usize) -> FineFit {
-        let known = self.lock().iter().find(|f| f.0 == i).map(|f| f.1.clone());
+        let known = lock(&self.fits)
+            .iter()
+            .find(|f| f.0 == i)
+            .map(|f| f.1.clone());
         known.unwrap_or_else(|| {
             let pose = &inputs.refined.polished[i].pose;
             let fit = fit_fine(
@@ -199,7 +202,7 @@ impl FitCache {
                 inputs.params,
                 inputs.tau,
             );
-            self.lock().push((i, fit.clone()));
+            lock(&self.fits).push((i, fit.clone()));
             fit
         })
     }
@@ -223,10 +226,6 @@ impl FitCache {
             lock(&self.shares).push((*pose, share));
             share
         })
-    }
-
-    fn lock(&self) -> std::sync::MutexGuard<'_, Vec<(usize, FineFit)>> {
-        lock(&self.fits)
     }
 }
 
